@@ -1,0 +1,219 @@
+"""Reading model files (TOML, our own layout) and finding built-in models by name.
+
+Every error names the file, the line, the offending text and what would be accepted.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from dataclasses import replace
+from pathlib import Path
+from typing import Any
+
+from gen.errors import InputError
+from gen.expressions import ACCEPTED, ExpressionError
+from gen.model import FixedPointRequest, Model, Parameter, Rhythm, State
+
+MODELS_FOLDER = Path(__file__).parent / "models"
+
+TOP_KEYS = {"name", "description", "states", "parameters", "equations", "rhythm", "fixed_point"}
+STATE_KEYS = {"initial", "meaning"}
+PARAMETER_KEYS = {"value", "meaning"}
+RHYTHM_KEYS = {"cycle_hz", "loop_hz"}
+FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator"}
+
+LAYOUT_HINT = (
+    "a model file has: name = \"...\", description = \"...\", [states] x = { initial = 0.5 }, "
+    "[parameters] mu = 1.0, [equations] x = \"...\", [rhythm] cycle_hz = ..., loop_hz = ..., "
+    "and optionally [fixed_point] fraction_bits, margin, integrator"
+)
+
+
+class ModelFileError(InputError):
+    """A model file is broken; the message carries file, line and offending text."""
+
+
+def builtin_names() -> list[str]:
+    """Names of the models shipped inside the tool."""
+    return sorted(p.stem for p in MODELS_FOLDER.glob("*.toml"))
+
+
+def load_model(name_or_path: str) -> Model:
+    """Load a model from a file path, or a built-in model by name."""
+    path = Path(name_or_path)
+    if path.suffix == ".toml" or path.exists():
+        if not path.is_file():
+            raise InputError(f"model file '{name_or_path}' does not exist (give a .toml model "
+                             f"file or one of the built-in names: {', '.join(builtin_names())})")
+        return read_model_file(path)
+    builtin = MODELS_FOLDER / f"{name_or_path}.toml"
+    if builtin.is_file():
+        model = read_model_file(builtin)
+        return _as_builtin(model)
+    raise InputError(f"unknown model '{name_or_path}': not a file, and not a built-in model "
+                     f"(built-in: {', '.join(builtin_names())})")
+
+
+def _as_builtin(model: Model) -> Model:
+    return replace(model, source=f"built-in:{model.name}")
+
+
+def read_model_file(path: Path) -> Model:
+    """Parse one model file into a :class:`Model`."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ModelFileError(f"{path}: cannot read the model file ({exc})") from None
+    reader = _Reader(path, text)
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        line = _line_from_message(str(exc))
+        raise reader.error(line, f"not valid TOML ({exc})", LAYOUT_HINT) from None
+    return reader.build(data)
+
+
+def _line_from_message(message: str) -> int | None:
+    found = re.search(r"line (\d+)", message)
+    return int(found.group(1)) if found else None
+
+
+class _Reader:
+    """Turns parsed TOML into a model, locating every complaint in the text."""
+
+    def __init__(self, path: Path, text: str) -> None:
+        self.path = path
+        self.lines = text.splitlines()
+
+    def error(self, line: int | None, problem: str, accepted: str) -> ModelFileError:
+        where = f"{self.path}:{line}" if line else str(self.path)
+        shown = f"\n    {self.lines[line - 1].strip()}" if line and line <= len(self.lines) else ""
+        return ModelFileError(f"{where}: {problem}{shown}\n  accepted: {accepted}")
+
+    def line_of(self, section: str | None, key: str | None = None) -> int | None:
+        """Line of ``key`` inside ``[section]`` (or at top level), or of the section header."""
+        current: str | None = None
+        header_line = None
+        for number, raw in enumerate(self.lines, start=1):
+            stripped = raw.strip()
+            header = re.match(r"^\[([^\]]+)\]", stripped)
+            if header:
+                current = header.group(1).strip()
+                if current == section:
+                    header_line = number
+                continue
+            if current == section and key is not None and re.match(
+                    rf"^\"?{re.escape(key)}\"?\s*=", stripped):
+                return number
+        return header_line
+
+    def table(self, data: dict, section: str, required: bool = True) -> dict:
+        value = data.get(section)
+        if value is None:
+            if required:
+                raise self.error(None, f"the section [{section}] is missing", LAYOUT_HINT)
+            return {}
+        if not isinstance(value, dict):
+            raise self.error(self.line_of(None, section), f"'{section}' must be a section",
+                             LAYOUT_HINT)
+        return value
+
+    def number(self, value: Any, section: str, key: str, what: str) -> float:
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise self.error(self.line_of(section, key), f"{what} must be a number, got {value!r}",
+                             "an integer or decimal number, e.g. 0.5")
+        return float(value)
+
+    def check_keys(self, table: dict, allowed: set[str], section: str | None,
+                   entry: str | None = None) -> None:
+        for key in table:
+            if key not in allowed:
+                where = entry or key
+                raise self.error(self.line_of(section, where), f"unknown key '{key}'",
+                                 ", ".join(sorted(allowed)))
+
+    def entries(self, data: dict, section: str, value_key: str, allowed: set[str]
+                ) -> list[tuple[str, float, str]]:
+        result = []
+        for name, entry in self.table(data, section, required=(section == "states")).items():
+            if isinstance(entry, dict):
+                self.check_keys(entry, allowed, section, name)
+                if value_key not in entry:
+                    raise self.error(self.line_of(section, name),
+                                     f"'{name}' needs '{value_key}'",
+                                     f"{name} = {{ {value_key} = 0.5, meaning = \"...\" }} or "
+                                     f"{name} = 0.5")
+                value, meaning = entry[value_key], entry.get("meaning", "")
+            else:
+                value, meaning = entry, ""
+            result.append((name, self.number(value, section, name, f"'{name}'"), str(meaning)))
+        return result
+
+    def build(self, data: dict) -> Model:
+        self.check_keys(data, TOP_KEYS, None)
+        name = data.get("name")
+        if not isinstance(name, str):
+            raise self.error(self.line_of(None, "name"), "the model needs a name string",
+                             "name = \"my_oscillator\"")
+        states = [State(n, v, m) for n, v, m in
+                  self.entries(data, "states", "initial", STATE_KEYS)]
+        parameters = [Parameter(n, v, m) for n, v, m in
+                      self.entries(data, "parameters", "value", PARAMETER_KEYS)]
+        equations = self.table(data, "equations")
+        state_names = [s.name for s in states]
+        for key, text in equations.items():
+            if key not in state_names:
+                raise self.error(self.line_of("equations", key),
+                                 f"equation for '{key}', which is not a state",
+                                 f"one equation per state: {', '.join(state_names)}")
+            if not isinstance(text, str):
+                raise self.error(self.line_of("equations", key),
+                                 f"the equation for '{key}' must be a quoted string",
+                                 f"{key} = \"...\"")
+        for state in state_names:
+            if state not in equations:
+                raise self.error(self.line_of("equations"), f"no equation for state '{state}'",
+                                 f"{state} = \"...\" under [equations]")
+        rhythm = self.table(data, "rhythm")
+        self.check_keys(rhythm, RHYTHM_KEYS, "rhythm")
+        for key in sorted(RHYTHM_KEYS):
+            if key not in rhythm:
+                raise self.error(self.line_of("rhythm"), f"[rhythm] needs '{key}'",
+                                 "cycle_hz = 1.5 (cycle frequency) and loop_hz = 1000 "
+                                 "(control-loop rate)")
+        fixed = self.table(data, "fixed_point", required=False)
+        self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")
+        request = self.fixed_point_request(fixed)
+        description = data.get("description", "")
+        try:
+            return Model(
+                name=name,
+                description=str(description),
+                states=tuple(states),
+                parameters=tuple(parameters),
+                equation_text=tuple(equations[s] for s in state_names),
+                rhythm=Rhythm(self.number(rhythm["cycle_hz"], "rhythm", "cycle_hz", "cycle_hz"),
+                              self.number(rhythm["loop_hz"], "rhythm", "loop_hz", "loop_hz")),
+                fixed_point=request,
+                source=str(self.path),
+            )
+        except ExpressionError as exc:
+            state = next((s for s in state_names if f"'{s}'" in exc.problem), None)
+            line = self.line_of("equations", state) if state else self.line_of("equations")
+            raise self.error(line, f"{exc.problem}: '{exc.offending}' (column {exc.column + 1} "
+                             f"of the expression)", ACCEPTED) from None
+        except InputError as exc:
+            raise self.error(None, str(exc), LAYOUT_HINT) from None
+
+    def fixed_point_request(self, fixed: dict) -> FixedPointRequest:
+        bits = fixed.get("fraction_bits")
+        if bits is not None and (isinstance(bits, bool) or not isinstance(bits, int)):
+            raise self.error(self.line_of("fixed_point", "fraction_bits"),
+                             "fraction_bits must be a whole number", "fraction_bits = 24")
+        margin = self.number(fixed.get("margin", 4.0), "fixed_point", "margin", "margin")
+        integrator = fixed.get("integrator", "rk4")
+        if not isinstance(integrator, str):
+            raise self.error(self.line_of("fixed_point", "integrator"),
+                             "integrator must be a quoted name", "integrator = \"rk4\"")
+        return FixedPointRequest(fraction_bits=bits, margin=margin, integrator=integrator)
