@@ -1,0 +1,167 @@
+"""The C back end: renders a planned integer program through the jinja2 templates in
+``templates/``. It decides names and layout, never arithmetic: every value comes from the program.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import jinja2
+
+from gen import __version__
+from gen.c_names import CNames, comment_text
+from gen.fixed_point import FixedPointPlan
+from gen.integer_program import IntegerProgram, Op
+from gen.integrators import Integrator
+from gen.model import Model
+from gen.timing import Timing
+
+TEMPLATES = Path(__file__).resolve().parent.parent / "templates"
+
+SAFETY_NOTE = (
+    "This code can move an actuator. Clamp its outputs to the machine's limits, bench-test with "
+    "the load disconnected, keep an independent hardware stop, and follow local codes and the "
+    "machine's own safety standard. orbitfix claims no certification."
+)
+
+# The harness's functions, declared once: in the harness C and in the verifier's cffi definitions.
+HARNESS_DECLARATIONS = """\
+void orbitfix_harness_init(int32_t *out);
+void orbitfix_harness_step_each(const int32_t *in, int32_t *out, size_t count);
+void orbitfix_harness_run(int32_t *state_io, size_t steps, int32_t *record);
+void orbitfix_harness_trace(const int32_t *in, int32_t *out, int32_t *trace);
+size_t orbitfix_harness_state_count(void);
+size_t orbitfix_harness_trace_length(void);
+"""
+
+
+@dataclass(frozen=True)
+class CConstant:
+    name: str
+    literal: str
+    comment: str
+
+
+def environment() -> jinja2.Environment:
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(TEMPLATES)),
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        autoescape=False,
+    )
+    env.filters["split_lines"] = str.splitlines
+    return env
+
+
+def int_literal(value: int, word_bits: int) -> str:
+    """A literal of the word type that is right on every compiler, the most negative value too."""
+    macro = f"INT{word_bits}_C"
+    if value == -(1 << (word_bits - 1)):
+        return f"(-{macro}({(1 << (word_bits - 1)) - 1}) - 1)"
+    return f"{macro}({value})"
+
+
+def render_model(model: Model, timing: Timing, integrator: Integrator,
+                 plan: FixedPointPlan) -> dict[str, str]:
+    """The firmware files ``NAME.h`` and ``NAME.c`` for one planned model."""
+    names = CNames(model.name)
+    program = plan.program
+    constants, constant_of = _constants(plan)
+    context = {
+        "names": names,
+        "version": __version__,
+        "model": model,
+        "description": comment_text(model.description or model.name),
+        "model_fingerprint": model.fingerprint(),
+        "program_fingerprint": program.fingerprint(),
+        "timing": timing,
+        "integrator": integrator,
+        "plan": plan,
+        "program": program,
+        "program_kinds": {op.kind for op in program.ops},
+        "word_type": f"int{program.word_bits}_t",
+        "wide_type": f"int{program.product_bits}_t",
+        "word_bits": program.word_bits,
+        "states": [
+            {"field": names.field(s.name), "meaning": comment_text(s.meaning or s.name),
+             "initial": int_literal(v, program.word_bits), "initial_real": s.initial}
+            for s, v in zip(model.states, plan.initial_state, strict=True)
+        ],
+        "constants": constants,
+        "values": [_value_line(i, op, names, model, constant_of) for i, op in enumerate(program.ops)],
+        "next_state": [{"field": names.field(n), "value": f"v{i}"}
+                       for n, i in zip(program.state_names, program.next_state, strict=True)],
+        "safety": SAFETY_NOTE,
+        "comment": comment_text,
+    }
+    env = environment()
+    return {
+        names.header: env.get_template("model.h.j2").render(context),
+        names.source: env.get_template("model.c.j2").render(context),
+    }
+
+
+def render_host_harness(model: Model) -> str:
+    """The verification-only C that drives the firmware functions in bulk from the host."""
+    names = CNames(model.name)
+    return environment().get_template("host_harness.c.j2").render(
+        names=names, fields=[names.field(n) for n in model.state_names],
+        count=model.dimension, version=__version__,
+        declarations=HARNESS_DECLARATIONS)
+
+
+def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
+    """One C constant per distinct stored value and format, in order of first use."""
+    constants: list[CConstant] = []
+    by_key: dict[tuple[int, int], str] = {}
+    constant_of: dict[int, str] = {}
+    bits = plan.program.word_bits
+    for report in plan.constants:
+        key = (report.stored, report.format.fraction_bits)
+        if key not in by_key:
+            name = f"k{len(constants)}"
+            by_key[key] = name
+            exact = "exact" if report.error == 0 else (
+                f"stands for {report.represents:.17g}, error {report.error:+.3g}")
+            constants.append(CConstant(
+                name=name, literal=int_literal(report.stored, bits),
+                comment=comment_text(f"{report.real:.17g} in {report.format.name} "
+                                     f"({report.role}, first use: {report.note}); {exact}")))
+        constant_of[report.index] = by_key[key]
+    return constants, constant_of
+
+
+def _value_line(index: int, op: Op, names: CNames, model: Model,
+                constant_of: dict[int, str]) -> dict:
+    a = [f"v{i}" for i in op.args]
+    kind = op.kind
+    if kind == "state":
+        expression = f"state->{names.field(model.state_names[op.state])}"
+    elif kind == "const":
+        expression = constant_of[index]
+    elif kind in ("add", "sub", "min", "max"):
+        expression = f"{_HELPER[kind]}({a[0]}, {a[1]})"
+    elif kind in ("neg", "abs"):
+        expression = f"{_HELPER[kind]}({a[0]})"
+    elif kind == "mul":
+        expression = f"mul_round({a[0]}, {a[1]}, {op.shift}u)"
+    elif kind == "scale":
+        expression = f"mul_round({a[0]}, {constant_of[index]}, {op.shift}u)"
+    else:
+        raise ValueError(f"no C form for {kind!r}")
+    return {"name": f"v{index}", "expression": expression, "note": comment_text(op.note)}
+
+
+_HELPER = {"add": "add_sat", "sub": "sub_sat", "min": "min_word", "max": "max_word",
+           "neg": "neg_sat", "abs": "abs_sat"}
+
+
+def program_summary(program: IntegerProgram) -> dict[str, int]:
+    """How many operations of each kind the step costs (for reports)."""
+    counts: dict[str, int] = {}
+    for op in program.ops:
+        counts[op.kind] = counts.get(op.kind, 0) + 1
+    return counts

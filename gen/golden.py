@@ -1,0 +1,83 @@
+"""The golden interpreter (layer L2): runs the integer program in numpy, vectorised over a batch
+of states, and gives the bits that the C must reproduce exactly.
+
+The arithmetic rules live here once for the Python side; the C side renders the same rules from
+``templates/fixed_point.c.j2``. Both are tested against exact rational arithmetic.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from gen.integer_program import IntegerProgram
+
+
+def round_shift(product: np.ndarray, shift: int, rounding: str) -> np.ndarray:
+    """Divide by 2**shift with the program's rounding rule, in place (int64 in, int64 out).
+
+    half-up: floor(product / 2**shift + 1/2), ties go toward plus infinity.
+    """
+    if shift == 0:
+        return product
+    if rounding == "half-up":
+        product += np.int64(1 << (shift - 1))
+        product >>= np.int64(shift)
+        return product
+    raise ValueError(f"unknown rounding {rounding!r}")
+
+
+def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
+    """Every value of one step. ``states`` : int ndarray, shape (n_states, batch)."""
+    if not program.is_planned:
+        raise ValueError("the program has no fixed-point plan yet")
+    low, high = program.word_min, program.word_max
+
+    def saturate(v: np.ndarray) -> np.ndarray:
+        return np.clip(v, low, high, out=v)
+
+    values: list[np.ndarray] = []
+    batch = np.shape(states)[1:]
+    for op in program.ops:
+        a = [values[i] for i in op.args]
+        kind = op.kind
+        if kind == "state":
+            v = np.asarray(states[op.state], dtype=np.int64)
+        elif kind == "const":
+            v = np.full(batch, op.constant, dtype=np.int64)
+        elif kind == "add":
+            v = saturate(a[0] + a[1])
+        elif kind == "sub":
+            v = saturate(a[0] - a[1])
+        elif kind == "neg":
+            v = saturate(-a[0])
+        elif kind == "abs":
+            v = saturate(np.abs(a[0]))
+        elif kind == "min":
+            v = np.minimum(a[0], a[1])
+        elif kind == "max":
+            v = np.maximum(a[0], a[1])
+        elif kind == "mul":
+            v = saturate(round_shift(np.multiply(a[0], a[1]), op.shift, program.rounding))
+        elif kind == "scale":
+            v = saturate(round_shift(a[0] * np.int64(op.constant), op.shift, program.rounding))
+        else:
+            raise ValueError(f"no golden rule for {kind!r}")
+        values.append(v)
+    return values
+
+
+def step(program: IntegerProgram, states: np.ndarray) -> np.ndarray:
+    """One step from each state of the batch. Returns int64 ndarray, shape (n_states, batch)."""
+    values = evaluate(program, states)
+    return np.stack([values[i] for i in program.next_state])
+
+
+def run(program: IntegerProgram, initial: np.ndarray, steps: int) -> np.ndarray:
+    """A trajectory of ``steps`` steps from one state; row k is the state after k steps."""
+    out = np.empty((steps + 1, len(program.state_names)), dtype=np.int64)
+    state = np.asarray(initial, dtype=np.int64).reshape(-1, 1)
+    out[0] = state[:, 0]
+    for k in range(steps):
+        state = step(program, state)
+        out[k + 1] = state[:, 0]
+    return out

@@ -1,0 +1,126 @@
+"""The integer program: the single source of truth for the step function's arithmetic.
+
+A straight-line list of typed operations. Every operation produces one value, named by its index.
+The lowering fills in the real-valued structure (kinds, arguments, real constants); the fixed-point
+planner fills in the integer part (stored constants, shifts, fraction bits). The numpy golden
+interpreter (``gen.golden``) runs it and the C emitter (``gen.emit_c``) renders it; neither adds
+an arithmetic decision of its own.
+
+Semantics of each kind, on two's complement words of ``word_bits`` with products formed in
+``product_bits`` (every result saturates to the word when ``overflow`` is ``saturate``):
+
+- ``state``: the state variable ``state`` at the start of the step;
+- ``const``: the stored integer ``constant``, already in the signal format;
+- ``add``, ``sub``: exact sum or difference of two values;
+- ``neg``, ``abs``: exact negation or absolute value;
+- ``min``, ``max``: the smaller or larger of two values (cannot overflow);
+- ``mul``: the exact product of two values, shifted right by ``shift`` with the program's rounding;
+- ``scale``: the exact product of a value and the stored integer ``constant`` (whose own format has
+  ``shift`` fraction bits), shifted right by ``shift`` with the program's rounding.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass, field
+
+KINDS = ("state", "const", "add", "sub", "neg", "abs", "min", "max", "mul", "scale")
+ARITY = {"state": 0, "const": 0, "add": 2, "sub": 2, "neg": 1, "abs": 1, "min": 2, "max": 2,
+         "mul": 2, "scale": 1}
+ROUNDINGS = ("half-up",)
+OVERFLOWS = ("saturate",)
+
+
+@dataclass(frozen=True)
+class Op:
+    """One operation. Integer fields are ``None`` until the fixed-point planner has run."""
+
+    kind: str
+    args: tuple[int, ...] = ()
+    state: int | None = None
+    real: float | None = None
+    note: str = ""
+    constant: int | None = None
+    shift: int | None = None
+    fraction_bits: int | None = None
+
+    def __post_init__(self) -> None:
+        if self.kind not in KINDS:
+            raise ValueError(f"unknown operation kind {self.kind!r}")
+        if len(self.args) != ARITY[self.kind]:
+            raise ValueError(f"{self.kind} takes {ARITY[self.kind]} arguments, got {self.args}")
+
+    def to_json(self) -> dict:
+        data: dict = {"kind": self.kind, "args": list(self.args)}
+        for key in ("state", "real", "constant", "shift", "fraction_bits"):
+            value = getattr(self, key)
+            if value is not None:
+                data[key] = value
+        if self.note:
+            data["note"] = self.note
+        return data
+
+
+@dataclass(frozen=True)
+class IntegerProgram:
+    """A step function x[k+1] = F(x[k]) as straight-line integer operations.
+
+    ``next_state[i]`` is the index of the value that becomes state ``i`` after the step.
+    """
+
+    name: str
+    state_names: tuple[str, ...]
+    ops: tuple[Op, ...]
+    next_state: tuple[int, ...]
+    word_bits: int = 32
+    product_bits: int = 64
+    rounding: str = "half-up"
+    overflow: str = "saturate"
+    state_fraction_bits: tuple[int, ...] = field(default=())
+
+    def __post_init__(self) -> None:
+        if self.rounding not in ROUNDINGS:
+            raise ValueError(f"unknown rounding {self.rounding!r}")
+        if self.overflow not in OVERFLOWS:
+            raise ValueError(f"unknown overflow mode {self.overflow!r}")
+        for index, op in enumerate(self.ops):
+            if any(a >= index or a < 0 for a in op.args):
+                raise ValueError(f"operation {index} uses a value not yet computed: {op.args}")
+        loads = [op.state for op in self.ops if op.kind == "state"]
+        if loads != list(range(len(self.state_names))):
+            raise ValueError("the program must load every state once, in order, first")
+
+    @property
+    def word_min(self) -> int:
+        return -(1 << (self.word_bits - 1))
+
+    @property
+    def word_max(self) -> int:
+        return (1 << (self.word_bits - 1)) - 1
+
+    @property
+    def is_planned(self) -> bool:
+        return all(op.fraction_bits is not None for op in self.ops)
+
+    def constants(self) -> list[tuple[int, Op]]:
+        """The operations that carry a stored constant, with their value index."""
+        return [(i, op) for i, op in enumerate(self.ops) if op.kind in ("const", "scale")]
+
+    def to_json(self) -> dict:
+        return {
+            "name": self.name,
+            "state_names": list(self.state_names),
+            "word_bits": self.word_bits,
+            "product_bits": self.product_bits,
+            "rounding": self.rounding,
+            "overflow": self.overflow,
+            "state_fraction_bits": list(self.state_fraction_bits),
+            "next_state": list(self.next_state),
+            "ops": [op.to_json() for op in self.ops],
+        }
+
+    def fingerprint(self) -> str:
+        """A short hash of the whole program: same arithmetic, same fingerprint."""
+        canonical = json.dumps(self.to_json(), sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(canonical.encode()).hexdigest()[:16]

@@ -1,0 +1,187 @@
+"""Lowering: the model's equations and an integrator's tableau at a fixed step, as straight-line
+operations with real constants (the structure of the integer program, before any format is chosen).
+"""
+
+from __future__ import annotations
+
+from fractions import Fraction
+
+import numpy as np
+import sympy
+
+from gen.errors import UnsupportedError
+from gen.integer_program import IntegerProgram, Op
+from gen.integrators import Integrator
+from gen.model import Model
+
+
+def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProgram:
+    """One integrator step of ``model`` with step size ``step`` (model time units)."""
+    builder = _Builder(model)
+    names = model.state_names
+    start = [builder.add(Op("state", state=i, note=name)) for i, name in enumerate(names)]
+    slopes: list[list[int]] = []
+    for stage, row in enumerate(integrator.a, start=1):
+        if any(row):
+            point = [builder.combine(start[i], [(Fraction(step) * w, k[i]) for w, k in
+                                                zip(row, slopes, strict=False)],
+                                     f"stage {stage} point, {names[i]}")
+                     for i in range(len(names))]
+        else:
+            point = start
+        slopes.append(builder.slope(point, stage))
+    finish = [builder.combine(start[i], [(Fraction(step) * w, k[i]) for w, k in
+                                         zip(integrator.b, slopes, strict=True)],
+                              f"next {names[i]}")
+              for i in range(len(names))]
+    return IntegerProgram(name=model.name, state_names=names, ops=tuple(builder.ops),
+                          next_state=tuple(finish))
+
+
+class _Builder:
+    """Appends operations, sharing identical ones, and walks sympy expressions."""
+
+    def __init__(self, model: Model) -> None:
+        self.model = model
+        self.ops: list[Op] = []
+        self.seen: dict[tuple, int] = {}
+        self.symbols = model.state_symbols
+        self.equations = model.resolved_equations
+
+    def add(self, op: Op) -> int:
+        key = (op.kind, op.args, op.state, op.real)
+        if key in self.seen:
+            return self.seen[key]
+        self.ops.append(op)
+        self.seen[key] = len(self.ops) - 1
+        return len(self.ops) - 1
+
+    def constant(self, value: Fraction, note: str) -> int:
+        return self.add(Op("const", real=float(value), note=note))
+
+    def scaled(self, value: int, factor: Fraction, note: str) -> int:
+        if factor == 1:
+            return value
+        if factor == -1:
+            return self.add(Op("neg", (value,), note=note))
+        return self.add(Op("scale", (value,), real=float(factor), note=note))
+
+    def combine(self, base: int, terms: list[tuple[Fraction, int]], note: str) -> int:
+        """base + sum(weight * value), skipping zero weights."""
+        total = base
+        for weight, value in terms:
+            if weight == 0:
+                continue
+            if weight < 0:
+                total = self.add(Op("sub", (total, self.scaled(value, -weight, f"{note} term")),
+                                    note=note))
+            else:
+                total = self.add(Op("add", (total, self.scaled(value, weight, f"{note} term")),
+                                    note=note))
+        return total
+
+    def slope(self, point: list[int], stage: int) -> list[int]:
+        """Values of f at the stage point, one per state."""
+        table = dict(zip(self.symbols, point, strict=True))
+        memo: dict[sympy.Expr, int] = {}
+        return [self.expression(eq, table, memo, stage, name)
+                for eq, name in zip(self.equations, self.model.state_names, strict=True)]
+
+    def expression(self, expr: sympy.Expr, table: dict, memo: dict, stage: int, name: str) -> int:
+        if expr in memo:
+            return memo[expr]
+        result = self._expression(expr, table, memo, stage, name)
+        memo[expr] = result
+        return result
+
+    def _expression(self, expr: sympy.Expr, table: dict, memo: dict, stage: int, name: str) -> int:
+        note = f"stage {stage}: {sympy.sstr(expr)}"
+        walk = lambda e: self.expression(e, table, memo, stage, name)  # noqa: E731
+        if expr in table:
+            return table[expr]
+        if expr.is_Number:
+            return self.constant(_exact(expr), note)
+        if expr.is_Add:
+            terms = sorted(expr.args, key=_has_negative_sign)
+            first = terms[0]
+            if _has_negative_sign(first):
+                total = self.add(Op("neg", (walk(-first),), note=note))
+            else:
+                total = walk(first)
+            for term in terms[1:]:
+                if _has_negative_sign(term):
+                    total = self.add(Op("sub", (total, walk(-term)), note=note))
+                else:
+                    total = self.add(Op("add", (total, walk(term)), note=note))
+            return total
+        if expr.is_Mul:
+            coefficient, factors = expr.as_coeff_mul()
+            product = None
+            for factor in factors:
+                value = walk(factor)
+                product = value if product is None else self.add(Op("mul", (product, value),
+                                                                    note=note))
+            if product is None:
+                return self.constant(_exact(coefficient), note)
+            return self.scaled(product, _exact(coefficient), note)
+        if expr.is_Pow:
+            base, exponent = expr.args
+            if not (exponent.is_Integer and int(exponent) >= 1):
+                raise UnsupportedError(
+                    f"model '{self.model.name}', equation for '{name}': '{sympy.sstr(expr)}' "
+                    "divides by a signal, which fixed point cannot do safely; rewrite the model "
+                    "so that only constants divide")
+            value = walk(base)
+            result = value
+            for _ in range(int(exponent) - 1):
+                result = self.add(Op("mul", (result, value), note=note))
+            return result
+        if isinstance(expr, sympy.Min | sympy.Max):
+            kind = "min" if isinstance(expr, sympy.Min) else "max"
+            values = [walk(arg) for arg in expr.args]
+            result = values[0]
+            for value in values[1:]:
+                result = self.add(Op(kind, (result, value), note=note))
+            return result
+        if isinstance(expr, sympy.Abs):
+            return self.add(Op("abs", (walk(expr.args[0]),), note=note))
+        raise UnsupportedError(f"model '{self.model.name}', equation for '{name}': "
+                               f"'{sympy.sstr(expr)}' has no fixed-point form yet")
+
+
+def _has_negative_sign(term: sympy.Expr) -> bool:
+    return term.could_extract_minus_sign()
+
+
+def _exact(number: sympy.Expr) -> Fraction:
+    """The exact rational value of a sympy number (a float's exact binary value)."""
+    if number.is_Rational:
+        return Fraction(int(number.p), int(number.q))
+    return Fraction(float(number))
+
+
+def evaluate_real(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
+    """Every value of the program in float64 with its real constants and no rounding: the
+    integrator's step map at layer L1. ``states`` : ndarray, shape (n_states, batch)."""
+    values: list[np.ndarray] = []
+    for op in program.ops:
+        a = [values[i] for i in op.args]
+        if op.kind == "state":
+            values.append(np.asarray(states[op.state], dtype=float))
+        elif op.kind == "const":
+            values.append(np.full(np.shape(states[0]), op.real))
+        else:
+            values.append(_REAL[op.kind](op, a))
+    return values
+
+
+_REAL = {
+    "add": lambda op, a: a[0] + a[1],
+    "sub": lambda op, a: a[0] - a[1],
+    "neg": lambda op, a: -a[0],
+    "abs": lambda op, a: np.abs(a[0]),
+    "min": lambda op, a: np.minimum(a[0], a[1]),
+    "max": lambda op, a: np.maximum(a[0], a[1]),
+    "mul": lambda op, a: a[0] * a[1],
+    "scale": lambda op, a: a[0] * op.real,
+}
