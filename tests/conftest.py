@@ -1,0 +1,22 @@
+"""Shared fixtures: a private build cache per test session, and the C compilers at hand."""
+
+from __future__ import annotations
+
+import shutil
+
+import pytest
+
+
+@pytest.fixture(autouse=True, scope="session")
+def private_build_cache(tmp_path_factory: pytest.TempPathFactory) -> None:
+    """Host builds go to a fresh cache folder, so no test reuses a build from outside the run."""
+    folder = tmp_path_factory.mktemp("orbitfix-cache")
+    patch = pytest.MonkeyPatch()
+    patch.setenv("ORBITFIX_CACHE", str(folder))
+    yield
+    patch.undo()
+
+
+def compilers() -> list[str]:
+    """The C compilers of the warning matrix that this machine has (gcc is required)."""
+    return [cc for cc in ("gcc", "clang") if shutil.which(cc)]

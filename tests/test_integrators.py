@@ -1,0 +1,85 @@
+"""Integrators as data: every registered tableau meets its order conditions, and the lowered step
+map reproduces the tableau's float step and the published harmonic-oscillator facts."""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+
+import numpy as np
+import pytest
+
+from gen.integrators import INTEGRATORS, Integrator
+from gen.lowering import evaluate_real, lower_step
+from gen.model import define_model
+
+# Butcher's order conditions up to order 4 (Hairer, Norsett, Wanner, Solving ODEs I, Table II.2.1).
+
+
+def order_conditions(m: Integrator) -> list[tuple[int, Fraction, Fraction]]:
+    s = m.stages
+    a = [[m.a[i][j] if j < len(m.a[i]) else Fraction(0) for j in range(s)] for i in range(s)]
+    b, c = m.b, m.c
+    ac = [sum(a[i][j] * c[j] for j in range(s)) for i in range(s)]
+    return [
+        (1, sum(b), Fraction(1)),
+        (2, sum(b[i] * c[i] for i in range(s)), Fraction(1, 2)),
+        (3, sum(b[i] * c[i] ** 2 for i in range(s)), Fraction(1, 3)),
+        (3, sum(b[i] * ac[i] for i in range(s)), Fraction(1, 6)),
+        (4, sum(b[i] * c[i] ** 3 for i in range(s)), Fraction(1, 4)),
+        (4, sum(b[i] * c[i] * ac[i] for i in range(s)), Fraction(1, 8)),
+        (4, sum(b[i] * a[i][j] * c[j] ** 2 for i in range(s) for j in range(s)), Fraction(1, 12)),
+        (4, sum(b[i] * a[i][j] * ac[j] for i in range(s) for j in range(s)), Fraction(1, 24)),
+    ]
+
+
+@pytest.mark.parametrize("method", INTEGRATORS.values(), ids=list(INTEGRATORS))
+def test_tableau_meets_the_order_conditions_of_its_order(method: Integrator) -> None:
+    for row, ci in zip(method.a, method.c, strict=True):
+        assert sum(row, Fraction(0)) == ci  # c_i = sum_j a_ij (row-sum condition)
+    for order, got, want in order_conditions(method):
+        if order <= method.order:
+            assert got == want, (order, got, want)
+
+
+HARMONIC = define_model("harmonic", {"x": 1.0, "y": 0.0}, {"x": "y", "y": "-x"},
+                        cycle_hz=1, loop_hz=100)
+VANDERPOL = define_model("vdp", {"x": 0.5, "y": 0.0}, {"x": "y", "y": "mu*(1 - x^2)*y - x"},
+                         {"mu": 1.3}, cycle_hz=1, loop_hz=100)
+
+
+@pytest.mark.parametrize("method", INTEGRATORS.values(), ids=list(INTEGRATORS))
+def test_lowered_program_equals_the_tableau_step(method: Integrator) -> None:
+    rng = np.random.default_rng(1)
+    states = rng.uniform(-3, 3, size=(2, 500))
+    h = 0.05
+    program = lower_step(VANDERPOL, method, h)
+    values = evaluate_real(program, states)
+    lowered = np.stack([values[i] for i in program.next_state])
+    f = VANDERPOL.vector_field()
+    reference = method.step(lambda x: f(0.0, x), states, h)
+    np.testing.assert_allclose(lowered, reference, rtol=1e-13, atol=1e-13)
+
+
+def one_step_gain(method: Integrator, h: float) -> tuple[float, float]:
+    program = lower_step(HARMONIC, method, h)
+    values = evaluate_real(program, np.array([[1.0], [0.0]]))
+    x, y = (float(values[i][0]) for i in program.next_state)
+    return math.hypot(x, y), math.atan2(-y, x)
+
+
+@pytest.mark.parametrize("h", [0.01, 0.1, 0.5])
+def test_euler_amplifies_the_harmonic_oscillator_by_sqrt_1_plus_h2(h: float) -> None:
+    # Exact discrete fact (Hairer, Lubich, Wanner, Geometric Numerical Integration, section I.1).
+    gain, _ = one_step_gain(INTEGRATORS["euler"], h)
+    assert gain == pytest.approx(math.sqrt(1 + h * h), rel=1e-14)
+
+
+@pytest.mark.parametrize("h", [0.01, 0.1, 0.5, 1.0])
+def test_rk4_gain_and_phase_follow_its_stability_polynomial(h: float) -> None:
+    # R(z) = 1 + z + z^2/2 + z^3/6 + z^4/24 at z = i h (Hairer, Norsett, Wanner, section IV.2).
+    z = 1j * h
+    r = 1 + z + z**2 / 2 + z**3 / 6 + z**4 / 24
+    gain, phase = one_step_gain(INTEGRATORS["rk4"], h)
+    assert gain == pytest.approx(abs(r), rel=1e-14)
+    assert phase == pytest.approx(math.atan2(r.imag, r.real), rel=1e-13)
