@@ -1,0 +1,268 @@
+"""The ``orbitfix`` command: check, gen and verify.
+
+It lives on the verification side because it is the one place that drives both sides.
+Exit codes: 0 success, 1 a check failed (no stable cycle, not bit-exact), 2 bad input or usage.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+import traceback
+from pathlib import Path
+from typing import Any
+
+from gen import __version__
+from gen.analysis import analyse, format_report
+from gen.emit_c import SAFETY_NOTE, render_model
+from gen.errors import InputError, OrbitfixError
+from gen.integrators import INTEGRATORS
+from gen.model import Model
+from gen.model_file import load_model
+from gen.pipeline import Design, NoStableCycleError, design
+from verify.host_build import STRICT_FLAGS
+from verify.host_check import check_on_host
+
+CAUTION = "Caution: " + SAFETY_NOTE
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line; returns the exit code (also used by the console script)."""
+    parser = _parser()
+    args = parser.parse_args(argv)
+    partial: dict[str, Any] = {}
+    try:
+        return args.handler(args, partial)
+    except NoStableCycleError as exc:
+        return _fail(args, partial, exc, report=format_report(exc.analysis))
+    except OrbitfixError as exc:
+        return _fail(args, partial, exc)
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130
+    except Exception:  # a bug of ours, not a user mistake: say so and show where
+        print("orbitfix: internal error (please report it with the model file):", file=sys.stderr)
+        traceback.print_exc()
+        return 3
+
+
+def _fail(args: argparse.Namespace, partial: dict, exc: OrbitfixError, report: str = "") -> int:
+    """Report an error without losing what was already computed."""
+    if getattr(args, "json", False):
+        partial["error"] = str(exc)
+        print(json.dumps(_plain(partial), indent=2))
+    elif report:
+        print(report)
+    print(f"orbitfix {args.verb}: {exc}", file=sys.stderr)
+    return exc.exit_code
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="orbitfix",
+        description="Prove an oscillator's limit cycle, write it as fixed-point C, and prove the "
+                    "C gives the golden model's bits.",
+        epilog=CAUTION)
+    parser.add_argument("--version", action="version", version=f"orbitfix {__version__}")
+    verbs = parser.add_subparsers(dest="verb", required=True, metavar="VERB")
+
+    def common(p: argparse.ArgumentParser, json_flag: bool = True) -> None:
+        p.add_argument("model", help="a model file (.toml) or a built-in model name")
+        p.add_argument("--set", action="append", default=[], metavar="NAME=VALUE",
+                       help="override a model parameter (repeatable)")
+        if json_flag:
+            p.add_argument("--json", action="store_true", help="print one JSON object")
+
+    def fixed(p: argparse.ArgumentParser) -> None:
+        p.add_argument("--integrator", choices=sorted(INTEGRATORS),
+                       help="integrator of the step function (default: the model's, else rk4)")
+        p.add_argument("--fraction-bits", type=int, metavar="N",
+                       help="fraction bits of the Q format (default: chosen from the cycle's range)")
+
+    check = verbs.add_parser("check", help="analyse the continuous model: equilibria and cycle")
+    common(check)
+    check.set_defaults(handler=_check)
+
+    gen = verbs.add_parser("gen", help="write NAME.h and NAME.c for the model")
+    common(gen, json_flag=False)
+    fixed(gen)
+    gen.add_argument("-o", "--output", required=True, type=Path, metavar="DIR",
+                     help="folder to write the C files into (created if missing)")
+    gen.add_argument("--program-json", type=Path, metavar="FILE",
+                     help="also write the integer program as JSON to FILE")
+    gen.set_defaults(handler=_gen)
+
+    verify = verbs.add_parser("verify", help="prove the C bit-exact against the golden model")
+    common(verify)
+    fixed(verify)
+    verify.add_argument("--sources", type=Path, metavar="DIR",
+                        help="verify NAME.h and NAME.c already in DIR instead of generating them")
+    verify.add_argument("--states", type=_count, default=1_000_000, metavar="N",
+                        help="random states to compare one step from (default 1000000)")
+    verify.add_argument("--steps", type=_count, default=1_000_000, metavar="N",
+                        help="trajectory steps to compare (default 1000000)")
+    verify.set_defaults(handler=_verify)
+    return parser
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text.replace("_", ""))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError("give at least 1")
+    return value
+
+
+def _model(args: argparse.Namespace) -> Model:
+    model = load_model(args.model)
+    overrides = {}
+    for item in args.set:
+        name, sep, value = item.partition("=")
+        if not sep or not name.strip():
+            raise InputError(f"--set '{item}': write NAME=VALUE, e.g. --set mu=2.5")
+        try:
+            number = float(value)
+        except ValueError:
+            raise InputError(f"--set '{item}': '{value}' is not a number") from None
+        if not math.isfinite(number):
+            raise InputError(f"--set '{item}': the value must be finite")
+        overrides[name.strip()] = number
+    model = model.with_parameters(overrides)
+    changes: dict[str, Any] = {}
+    if getattr(args, "integrator", None):
+        changes["integrator"] = args.integrator
+    if getattr(args, "fraction_bits", None) is not None:
+        changes["fraction_bits"] = args.fraction_bits
+    return model.with_fixed_point(**changes) if changes else model
+
+
+def _check(args: argparse.Namespace, partial: dict) -> int:
+    model = _model(args)
+    analysis = analyse(model)
+    if args.json:
+        result = analysis.to_json()
+        result["ok"] = analysis.ok
+        print(json.dumps(_plain(result), indent=2))
+    else:
+        print(format_report(analysis))
+        print()
+        print(CAUTION)
+    return 0 if analysis.ok else 1
+
+
+def _gen(args: argparse.Namespace, partial: dict) -> int:
+    model = _model(args)
+    built = design(model)
+    files = render_model(model, built.timing, built.integrator, built.plan)
+    try:
+        args.output.mkdir(parents=True, exist_ok=True)
+        for name, text in files.items():
+            (args.output / name).write_text(text)
+        if args.program_json:
+            args.program_json.parent.mkdir(parents=True, exist_ok=True)
+            args.program_json.write_text(json.dumps(built.plan.program.to_json(), indent=2) + "\n")
+    except OSError as exc:
+        raise InputError(f"cannot write into '{args.output}': {exc}") from None
+    for line in _design_lines(built):
+        print(line)
+    for name in files:
+        print(f"wrote {args.output / name}")
+    if args.program_json:
+        print(f"wrote {args.program_json}")
+    print(CAUTION)
+    return 0
+
+
+def _verify(args: argparse.Namespace, partial: dict) -> int:
+    model = _model(args)
+    partial["model"] = model.name
+    built = design(model)
+    partial.update(_design_json(built))
+    outcome = check_on_host(built, args.sources, states=args.states, steps=args.steps)
+    report = outcome.report
+    mismatch = report.first_mismatch
+    partial.update({
+        "bit_exact": report.bit_exact,
+        "states_compared": report.states_compared,
+        "steps_compared": report.steps_compared,
+        "first_mismatch": mismatch.to_json() if mismatch else None,
+        "sources": outcome.sources,
+        "notes": outcome.notes,
+        "compiler_flags": list(STRICT_FLAGS),
+        "seconds": {"host_build": outcome.build_seconds, **report.seconds},
+    })
+    if args.json:
+        print(json.dumps(_plain(partial), indent=2))
+    else:
+        for line in _design_lines(built):
+            print(line)
+        print(f"C sources: {outcome.sources}")
+        for note in outcome.notes:
+            print(f"  note: {note}")
+        reused = " (reused from the cache)" if outcome.build_reused else ""
+        print(f"host build: {' '.join(STRICT_FLAGS)}, {outcome.build_seconds:.2f} s{reused}")
+        print(f"random states: {report.states_compared:,} compared one step each"
+              + _seconds(report.seconds.get("random_states")))
+        if "trajectory" in report.seconds or report.steps_compared:
+            print(f"trajectory from the initial state: {report.steps_compared:,} steps compared"
+                  + _seconds(report.seconds.get("trajectory")))
+        if mismatch:
+            print(mismatch.describe())
+            print("result: NOT bit-exact: the C does not give the golden model's bits")
+        else:
+            print("result: bit-exact: the C gives the golden model's bits at every compared step")
+        print(CAUTION)
+    return 0 if report.bit_exact else 1
+
+
+def _seconds(value: float | None) -> str:
+    return f" ({value:.2f} s)" if value is not None else ""
+
+
+def _design_json(built: Design) -> dict:
+    return {
+        "model": built.model.name,
+        "params": built.model.parameter_values,
+        "integrator": built.integrator.name,
+        "step_size": built.timing.step,
+        "timing": built.timing.to_json(),
+        "formats": built.plan.formats_json(),
+        "program_fingerprint": built.plan.program.fingerprint(),
+        "warnings": list(built.plan.warnings),
+    }
+
+
+def _design_lines(built: Design) -> list[str]:
+    t, plan = built.timing, built.plan
+    lines = [
+        f"model {built.model.name}: cycle period {t.model_period:.6g} model time units; "
+        f"{t.cycle_hz:g} Hz at a {t.loop_hz:g} Hz loop gives a step of {t.step:.6g} "
+        f"({t.steps_per_cycle:.1f} steps per cycle)",
+        f"integrator {built.integrator.name}; every signal {plan.signal_format.name} in "
+        f"{plan.program.word_bits}-bit words, {plan.program.product_bits}-bit products, rounding "
+        f"half up, saturation; largest signal {plan.largest_signal:.4g} on the cycle, "
+        f"{plan.headroom_bits:.2f} bits of headroom",
+    ]
+    lines += [f"  warning: {w}" for w in plan.warnings]
+    return lines
+
+
+def _plain(value: Any) -> Any:
+    """JSON-safe copy: numpy scalars to Python, non-finite floats to strings."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_plain(v) for v in value]
+    if hasattr(value, "item") and not isinstance(value, str):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    return value
+
+
+if __name__ == "__main__":
+    sys.exit(main())
