@@ -23,19 +23,24 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
     slopes: list[list[int]] = []
     for stage, row in enumerate(integrator.a, start=1):
         if any(row):
-            point = [builder.combine(start[i], [(Fraction(step) * w, k[i]) for w, k in
-                                                zip(row, slopes, strict=False)],
+            point = [builder.combine(start[i], _terms(step, row, slopes, i, names[i]),
                                      f"stage {stage} point, {names[i]}")
                      for i in range(len(names))]
         else:
             point = start
         slopes.append(builder.slope(point, stage))
-    finish = [builder.combine(start[i], [(Fraction(step) * w, k[i]) for w, k in
-                                         zip(integrator.b, slopes, strict=True)],
+    finish = [builder.combine(start[i], _terms(step, integrator.b, slopes, i, names[i]),
                               f"next {names[i]}")
               for i in range(len(names))]
     return IntegerProgram(name=model.name, state_names=names, ops=tuple(builder.ops),
                           next_state=tuple(finish))
+
+
+def _terms(step: float, weights: tuple[Fraction, ...], slopes: list[list[int]], state: int,
+           name: str) -> list[tuple[Fraction, int, str]]:
+    """The weighted slopes h * w_j * k_j of one state, labelled for the C comments."""
+    return [(Fraction(step) * w, k[state], f"h*{w} times slope {j} of {name}")
+            for j, (w, k) in enumerate(zip(weights, slopes, strict=False), start=1)]
 
 
 class _Builder:
@@ -66,18 +71,14 @@ class _Builder:
             return self.add(Op("neg", (value,), note=note))
         return self.add(Op("scale", (value,), real=float(factor), note=note))
 
-    def combine(self, base: int, terms: list[tuple[Fraction, int]], note: str) -> int:
+    def combine(self, base: int, terms: list[tuple[Fraction, int, str]], note: str) -> int:
         """base + sum(weight * value), skipping zero weights."""
         total = base
-        for weight, value in terms:
+        for weight, value, label in terms:
             if weight == 0:
                 continue
-            if weight < 0:
-                total = self.add(Op("sub", (total, self.scaled(value, -weight, f"{note} term")),
-                                    note=note))
-            else:
-                total = self.add(Op("add", (total, self.scaled(value, weight, f"{note} term")),
-                                    note=note))
+            kind = "sub" if weight < 0 else "add"
+            total = self.add(Op(kind, (total, self.scaled(value, abs(weight), label)), note=note))
         return total
 
     def slope(self, point: list[int], stage: int) -> list[int]:
