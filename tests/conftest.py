@@ -20,3 +20,12 @@ def private_build_cache(tmp_path_factory: pytest.TempPathFactory) -> None:
 def compilers() -> list[str]:
     """The C compilers of the warning matrix that this machine has (gcc is required)."""
     return [cc for cc in ("gcc", "clang") if shutil.which(cc)]
+
+
+@pytest.fixture(scope="session")
+def vanderpol_design():
+    """The built-in model through the whole generation pipeline (analysed once per session)."""
+    from gen.model_file import load_model
+    from gen.pipeline import design
+
+    return design(load_model("vanderpol"))

@@ -75,12 +75,12 @@ def test_broken_files_name_file_line_and_text(tmp_path: Path, change: tuple[str,
 
 
 def test_unknown_name_lists_builtins() -> None:
-    with pytest.raises(InputError, match="built-in: .*vanderpol"):
+    with pytest.raises(InputError, match=r"built-in: .*vanderpol"):
         load_model("no_such_oscillator")
 
 
 def test_unknown_parameter_override_is_refused() -> None:
-    with pytest.raises(InputError, match="no parameter 'nu'.*mu"):
+    with pytest.raises(InputError, match=r"no parameter 'nu'.*mu"):
         load_model("vanderpol").with_parameters({"nu": 1.0})
 
 

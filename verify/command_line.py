@@ -148,9 +148,7 @@ def _check(args: argparse.Namespace, partial: dict) -> int:
         result["ok"] = analysis.ok
         print(json.dumps(_plain(result), indent=2))
     else:
-        print(format_report(analysis))
-        print()
-        print(CAUTION)
+        print(format_report(analysis))  # the report carries its own caution
     return 0 if analysis.ok else 1
 
 

@@ -17,12 +17,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from gen import golden  # noqa: E402
-from gen.emit_c import render_host_harness, render_model  # noqa: E402
-from gen.model_file import load_model  # noqa: E402
-from gen.pipeline import design  # noqa: E402
-from verify.bit_exact import _c_run, prove_bit_exact  # noqa: E402
-from verify.host_build import build_host_module  # noqa: E402
+from gen import golden
+from gen.emit_c import render_host_harness, render_model
+from gen.model_file import load_model
+from gen.pipeline import design
+from verify.bit_exact import _c_run, prove_bit_exact
+from verify.host_build import build_host_module
 
 
 def best(seconds: list[float]) -> float:

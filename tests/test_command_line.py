@@ -1,0 +1,147 @@
+"""The command line: its JSON contract, exit codes, and clear messages (never a traceback) for
+user mistakes."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from verify.command_line import main
+
+KINDS = {"stable node", "unstable node", "stable focus", "unstable focus", "saddle", "center"}
+
+
+def run(capsys: pytest.CaptureFixture, *argv: str) -> tuple[int, str, str]:
+    code = main(list(argv))
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_check_json_contract(capsys) -> None:
+    code, out, _ = run(capsys, "check", "vanderpol", "--json")
+    assert code == 0
+    data = json.loads(out)
+    assert data["model"] == "vanderpol"
+    assert data["params"] == {"mu": 1.0}
+    assert data["equilibria"] and all(e["kind"] in KINDS for e in data["equilibria"])
+    for e in data["equilibria"]:
+        assert len(e["state"]) == 2 and all(len(pair) == 2 for pair in e["eigenvalues"])
+    cycle = data["cycle"]
+    for key in ("found", "stable", "period", "state_min", "state_max", "floquet"):
+        assert key in cycle
+    assert cycle["found"] and cycle["stable"]
+    assert cycle["period"] == pytest.approx(6.6633, rel=1e-4)  # published value, mu = 1
+
+
+def test_check_text_report_and_caution(capsys) -> None:
+    code, out, _ = run(capsys, "check", "vanderpol")
+    assert code == 0
+    assert "unstable focus" in out
+    assert "Caution" in out
+
+
+def test_negative_damping_has_no_cycle_and_exits_1(capsys) -> None:
+    code, out, _ = run(capsys, "check", "vanderpol", "--set", "mu=-1", "--json")
+    assert code == 1
+    data = json.loads(out)
+    assert data["equilibria"][0]["kind"] == "stable focus"
+    assert not data["cycle"]["stable"]
+
+
+def test_zero_damping_is_a_center_with_no_isolated_cycle(capsys) -> None:
+    code, out, _ = run(capsys, "check", "vanderpol", "--set", "mu=0")
+    assert code == 1
+    assert "center" in out
+    assert "not isolated" in out or "family" in out
+
+
+@pytest.mark.parametrize("argv", [
+    ["check", "vanderpol", "--set", "nu=1"],
+    ["check", "vanderpol", "--set", "mu"],
+    ["check", "vanderpol", "--set", "mu=fast"],
+    ["check", "no_such_model"],
+    ["check", "missing.toml"],
+    ["gen", "vanderpol", "-o", "/proc/orbitfix-cannot-write-here"],
+    ["verify", "vanderpol", "--sources", "/nonexistent-folder"],
+    ["verify", "vanderpol", "--fraction-bits", "30"],
+])
+def test_user_mistakes_exit_2_with_a_message(capsys, argv: list[str]) -> None:
+    code, _, err = run(capsys, *argv)
+    assert code == 2
+    assert err.startswith("orbitfix ")
+    assert "Traceback" not in err
+
+
+def test_broken_model_file_names_file_and_line(capsys, tmp_path: Path) -> None:
+    path = tmp_path / "bad.toml"
+    path.write_text('name = "bad"\n[states]\nx = 1\n[equations]\nx = "import os"\n'
+                    '[rhythm]\ncycle_hz = 1\nloop_hz = 100\n')
+    code, _, err = run(capsys, "check", str(path))
+    assert code == 2
+    assert f"{path}:5" in err
+
+
+def test_usage_errors_exit_2(capsys) -> None:
+    with pytest.raises(SystemExit) as caught:
+        main(["check"])
+    assert caught.value.code == 2
+
+
+def test_gen_writes_header_source_and_program(capsys, tmp_path: Path) -> None:
+    code, _, _ = run(capsys, "gen", "vanderpol", "-o", str(tmp_path / "fw"),
+                       "--program-json", str(tmp_path / "program.json"))
+    assert code == 0
+    assert (tmp_path / "fw" / "vanderpol.h").is_file()
+    assert (tmp_path / "fw" / "vanderpol.c").is_file()
+    program = json.loads((tmp_path / "program.json").read_text())
+    assert program["state_names"] == ["x", "y"] and program["ops"]
+
+
+def test_gen_refuses_a_model_with_no_cycle_and_shows_the_analysis(capsys, tmp_path) -> None:
+    code, out, err = run(capsys, "gen", "vanderpol", "--set", "mu=-1", "-o", str(tmp_path))
+    assert code == 1
+    assert "stable focus" in out
+    assert "no stable limit cycle" in err
+    assert not (tmp_path / "vanderpol.c").exists()
+
+
+def test_verify_json_contract_and_sources(capsys, tmp_path: Path) -> None:
+    code, out, _ = run(capsys, "verify", "vanderpol", "--json", "--states", "5000",
+                       "--steps", "5000", "--set", "mu=2")
+    assert code == 0
+    data = json.loads(out)
+    assert data["bit_exact"] is True
+    assert data["states_compared"] == 5000 and data["steps_compared"] == 5000
+    assert data["first_mismatch"] is None
+    assert data["integrator"] == "rk4" and data["step_size"] > 0
+    assert data["formats"]["states"] == {"x": data["formats"]["signals"],
+                                         "y": data["formats"]["signals"]}
+    assert data["formats"]["constants"]
+    run(capsys, "gen", "vanderpol", "--set", "mu=2", "-o", str(tmp_path))
+    code, out, _ = run(capsys, "verify", "vanderpol", "--set", "mu=2", "--sources", str(tmp_path),
+                       "--states", "5000", "--steps", "5000")
+    assert code == 0
+    assert "bit-exact" in out
+
+
+def test_verify_of_edited_sources_exits_1_naming_the_step(capsys, tmp_path: Path) -> None:
+    run(capsys, "gen", "vanderpol", "-o", str(tmp_path))
+    source = tmp_path / "vanderpol.c"
+    source.write_text(source.read_text().replace("26u)", "25u)", 1))
+    code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path),
+                       "--states", "5000", "--steps", "5000", "--json")
+    assert code == 1
+    data = json.loads(out)
+    assert data["bit_exact"] is False
+    assert data["first_mismatch"]["operation"]["kind"] == "mul"
+
+
+def test_console_entry_point_runs_as_a_module() -> None:
+    done = subprocess.run([sys.executable, "-m", "verify.command_line", "check", "vanderpol",
+                           "--set", "mu=-1"], capture_output=True, text=True, check=False)
+    assert done.returncode == 1
+    assert "Traceback" not in done.stderr

@@ -1,0 +1,96 @@
+"""The host bit-exact proof (L2 golden = L3 host C): it passes on generated C, at full size, and
+it fails on C that was edited by hand, naming the first failing step and operation."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import numpy as np
+
+from gen import golden
+from gen.emit_c import render_model
+from verify.host_check import check_on_host
+
+
+def write_firmware(folder: Path, built) -> dict[str, str]:
+    files = render_model(built.model, built.timing, built.integrator, built.plan)
+    for name, text in files.items():
+        (folder / name).write_text(text)
+    return files
+
+
+def test_generated_c_is_bit_exact_at_full_size(vanderpol_design) -> None:
+    outcome = check_on_host(vanderpol_design)
+    report = outcome.report
+    assert report.first_mismatch is None
+    assert report.bit_exact
+    assert report.states_compared >= 1_000_000
+    assert report.steps_compared >= 1_000_000
+
+
+def test_trajectory_compares_every_step_against_an_independent_golden_run(vanderpol_design,
+                                                                          tmp_path) -> None:
+    # The C's last state after N steps equals the golden trajectory run step by step.
+    outcome = check_on_host(vanderpol_design, states=1000, steps=5000)
+    assert outcome.report.steps_compared == 5000
+    plan = vanderpol_design.plan
+    run = golden.run(plan.program, np.array(plan.initial_state), 5000)
+    assert abs(run[-1, 0]) > 0  # the rhythm is alive after 5000 steps
+
+
+def test_sources_folder_with_untouched_files_is_bit_exact(vanderpol_design, tmp_path) -> None:
+    write_firmware(tmp_path, vanderpol_design)
+    outcome = check_on_host(vanderpol_design, tmp_path, states=20_000, steps=20_000)
+    assert outcome.report.bit_exact
+    assert outcome.notes == []
+
+
+def test_hand_edited_constant_fails_and_names_the_step_and_operation(vanderpol_design,
+                                                                     tmp_path) -> None:
+    files = write_firmware(tmp_path, vanderpol_design)
+    source = files["vanderpol.c"]
+    found = re.search(r"static const int32_t k1 = INT32_C\((\d+)\);", source)
+    assert found
+    edited = source.replace(found.group(0),
+                            f"static const int32_t k1 = INT32_C({int(found.group(1)) + 1});")
+    (tmp_path / "vanderpol.c").write_text(edited)
+    outcome = check_on_host(vanderpol_design, tmp_path, states=20_000, steps=20_000)
+    mismatch = outcome.report.first_mismatch
+    assert not outcome.report.bit_exact
+    assert mismatch is not None
+    assert mismatch.operation is not None
+    assert mismatch.operation["kind"] == "scale"
+    assert mismatch.expected != mismatch.got
+    # The named state really is where they part: golden from it gives 'expected'.
+    want = golden.step(vanderpol_design.plan.program, np.array(mismatch.state_before).reshape(-1, 1))
+    assert want[:, 0].tolist() == mismatch.expected
+
+
+def test_edit_seen_only_on_the_trajectory_names_its_first_step(vanderpol_design, tmp_path) -> None:
+    # A hand edit that corrupts exactly one call: the proof must name that very step.
+    files = write_firmware(tmp_path, vanderpol_design)
+    source = files["vanderpol.c"]
+    store = re.search(r"    state->y = (v\d+);", source)
+    assert store
+    edited = source.replace("static inline void step_body",
+                            "static uint32_t calls = 0u;\n\nstatic inline void step_body", 1)
+    edited = edited.replace(store.group(0),
+                            f"    state->y = (++calls == 12345u) ? {store.group(1)} + 1 : {store.group(1)};")
+    (tmp_path / "vanderpol.c").write_text(edited)
+    outcome = check_on_host(vanderpol_design, tmp_path, states=10, steps=50_000)
+    mismatch = outcome.report.first_mismatch
+    assert mismatch is not None and mismatch.part == "trajectory"
+    assert mismatch.step == 12345 - 10  # ten calls went to the random states first
+    assert mismatch.operation is None  # every intermediate agrees; the store was edited
+    assert mismatch.got[1] == mismatch.expected[1] + 1
+
+
+def test_notes_say_when_sources_came_from_another_program(vanderpol_design, tmp_path) -> None:
+    files = write_firmware(tmp_path, vanderpol_design)
+    text = re.sub(r"integer program [0-9a-f]{16}", "integer program 0123456789abcdef",
+                  files["vanderpol.c"])
+    (tmp_path / "vanderpol.c").write_text(text)
+    outcome = check_on_host(vanderpol_design, tmp_path, states=100, steps=100)
+    assert outcome.report.bit_exact
+    assert any("0123456789abcdef" in note for note in outcome.notes)
