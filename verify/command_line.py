@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
 import traceback
 from pathlib import Path
@@ -16,16 +15,16 @@ from typing import Any
 
 from gen import __version__
 from gen.analysis import analyse, format_report
-from gen.emit_c import SAFETY_NOTE, render_model
+from gen.emit_c import render_model
 from gen.errors import InputError, OrbitfixError
 from gen.integrators import INTEGRATORS
-from gen.model import Model
-from gen.model_file import load_model
 from gen.pipeline import Design, NoStableCycleError, design
+from verify.cli_support import CAUTION, add_model_arguments, model_from_args, plain_json
 from verify.host_build import STRICT_FLAGS
 from verify.host_check import check_on_host
 
-CAUTION = "Caution: " + SAFETY_NOTE
+# Verbs defined in modules of their own: each module has register(verbs) adding its parser.
+VERB_MODULES: tuple = ()
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -52,7 +51,7 @@ def _fail(args: argparse.Namespace, partial: dict, exc: OrbitfixError, report: s
     """Report an error without losing what was already computed."""
     if getattr(args, "json", False):
         partial["error"] = str(exc)
-        print(json.dumps(_plain(partial), indent=2))
+        print(json.dumps(plain_json(partial), indent=2))
     elif report:
         print(report)
     print(f"orbitfix {args.verb}: {exc}", file=sys.stderr)
@@ -68,13 +67,6 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"orbitfix {__version__}")
     verbs = parser.add_subparsers(dest="verb", required=True, metavar="VERB")
 
-    def common(p: argparse.ArgumentParser, json_flag: bool = True) -> None:
-        p.add_argument("model", help="a model file (.toml) or a built-in model name")
-        p.add_argument("--set", action="append", default=[], metavar="NAME=VALUE",
-                       help="override a model parameter (repeatable)")
-        if json_flag:
-            p.add_argument("--json", action="store_true", help="print one JSON object")
-
     def fixed(p: argparse.ArgumentParser) -> None:
         p.add_argument("--integrator", choices=sorted(INTEGRATORS),
                        help="integrator of the step function (default: the model's, else rk4)")
@@ -82,11 +74,11 @@ def _parser() -> argparse.ArgumentParser:
                        help="fraction bits of the Q format (default: chosen from the cycle's range)")
 
     check = verbs.add_parser("check", help="analyse the continuous model: equilibria and cycle")
-    common(check)
+    add_model_arguments(check)
     check.set_defaults(handler=_check)
 
     gen = verbs.add_parser("gen", help="write NAME.h and NAME.c for the model")
-    common(gen, json_flag=False)
+    add_model_arguments(gen, json_flag=False)
     fixed(gen)
     gen.add_argument("-o", "--output", required=True, type=Path, metavar="DIR",
                      help="folder to write the C files into (created if missing)")
@@ -95,7 +87,7 @@ def _parser() -> argparse.ArgumentParser:
     gen.set_defaults(handler=_gen)
 
     verify = verbs.add_parser("verify", help="prove the C bit-exact against the golden model")
-    common(verify)
+    add_model_arguments(verify)
     fixed(verify)
     verify.add_argument("--sources", type=Path, metavar="DIR",
                         help="verify NAME.h and NAME.c already in DIR instead of generating them")
@@ -104,6 +96,8 @@ def _parser() -> argparse.ArgumentParser:
     verify.add_argument("--steps", type=_count, default=1_000_000, metavar="N",
                         help="trajectory steps to compare (default 1000000)")
     verify.set_defaults(handler=_verify)
+    for module in VERB_MODULES:
+        module.register(verbs)
     return parser
 
 
@@ -117,43 +111,20 @@ def _count(text: str) -> int:
     return value
 
 
-def _model(args: argparse.Namespace) -> Model:
-    model = load_model(args.model)
-    overrides = {}
-    for item in args.set:
-        name, sep, value = item.partition("=")
-        if not sep or not name.strip():
-            raise InputError(f"--set '{item}': write NAME=VALUE, e.g. --set mu=2.5")
-        try:
-            number = float(value)
-        except ValueError:
-            raise InputError(f"--set '{item}': '{value}' is not a number") from None
-        if not math.isfinite(number):
-            raise InputError(f"--set '{item}': the value must be finite")
-        overrides[name.strip()] = number
-    model = model.with_parameters(overrides)
-    changes: dict[str, Any] = {}
-    if getattr(args, "integrator", None):
-        changes["integrator"] = args.integrator
-    if getattr(args, "fraction_bits", None) is not None:
-        changes["fraction_bits"] = args.fraction_bits
-    return model.with_fixed_point(**changes) if changes else model
-
-
 def _check(args: argparse.Namespace, partial: dict) -> int:
-    model = _model(args)
+    model = model_from_args(args)
     analysis = analyse(model)
     if args.json:
         result = analysis.to_json()
         result["ok"] = analysis.ok
-        print(json.dumps(_plain(result), indent=2))
+        print(json.dumps(plain_json(result), indent=2))
     else:
         print(format_report(analysis))  # the report carries its own caution
     return 0 if analysis.ok else 1
 
 
 def _gen(args: argparse.Namespace, partial: dict) -> int:
-    model = _model(args)
+    model = model_from_args(args)
     built = design(model)
     files = render_model(model, built.timing, built.integrator, built.plan)
     try:
@@ -176,7 +147,7 @@ def _gen(args: argparse.Namespace, partial: dict) -> int:
 
 
 def _verify(args: argparse.Namespace, partial: dict) -> int:
-    model = _model(args)
+    model = model_from_args(args)
     partial["model"] = model.name
     built = design(model)
     partial.update(_design_json(built))
@@ -194,7 +165,7 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
         "seconds": {"host_build": outcome.build_seconds, **report.seconds},
     })
     if args.json:
-        print(json.dumps(_plain(partial), indent=2))
+        print(json.dumps(plain_json(partial), indent=2))
     else:
         for line in _design_lines(built):
             print(line)
@@ -247,19 +218,6 @@ def _design_lines(built: Design) -> list[str]:
     ]
     lines += [f"  warning: {w}" for w in plan.warnings]
     return lines
-
-
-def _plain(value: Any) -> Any:
-    """JSON-safe copy: numpy scalars to Python, non-finite floats to strings."""
-    if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_plain(v) for v in value]
-    if hasattr(value, "item") and not isinstance(value, str):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return str(value)
-    return value
 
 
 if __name__ == "__main__":

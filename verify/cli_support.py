@@ -1,0 +1,60 @@
+"""What every verb of the command line shares: the model argument, --set, and plain JSON."""
+
+from __future__ import annotations
+
+import argparse
+import math
+from typing import Any
+
+from gen.emit_c import SAFETY_NOTE
+from gen.errors import InputError
+from gen.model import Model
+from gen.model_file import load_model
+
+CAUTION = "Caution: " + SAFETY_NOTE
+
+
+def add_model_arguments(parser: argparse.ArgumentParser, json_flag: bool = True) -> None:
+    """The model argument, --set NAME=VALUE, and (optionally) --json."""
+    parser.add_argument("model", help="a model file (.toml) or a built-in model name")
+    parser.add_argument("--set", action="append", default=[], metavar="NAME=VALUE",
+                        help="override a model parameter (repeatable)")
+    if json_flag:
+        parser.add_argument("--json", action="store_true", help="print one JSON object")
+
+
+def model_from_args(args: argparse.Namespace) -> Model:
+    """Load the model named on the command line, with --set and the fixed-point options applied."""
+    model = load_model(args.model)
+    overrides = {}
+    for item in args.set:
+        name, sep, value = item.partition("=")
+        if not sep or not name.strip():
+            raise InputError(f"--set '{item}': write NAME=VALUE, e.g. --set mu=2.5")
+        try:
+            number = float(value)
+        except ValueError:
+            raise InputError(f"--set '{item}': '{value}' is not a number") from None
+        if not math.isfinite(number):
+            raise InputError(f"--set '{item}': the value must be finite")
+        overrides[name.strip()] = number
+    model = model.with_parameters(overrides)
+    changes: dict[str, Any] = {}
+    if getattr(args, "integrator", None):
+        changes["integrator"] = args.integrator
+    if getattr(args, "fraction_bits", None) is not None:
+        changes["fraction_bits"] = args.fraction_bits
+    return model.with_fixed_point(**changes) if changes else model
+
+
+def plain_json(value: Any) -> Any:
+    """JSON-safe copy: numpy scalars to Python, non-finite floats to strings."""
+    if isinstance(value, dict):
+        return {str(k): plain_json(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [plain_json(v) for v in value]
+    if hasattr(value, "item") and not isinstance(value, str):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    return value
