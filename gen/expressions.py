@@ -1,8 +1,9 @@
 """The model's small, safe expression language: parsed with ``ast`` under a whitelist, into sympy.
 
 Accepted: numbers, the model's own state and parameter names, ``+ - * /``, integer powers written
-``**`` or ``^``, parentheses, and the functions ``min``, ``max``, ``abs`` and ``clip(x, lo, hi)``.
-Nothing is ever evaluated by Python.
+``**`` or ``^``, parentheses, and the functions ``min``, ``max``, ``abs``, ``clip(x, lo, hi)``,
+``sin``, ``cos`` and ``tanh`` (smooth functions the analysis handles exactly; the fixed-point
+lowering has no form for them yet and says so). Nothing is ever evaluated by Python.
 """
 
 from __future__ import annotations
@@ -14,7 +15,9 @@ import sympy
 
 from gen.errors import InputError
 
-FUNCTIONS = {"min": "min(a, b, ...)", "max": "max(a, b, ...)", "abs": "abs(a)", "clip": "clip(x, lo, hi)"}
+FUNCTIONS = {"min": "min(a, b, ...)", "max": "max(a, b, ...)", "abs": "abs(a)", "clip": "clip(x, lo, hi)",
+             "sin": "sin(a)", "cos": "cos(a)", "tanh": "tanh(a)"}
+SMOOTH = {"sin": sympy.sin, "cos": sympy.cos, "tanh": sympy.tanh}   # one argument, radians
 
 ACCEPTED = (
     "numbers, the model's state and parameter names, + - * /, integer powers (x**2 or x^2), "
@@ -126,6 +129,10 @@ class _Converter:
             if len(args) < 2:
                 raise self.fail(node, f"{name} needs at least two arguments")
             return sympy.Min(*args) if name == "min" else sympy.Max(*args)
+        if name in SMOOTH:
+            if len(args) != 1:
+                raise self.fail(node, f"{name} takes exactly one argument")
+            return SMOOTH[name](args[0])
         if name == "abs":
             if len(args) != 1:
                 raise self.fail(node, "abs takes exactly one argument")

@@ -22,6 +22,8 @@ TABLE = {"x": x, "y": y, "mu": mu}
     ("abs(x - y)", sympy.Abs(x - y)),
     ("clip(x, -1, 1)", sympy.Min(sympy.Max(x, -1), 1)),
     ("+x", x),
+    ("sin(x) + cos(y - mu)", sympy.sin(x) + sympy.cos(y - mu)),
+    ("tanh(2 * x)", sympy.tanh(2 * x)),
 ])
 def test_accepted_expressions(text: str, expected: sympy.Expr) -> None:
     assert sympy.simplify(parse_expression(text, TABLE) - expected) == 0
@@ -38,7 +40,8 @@ def test_caret_binds_like_a_power_not_like_python_xor() -> None:
     ("z + 1", "z"),
     ("x ** y", "y"),
     ("x ** 0.5", "0.5"),
-    ("sin(x)", "sin"),
+    ("exp(x)", "exp"),
+    ("sin(x, y)", "sin(x, y)"),
     ("x if y else 1", "x if y else 1"),
     ("'text'", "'text'"),
     ("x < y", "x < y"),
