@@ -95,6 +95,8 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
         "next_state": [{"field": names.field(n), "value": f"v{i}"}
                        for n, i in zip(program.state_names, program.next_state, strict=True)],
         "safety": SAFETY_NOTE,
+        "rounding_words": ROUNDING_WORDS[program.rounding],
+        "overflow_words": OVERFLOW_WORDS[program.overflow].format(bits=program.word_bits),
         "comment": comment_text,
     }
     env = environment()
@@ -104,12 +106,12 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
     }
 
 
-def render_host_harness(model: Model) -> str:
+def render_host_harness(model: Model, word_bits: int) -> str:
     """The verification-only C that drives the firmware functions in bulk from the host."""
     names = CNames(model.name)
     return environment().get_template("host_harness.c.j2").render(
         names=names, fields=[names.field(n) for n in model.state_names],
-        count=model.dimension, version=__version__,
+        count=model.dimension, version=__version__, word_type=f"int{word_bits}_t",
         declarations=HARNESS_DECLARATIONS)
 
 
@@ -147,16 +149,26 @@ def _value_line(index: int, op: Op, names: CNames, model: Model,
     elif kind in ("neg", "abs"):
         expression = f"{_HELPER[kind]}({a[0]})"
     elif kind == "mul":
-        expression = f"mul_round({a[0]}, {a[1]}, {op.shift}u)"
+        expression = f"mul_word({a[0]}, {a[1]}, {op.shift}u)"
     elif kind == "scale":
-        expression = f"mul_round({a[0]}, {constant_of[index]}, {op.shift}u)"
+        expression = f"mul_word({a[0]}, {constant_of[index]}, {op.shift}u)"
     else:
         raise ValueError(f"no C form for {kind!r}")
     return {"name": f"v{index}", "expression": expression, "note": comment_text(op.note)}
 
 
-_HELPER = {"add": "add_sat", "sub": "sub_sat", "min": "min_word", "max": "max_word",
-           "neg": "neg_sat", "abs": "abs_sat"}
+_HELPER = {"add": "add_word", "sub": "sub_word", "min": "min_word", "max": "max_word",
+           "neg": "neg_word", "abs": "abs_word"}
+
+ROUNDING_WORDS = {
+    "truncate": "toward minus infinity (an arithmetic shift right)",
+    "half-up": "to nearest, ties toward plus infinity (add half an LSB, then shift right)",
+    "half-even": "to nearest, ties to the even neighbour",
+}
+OVERFLOW_WORDS = {
+    "saturate": "saturates to",
+    "wrap": "wraps around (modulo 2^{bits}) into",
+}
 
 
 def program_summary(program: IntegerProgram) -> dict[str, int]:

@@ -14,7 +14,7 @@ from fractions import Fraction
 import numpy as np
 
 from gen.errors import InputError
-from gen.integer_program import IntegerProgram
+from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
 from gen.lowering import evaluate_real
 
 
@@ -104,13 +104,18 @@ def quantise(real: float, fraction_bits: int) -> int:
 
 def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.ndarray,
                      margin: float = 4.0, fraction_bits: int | None = None,
-                     word_bits: int = 32) -> FixedPointPlan:
+                     word_bits: int = 32, rounding: str = "half-up",
+                     overflow: str = "saturate") -> FixedPointPlan:
     """Plan formats for ``program`` from states it will meet.
 
     samples : ndarray, shape (n_states, k) -- states on the cycle (and any others to cover).
     initial : ndarray, shape (n_states,) -- the initial state, which must be representable.
     margin : float -- the largest signal times ``margin`` must fit (4 leaves two bits of headroom).
+    word_bits, rounding, overflow -- the integer semantics (see ``gen.integer_program``).
     """
+    _check_choice("word size", word_bits, WORD_SIZES)
+    _check_choice("rounding", rounding, ROUNDINGS)
+    _check_choice("overflow mode", overflow, OVERFLOWS)
     if margin < 1:
         raise InputError(f"the range margin must be at least 1, got {margin}")
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
@@ -146,11 +151,18 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     initial_ints = tuple(_state_integer(x, fmt, name) for x, name in
                          zip(initial, program.state_names, strict=True))
     planned = replace(program, ops=tuple(ops), word_bits=word_bits, product_bits=2 * word_bits,
+                      rounding=rounding, overflow=overflow,
                       state_fraction_bits=tuple(fraction_bits for _ in program.state_names))
     return FixedPointPlan(signal_format=fmt, largest_signal=largest,
                           largest_signal_note=program.ops[worst].note, margin=margin,
                           program=planned, constants=tuple(constants),
                           initial_state=initial_ints, warnings=tuple(warnings))
+
+
+def _check_choice(what: str, value: object, choices: tuple) -> None:
+    if value not in choices:
+        raise InputError(f"unknown {what} {value!r} (choose one of: "
+                         f"{', '.join(str(c) for c in choices)})")
 
 
 def _fill(program: IntegerProgram, fmt: QFormat) -> tuple[list, list[ConstantReport]]:

@@ -15,25 +15,50 @@ from gen.integer_program import IntegerProgram
 def round_shift(product: np.ndarray, shift: int, rounding: str) -> np.ndarray:
     """Divide by 2**shift with the program's rounding rule, in place (int64 in, int64 out).
 
-    half-up: floor(product / 2**shift + 1/2), ties go toward plus infinity.
+    truncate: floor(product / 2**shift);
+    half-up: floor(product / 2**shift + 1/2), ties toward plus infinity;
+    half-even: nearest, ties to the even quotient.
     """
     if shift == 0:
+        return product
+    if rounding == "truncate":
+        product >>= np.int64(shift)
         return product
     if rounding == "half-up":
         product += np.int64(1 << (shift - 1))
         product >>= np.int64(shift)
         return product
+    if rounding == "half-even":
+        remainder = product & np.int64((1 << shift) - 1)
+        product >>= np.int64(shift)
+        half = np.int64(1 << (shift - 1))
+        product += (remainder > half) | ((remainder == half) & ((product & 1) == 1))
+        return product
     raise ValueError(f"unknown rounding {rounding!r}")
+
+
+def fit_word(values: np.ndarray, word_bits: int, overflow: str) -> np.ndarray:
+    """Bring exact results into the word, in place: clamp (saturate) or reduce modulo 2**word_bits
+    (wrap)."""
+    low, high = -(1 << (word_bits - 1)), (1 << (word_bits - 1)) - 1
+    if overflow == "saturate":
+        return np.clip(values, low, high, out=values)
+    if overflow == "wrap":
+        values -= np.int64(low)
+        values &= np.int64((1 << word_bits) - 1)
+        values += np.int64(low)
+        return values
+    raise ValueError(f"unknown overflow mode {overflow!r}")
 
 
 def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
     """Every value of one step. ``states`` : int ndarray, shape (n_states, batch)."""
     if not program.is_planned:
         raise ValueError("the program has no fixed-point plan yet")
-    low, high = program.word_min, program.word_max
+    bits, overflow = program.word_bits, program.overflow
 
-    def saturate(v: np.ndarray) -> np.ndarray:
-        return np.clip(v, low, high, out=v)
+    def fit(v: np.ndarray) -> np.ndarray:
+        return fit_word(v, bits, overflow)
 
     values: list[np.ndarray] = []
     batch = np.shape(states)[1:]
@@ -45,21 +70,21 @@ def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
         elif kind == "const":
             v = np.full(batch, op.constant, dtype=np.int64)
         elif kind == "add":
-            v = saturate(a[0] + a[1])
+            v = fit(a[0] + a[1])
         elif kind == "sub":
-            v = saturate(a[0] - a[1])
+            v = fit(a[0] - a[1])
         elif kind == "neg":
-            v = saturate(-a[0])
+            v = fit(-a[0])
         elif kind == "abs":
-            v = saturate(np.abs(a[0]))
+            v = fit(np.abs(a[0]))
         elif kind == "min":
             v = np.minimum(a[0], a[1])
         elif kind == "max":
             v = np.maximum(a[0], a[1])
         elif kind == "mul":
-            v = saturate(round_shift(np.multiply(a[0], a[1]), op.shift, program.rounding))
+            v = fit(round_shift(np.multiply(a[0], a[1]), op.shift, program.rounding))
         elif kind == "scale":
-            v = saturate(round_shift(a[0] * np.int64(op.constant), op.shift, program.rounding))
+            v = fit(round_shift(a[0] * np.int64(op.constant), op.shift, program.rounding))
         else:
             raise ValueError(f"no golden rule for {kind!r}")
         values.append(v)

@@ -6,8 +6,12 @@ planner fills in the integer part (stored constants, shifts, fraction bits). The
 interpreter (``gen.golden``) runs it and the C emitter (``gen.emit_c``) renders it; neither adds
 an arithmetic decision of its own.
 
-Semantics of each kind, on two's complement words of ``word_bits`` with products formed in
-``product_bits`` (every result saturates to the word when ``overflow`` is ``saturate``):
+Semantics of each kind, on two's complement words of ``word_bits`` (16 or 32) with products formed
+in ``product_bits`` (twice the word). Every kind computes its exact result first; a result outside
+the word is then clamped to it (``overflow`` = ``saturate``) or reduced modulo 2**word_bits into it
+(``wrap``). Shifts divide by a power of two with the program's ``rounding``: ``truncate`` (toward
+minus infinity), ``half-up`` (nearest, ties toward plus infinity) or ``half-even`` (nearest, ties to
+the even neighbour).
 
 - ``state``: the state variable ``state`` at the start of the step;
 - ``const``: the stored integer ``constant``, already in the signal format;
@@ -28,8 +32,9 @@ from dataclasses import dataclass, field
 KINDS = ("state", "const", "add", "sub", "neg", "abs", "min", "max", "mul", "scale")
 ARITY = {"state": 0, "const": 0, "add": 2, "sub": 2, "neg": 1, "abs": 1, "min": 2, "max": 2,
          "mul": 2, "scale": 1}
-ROUNDINGS = ("half-up",)
-OVERFLOWS = ("saturate",)
+WORD_SIZES = (16, 32)
+ROUNDINGS = ("truncate", "half-up", "half-even")
+OVERFLOWS = ("saturate", "wrap")
 
 
 @dataclass(frozen=True)
@@ -80,6 +85,8 @@ class IntegerProgram:
     state_fraction_bits: tuple[int, ...] = field(default=())
 
     def __post_init__(self) -> None:
+        if self.word_bits not in WORD_SIZES:
+            raise ValueError(f"unsupported word size {self.word_bits}")
         if self.rounding not in ROUNDINGS:
             raise ValueError(f"unknown rounding {self.rounding!r}")
         if self.overflow not in OVERFLOWS:

@@ -58,6 +58,9 @@ class FixedPointRequest:
     fraction_bits: int | None = None
     margin: float = 4.0
     integrator: str = "rk4"
+    word_bits: int = 32
+    rounding: str = "half-up"
+    overflow: str = "saturate"
 
 
 @dataclass(frozen=True)
@@ -184,7 +187,10 @@ class Model:
             "rhythm": {"cycle_hz": self.rhythm.cycle_hz, "loop_hz": self.rhythm.loop_hz},
             "fixed_point": {"fraction_bits": self.fixed_point.fraction_bits,
                             "margin": self.fixed_point.margin,
-                            "integrator": self.fixed_point.integrator},
+                            "integrator": self.fixed_point.integrator,
+                            "word_bits": self.fixed_point.word_bits,
+                            "rounding": self.fixed_point.rounding,
+                            "overflow": self.fixed_point.overflow},
         }
 
     def fingerprint(self) -> str:

@@ -48,7 +48,9 @@ def design(model: Model, analysis: Analysis | None = None) -> Design:
         raise NoStableCycleError(analysis)
     timing = plan_timing(model, analysis.cycle.period)
     program = lower_step(model, integrator, timing.step)
+    request = model.fixed_point
     plan = plan_fixed_point(program, analysis.cycle.samples, model.initial_state,
-                            margin=model.fixed_point.margin,
-                            fraction_bits=model.fixed_point.fraction_bits)
+                            margin=request.margin, fraction_bits=request.fraction_bits,
+                            word_bits=request.word_bits, rounding=request.rounding,
+                            overflow=request.overflow)
     return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan)

@@ -3,13 +3,23 @@ it fails on C that was edited by hand, naming the first failing step and operati
 
 from __future__ import annotations
 
+import math
 import re
+from fractions import Fraction
 from pathlib import Path
 
 import numpy as np
+import pytest
 
 from gen import golden
-from gen.emit_c import render_model
+from gen.emit_c import render_host_harness, render_model
+from gen.fixed_point import plan_fixed_point
+from gen.integrators import EULER
+from gen.lowering import lower_step
+from gen.model import define_model
+from gen.pipeline import design
+from gen.timing import Timing
+from verify.host_build import build_host_module
 from verify.host_check import check_on_host
 
 
@@ -94,3 +104,57 @@ def test_notes_say_when_sources_came_from_another_program(vanderpol_design, tmp_
     outcome = check_on_host(vanderpol_design, tmp_path, states=100, steps=100)
     assert outcome.report.bit_exact
     assert any("0123456789abcdef" in note for note in outcome.notes)
+
+
+SEMANTICS = [(w, r, o) for w in (16, 32) for r in ("truncate", "half-up", "half-even")
+             for o in ("saturate", "wrap")]
+
+
+@pytest.mark.parametrize(("word", "rounding", "overflow"), SEMANTICS)
+def test_every_word_rounding_and_overflow_is_bit_exact(vanderpol_design, word: int, rounding: str,
+                                                       overflow: str) -> None:
+    model = vanderpol_design.model.with_fixed_point(word_bits=word, rounding=rounding,
+                                                    overflow=overflow)
+    built = design(model, analysis=vanderpol_design.analysis)
+    assert built.plan.program.word_bits == word
+    outcome = check_on_host(built, states=30_000, steps=30_000)
+    assert outcome.report.bit_exact, outcome.report.first_mismatch
+
+
+TIES = define_model("ties", {"a": 0.25, "b": 0.25}, {"a": "a*b", "b": "-a"}, cycle_hz=1,
+                    loop_hz=100)
+
+
+@pytest.mark.parametrize(("word", "rounding", "overflow"), SEMANTICS)
+def test_c_products_round_like_exact_rationals_at_ties(word: int, rounding: str,
+                                                       overflow: str) -> None:
+    # Reference: Python's fractions, with each rounding rule written from its definition.
+    fraction_bits = word // 2
+    program = lower_step(TIES, EULER, 1.0)
+    plan = plan_fixed_point(program, np.array([[0.5], [0.5]]), TIES.initial_state,
+                            fraction_bits=fraction_bits, word_bits=word, rounding=rounding,
+                            overflow=overflow)
+    timing = Timing(model_period=1.0, cycle_hz=1.0, loop_hz=100.0, time_scale=1.0, step=1.0,
+                    steps_per_cycle=100.0)
+    files = render_model(TIES, timing, EULER, plan)
+    host = build_host_module(files, render_host_harness(TIES, word), "ties.h")
+    mul = next(i for i, op in enumerate(plan.program.ops) if op.kind == "mul")
+    half = 1 << (fraction_bits - 1)
+    low, high = -(1 << (word - 1)), (1 << (word - 1)) - 1
+    cases = [(1, k * half) for k in (1, 3, 5, -1, -3, -5)] + [(3, half), (-3, half), (1, high),
+                                                               (low, low), (high, high), (low, -1)]
+    exact = {"truncate": math.floor, "half-up": lambda v: math.floor(v + Fraction(1, 2)),
+             "half-even": round}[rounding]
+    for a, b in cases:
+        trace = np.zeros(len(plan.program.ops), dtype=np.int32)
+        out = np.zeros(2, dtype=np.int32)
+        state = np.array([a, b], dtype=np.int32)
+        host.lib.orbitfix_harness_trace(host.ffi.from_buffer("int32_t[]", state),
+                                        host.ffi.from_buffer("int32_t[]", out),
+                                        host.ffi.from_buffer("int32_t[]", trace))
+        value = exact(Fraction(a * b, 1 << fraction_bits))
+        if overflow == "saturate":
+            value = min(max(value, low), high)
+        else:
+            value = (value - low) % (1 << word) + low
+        assert int(trace[mul]) == value, (a, b)

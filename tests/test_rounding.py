@@ -19,6 +19,14 @@ def half_up(value: Fraction) -> int:
     return math.floor(value + Fraction(1, 2))
 
 
+# The three rounding rules, each written from its definition on exact rationals.
+EXACT_ROUNDING = {
+    "truncate": math.floor,      # toward minus infinity (common practice for a shift right)
+    "half-up": half_up,
+    "half-even": round,          # Python's round() of a Fraction: nearest, ties to even
+}
+
+
 def tie_products(shift: int) -> list[int]:
     half = 1 << (shift - 1)
     base = [0, 1, -1, half, -half, 3 * half, -3 * half, half - 1, -half + 1, half + 1, -half - 1]
@@ -28,13 +36,20 @@ def tie_products(shift: int) -> list[int]:
     return [p for p in base + more if abs(p) <= 1 << 62]
 
 
+@pytest.mark.parametrize("rounding", list(EXACT_ROUNDING))
 @pytest.mark.parametrize("shift", [1, 2, 15, 26, 31, 40, 62])
-def test_round_half_up_matches_fractions_at_ties(shift: int) -> None:
+def test_rounding_matches_fractions_at_ties(shift: int, rounding: str) -> None:
     rng = np.random.default_rng(shift)
     products = tie_products(shift) + [int(v) for v in rng.integers(-(1 << 62), 1 << 62, 2000)]
-    got = golden.round_shift(np.array(products, dtype=np.int64), shift, "half-up")
-    want = [half_up(Fraction(p, 1 << shift)) for p in products]
+    got = golden.round_shift(np.array(products, dtype=np.int64), shift, rounding)
+    want = [EXACT_ROUNDING[rounding](Fraction(p, 1 << shift)) for p in products]
     assert got.tolist() == want
+
+
+def test_half_even_sends_ties_to_the_even_neighbour() -> None:
+    # 0.5 -> 0, 1.5 -> 2, 2.5 -> 2, -0.5 -> 0, -1.5 -> -2, -2.5 -> -2 (common practice).
+    got = golden.round_shift(np.array([1, 3, 5, -1, -3, -5], dtype=np.int64), 1, "half-even")
+    assert got.tolist() == [0, 2, 2, 0, -2, -2]
 
 
 def test_round_half_up_ties_go_up_for_negative_values_too() -> None:
@@ -49,31 +64,46 @@ def test_constants_round_to_nearest_ties_to_even() -> None:
     assert quantise(0.1, 24) == round(Fraction(0.1) * (1 << 24))
 
 
-def small_program(kind: str, args: tuple[int, ...], **fields: int) -> IntegerProgram:
+def small_program(kind: str, args: tuple[int, ...], word_bits: int = 32, overflow: str = "saturate",
+                  **fields: int) -> IntegerProgram:
     ops = (Op("state", state=0, fraction_bits=24), Op("state", state=1, fraction_bits=24),
            Op(kind, args, fraction_bits=24, **fields))
     return IntegerProgram(name="t", state_names=("a", "b"), ops=ops, next_state=(2, 1),
+                          word_bits=word_bits, product_bits=2 * word_bits, overflow=overflow,
                           state_fraction_bits=(24, 24))
 
 
-WORD_MIN, WORD_MAX = -(1 << 31), (1 << 31) - 1
-EDGES = [WORD_MIN, WORD_MIN + 1, -1, 0, 1, WORD_MAX - 1, WORD_MAX, 1 << 24, -(1 << 24)]
+def edges(bits: int) -> list[int]:
+    low, high = -(1 << (bits - 1)), (1 << (bits - 1)) - 1
+    return [low, low + 1, -1, 0, 1, high - 1, high, 1 << (bits - 8), -(1 << (bits - 8))]
 
 
-def exact(kind: str, a: int, b: int) -> Fraction:
-    return {"add": Fraction(a + b), "sub": Fraction(a - b), "neg": Fraction(-a),
-            "abs": Fraction(abs(a)), "min": Fraction(min(a, b)), "max": Fraction(max(a, b)),
-            "mul": half_up(Fraction(a * b, 1 << 24))}[kind]
+def exact(kind: str, a: int, b: int, shift: int) -> int:
+    return {"add": a + b, "sub": a - b, "neg": -a, "abs": abs(a), "min": min(a, b),
+            "max": max(a, b), "mul": half_up(Fraction(a * b, 1 << shift))}[kind]
 
 
+def into_word(value: int, bits: int, overflow: str) -> int:
+    """Clamp, or reduce modulo 2**bits into [-2**(bits-1), 2**(bits-1)) (two's complement wrap,
+    common practice)."""
+    low, high = -(1 << (bits - 1)), (1 << (bits - 1)) - 1
+    if overflow == "saturate":
+        return min(max(value, low), high)
+    return (value - low) % (1 << bits) + low
+
+
+@pytest.mark.parametrize("overflow", ["saturate", "wrap"])
+@pytest.mark.parametrize("bits", [16, 32])
 @pytest.mark.parametrize("kind", ["add", "sub", "neg", "abs", "min", "max", "mul"])
-def test_every_operation_saturates_to_the_word(kind: str) -> None:
-    pairs = [(a, b) for a in EDGES for b in EDGES]
+def test_every_operation_fits_the_word_by_its_overflow_rule(kind: str, bits: int,
+                                                           overflow: str) -> None:
+    shift = bits - 8
+    pairs = [(a, b) for a in edges(bits) for b in edges(bits)]
     args = (0,) if kind in ("neg", "abs") else (0, 1)
-    program = small_program(kind, args, **({"shift": 24} if kind == "mul" else {}))
+    program = small_program(kind, args, bits, overflow, **({"shift": shift} if kind == "mul" else {}))
     states = np.array(pairs, dtype=np.int64).T
     got = golden.step(program, states)[0]
-    want = [min(max(exact(kind, a, b), WORD_MIN), WORD_MAX) for a, b in pairs]
+    want = [into_word(exact(kind, a, b, shift), bits, overflow) for a, b in pairs]
     assert got.tolist() == want
 
 

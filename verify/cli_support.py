@@ -42,8 +42,9 @@ def model_from_args(args: argparse.Namespace) -> Model:
     changes: dict[str, Any] = {}
     if getattr(args, "integrator", None):
         changes["integrator"] = args.integrator
-    if getattr(args, "fraction_bits", None) is not None:
-        changes["fraction_bits"] = args.fraction_bits
+    for option in ("fraction_bits", "word_bits", "rounding", "overflow"):
+        if getattr(args, option, None) is not None:
+            changes[option] = getattr(args, option)
     return model.with_fixed_point(**changes) if changes else model
 
 

@@ -17,6 +17,7 @@ from gen import __version__
 from gen.analysis import analyse, format_report
 from gen.emit_c import render_model
 from gen.errors import InputError, OrbitfixError
+from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from gen.integrators import INTEGRATORS
 from gen.pipeline import Design, NoStableCycleError, design
 from verify.cli_support import CAUTION, add_model_arguments, model_from_args, plain_json
@@ -72,6 +73,12 @@ def _parser() -> argparse.ArgumentParser:
                        help="integrator of the step function (default: the model's, else rk4)")
         p.add_argument("--fraction-bits", type=int, metavar="N",
                        help="fraction bits of the Q format (default: chosen from the cycle's range)")
+        p.add_argument("--word", dest="word_bits", type=int, choices=WORD_SIZES,
+                       help="word size in bits; products use twice as many (default 32)")
+        p.add_argument("--rounding", choices=ROUNDINGS,
+                       help="rounding after every shift (default half-up)")
+        p.add_argument("--overflow", choices=OVERFLOWS,
+                       help="what a result outside the word does (default saturate)")
 
     check = verbs.add_parser("check", help="analyse the continuous model: equilibria and cycle")
     add_model_arguments(check)
@@ -213,8 +220,8 @@ def _design_lines(built: Design) -> list[str]:
         f"({t.steps_per_cycle:.1f} steps per cycle)",
         f"integrator {built.integrator.name}; every signal {plan.signal_format.name} in "
         f"{plan.program.word_bits}-bit words, {plan.program.product_bits}-bit products, rounding "
-        f"half up, saturation; largest signal {plan.largest_signal:.4g} on the cycle, "
-        f"{plan.headroom_bits:.2f} bits of headroom",
+        f"{plan.program.rounding}, overflow {plan.program.overflow}; largest signal "
+        f"{plan.largest_signal:.4g} on the cycle, {plan.headroom_bits:.2f} bits of headroom",
     ]
     lines += [f"  warning: {w}" for w in plan.warnings]
     return lines

@@ -36,7 +36,8 @@ def main() -> None:
     design_seconds = time.perf_counter() - started
     files = render_model(built.model, built.timing, built.integrator, built.plan)
     started = time.perf_counter()
-    host = build_host_module(files, render_host_harness(built.model), "vanderpol.h")
+    harness = render_host_harness(built.model, built.plan.program.word_bits)
+    host = build_host_module(files, harness, "vanderpol.h")
     build_seconds = time.perf_counter() - started
     program = built.plan.program
     initial = np.array(built.plan.initial_state, dtype=np.int64)
