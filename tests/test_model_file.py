@@ -56,7 +56,7 @@ def test_file_and_python_api_give_the_same_model(tmp_path: Path) -> None:
 
 
 @pytest.mark.parametrize(("change", "line", "words"), [
-    (('y = "mu * (1 - x^2) * y - x"', 'y = "mu * (1 - x^2) * y - sin(x)"'), 13, "sin"),
+    (('y = "mu * (1 - x^2) * y - x"', 'y = "mu * (1 - x^2) * y - log(x)"'), 13, "log"),
     (('y = "mu * (1 - x^2) * y - x"', 'y = "mu * (1 - q) * y - x"'), 13, "'q'"),
     (("mu = 1.5", 'mu = "fast"'), 9, "must be a number"),
     (("loop_hz = 200", "loop_hz = 200\nwobble = 3"), 18, "unknown key 'wobble'"),
