@@ -68,16 +68,19 @@ def _compiler_identity(cc: str) -> str:
     return done.stdout.splitlines()[0] if done.stdout else cc
 
 
-def build_host_module(sources: dict[str, str], harness: str, header: str) -> HostModule:
-    """Compile ``sources`` (file name -> C text, the firmware files) and ``harness`` into a module.
+def build_host_module(sources: dict[str, str], harness: str, header: str,
+                      declarations: str = HARNESS_DECLARATIONS) -> HostModule:
+    """Compile ``sources`` (file name -> C text: the firmware files, and any further harness
+    files) and ``harness`` into a module.
 
-    ``header`` is the firmware header the cffi wrapper includes.
+    ``header`` is the firmware header the cffi wrapper includes; ``declarations`` are the C
+    prototypes of every harness function Python may call (they become the cffi definitions).
     """
     cc = compiler()
     flags = STRICT_FLAGS + OPTIMISE_FLAGS
     digest = hashlib.sha256()
     for part in (_compiler_identity(cc), " ".join(flags), cffi.__version__, sys.version, harness,
-                 HARNESS_DECLARATIONS, header):
+                 declarations, header):
         digest.update(part.encode())
     for name in sorted(sources):
         digest.update(name.encode())
@@ -88,9 +91,7 @@ def build_host_module(sources: dict[str, str], harness: str, header: str) -> Hos
     built = sorted(folder.glob(f"{module_name}*.so")) + sorted(folder.glob(f"{module_name}*.pyd"))
     reused = bool(built)
     if not built:
-        built = [_build(folder, module_name, sources, harness, header, cc, flags)]
-    ffi = cffi.FFI()
-    ffi.cdef(HARNESS_DECLARATIONS)
+        built = [_build(folder, module_name, sources, harness, header, declarations, cc, flags)]
     spec = importlib.util.spec_from_file_location(module_name, built[0])
     if spec is None or spec.loader is None:
         raise ToolchainError(f"cannot load the host build {built[0]}; delete {folder} and retry")
@@ -100,7 +101,7 @@ def build_host_module(sources: dict[str, str], harness: str, header: str) -> Hos
 
 
 def _build(folder: Path, module_name: str, sources: dict[str, str], harness: str, header: str,
-           cc: str, flags: tuple[str, ...]) -> Path:
+           declarations: str, cc: str, flags: tuple[str, ...]) -> Path:
     work = folder.with_name(folder.name + f".building-{os.getpid()}")
     if work.exists():
         shutil.rmtree(work)
@@ -119,9 +120,9 @@ def _build(folder: Path, module_name: str, sources: dict[str, str], harness: str
                                f"{' '.join(flags)}:\n{done.stderr.strip()}")
         objects.append(str(target))
     ffi = cffi.FFI()
-    ffi.cdef(HARNESS_DECLARATIONS)
+    ffi.cdef(declarations)
     ffi.set_source(module_name, f'#include <stddef.h>\n#include <stdint.h>\n#include "{header}"\n'
-                   + HARNESS_DECLARATIONS, include_dirs=[str(work)], extra_objects=objects)
+                   + declarations, include_dirs=[str(work)], extra_objects=objects)
     try:
         built = Path(ffi.compile(tmpdir=str(work), verbose=False))
     except Exception as exc:  # cffi raises distutils/setuptools errors of several kinds
