@@ -1,0 +1,180 @@
+"""Parameter sweep, Hopf points and the first Lyapunov coefficient (gen/sweep.py, gen/hopf.py)."""
+
+from __future__ import annotations
+
+import functools
+import math
+
+import numpy as np
+import pytest
+import sympy
+
+from gen.errors import InputError
+from gen.hopf import first_lyapunov_coefficient
+from gen.model import define_model
+from gen.sweep import sweep
+
+# FitzHugh, "Impulses and physiological states in theoretical models of nerve membrane",
+# Biophysical Journal 1 (1961): v' = v - v^3/3 - w + I, w' = eps (v + a - b w), with a = 0.7,
+# b = 0.8 and time-scale parameter eps = 0.08.
+A, B, EPS = 0.7, 0.8, 0.08
+
+
+def fitzhugh_nagumo(current: float = 0.5):
+    return define_model("fitzhugh_nagumo", {"v": -1.0, "w": -0.5},
+                        {"v": "v - v^3/3 - w + I", "w": "eps*(v + a - b*w)"},
+                        {"I": current, "a": A, "b": B, "eps": EPS}, cycle_hz=1.0, loop_hz=100.0)
+
+
+def stuart_landau(s: float, omega: float = 2.0, mu: float = 0.0):
+    """The Hopf normal form in Cartesian coordinates (Stuart-Landau): in polar form
+    r' = mu r + s r^3, theta' = omega."""
+    return define_model("stuart_landau", {"x": 1.0, "y": 0.0},
+                        {"x": "mu*x - om*y + s*(x^2 + y^2)*x", "y": "om*x + mu*y + s*(x^2 + y^2)*y"},
+                        {"mu": mu, "om": omega, "s": s}, cycle_hz=1.0, loop_hz=100.0)
+
+
+def planar_l1(model, state: np.ndarray) -> float:
+    """Kuznetsov, Elements of Applied Bifurcation Theory (2004), sec. 3.5, eq. (3.20), for a planar
+    system: with z = <p, x - x0>, z' = i w z + g(z, conj z), g(z, conj z) = <p, F(x0 + z q +
+    conj(z q))>, the Taylor coefficients g20, g11, g21 of g give
+    l1 = Re(i g20 g11 + w g21) / (2 w^2). Done here symbolically, independently of gen/hopf.py's
+    multilinear forms (only the eigenvectors are shared, normalised as there: <q,q> = <p,q> = 1)."""
+    x = sympy.Matrix(model.state_symbols)
+    f = sympy.Matrix(model.resolved_equations)
+    jac = np.array(f.jacobian(x).subs(dict(zip(x, state, strict=True))), dtype=float)
+    values, vectors = np.linalg.eig(jac)
+    i = int(np.argmax(values.imag))
+    omega = float(values[i].imag)
+    q = vectors[:, i] / np.linalg.norm(vectors[:, i])
+    left_values, left_vectors = np.linalg.eig(jac.T)
+    p = left_vectors[:, int(np.argmin(np.abs(left_values - np.conj(values[i]))))]
+    p = p / np.conj(np.vdot(p, q))
+    z, zbar = sympy.symbols("z zbar")
+    point = [state[k] + z * complex(q[k]) + zbar * complex(np.conj(q[k])) for k in range(2)]
+    g = sum(complex(np.conj(p[k])) * f[k].subs(dict(zip(x, point, strict=True))) for k in range(2))
+    g = sympy.expand(g)
+
+    def coefficient(a: int, b: int) -> complex:
+        return complex(sympy.diff(g, z, a, zbar, b).subs({z: 0, zbar: 0}))
+
+    g20, g11, g21 = coefficient(2, 0), coefficient(1, 1), coefficient(2, 1)
+    return float((1j * g20 * g11 + omega * g21).real / (2 * omega**2))
+
+
+# -- the first Lyapunov coefficient ----------------------------------------------------------------
+
+
+@pytest.mark.parametrize("s", [-1.5, -0.2, 0.4, 2.0])
+def test_normal_form_gives_l1_of_the_sign_of_s(s):
+    result = first_lyapunov_coefficient(stuart_landau(s), np.zeros(2))
+    # Kuznetsov (2004) sec. 3.5: for the normal form the sign of l1 is the sign of s (the r^3
+    # coefficient); with <q,q> = 1, |x|^2 = 2 |z|^2, so l1 = 2 s / omega exactly
+    assert np.sign(result.value) == np.sign(s)
+    assert result.value == pytest.approx(2 * s / 2.0, rel=1e-12)
+    assert result.frequency == pytest.approx(2.0, rel=1e-12)
+    assert result.kind == ("supercritical" if s < 0 else "subcritical")
+
+
+def test_general_formula_matches_the_planar_formula_on_a_polynomial_field():
+    rng = np.random.default_rng(7)   # invented coefficients, a scenario of our own
+    c = rng.uniform(-1.0, 1.0, 14)
+    monomials = ["x^2", "x*y", "y^2", "x^3", "x^2*y", "x*y^2", "y^3"]
+    fx = " + ".join(f"({c[k]:.6f})*{m}" for k, m in enumerate(monomials))
+    fy = " + ".join(f"({c[7 + k]:.6f})*{m}" for k, m in enumerate(monomials))
+    model = define_model("cubic", {"x": 0.1, "y": 0.0},
+                         {"x": f"-1.3*y + {fx}", "y": f"1.3*x + {fy}"}, cycle_hz=1.0, loop_hz=100.0)
+    expected = planar_l1(model, np.zeros(2))   # Kuznetsov (2004) eq. (3.20)
+    assert first_lyapunov_coefficient(model, np.zeros(2)).value == pytest.approx(expected, rel=1e-9)
+
+
+def test_vanderpol_at_zero_damping_is_degenerate():
+    # Strogatz, Nonlinear Dynamics and Chaos (1994), sec. 7.6: at mu = 0 the Van der Pol equation is
+    # the linear harmonic oscillator, so every coefficient of the normal form vanishes
+    model = define_model("vdp", {"x": 1.0, "y": 0.0}, {"x": "y", "y": "mu*(1 - x^2)*y - x"},
+                         {"mu": 0.0}, cycle_hz=1.0, loop_hz=100.0)
+    result = first_lyapunov_coefficient(model, np.zeros(2))
+    assert result.kind == "degenerate" and result.value == 0.0
+
+
+# -- Hopf points along a sweep ----------------------------------------------------------------------
+
+
+def fitzhugh_closed_form() -> list[tuple[float, float, float]]:
+    """(I, v, omega) at the two Hopf points. FitzHugh (1961) model; standard linear analysis: the
+    Jacobian [[1 - v^2, -1], [eps, -eps b]] has trace zero at v^2 = 1 - eps b, its determinant
+    there is w^2 = eps (1 - eps b^2), and the equilibrium has w = (v + a)/b, I = w - v + v^3/3."""
+    points = []
+    for v in (-math.sqrt(1 - EPS * B), math.sqrt(1 - EPS * B)):
+        current = (v + A) / B - v + v**3 / 3
+        points.append((current, v, math.sqrt(EPS * (1 - EPS * B**2))))
+    return points
+
+
+@functools.cache
+def fitzhugh_sweep():
+    return sweep(fitzhugh_nagumo(), "I", 0.0, 1.6, samples=17, follow_cycles=False)
+
+
+def test_fitzhugh_nagumo_hopf_points_match_the_closed_form():
+    result = fitzhugh_sweep()
+    assert len(result.hopf) == 2
+    for found, (current, v, omega) in zip(result.hopf, fitzhugh_closed_form(), strict=True):
+        assert found.param_value == pytest.approx(current, rel=1e-9, abs=1e-9)
+        assert found.equilibrium[0] == pytest.approx(v, rel=1e-9)
+        assert found.frequency == pytest.approx(omega, rel=1e-9)
+
+
+def test_fitzhugh_nagumo_l1_matches_the_planar_formula():
+    for found in fitzhugh_sweep().hopf:
+        model = fitzhugh_nagumo(found.param_value)
+        expected = planar_l1(model, found.equilibrium)     # Kuznetsov (2004) eq. (3.20)
+        assert found.lyapunov.value == pytest.approx(expected, rel=1e-6)
+        assert found.kind == ("subcritical" if expected > 0 else "supercritical")
+
+
+def test_tracked_equilibria_solve_the_fitzhugh_cubic():
+    # the equilibrium's v solves v - v^3/3 - (v + a)/b + I = 0; numpy's polynomial roots are the
+    # reference (b < 1 makes it the only real root)
+    for sample in fitzhugh_sweep().samples:
+        roots = np.roots([-1 / 3, 0.0, 1 - 1 / B, sample.param_value - A / B])
+        real = roots[np.abs(roots.imag) < 1e-9].real
+        assert len(sample.equilibria) == len(real) == 1
+        assert sample.equilibria[0].state[0] == pytest.approx(real[0], abs=1e-10)
+
+
+@pytest.mark.parametrize("s", [-1.0, 0.5])
+def test_normal_form_branch_has_the_exact_radius_period_and_multiplier(s):
+    omega = 2.0
+    result = sweep(stuart_landau(s, omega), "mu", -0.4, 0.4, samples=5)
+    (hopf,) = result.hopf
+    assert hopf.param_value == pytest.approx(0.0, abs=1e-9)
+    assert hopf.kind == ("supercritical" if s < 0 else "subcritical")
+    assert result.complete and len(result.branch) >= 4
+    for point in result.branch:
+        mu = point.param_value
+        assert point.found and mu * s < 0   # the cycle lives where -mu/s > 0
+        # exact, from the polar form r' = mu r + s r^3, theta' = omega: radius sqrt(-mu/s),
+        # period 2 pi / omega, and the radial rate -2 mu at the cycle gives the multiplier
+        # exp(-2 mu T)
+        period = 2 * math.pi / omega
+        assert point.amplitude == pytest.approx(math.sqrt(-mu / s), rel=1e-8)
+        assert point.period == pytest.approx(period, rel=1e-9)
+        assert point.max_multiplier == pytest.approx(math.exp(-2 * mu * period), rel=1e-6)
+        assert point.stable == (s < 0)
+
+
+def test_sweep_without_a_hopf_point_says_so():
+    result = sweep(stuart_landau(-1.0), "mu", 0.1, 0.5, samples=5, follow_cycles=False)
+    assert result.hopf == () and any("no Hopf point" in note for note in result.notes)
+
+
+@pytest.mark.parametrize(("parameter", "start", "stop", "message"), [
+    ("nope", 0.0, 1.0, "no parameter 'nope'"),
+    ("mu", 0.5, 0.5, "must cover a range"),
+    ("mu", 0.0, math.inf, "finite"),
+    ("mu", math.nan, 1.0, "finite"),
+])
+def test_bad_requests_are_input_errors(parameter, start, stop, message):
+    with pytest.raises(InputError, match=message):
+        sweep(stuart_landau(-1.0), parameter, start, stop)
