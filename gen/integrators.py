@@ -4,9 +4,12 @@ A new integrator provides:
 
 1. ``name``: the word users type (``--integrator NAME``);
 2. ``a``, ``b``, ``c``: its Butcher tableau as exact fractions (``a`` strictly lower triangular);
-3. ``order`` and a ``reference`` naming where the tableau is published.
+3. ``order`` and a ``reference`` naming where the tableau is published;
+4. ``sweep``: True for a semi-implicit method that updates the states one after another in the
+   model's state order, each from the states already updated in this step (the tableau is then
+   forward Euler's, applied state by state).
 
-Everything else (the float step map, the integer program) is derived from the tableau.
+Everything else (the float step map, the integer program) is derived from these.
 """
 
 from __future__ import annotations
@@ -31,6 +34,7 @@ class Integrator:
     order: int
     description: str
     reference: str
+    sweep: bool = False
 
     @property
     def stages(self) -> int:
@@ -38,6 +42,11 @@ class Integrator:
 
     def step(self, f: Callable[[np.ndarray], np.ndarray], x: np.ndarray, h: float) -> np.ndarray:
         """One float64 step of the autonomous system x' = f(x) (layer L1)."""
+        if self.sweep:
+            x = np.array(x, dtype=float, copy=True)
+            for i in range(x.shape[0]):
+                x[i] = x[i] + h * f(x)[i]
+            return x
         slopes: list[np.ndarray] = []
         for row in self.a:
             point = x + h * sum((float(w) * k for w, k in zip(row, slopes, strict=False) if w),
@@ -70,7 +79,30 @@ RK4 = Integrator(
               "section II.1, Table 1.2 (Kutta 1901)",
 )
 
-INTEGRATORS = {i.name: i for i in (EULER, RK4)}
+HEUN = Integrator(
+    name="heun",
+    a=((), (F(1),)),
+    b=(F(1, 2), F(1, 2)),
+    c=(F(0), F(1)),
+    order=2,
+    description="Heun's method: an Euler step, then the average of both slopes; second order",
+    reference="Hairer, Norsett, Wanner, Solving Ordinary Differential Equations I, section II.1 "
+              "(Heun 1900)",
+)
+
+SYMPLECTIC_EULER = Integrator(
+    name="symplectic-euler",
+    a=((),),
+    b=(F(1),),
+    c=(F(0),),
+    order=1,
+    description="semi-implicit (symplectic) Euler: states updated in order, each from the ones "
+                "already updated; keeps a rotation's area, so amplitude does not creep",
+    reference="Hairer, Lubich, Wanner, Geometric Numerical Integration, section I.1.2",
+    sweep=True,
+)
+
+INTEGRATORS = {i.name: i for i in (EULER, SYMPLECTIC_EULER, HEUN, RK4)}
 
 
 def get_integrator(name: str) -> Integrator:

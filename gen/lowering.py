@@ -20,18 +20,26 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
     builder = _Builder(model)
     names = model.state_names
     start = [builder.add(Op("state", state=i, note=name)) for i, name in enumerate(names)]
-    slopes: list[list[int]] = []
-    for stage, row in enumerate(integrator.a, start=1):
-        if any(row):
-            point = [builder.combine(start[i], _terms(step, row, slopes, i, names[i]),
-                                     f"stage {stage} point, {names[i]}")
-                     for i in range(len(names))]
-        else:
-            point = start
-        slopes.append(builder.slope(point, stage))
-    finish = [builder.combine(start[i], _terms(step, integrator.b, slopes, i, names[i]),
-                              f"next {names[i]}")
-              for i in range(len(names))]
+    if integrator.sweep:
+        finish = list(start)
+        for i, name in enumerate(names):
+            slope = builder.slope(finish, stage=i + 1, only=i)[0]
+            finish[i] = builder.combine(start[i], [(Fraction(step), slope,
+                                                   f"h times the slope of {name}")],
+                                        f"next {name}")
+    else:
+        slopes: list[list[int]] = []
+        for stage, row in enumerate(integrator.a, start=1):
+            if any(row):
+                point = [builder.combine(start[i], _terms(step, row, slopes, i, names[i]),
+                                         f"stage {stage} point, {names[i]}")
+                         for i in range(len(names))]
+            else:
+                point = start
+            slopes.append(builder.slope(point, stage))
+        finish = [builder.combine(start[i], _terms(step, integrator.b, slopes, i, names[i]),
+                                  f"next {names[i]}")
+                  for i in range(len(names))]
     return IntegerProgram(name=model.name, state_names=names, ops=tuple(builder.ops),
                           next_state=tuple(finish))
 
@@ -81,12 +89,13 @@ class _Builder:
             total = self.add(Op(kind, (total, self.scaled(value, abs(weight), label)), note=note))
         return total
 
-    def slope(self, point: list[int], stage: int) -> list[int]:
-        """Values of f at the stage point, one per state."""
+    def slope(self, point: list[int], stage: int, only: int | None = None) -> list[int]:
+        """Values of f at the stage point, one per state (or of state ``only`` alone)."""
         table = dict(zip(self.symbols, point, strict=True))
         memo: dict[sympy.Expr, int] = {}
-        return [self.expression(eq, table, memo, stage, name)
-                for eq, name in zip(self.equations, self.model.state_names, strict=True)]
+        chosen = range(len(self.equations)) if only is None else [only]
+        return [self.expression(self.equations[i], table, memo, stage, self.model.state_names[i])
+                for i in chosen]
 
     def expression(self, expr: sympy.Expr, table: dict, memo: dict, stage: int, name: str) -> int:
         if expr in memo:

@@ -83,3 +83,26 @@ def test_rk4_gain_and_phase_follow_its_stability_polynomial(h: float) -> None:
     gain, phase = one_step_gain(INTEGRATORS["rk4"], h)
     assert gain == pytest.approx(abs(r), rel=1e-14)
     assert phase == pytest.approx(math.atan2(r.imag, r.real), rel=1e-13)
+
+
+@pytest.mark.parametrize("h", [0.01, 0.1, 0.5, 1.0])
+def test_symplectic_euler_rotates_by_acos_1_minus_h2_over_2_and_keeps_area(h: float) -> None:
+    # Semi-implicit Euler on the harmonic oscillator is the linear map [[1, h], [-h, 1 - h^2]]:
+    # determinant 1 (area kept) and rotation angle acos(1 - h^2/2) (Hairer, Lubich, Wanner,
+    # Geometric Numerical Integration, section I.1.2).
+    program = lower_step(HARMONIC, INTEGRATORS["symplectic-euler"], h)
+    values = evaluate_real(program, np.array([[1.0, 0.0], [0.0, 1.0]]))
+    matrix = np.array([values[i] for i in program.next_state])
+    assert np.linalg.det(matrix) == pytest.approx(1.0, abs=1e-14)
+    angle = math.acos(np.trace(matrix) / 2)
+    assert angle == pytest.approx(math.acos(1 - h * h / 2), rel=1e-13)
+
+
+def test_heun_gain_follows_its_stability_polynomial() -> None:
+    # R(z) = 1 + z + z^2/2 for any explicit two-stage second-order method (Hairer, Norsett,
+    # Wanner, section IV.2), at z = i h.
+    h = 0.3
+    r = 1 + 1j * h + (1j * h) ** 2 / 2
+    gain, phase = one_step_gain(INTEGRATORS["heun"], h)
+    assert gain == pytest.approx(abs(r), rel=1e-14)
+    assert phase == pytest.approx(math.atan2(r.imag, r.real), rel=1e-13)
