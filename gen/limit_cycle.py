@@ -163,16 +163,13 @@ class _Flow:
 
     def __init__(self, model: Model, sign: float) -> None:
         self.sign = sign
-        self.n = n = model.dimension
+        self.n = model.dimension
         states = list(model.state_symbols)
         rates = [sign * eq for eq in model.resolved_equations]
         jacobian = sympy.Matrix(rates).jacobian(sympy.Matrix(states))
         self._field = _compile(states, rates)
         self._jacobian = _compile(states, list(jacobian))
-        sensitivity = sympy.Matrix(n, n, [sympy.Dummy(f"m{i}") for i in range(n * n)])
-        self._variables = states + list(sensitivity)
-        self._variational_terms = rates + list(jacobian * sensitivity) + [jacobian.trace()]
-        self._variational = _compile(self._variables, self._variational_terms)
+        self._symbolic = (states, rates, jacobian)
         self._variational_jacobian = None
 
     @property
@@ -187,13 +184,24 @@ class _Flow:
 
     def variational(self, t: float, y: np.ndarray) -> np.ndarray:
         """State, monodromy (row-major) and the divergence integral (the Jacobian's trace, i.e.
-        the model's divergence), differentiated together."""
-        return np.array(self._variational(*y[:-1].tolist()), dtype=float)
+        the model's divergence), differentiated together. The product J M is done in numpy, not
+        compiled symbolically, so a network of many states compiles in a moment."""
+        n = self.n
+        x = y[:n]
+        jacobian = self.jacobian(t, x)
+        sensitivity = y[n:n + n * n].reshape(n, n)
+        return np.concatenate([self.field(t, x), (jacobian @ sensitivity).ravel(),
+                               [np.trace(jacobian)]])
 
     def variational_jacobian(self, t: float, y: np.ndarray) -> np.ndarray:
         """Jacobian of :meth:`variational`, for the implicit (stiff) integrator."""
         if self._variational_jacobian is None:
-            matrix = sympy.Matrix(self._variational_terms).jacobian(sympy.Matrix(self._variables))
+            states, rates, jacobian = self._symbolic
+            n = self.n
+            sensitivity = sympy.Matrix(n, n, [sympy.Symbol(f"_m{i}") for i in range(n * n)])
+            self._variables = states + list(sensitivity)
+            terms = rates + list(jacobian * sensitivity) + [jacobian.trace()]
+            matrix = sympy.Matrix(terms).jacobian(sympy.Matrix(self._variables))
             # min, max and clip have kinks: their second derivative is zero away from the kink
             terms = [term.replace(lambda e: isinstance(e, sympy.DiracDelta), lambda e: sympy.S.Zero)
                      for term in matrix]

@@ -75,6 +75,9 @@ class Model:
     rhythm: Rhythm
     fixed_point: FixedPointRequest = field(default_factory=FixedPointRequest)
     source: str = "python"
+    # for a network of coupled oscillators (gen/networks.py): which states belong to which
+    # oscillator and the wanted phase lags; None for a single oscillator
+    network: object | None = field(default=None, compare=False, repr=False)
 
     def __post_init__(self) -> None:
         _check_names(self)

@@ -14,6 +14,7 @@ from typing import Any
 from gen.errors import InputError
 from gen.expressions import ACCEPTED, ExpressionError
 from gen.model import FixedPointRequest, Model, Parameter, Rhythm, State
+from gen.networks import GAITS, LIMBS, LINKS, OSCILLATORS, PATTERNS, build_network, chain_lags, gait_lags
 
 MODELS_FOLDER = Path(__file__).parent / "models"
 
@@ -22,6 +23,15 @@ STATE_KEYS = {"initial", "meaning"}
 PARAMETER_KEYS = {"value", "meaning"}
 RHYTHM_KEYS = {"cycle_hz", "loop_hz"}
 FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator"}
+NETWORK_TOP_KEYS = {"name", "description", "network", "parameters", "rhythm", "fixed_point"}
+NETWORK_KEYS = {"oscillator", "pattern", "count", "waves", "lags", "links", "labels"}
+
+NETWORK_HINT = (
+    "a network file has: name, description, [network] oscillator = \"hopf\" and either "
+    f"pattern = one of {', '.join(PATTERNS)} (chain also takes count and waves) or lags = [0, 0.5, "
+    "...] in cycles (with links = \"all\" or \"neighbours\" and optional labels), then optional "
+    "[parameters] mu, omega, gamma, k, [rhythm] cycle_hz and loop_hz, optional [fixed_point]"
+)
 
 LAYOUT_HINT = (
     "a model file has: name = \"...\", description = \"...\", [states] x = { initial = 0.5 }, "
@@ -151,6 +161,8 @@ class _Reader:
         return result
 
     def build(self, data: dict) -> Model:
+        if "network" in data:
+            return self.build_network(data)
         self.check_keys(data, TOP_KEYS, None)
         name = data.get("name")
         if not isinstance(name, str):
@@ -175,13 +187,7 @@ class _Reader:
             if state not in equations:
                 raise self.error(self.line_of("equations"), f"no equation for state '{state}'",
                                  f"{state} = \"...\" under [equations]")
-        rhythm = self.table(data, "rhythm")
-        self.check_keys(rhythm, RHYTHM_KEYS, "rhythm")
-        for key in sorted(RHYTHM_KEYS):
-            if key not in rhythm:
-                raise self.error(self.line_of("rhythm"), f"[rhythm] needs '{key}'",
-                                 "cycle_hz = 1.5 (cycle frequency) and loop_hz = 1000 "
-                                 "(control-loop rate)")
+        rhythm = self.rhythm(data)
         fixed = self.table(data, "fixed_point", required=False)
         self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")
         request = self.fixed_point_request(fixed)
@@ -193,8 +199,7 @@ class _Reader:
                 states=tuple(states),
                 parameters=tuple(parameters),
                 equation_text=tuple(equations[s] for s in state_names),
-                rhythm=Rhythm(self.number(rhythm["cycle_hz"], "rhythm", "cycle_hz", "cycle_hz"),
-                              self.number(rhythm["loop_hz"], "rhythm", "loop_hz", "loop_hz")),
+                rhythm=rhythm,
                 fixed_point=request,
                 source=str(self.path),
             )
@@ -205,6 +210,79 @@ class _Reader:
                              f"of the expression)", ACCEPTED) from None
         except InputError as exc:
             raise self.error(None, str(exc), LAYOUT_HINT) from None
+
+    def rhythm(self, data: dict) -> Rhythm:
+        rhythm = self.table(data, "rhythm")
+        self.check_keys(rhythm, RHYTHM_KEYS, "rhythm")
+        for key in sorted(RHYTHM_KEYS):
+            if key not in rhythm:
+                raise self.error(self.line_of("rhythm"), f"[rhythm] needs '{key}'",
+                                 "cycle_hz = 1.5 (cycle frequency) and loop_hz = 1000 "
+                                 "(control-loop rate)")
+        return Rhythm(self.number(rhythm["cycle_hz"], "rhythm", "cycle_hz", "cycle_hz"),
+                      self.number(rhythm["loop_hz"], "rhythm", "loop_hz", "loop_hz"))
+
+    def build_network(self, data: dict) -> Model:
+        """A network file: N coupled oscillators described by pattern or lags (gen/networks.py)."""
+        self.check_keys(data, NETWORK_TOP_KEYS, None)
+        name = data.get("name")
+        if not isinstance(name, str):
+            raise self.error(self.line_of(None, "name"), "the network needs a name string",
+                             "name = \"my_gait\"")
+        spec = self.table(data, "network")
+        self.check_keys(spec, NETWORK_KEYS, "network")
+        oscillator = spec.get("oscillator", "hopf")
+        if oscillator not in OSCILLATORS:
+            raise self.error(self.line_of("network", "oscillator"),
+                             f"unknown oscillator {oscillator!r}", ", ".join(OSCILLATORS))
+        pattern = spec.get("pattern")
+        labels = spec.get("labels")
+        links = spec.get("links", "neighbours" if pattern == "chain" else "all")
+        if links not in LINKS:
+            raise self.error(self.line_of("network", "links"), f"unknown links {links!r}",
+                             ", ".join(LINKS))
+        if pattern is not None and "lags" in spec:
+            raise self.error(self.line_of("network", "lags"), "give either a pattern or lags, "
+                             "not both", NETWORK_HINT)
+        if pattern in GAITS:
+            lags = gait_lags(pattern)
+            labels = labels if labels is not None else LIMBS
+        elif pattern == "chain":
+            count = spec.get("count", 8)
+            if isinstance(count, bool) or not isinstance(count, int) or count < 2:
+                raise self.error(self.line_of("network", "count"),
+                                 f"count must be a whole number of oscillators, at least 2, got "
+                                 f"{count!r}", "count = 8")
+            waves = self.number(spec.get("waves", 1.0), "network", "waves", "waves")
+            lags = chain_lags(count, waves)
+        elif pattern is None:
+            lags = spec.get("lags")
+            if not isinstance(lags, list) or len(lags) < 2:
+                raise self.error(self.line_of("network", "lags") or self.line_of("network"),
+                                 "a network without a pattern needs lags, a list of at least two "
+                                 "numbers of cycles", "lags = [0, 0.5, 0.5, 0]")
+            lags = [self.number(v, "network", "lags", "every lag") for v in lags]
+            pattern = "custom"
+        else:
+            raise self.error(self.line_of("network", "pattern"), f"unknown pattern {pattern!r}",
+                             ", ".join(PATTERNS))
+        if labels is not None and (not isinstance(labels, list | tuple) or len(labels) != len(lags)
+                                   or not all(isinstance(v, str) for v in labels)):
+            raise self.error(self.line_of("network", "labels"),
+                             f"labels must be a list of {len(lags)} names, one per oscillator",
+                             "labels = [\"head\", \"tail\"]")
+        parameters = {n: v for n, v, _ in self.entries(data, "parameters", "value", PARAMETER_KEYS)}
+        fixed = self.table(data, "fixed_point", required=False)
+        self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")
+        rhythm = self.rhythm(data)
+        try:
+            return build_network(name, lags=lags, cycle_hz=rhythm.cycle_hz, loop_hz=rhythm.loop_hz,
+                                 oscillator=oscillator, links=links, parameters=parameters,
+                                 labels=labels, pattern=pattern,
+                                 description=str(data.get("description", "")),
+                                 fixed_point=self.fixed_point_request(fixed), source=str(self.path))
+        except InputError as exc:
+            raise self.error(None, str(exc), NETWORK_HINT) from None
 
     def fixed_point_request(self, fixed: dict) -> FixedPointRequest:
         bits = fixed.get("fraction_bits")
