@@ -197,8 +197,13 @@ def sweep(model: Model, parameter: str, start: float, stop: float, *,
     hopf: list[HopfPoint] = []
     for k in range(samples - 1):
         for state in states[k]:
-            found = _crossing(family, model, parameter, state, float(values[k]),
-                              float(values[k + 1]), abs(stop - start), notes)
+            try:
+                found = _crossing(family, model, parameter, state, float(values[k]),
+                                  float(values[k + 1]), abs(stop - start), notes)
+            except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+                notes.append(f"the eigenvalues of the equilibrium near {_text(state)} could not be "
+                             f"followed from {parameter} = {values[k]:.6g} ({exc})")
+                continue
             if found is not None and not any(_same_hopf(found, h, abs(stop - start)) for h in hopf):
                 hopf.append(found)
     hopf.sort(key=lambda h: (h.param_value - start) / (stop - start))
@@ -453,7 +458,10 @@ def _follow_branch(model: Model, parameter: str, index: int, point: HopfPoint, v
         if y is not None:
             x_eq, p_eq = y, value
         if start is None:
-            start = _first_guess(family, point, x_eq, value)
+            try:
+                start = _first_guess(family, point, x_eq, value)
+            except (ValueError, ArithmeticError, np.linalg.LinAlgError):
+                start = x_eq + 1e-3 * max(1.0, float(np.max(np.abs(x_eq))))
         at = model.with_parameters({parameter: value})
         at = replace(at, states=tuple(replace(s, initial=float(v))
                                       for s, v in zip(at.states, start, strict=True)))

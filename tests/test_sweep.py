@@ -178,3 +178,69 @@ def test_sweep_without_a_hopf_point_says_so():
 def test_bad_requests_are_input_errors(parameter, start, stop, message):
     with pytest.raises(InputError, match=message):
         sweep(stuart_landau(-1.0), parameter, start, stop)
+
+
+# -- the command line ----------------------------------------------------------------------------
+
+NORMAL_FORM_FILE = """
+# an invented demo: the Hopf normal form as the rhythm of a small pump drive
+name = "pump_rhythm"
+[states]
+x = { initial = 0.5 }
+y = { initial = 0.0 }
+[parameters]
+mu = { value = 0.2 }
+[equations]
+x = "mu*x - 2*y - (x^2 + y^2)*x"
+y = "2*x + mu*y - (x^2 + y^2)*y"
+[rhythm]
+cycle_hz = 1.0
+loop_hz = 200
+"""
+
+
+def run_cli(capsys, tmp_path, *argv: str) -> tuple[int, str, str]:
+    from verify.command_line import main
+
+    path = tmp_path / "pump_rhythm.toml"
+    path.write_text(NORMAL_FORM_FILE)
+    code = main(["sweep", str(path), *argv])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_sweep_json_contract(capsys, tmp_path):
+    import json
+
+    code, out, _ = run_cli(capsys, tmp_path, "--param", "mu", "--from", "-0.2", "--to", "0.2",
+                           "--samples", "5", "--json")
+    assert code == 0
+    data = json.loads(out)
+    (hopf,) = data["hopf"]
+    for key in ("param_value", "equilibrium", "frequency", "kind", "first_lyapunov_coefficient"):
+        assert key in hopf
+    assert hopf["kind"] == "supercritical"
+    assert hopf["frequency"] == pytest.approx(2.0, rel=1e-12)   # the normal form's omega, exact
+    assert data["branch"]
+    for point in data["branch"]:
+        assert set(point) >= {"param_value", "period", "amplitude", "max_multiplier"}
+        # exact for the normal form with s = -1: radius sqrt(mu)
+        assert point["amplitude"] == pytest.approx(math.sqrt(point["param_value"]), rel=1e-8)
+
+
+def test_sweep_text_report(capsys, tmp_path):
+    code, out, _ = run_cli(capsys, tmp_path, "--param", "mu", "--from", "-0.2", "--to", "0.2",
+                           "--samples", "5", "--no-cycles")
+    assert code == 0
+    assert "Hopf points: 1" in out and "supercritical" in out and "Caution" in out
+
+
+@pytest.mark.parametrize(("argv", "message"), [
+    (("--param", "nu", "--from", "0", "--to", "1"), "no parameter 'nu'"),
+    (("--param", "mu", "--from", "1", "--to", "1"), "must cover a range"),
+    (("--param", "mu", "--from", "nan", "--to", "1"), "finite"),
+    (("--param", "mu", "--from", "0", "--to", "1", "--samples", "2"), "samples"),
+])
+def test_sweep_bad_input_exits_2_with_a_message(capsys, tmp_path, argv, message):
+    code, _, err = run_cli(capsys, tmp_path, *argv)
+    assert code == 2 and message in err and "Traceback" not in err
