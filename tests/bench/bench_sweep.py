@@ -1,0 +1,58 @@
+"""Time full parameter sweeps: the Hopf normal form (one supercritical Hopf point, the cycle followed
+through every sample beyond it) and FitzHugh-Nagumo in its input current (two Hopf points), each with
+one and with two worker processes.
+
+Run as ``python tests/bench/bench_sweep.py``; prints the median of a few runs for each case.
+"""
+
+from __future__ import annotations
+
+import statistics
+import sys
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
+
+from gen.model import define_model
+from gen.sweep import sweep
+
+RUNS = 3
+
+
+def normal_form():
+    return define_model("normal_form", {"x": 0.5, "y": 0.0},
+                        {"x": "mu*x - 2*y - (x^2 + y^2)*x", "y": "2*x + mu*y - (x^2 + y^2)*y"},
+                        {"mu": 0.2}, cycle_hz=1.0, loop_hz=200.0)
+
+
+def fitzhugh_nagumo():
+    return define_model("fitzhugh_nagumo", {"v": -1.0, "w": -0.5},
+                        {"v": "v - v^3/3 - w + I", "w": "eps*(v + a - b*w)"},
+                        {"I": 0.5, "a": 0.7, "b": 0.8, "eps": 0.08}, cycle_hz=1.0, loop_hz=100.0)
+
+
+def timed(model, parameter: str, start: float, stop: float, workers: int) -> tuple[float, str]:
+    times, summary = [], ""
+    for _ in range(RUNS):
+        began = time.perf_counter()
+        result = sweep(model, parameter, start, stop, workers=workers)
+        times.append(time.perf_counter() - began)
+        found = sum(1 for b in result.branch if b.found)
+        summary = (f"{len(result.hopf)} Hopf point(s), {found} of {len(result.branch)} branch "
+                   f"points found")
+    return statistics.median(times), summary
+
+
+def main() -> None:
+    print(f"sweep, 41 samples, median of {RUNS} runs")
+    cases = [("normal form, mu -1..1", normal_form(), "mu", -1.0, 1.0),
+             ("FitzHugh-Nagumo, I 0..1.6", fitzhugh_nagumo(), "I", 0.0, 1.6)]
+    for label, model, parameter, start, stop in cases:
+        for workers in (1, 2):
+            seconds, summary = timed(model, parameter, start, stop, workers)
+            print(f"  {label:<28} workers {workers}  {seconds:6.2f} s   {summary}")
+
+
+if __name__ == "__main__":
+    main()
