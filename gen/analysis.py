@@ -14,6 +14,7 @@ import numpy as np
 from gen.equilibria import KIND_MEANINGS, Equilibrium, find_equilibria, format_state
 from gen.limit_cycle import LimitCycle, find_limit_cycle
 from gen.model import Model
+from gen.phase_locking import PhaseLocking, analyse_locking, format_locking
 
 CAUTION = (
     "Caution: this is an analysis of the mathematical model, not of the machine. Bench-test the "
@@ -24,21 +25,27 @@ CAUTION = (
 
 @dataclass(frozen=True, eq=False)
 class Analysis:
-    """Equilibria and limit cycle of one model."""
+    """Equilibria and limit cycle of one model; for a network, its phase locking too."""
 
     model: Model
     equilibria: tuple[Equilibrium, ...]
     cycle: LimitCycle
+    network: PhaseLocking | None = None
 
     @property
     def ok(self) -> bool:
-        """True when the model has a stable, isolated limit cycle: a rhythm worth shipping."""
-        return bool(self.cycle.found and self.cycle.stable and self.cycle.isolated)
+        """True when the model has a stable, isolated limit cycle: a rhythm worth shipping (and, for
+        a network, it locks at the wanted phase lags)."""
+        cycle_ok = bool(self.cycle.found and self.cycle.stable and self.cycle.isolated)
+        return cycle_ok and (self.network is None or self.network.ok)
 
     def to_json(self) -> dict:
         """Plain data (floats, lists, bools, None; never numpy types), ready for ``json.dump``.
         Numbers that are not finite (an underflowed logarithm, say) are written as None."""
         cycle = self.cycle
+        network = None if self.network is None else {
+            key: (_numbers(value) if isinstance(value, list) and key != "labels" else value)
+            for key, value in self.network.to_json().items()}
         return {
             "model": self.model.name,
             "params": {name: _number(value) for name, value in self.model.parameter_values.items()},
@@ -64,13 +71,16 @@ class Analysis:
                 "settled_at": (None if cycle.settled_at is None
                                else _equilibrium_json(cycle.settled_at)),
             },
+            **({} if network is None else {"network": network}),
         }
 
 
 def analyse(model: Model) -> Analysis:
     """Find the model's equilibria and the limit cycle its initial state runs onto."""
-    return Analysis(model=model, equilibria=tuple(find_equilibria(model)),
-                    cycle=find_limit_cycle(model))
+    cycle = find_limit_cycle(model)
+    network = None if model.network is None else analyse_locking(model, cycle)
+    return Analysis(model=model, equilibria=tuple(find_equilibria(model)), cycle=cycle,
+                    network=network)
 
 
 def format_report(analysis: Analysis) -> str:
@@ -116,6 +126,9 @@ def format_report(analysis: Analysis) -> str:
                          f"over one period: {cycle.floquet_log[0]:.8g}")
     lines.append(f"  verdict: {cycle.verdict}")
     lines.append("")
+    if analysis.network is not None:
+        lines += format_locking(analysis.network)
+        lines.append("")
     lines.append(CAUTION)
     return "\n".join(lines) + "\n"
 

@@ -13,6 +13,7 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
+import sympy
 from scipy.optimize import root
 from scipy.stats import qmc
 
@@ -119,8 +120,18 @@ class EquilibriumFinder:
 
     def __init__(self, model: Model) -> None:
         self.model = model
-        self.field = model.vector_field()
-        self.jacobian = model.jacobian()
+        # scalar code with shared subexpressions: root finding calls these for one point at a
+        # time, where numpy's per-call overhead would dominate (a 16-state network has 256
+        # Jacobian entries)
+        n = model.dimension
+        states = list(model.state_symbols)
+        rates = list(model.resolved_equations)
+        field = sympy.lambdify(states, rates, modules="math", cse=True)
+        entries = list(sympy.Matrix(rates).jacobian(sympy.Matrix(states)))
+        jacobian = sympy.lambdify(states, entries, modules="math", cse=True)
+        self.field = lambda t, x: np.array(field(*np.asarray(x, dtype=float).tolist()), dtype=float)
+        self.jacobian = lambda x: np.array(jacobian(*np.asarray(x, dtype=float).tolist()),
+                                           dtype=float).reshape(n, n)
 
     def all(self) -> list[Equilibrium]:
         """Every equilibrium reached from the seeds, each once, in a fixed order."""
