@@ -1,0 +1,45 @@
+"""Time the check (the whole continuous-model analysis) of every built-in model, networks included.
+
+Run as ``python tests/bench/bench_library.py``; prints the median of a few runs per model, with the
+number of states and the verdict.
+"""
+
+from __future__ import annotations
+
+import statistics
+import sys
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
+
+from gen.analysis import analyse
+from gen.model_file import builtin_names, load_model
+
+RUNS = 3
+
+
+def median_seconds(name: str) -> tuple[float, int, str]:
+    model = load_model(name)
+    times, outcome = [], ""
+    for _ in range(RUNS):
+        start = time.perf_counter()
+        analysis = analyse(model)
+        times.append(time.perf_counter() - start)
+        outcome = "ok" if analysis.ok else "NOT ok"
+        if analysis.network is not None:
+            outcome += f", locks in {analysis.network.cycles_to_lock} cycles"
+    return statistics.median(times), model.dimension, outcome
+
+
+def main() -> None:
+    print(f"analyse(model) for each built-in model, median of {RUNS} runs")
+    names = builtin_names()
+    width = max(len(n) for n in names)
+    for name in names:
+        seconds, states, outcome = median_seconds(name)
+        print(f"  {name:<{width}}  {states:>2} states  {seconds * 1000:8.1f} ms   {outcome}")
+
+
+if __name__ == "__main__":
+    main()
