@@ -75,6 +75,23 @@ class FixedPointPlan:
     constants: tuple[ConstantReport, ...]
     initial_state: tuple[int, ...]
     warnings: tuple[str, ...]
+    signal_ranges: tuple[tuple[float, float], ...] = ()
+
+    def signal_table(self) -> list[dict]:
+        """One row per value of the step: its range on the cycle, format, headroom and the size
+        of its quantisation step."""
+        fmt = self.signal_format
+        rows = []
+        for index, (op, (low, high)) in enumerate(zip(self.program.ops, self.signal_ranges,
+                                                      strict=True)):
+            peak = max(abs(low), abs(high))
+            rows.append({
+                "value": index, "kind": op.kind, "note": op.note, "min": low, "max": high,
+                "format": fmt.name,
+                "headroom_bits": math.log2(fmt.largest / peak) if peak else float(fmt.word_bits - 1),
+                "quantisation_step": fmt.step,
+            })
+        return rows
 
     @property
     def headroom_bits(self) -> float:
@@ -120,7 +137,8 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
         raise InputError(f"the range margin must be at least 1, got {margin}")
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
     values = evaluate_real(program, points)
-    peaks = [float(np.max(np.abs(v))) for v in values]
+    ranges = tuple((float(np.min(v)), float(np.max(v))) for v in values)
+    peaks = [max(abs(low), abs(high)) for low, high in ranges]
     worst = int(np.argmax(peaks))
     largest = peaks[worst]
     if not math.isfinite(largest):
@@ -156,7 +174,8 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     return FixedPointPlan(signal_format=fmt, largest_signal=largest,
                           largest_signal_note=program.ops[worst].note, margin=margin,
                           program=planned, constants=tuple(constants),
-                          initial_state=initial_ints, warnings=tuple(warnings))
+                          initial_state=initial_ints, warnings=tuple(warnings),
+                          signal_ranges=ranges)
 
 
 def _check_choice(what: str, value: object, choices: tuple) -> None:

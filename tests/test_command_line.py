@@ -145,3 +145,22 @@ def test_console_entry_point_runs_as_a_module() -> None:
                            "--set", "mu=-1"], capture_output=True, text=True, check=False)
     assert done.returncode == 1
     assert "Traceback" not in done.stderr
+
+
+def test_plan_json_has_signals_constants_and_integrators(capsys) -> None:
+    code, out, _ = run(capsys, "plan", "vanderpol", "--json", "--max-frequency-error", "100")
+    assert code == 0
+    data = json.loads(out)
+    signals = data["plan"]["signals"]
+    assert len(signals) == len(data["plan"]["formats"]["constants"]) + 32  # 47 values, 15 constants
+    for row in signals:
+        assert row["min"] <= row["max"] and row["headroom_bits"] >= 2  # margin 4 = 2 bits
+    names = [s["integrator"] for s in data["integrators"]]
+    assert names == ["euler", "symplectic-euler", "heun", "rk4"]
+    euler = data["integrators"][0]
+    assert euler["lowest_loop_hz"] is None and euler["needed_loop_hz"] > 1000
+
+
+def test_plan_refuses_a_non_positive_tolerance(capsys) -> None:
+    code, _, err = run(capsys, "plan", "vanderpol", "--max-amplitude-error", "0")
+    assert code == 2 and "positive" in err

@@ -20,13 +20,13 @@ from gen.errors import InputError, OrbitfixError
 from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from gen.integrators import INTEGRATORS
 from gen.pipeline import Design, NoStableCycleError, design
-from verify import models_command
+from verify import models_command, plan_command, sweep_command
 from verify.cli_support import CAUTION, add_model_arguments, model_from_args, plain_json
 from verify.host_build import STRICT_FLAGS
 from verify.host_check import check_on_host
 
 # Verbs defined in modules of their own: each module has register(verbs) adding its parser.
-VERB_MODULES: tuple = (models_command,)
+VERB_MODULES: tuple = (models_command, plan_command, sweep_command)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -1,0 +1,161 @@
+"""Studies that help choose a plan: how each integrator keeps the cycle at the loop rate, and a
+search for the cheapest word size and integrator that keep it within tolerance."""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass
+
+from gen.discrete_cycle import (
+    CycleTolerance,
+    SteppedCycle,
+    float_cycle,
+    integer_cycle,
+    lowest_loop_rate,
+    needed_loop_rate,
+)
+from gen.errors import InputError
+from gen.integer_program import WORD_SIZES
+from gen.integrators import INTEGRATORS
+from gen.pipeline import Design, design
+
+
+@dataclass(frozen=True)
+class IntegratorStudy:
+    """One integrator at the model's loop rate, in the model's word size."""
+
+    integrator: str
+    operations: int
+    products: int
+    float_cycle: SteppedCycle
+    integer_cycle: SteppedCycle
+    lowest_loop_hz: float | None
+    needed_loop_hz: float | None
+
+    def to_json(self) -> dict:
+        return {"integrator": self.integrator, "operations": self.operations,
+                "products": self.products, "float_map": self.float_cycle.to_json(),
+                "integer_map": self.integer_cycle.to_json(),
+                "lowest_loop_hz": self.lowest_loop_hz, "needed_loop_hz": self.needed_loop_hz}
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One word size and integrator tried by the search, with its cost and outcome."""
+
+    word_bits: int
+    integrator: str
+    signal_format: str
+    products: int
+    operations: int
+    cycle: SteppedCycle | None
+    problem: str = ""
+
+    @property
+    def cost(self) -> tuple[int, int, int]:
+        """Cheaper first: a narrower word, then fewer products, then fewer operations."""
+        return (self.word_bits, self.products, self.operations)
+
+    @property
+    def kept(self) -> bool:
+        return self.cycle is not None and self.cycle.kept
+
+    def to_json(self) -> dict:
+        return {"word_bits": self.word_bits, "integrator": self.integrator,
+                "format": self.signal_format, "products": self.products,
+                "operations": self.operations, "kept": self.kept,
+                "cycle": self.cycle.to_json() if self.cycle else None, "problem": self.problem}
+
+
+@dataclass(frozen=True)
+class SearchResult:
+    """The cheapest candidate that keeps the cycle, and which tolerance binds it."""
+
+    best: Candidate | None
+    binding: str
+    candidates: tuple[Candidate, ...]
+
+    def to_json(self) -> dict:
+        return {"best": self.best.to_json() if self.best else None, "binding": self.binding,
+                "candidates": [c.to_json() for c in self.candidates]}
+
+
+def _counts(built: Design) -> tuple[int, int]:
+    ops = built.plan.program.ops
+    return len(ops), sum(op.kind in ("mul", "scale") for op in ops)
+
+
+def _cycle_of(built: Design, tolerance: CycleTolerance, integer: bool) -> SteppedCycle:
+    cycle = built.analysis.cycle
+    measure = integer_cycle if integer else float_cycle
+    return measure(built.plan.program, cycle.samples, built.timing.steps_per_cycle,
+                   cycle.state_min, cycle.state_max, tolerance=tolerance)
+
+
+def study_integrators(base: Design, tolerance: CycleTolerance | None = None) -> list[IntegratorStudy]:
+    """Every registered integrator at the base design's loop rate and number format."""
+    tolerance = tolerance or CycleTolerance()
+    studies = []
+    for name, integrator in INTEGRATORS.items():
+        built = design(base.model.with_fixed_point(integrator=name), analysis=base.analysis)
+        operations, products = _counts(built)
+        floats = _cycle_of(built, tolerance, integer=False)
+        ints = _cycle_of(built, tolerance, integer=True)
+        cycle = built.analysis.cycle
+        lowest = lowest_loop_rate(built.model, integrator, cycle.period, cycle.samples,
+                                  cycle.state_min, cycle.state_max, tolerance)
+        needed = None if lowest else needed_loop_rate(built.timing.loop_hz, ints, integrator,
+                                                      tolerance)
+        studies.append(IntegratorStudy(name, operations, products, floats, ints, lowest, needed))
+    return studies
+
+
+def _try(job: tuple[Design, int, str, CycleTolerance]) -> Candidate:
+    base, word_bits, name, tolerance = job
+    try:
+        built = design(base.model.with_fixed_point(integrator=name, word_bits=word_bits,
+                                                   fraction_bits=None),
+                       analysis=base.analysis)
+    except InputError as exc:
+        return Candidate(word_bits, name, "-", 0, 0, None, problem=str(exc))
+    operations, products = _counts(built)
+    return Candidate(word_bits, name, built.plan.signal_format.name, products, operations,
+                     _cycle_of(built, tolerance, integer=True))
+
+
+def search(base: Design, tolerance: CycleTolerance | None = None,
+           workers: int | None = None) -> SearchResult:
+    """Try every word size and integrator (in a local process pool), and pick the cheapest that
+    keeps the cycle within tolerance at the model's loop rate."""
+    tolerance = tolerance or CycleTolerance()
+    jobs = [(base, w, name, tolerance) for w in WORD_SIZES for name in INTEGRATORS]
+    workers = workers or min(len(jobs), os.cpu_count() or 1)
+    if workers > 1:
+        with ProcessPoolExecutor(max_workers=workers) as pool:
+            candidates = list(pool.map(_try, jobs))
+    else:
+        candidates = [_try(job) for job in jobs]
+    candidates.sort(key=lambda c: c.cost)
+    best = next((c for c in candidates if c.kept), None)
+    cheaper = [c for c in candidates if best is None or c.cost < best.cost]
+    return SearchResult(best, _binding(best, cheaper[-1] if cheaper else None, tolerance),
+                        tuple(candidates))
+
+
+def _binding(best: Candidate | None, cheaper: Candidate | None, tolerance: CycleTolerance) -> str:
+    """Which tolerance is nearest its limit for the chosen candidate, and what the next cheaper
+    candidate broke."""
+    if best is None or best.cycle is None:
+        return "no candidate keeps the cycle within tolerance"
+    why_not = ""
+    if cheaper is not None:
+        reason = cheaper.problem or (cheaper.cycle.verdict if cheaper.cycle else "")
+        why_not = f"; the next cheaper ({cheaper.word_bits}-bit {cheaper.integrator}) fails: {reason}"
+    frequency = abs(best.cycle.frequency_error_ppm or 0.0) / tolerance.frequency_ppm
+    amplitude = (best.cycle.amplitude_error or 0.0) / tolerance.amplitude
+    if frequency >= amplitude:
+        return (f"frequency: {abs(best.cycle.frequency_error_ppm or 0):.1f} ppm of the "
+                f"{tolerance.frequency_ppm:g} ppm allowed{why_not}")
+    return (f"amplitude: {100 * (best.cycle.amplitude_error or 0):.3f} % of the "
+            f"{100 * tolerance.amplitude:g} % allowed{why_not}")
