@@ -105,7 +105,7 @@ def analyse_locking(model: Model, cycle: LimitCycle) -> PhaseLocking:
     else:
         verdict = (f"phase-locked at the wanted lags (worst error {worst:.2g} cycles), common period "
                    f"{cycle.period:.6g} model time units; locked within {LOCK_TOLERANCE:g} cycles "
-                   f"after {to_lock} cycles from the initial state")
+                   f"after {to_lock} cycle{'' if to_lock == 1 else 's'} from the initial state")
     return PhaseLocking(labels, locked, wanted, lags, errors, float(cycle.period), to_lock, verdict)
 
 
