@@ -1,6 +1,7 @@
-"""Time full parameter sweeps: the Hopf normal form (one supercritical Hopf point, the cycle followed
-through every sample beyond it) and FitzHugh-Nagumo in its input current (two Hopf points), each with
-one and with two worker processes.
+"""Time full parameter sweeps and a basin sample: the Hopf normal form (one supercritical Hopf
+point, the cycle followed through every sample beyond it) and FitzHugh-Nagumo in its input current
+(two Hopf points), each with one and with two worker processes; and a 20 x 20 basin sample of
+the built-in Van der Pol model.
 
 Run as ``python tests/bench/bench_sweep.py``; prints the median of a few runs for each case.
 """
@@ -14,7 +15,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
+from gen.basin import box_starts, sample_basin
 from gen.model import define_model
+from gen.model_file import load_model
 from gen.sweep import sweep
 
 RUNS = 3
@@ -52,6 +55,15 @@ def main() -> None:
         for workers in (1, 2):
             seconds, summary = timed(model, parameter, start, stop, workers)
             print(f"  {label:<28} workers {workers}  {seconds:6.2f} s   {summary}")
+    model = load_model("vanderpol")
+    box = {"x": (-3.0, 3.0), "y": (-3.0, 3.0)}
+    times, share = [], 0.0
+    for _ in range(RUNS):
+        began = time.perf_counter()
+        share = sample_basin(model, box_starts(model, box, grid=20), box).fraction_on_cycle
+        times.append(time.perf_counter() - began)
+    print(f"basin, vanderpol, 20 x 20 grid in x, y from -3 to 3: {statistics.median(times):6.2f} s "
+          f"(median of {RUNS}), {100 * share:.1f} % reach the cycle")
 
 
 if __name__ == "__main__":
