@@ -112,13 +112,14 @@ class HarnessStatistics:
 
 @dataclass(frozen=True)
 class StepMapReference:
-    """The float step map (L1) run from the continuous cycle's point: period and amplitudes.
+    """The float step map (L1) run from the continuous cycle's point: period and amplitudes
+    (``period_steps`` is None when the step map does not go round the cycle at all).
 
     reached : for each start, whether the float step map from it is on the cycle after
         STEP_MAP_CYCLES cycles (amplitudes within the amplitude tolerance of the reference).
     """
 
-    period_steps: float
+    period_steps: float | None
     amplitude: list[float]
     reached: dict[str, bool]
 
@@ -225,7 +226,7 @@ class DriftReport:
                 "continuous": {"period_steps": self.continuous_period_steps,
                                "amplitude": self.continuous_amplitude},
                 "step_map": {"period_steps": self.step_map.period_steps,
-                             "amplitude": self.step_map.amplitude},
+                             "amplitude": [_finite(v) for v in self.step_map.amplitude]},
             },
             "runs": [run.to_json(self.fraction_bits) for run in self.runs],
             "notes": list(self.notes),
@@ -240,7 +241,8 @@ class DriftReport:
                  f"({self.hours:g} h at {self.loop_hz:g} Hz) from {len(self.runs)} starts, in "
                  "compiled C",
                  f"  references: continuous cycle {self.continuous_period_steps:.6f} steps per "
-                 f"cycle, float step map {self.step_map.period_steps:.6f}",
+                 "cycle, float step map " + _maybe(self.step_map.period_steps, lambda v: f"{v:.6f}",
+                                                   "has no cycle at this step size"),
                  "  amplitudes (continuous / float step map): " + ", ".join(
                      f"{n} {a:.6g} / {b:.6g}" for n, a, b in
                      zip(names, self.continuous_amplitude, self.step_map.amplitude, strict=True)),
@@ -255,9 +257,11 @@ class DriftReport:
                 + _maybe(run.amplitude_error, lambda v: f"; worst error {100 * v:.4g} %"))
             if run.period_steps is not None:
                 lines.append(f"    period {run.period_steps:.6f} steps: {run.period_error_ppm:+.4g} ppm "
-                             f"against the continuous cycle, {run.period_error_ppm_step_map:+.4g} ppm "
-                             f"against the float step map; phase drift "
-                             f"{run.phase_drift_cycles:+.4g} cycles over the run")
+                             "against the continuous cycle" + _maybe(
+                                 run.period_error_ppm_step_map,
+                                 lambda v: f", {v:+.4g} ppm against the float step map") + _maybe(
+                                 run.phase_drift_cycles,
+                                 lambda v: f"; phase drift {v:+.4g} cycles over the run"))
             if run.integer_period_steps is not None:
                 lines.append(f"    the integer orbit repeats exactly every {run.integer_period_steps:,} "
                              f"steps ({run.integer_period_steps / self.continuous_period_steps:.4g} "
@@ -275,8 +279,12 @@ class DriftReport:
         return lines
 
 
-def _maybe(value: object, text) -> str:
-    return "" if value is None else text(value)
+def _finite(value: float) -> float | None:
+    return value if math.isfinite(value) else None
+
+
+def _maybe(value: object, text, absent: str = "") -> str:
+    return absent if value is None else text(value)
 
 
 def render_drift_harness(design: Design) -> str:
@@ -428,12 +436,12 @@ def step_map_reference(design: Design, level: float, starts: list[Start],
     first = record[:-1, 0, 0]
     second = record[1:, 0, 0]
     up = np.flatnonzero((first < level) & (second >= level))
-    if up.size < 2:
-        raise InputError("the float step map (L1) does not go round the cycle at this step size; "
-                         "raise the loop rate or choose another integrator")
+    reference = amplitude[:, 0]
+    if up.size < 2 or not np.all(np.isfinite(reference)):
+        return StepMapReference(period_steps=None, amplitude=[float("nan")] * len(reference),
+                                reached={s.name: False for s in starts})
     times = up + (level - first[up]) / (second[up] - first[up])
     period = float((times[-1] - times[0]) / (up.size - 1))
-    reference = amplitude[:, 0]
     reached = {}
     for index, start in enumerate(starts, start=1):
         error = np.abs(amplitude[:, index] - reference) / reference
@@ -516,16 +524,24 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
                        for lo, hi in zip(r["first_low"], r["first_high"], strict=True)]
     reasons: list[str] = []
 
+    reference_ok = report.step_map.period_steps is not None
+
     def relative(reference: list[float]) -> list[float]:
         return [abs(a - b) / b if b > 0 else math.inf for a, b in zip(amplitude, reference, strict=True)]
 
     versus_l0 = relative(report.continuous_amplitude)
     versus_l1 = relative(report.step_map.amplitude)
+    if not reference_ok:
+        reasons.append("the float step map (L1) itself does not go round the cycle at this step "
+                       "size (a discretisation failure, before any rounding): raise the loop rate "
+                       "or choose a higher-order integrator")
     for label, errors in (("the continuous cycle", versus_l0), ("the float step map", versus_l1)):
-        for name, error, value in zip(names, errors, amplitude, strict=True):
-            if error > tol.amplitude:
-                reasons.append(f"amplitude of {name} at the end is {value:.6g}, {100 * error:.3g} % "
-                               f"off {label} (tolerance {100 * tol.amplitude:g} %)")
+        bad = [f"{name} {value:.6g} ({100 * error:.3g} % off)"
+               for name, error, value in zip(names, errors, amplitude, strict=True)
+               if error > tol.amplitude]
+        if bad and (reference_ok or label == "the continuous cycle"):
+            reasons.append(f"amplitude at the end against {label}: {', '.join(bad)} (tolerance "
+                           f"{100 * tol.amplitude:g} %)")
 
     period = period_ppm = period_ppm_l1 = drift = drift_l0 = None
     spread = None
@@ -535,14 +551,16 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         t_last = crossing_time(*stats.last_bracket, c["last_crossing"], level)
         period = (t_last - t_first) / (c["settled_crossings"] - 1)
         period_ppm = 1e6 * (period - report.continuous_period_steps) / report.continuous_period_steps
-        period_ppm_l1 = 1e6 * (period - report.step_map.period_steps) / report.step_map.period_steps
-        drift = report.steps * (1 / report.step_map.period_steps - 1 / period)
         drift_l0 = report.steps * (1 / report.continuous_period_steps - 1 / period)
+        if reference_ok:
+            l1 = report.step_map.period_steps
+            period_ppm_l1 = 1e6 * (period - l1) / l1
+            drift = report.steps * (1 / l1 - 1 / period)
         for label, ppm in (("the continuous cycle", period_ppm), ("the float step map", period_ppm_l1)):
-            if abs(ppm) > tol.period_ppm:
+            if ppm is not None and abs(ppm) > tol.period_ppm:
                 reasons.append(f"period {period:.6g} steps is {ppm:+.4g} ppm off {label} "
                                f"(tolerance {tol.period_ppm:g} ppm)")
-        if abs(drift) > tol.phase_drift_cycles:
+        if drift is not None and abs(drift) > tol.phase_drift_cycles:
             reasons.append(f"phase drifts {drift:+.4g} cycles over the run against the float step "
                            f"map (tolerance {tol.phase_drift_cycles:g})")
         ranges = [2 * a for a in report.continuous_amplitude]
@@ -577,15 +595,13 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     if c["range_settled"]:
         reasons.append(f"an intermediate left the planned range on {c['range_settled']:,} steps "
                        "after settling")
-    grew = any(a > 2 * b for a, b in zip(amplitude, report.continuous_amplitude, strict=True))
-    if grew or c["limit_settled"]:
-        reasons.append("the orbit grew far beyond the cycle" + (
-            " and stays at the word's limit" if c["limit_settled"] else ""))
+    if any(a > 2 * b for a, b in zip(amplitude, report.continuous_amplitude, strict=True)):
+        reasons.append("the orbit grew to more than twice the cycle's amplitude")
     returns = report.step_map.reached[start.name]
-    if reasons and not returns:
-        reasons.append("the float step map from this start does not reach the cycle either: the "
-                       "start lies outside the step map's own basin, so the step size (not the "
-                       "word) is the limit here")
+    if reasons and reference_ok and not returns:
+        reasons.append(f"the float step map from this start is not on its cycle after "
+                       f"{STEP_MAP_CYCLES} cycles either: the start lies outside or at the edge "
+                       "of the step map's own basin, so the step size shares the blame")
     events = {
         "count": c["limit_steps"],
         "first_step": c["limit_first"] or None,
@@ -596,7 +612,8 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     }
     return DriftRun(
         start=start, amplitude=amplitude, amplitude_first=amplitude_first,
-        amplitude_error=max(versus_l0), amplitude_error_step_map=max(versus_l1),
+        amplitude_error=_finite(max(versus_l0)),
+        amplitude_error_step_map=_finite(max(versus_l1)) if reference_ok else None,
         period_steps=period, period_error_ppm=period_ppm, period_error_ppm_step_map=period_ppm_l1,
         phase_drift_cycles=drift, phase_drift_cycles_continuous=drift_l0, return_spread=spread,
         crossings=c["crossings"], settled_crossings=c["settled_crossings"],

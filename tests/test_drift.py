@@ -1,0 +1,281 @@
+"""The long-run drift proof: Brent's algorithm in the C harness against brute force and the
+Hull-Dobell theorem, the harness's streaming statistics against numpy on the golden trajectory,
+and the verdicts on a healthy and on broken designs."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from gen import golden
+from gen.errors import InputError
+from gen.fixed_point import ConstantReport, FixedPointPlan, QFormat
+from gen.integer_program import IntegerProgram, Op
+from gen.integrators import EULER
+from gen.model import define_model
+from gen.pipeline import Design, design
+from gen.timing import Timing
+from verify.drift import (
+    DriftTolerances,
+    build_drift_module,
+    cycle_start,
+    harness_statistics,
+    integer_period,
+    run_drift,
+)
+
+# ---------------------------------------------------------------------------------------------
+# Brent's algorithm on small integer maps, compiled through the real emitter and harness
+
+
+def congruential_design(a: int, c: int) -> Design:
+    """x -> a*x + c modulo 2**16 (16-bit wrap-around words), y -> x: a linear congruential map
+    with a one-step delay, so the cycle is found on the whole state tuple."""
+    model = define_model("lcg", {"x": 0.0, "y": 0.0}, {"x": "y", "y": "-x"}, cycle_hz=1,
+                         loop_hz=100)
+    ops = (Op("state", state=0, note="x", fraction_bits=0),
+           Op("state", state=1, note="y", fraction_bits=0),
+           Op("scale", (0,), real=float(a), note="a*x", constant=a, shift=0, fraction_bits=0),
+           Op("const", real=float(c), note="c", constant=c, fraction_bits=0),
+           Op("add", (2, 3), note="a*x + c", fraction_bits=0))
+    program = IntegerProgram(name="lcg", state_names=("x", "y"), ops=ops, next_state=(4, 0),
+                             word_bits=16, product_bits=32, rounding="truncate", overflow="wrap",
+                             state_fraction_bits=(0, 0))
+    word = QFormat(16, 0)
+    plan = FixedPointPlan(signal_format=word, largest_signal=1.0, largest_signal_note="x",
+                          margin=1.0, program=program,
+                          constants=(ConstantReport(2, "a*x", float(a), a, word, "multiplier"),
+                                     ConstantReport(3, "c", float(c), c, word, "added")),
+                          initial_state=(0, 0), warnings=())
+    timing = Timing(model_period=1.0, cycle_hz=1.0, loop_hz=100.0, time_scale=1.0, step=0.01,
+                    steps_per_cycle=100.0)
+    return Design(model=model, analysis=None, timing=timing, integrator=EULER, plan=plan)
+
+
+def brute_force_cycle(rows) -> tuple[int, int]:
+    """(mu, period) by remembering every state of a trajectory (independent reference)."""
+    seen: dict[tuple[int, ...], int] = {}
+    for k, row in enumerate(rows):
+        key = tuple(int(v) for v in row)
+        if key in seen:
+            return seen[key], k - seen[key]
+        seen[key] = k
+    raise AssertionError("no repeat within the brute-force budget")
+
+
+def congruential_orbit(a: int, c: int, start: tuple[int, int], steps: int):
+    """The map in Python's exact integers, from its definition: x -> (a*x + c) mod 2**16 read as
+    a signed 16-bit word, y -> x."""
+    x, y = start
+    yield x, y
+    for _ in range(steps):
+        x, y = (a * x + c + (1 << 15)) % (1 << 16) - (1 << 15), x
+        yield x, y
+
+
+def golden_checked_trajectory(host, program: IntegerProgram, start: tuple[int, ...],
+                              steps: int) -> np.ndarray:
+    """A trajectory recorded by the C, every step of which is checked against one golden step
+    (vectorised over the whole trajectory). Row k is the state after k steps."""
+    io = np.array(start, dtype=np.int32)
+    record = np.empty((steps, len(start)), dtype=np.int32)
+    host.lib.orbitfix_harness_run(host.ffi.from_buffer("int32_t[]", io), steps,
+                                  host.ffi.from_buffer("int32_t[]", record))
+    x = np.vstack([np.array(start).reshape(1, -1), record]).astype(np.int64)
+    assert np.array_equal(golden.step(program, x[:-1].T), x[1:].T)
+    return x
+
+
+def test_brent_finds_the_full_period_of_a_hull_dobell_generator() -> None:
+    # Source: Hull and Dobell, "Random number generators", SIAM Review 4 (1962): x -> a*x + c mod m
+    # has period m exactly when c is coprime to m, a - 1 is divisible by every prime factor of m,
+    # and by 4 when 4 divides m. Here m = 2**16, a = 4*1234 + 1, c odd: period 65536.
+    built = congruential_design(4 * 1234 + 1, 12345)
+    host = build_drift_module(built)
+    period, seen_at = integer_period(host, (17, 0), budget=1 << 20)
+    assert period == 1 << 16
+    assert seen_at >= period
+    assert cycle_start(host, (17, 0), period, budget=1 << 20) == 1  # y joins x's cycle after one step
+    # The drift run's own Brent (inside the traced loop) finds the same period.
+    stats = harness_statistics(host, (17, 0), steps=300_000, settle=10, window=10,
+                               section_level=0, planned_limit=32767)
+    assert stats.counts["period"] == 1 << 16
+
+
+@pytest.mark.parametrize(("a", "c", "start"), [(4 * 77 + 3, 1001, (5, 9)), (6, 1, (3, 0)),
+                                               (4 * 99 + 1, 4, (8, 2)), (12, 7, (1000, -4))])
+def test_brent_agrees_with_brute_force_on_maps_with_tails_and_short_cycles(a: int, c: int,
+                                                                          start) -> None:
+    # Reference: brute force (every state remembered) on the golden interpreter's trajectory.
+    # a = 6 or 12 is not invertible mod 2**16, so these orbits have a tail before their cycle.
+    built = congruential_design(a, c)
+    host = build_drift_module(built)
+    mu, period = brute_force_cycle(congruential_orbit(a, c, start, 140_000))
+    golden_checked_trajectory(host, built.plan.program, start, 1000)  # the C is that map
+    found, _ = integer_period(host, start, budget=1 << 20)
+    assert found == period
+    assert cycle_start(host, start, found, budget=1 << 20) == mu
+
+
+def test_brent_reports_no_repeat_when_the_budget_is_too_small() -> None:
+    built = congruential_design(4 * 1234 + 1, 12345)  # period 65536 (Hull and Dobell, above)
+    host = build_drift_module(built)
+    assert integer_period(host, (17, 0), budget=60_000)[0] is None
+
+
+# ---------------------------------------------------------------------------------------------
+# Streaming statistics of the C harness against numpy on the golden trajectory
+
+
+def numpy_statistics(x: np.ndarray, program: IntegerProgram, settle: int, window: int, level: int,
+                     limit: int) -> dict:
+    """The harness's statistics recomputed from a golden trajectory ``x`` (row k: the state after
+    k steps), written from their definitions: an independent reference for the C's streaming
+    bookkeeping."""
+    steps = len(x) - 1
+    start = tuple(x[0])
+    k = np.arange(steps + 1)
+    up = np.flatnonzero((x[:-1, 0] < level) & (x[1:, 0] >= level)) + 1
+    settled_up = up[up > settle]
+    values = golden.evaluate(program, x[:-1].T)  # every intermediate of steps 1..steps
+    trace = np.stack(values)
+    at_limit = np.any((trace == program.word_max) | (trace == program.word_min), axis=0)
+    outside = np.any(np.abs(trace) > limit, axis=0)
+    step_no = k[1:]
+
+    def first(mask: np.ndarray) -> int:
+        return int(step_no[mask][0]) if mask.any() else 0
+
+    returns = []
+    for s in settled_up:
+        before, after = x[s - 1], x[s]
+        num, den = level - int(before[0]), int(after[0]) - int(before[0])
+        assert den < (1 << 29)  # the harness interpolates without rescaling below this
+        row = []
+        for i in range(len(start)):
+            rise = int(after[i]) - int(before[i])
+            q = abs(rise * num) // den
+            row.append(int(before[i]) + (q if rise * num >= 0 else -q))  # toward zero, as C99
+        returns.append(row)
+    returns = np.array(returns)
+    mu, period = brute_force_cycle(x)
+    settled = x[settle + 1:]
+    first_window = x[settle + 1:settle + 1 + window]
+    final = x[steps - window + 1:]
+    return {
+        "counts": {"crossings": len(up), "settled_crossings": len(settled_up),
+                   "first_settled_crossing": int(settled_up[0]), "last_crossing": int(up[-1]),
+                   "limit_steps": int(at_limit.sum()), "limit_first": first(at_limit),
+                   "limit_settled": int(at_limit[settle:].sum()),
+                   "range_steps": int(outside.sum()), "range_first": first(outside),
+                   "range_settled": int(outside[settle:].sum()), "period": period},
+        "ranges": {"settled_low": settled.min(0).tolist(), "settled_high": settled.max(0).tolist(),
+                   "first_low": first_window.min(0).tolist(),
+                   "first_high": first_window.max(0).tolist(),
+                   "final_low": final.min(0).tolist(), "final_high": final.max(0).tolist(),
+                   "return_low": returns.min(0).tolist(), "return_high": returns.max(0).tolist()},
+        "first_bracket": (x[settled_up[0] - 1].tolist(), x[settled_up[0]].tolist()),
+        "last_bracket": (x[up[-1] - 1].tolist(), x[up[-1]].tolist()),
+        "end": x[-1].tolist(),
+        "mu": mu,
+    }
+
+
+@pytest.mark.parametrize("word", [32, 16])
+def test_harness_statistics_equal_numpy_on_the_golden_trajectory(vanderpol_design, word) -> None:
+    # Reference: the same statistics from their definitions in numpy, on gen.golden's bits; every
+    # integer quantity must agree exactly. The start near saturation makes the limit counts live.
+    built = design(vanderpol_design.model.with_fixed_point(word_bits=word),
+                   analysis=vanderpol_design.analysis)
+    plan = built.plan
+    program = plan.program
+    limit = int(plan.largest_signal * plan.margin * 2 ** plan.signal_format.fraction_bits)
+    start = (program.word_max - program.word_max // 64, 0)
+    steps, settle, window = 20_000, 3_000, 1_500
+    host = build_drift_module(built)
+    got = harness_statistics(host, start, steps, settle, window, 0, limit)
+    trajectory = golden_checked_trajectory(host, program, start, steps)
+    want = numpy_statistics(trajectory, program, settle, window, 0, limit)
+    assert want["counts"]["limit_steps"] > 0 and want["counts"]["range_steps"] > 0
+    for name, value in want["counts"].items():
+        assert got.counts[name] == value, name
+    assert got.counts["period_seen_at"] >= want["mu"] + want["counts"]["period"]
+    assert got.ranges == want["ranges"]
+    assert got.first_bracket == want["first_bracket"]
+    assert got.last_bracket == want["last_bracket"]
+    assert got.end_state == want["end"]
+    assert cycle_start(host, start, got.counts["period"], steps) == want["mu"]
+
+
+# ---------------------------------------------------------------------------------------------
+# Verdicts
+
+
+def test_healthy_van_der_pol_passes_from_every_start(vanderpol_design) -> None:
+    report = run_drift(vanderpol_design, hours=0.01)
+    data = report.to_json()
+    json.dumps(data, allow_nan=False)  # plain JSON, no NaN or numpy types
+    assert data["steps"] == 36_000  # round(0.01 h * 3600 s/h * 1000 Hz)
+    assert data["verdict"] == "pass"
+    names = [run["start"] for run in data["runs"]]
+    assert names == ["nominal", "near the equilibrium", "near the basin edge", "near saturation"]
+    for run in data["runs"]:
+        assert run["verdict"] == "pass", run["reasons"]
+        assert run["amplitude_error"] < 0.02
+        assert abs(run["period_error_ppm"]) < 1000
+        assert abs(run["phase_drift_cycles"]) < 1
+        assert run["integer_period_steps"] is not None
+        assert set(run["saturation_events"]) >= {"count", "first_step"}
+    # Van der Pol with mu = 1: amplitude of x close to 2 (Strogatz, Nonlinear Dynamics and Chaos,
+    # section 7.5: the cycle's x-amplitude is near 2 for every mu; 2.0086 at mu = 1, from memory).
+    assert abs(report.runs[0].amplitude[0] - 2.0086) < 0.001
+    assert "verdict: PASS" in report.describe()[-1]
+
+
+def test_sixteen_bit_words_with_four_fraction_bits_collapse_and_fail(vanderpol_design) -> None:
+    built = design(vanderpol_design.model.with_fixed_point(word_bits=16, fraction_bits=4),
+                   analysis=vanderpol_design.analysis)
+    report = run_drift(built, hours=0.01)
+    assert report.verdict == "fail"
+    nominal = report.runs[0]
+    assert nominal.verdict == "fail"
+    # With steps of 1/16 the increments h*y round to nothing: the orbit stops dead.
+    assert nominal.integer_period_steps == 1
+    assert any("fixed point" in reason for reason in nominal.reasons)
+    assert any("no rhythm" in reason for reason in nominal.reasons)
+
+
+def test_euler_at_too_low_a_loop_rate_fails_on_the_discretisation(vanderpol_design) -> None:
+    # Forward Euler at 8 steps per cycle: its step map no longer has the cycle (common practice:
+    # Euler's stability region is the unit disc around -1, which the focus at 0.5 +- 0.87i leaves).
+    from dataclasses import replace
+
+    model = vanderpol_design.model
+    slow = replace(model, rhythm=replace(model.rhythm, loop_hz=12.0)).with_fixed_point(
+        integrator="euler")
+    report = run_drift(design(slow, analysis=vanderpol_design.analysis), hours=0.5)
+    assert report.verdict == "fail"
+    assert report.step_map.period_steps is None
+    run = report.runs[0]
+    assert any("float step map (L1) itself" in reason for reason in run.reasons)
+    assert any("grew to more than twice" in reason for reason in run.reasons)
+
+
+def test_a_tight_phase_tolerance_fails_with_its_reason(vanderpol_design) -> None:
+    report = run_drift(vanderpol_design, hours=0.01,
+                       tolerances=DriftTolerances(phase_drift_cycles=1e-12))
+    assert report.verdict == "fail"
+    assert all(any("phase drifts" in r for r in run.reasons) for run in report.runs)
+
+
+@pytest.mark.parametrize("hours", [0.0, -1.0, float("nan"), 0.001])
+def test_bad_run_lengths_are_refused_with_a_clear_message(vanderpol_design, hours) -> None:
+    with pytest.raises(InputError, match="hours"):
+        run_drift(vanderpol_design, hours=hours)
+
+
+def test_bad_tolerances_are_refused() -> None:
+    with pytest.raises(InputError, match="period_ppm"):
+        DriftTolerances(period_ppm=-5)
