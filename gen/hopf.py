@@ -28,6 +28,9 @@ import sympy
 from gen.model import Model
 
 DEGENERATE_TOLERANCE = 1e-9   # |l1| below this fraction of the sizes of its terms counts as zero
+# l1 r^2 is dimensionless (the cubic term of r' = beta r + l1 w r^3 against w at amplitude r); below
+# this at r = max(1, the equilibrium's size), l1 is zero to the accuracy a located Hopf point has
+NEGLIGIBLE = 1e-7
 
 
 @dataclass(frozen=True)
@@ -39,7 +42,8 @@ class LyapunovCoefficient:
     scale : float -- the sum of the sizes of the three terms of l1; ``value`` is meaningful only
         against it (the terms can cancel).
     kind : str -- 'supercritical' (l1 < 0), 'subcritical' (l1 > 0) or 'degenerate' (l1 is zero
-        to rounding, so higher-order terms decide and this analysis cannot).
+        to rounding, or negligible: |l1| r^2 <= NEGLIGIBLE at r = max(1, |state|), so
+        higher-order terms decide and this analysis cannot).
     """
 
     value: float
@@ -85,7 +89,9 @@ def first_lyapunov_coefficient(model: Model, state: np.ndarray) -> LyapunovCoeff
     scale = float((abs(cubic) + abs(mean_shift) + abs(second_harmonic)) / (2.0 * omega))
     if not (math.isfinite(value) and math.isfinite(scale)):
         raise ValueError("the first Lyapunov coefficient is not finite here")
-    if scale == 0.0 or abs(value) <= DEGENERATE_TOLERANCE * scale:
+    size = max(1.0, float(np.max(np.abs(x0))))
+    if (scale == 0.0 or abs(value) <= DEGENERATE_TOLERANCE * scale
+            or abs(value) * size**2 <= NEGLIGIBLE):
         kind = "degenerate"
     else:
         kind = "supercritical" if value < 0.0 else "subcritical"

@@ -244,3 +244,15 @@ def test_sweep_text_report(capsys, tmp_path):
 def test_sweep_bad_input_exits_2_with_a_message(capsys, tmp_path, argv, message):
     code, _, err = run_cli(capsys, tmp_path, *argv)
     assert code == 2 and message in err and "Traceback" not in err
+
+
+def test_vanderpol_sweep_reports_its_hopf_point_as_degenerate():
+    # Strogatz (1994) sec. 7.6 and 8.2: at mu = 0 the Van der Pol equation is linear (the harmonic
+    # oscillator, frequency 1), so the located point, within the bisection's tolerance of mu = 0,
+    # must not be given a kind
+    model = define_model("vdp", {"x": 1.0, "y": 0.0}, {"x": "y", "y": "mu*(1 - x^2)*y - x"},
+                         {"mu": 0.5}, cycle_hz=1.0, loop_hz=100.0)
+    (hopf,) = sweep(model, "mu", -1.0, 1.0, samples=11, follow_cycles=False).hopf
+    assert hopf.param_value == pytest.approx(0.0, abs=1e-9)
+    assert hopf.frequency == pytest.approx(1.0, rel=1e-9)
+    assert hopf.kind == "degenerate"

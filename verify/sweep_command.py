@@ -22,7 +22,7 @@ KIND_MEANINGS = {
     "subcritical": "a small unstable cycle exists on the side where the equilibrium is stable: "
                    "past this point the rhythm jumps in at a large amplitude, and it stops at "
                    "another value (hysteresis)",
-    "degenerate": "the first Lyapunov coefficient is zero to rounding, so the cubic terms do not "
+    "degenerate": "the first Lyapunov coefficient is zero or negligible, so the cubic terms do not "
                   "decide what is born here (higher-order terms do); no kind is claimed",
 }
 
