@@ -195,9 +195,13 @@ def test_harness_statistics_equal_numpy_on_the_golden_trajectory(vanderpol_desig
     start = (program.word_max - program.word_max // 64, 0)
     steps, settle, window = 20_000, 3_000, 1_500
     host = build_drift_module(built)
-    got = harness_statistics(host, start, steps, settle, window, 0, limit)
     trajectory = golden_checked_trajectory(host, program, start, steps)
-    want = numpy_statistics(trajectory, program, settle, window, 0, limit)
+    # A level the orbit lands on exactly during an upward move, so the edge case of the crossing
+    # rule (x_{k-1} < level <= x_k) is exercised.
+    rising = np.flatnonzero(np.diff(trajectory[settle:, 0]) > 0)
+    level = int(trajectory[settle + rising[len(rising) // 2] + 1, 0])
+    got = harness_statistics(host, start, steps, settle, window, level, limit)
+    want = numpy_statistics(trajectory, program, settle, window, level, limit)
     assert want["counts"]["limit_steps"] > 0 and want["counts"]["range_steps"] > 0
     for name, value in want["counts"].items():
         assert got.counts[name] == value, name
