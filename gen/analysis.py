@@ -11,7 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from gen.equilibria import KIND_MEANINGS, Equilibrium, find_equilibria, format_state
+from gen.equilibria import KIND_MEANINGS, Equilibrium, find_equilibria, format_state, never_at_rest
 from gen.limit_cycle import LimitCycle, find_limit_cycle
 from gen.model import Model
 from gen.phase_locking import PhaseLocking, analyse_locking, format_locking
@@ -59,6 +59,7 @@ class Analysis:
                 "period": _number(cycle.period),
                 "state_min": _numbers(cycle.state_min),
                 "state_max": _numbers(cycle.state_max),
+                "turns": None if cycle.turns is None else [int(k) for k in cycle.turns],
                 "floquet": _complex_pairs(cycle.multipliers),
                 "trivial_index": cycle.trivial_index,
                 "floquet_log": _numbers(cycle.floquet_log),
@@ -98,8 +99,13 @@ def format_report(analysis: Analysis) -> str:
     lines.append("")
 
     count = len(analysis.equilibria)
-    lines.append(f"Equilibria: {count} found" if count else
-                 "Equilibria: none found near the initial state")
+    moving = never_at_rest(model)
+    if count:
+        lines.append(f"Equilibria: {count} found")
+    elif moving is not None:
+        lines.append(f"Equilibria: none ({moving})")
+    else:
+        lines.append("Equilibria: none found near the initial state")
     for number, equilibrium in enumerate(analysis.equilibria, start=1):
         lines.append(f"  {number}. ({', '.join(names)}) = {format_state(equilibrium.state)}")
         lines.append("     eigenvalues of the Jacobian: "
@@ -114,8 +120,15 @@ def format_report(analysis: Analysis) -> str:
         lines.append(f"  found: yes; stable: {_yes(cycle.stable)}; isolated: {_yes(cycle.isolated)}")
         lines.append(f"  period: {cycle.period:.8g} model time units")
         lines.append("  range over one period:")
-        for name, low, high in zip(names, cycle.state_min, cycle.state_max, strict=True):
-            lines.append(f"    {name:<{width}}  from {low:.6g} to {high:.6g}")
+        turns = cycle.turns if cycle.turns is not None else [0] * len(names)
+        for state, low, high, k in zip(model.states, cycle.state_min, cycle.state_max, turns,
+                                       strict=True):
+            note = ""
+            if state.angle:
+                note = (f"  (an angle: the full turn, {abs(k)} turn{'' if abs(k) == 1 else 's'} "
+                        f"{'forward' if k > 0 else 'backward'} per period)" if k else
+                        "  (an angle that swings without turning)")
+            lines.append(f"    {state.name:<{width}}  from {low:.6g} to {high:.6g}{note}")
         lines.append("  Floquet multipliers (factor a disturbance keeps after one period):")
         for index, value in enumerate(cycle.multipliers):
             note = ("  trivial: a shift along the cycle, always 1" if index == cycle.trivial_index

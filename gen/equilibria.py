@@ -3,6 +3,10 @@
 A rhythm generator usually has one equilibrium inside its cycle (an unstable focus or node that
 pushes states out onto the cycle); the kinds tell the user whether the model can oscillate at all
 and what happens to states that start near each rest point.
+
+Angle states (phases, modulo 2 pi) are reported wrapped into [0, 2 pi), and two roots a whole
+number of turns apart are one equilibrium. A phase oscillator whose phase rate is a nonzero
+constant (theta' = 2 pi nu) has no equilibrium at all; :func:`never_at_rest` says so exactly.
 """
 
 from __future__ import annotations
@@ -100,6 +104,15 @@ def describe_kind(kind: str) -> str:
     return f"{kind}: {KIND_MEANINGS[kind]}"
 
 
+def never_at_rest(model: Model) -> str | None:
+    """Why the model has no equilibrium, when some state's rate is a nonzero constant (exact:
+    that state never stops moving), e.g. "the rate of theta is the constant 6.28319"; else None."""
+    for state, rate in zip(model.states, model.resolved_equations, strict=True):
+        if rate.is_number and rate.is_real and float(rate) != 0.0:
+            return f"the rate of {state.name} is the constant {float(rate):.6g}, never zero"
+    return None
+
+
 def find_equilibria(model: Model) -> list[Equilibrium]:
     """All equilibria that root finding reaches from a spread of starting points.
 
@@ -120,6 +133,8 @@ class EquilibriumFinder:
 
     def __init__(self, model: Model) -> None:
         self.model = model
+        self.angles = model.angle_mask
+        self.moving = never_at_rest(model) is not None
         # scalar code with shared subexpressions: root finding calls these for one point at a
         # time, where numpy's per-call overhead would dominate (a 16-state network has 256
         # Jacobian entries)
@@ -136,15 +151,20 @@ class EquilibriumFinder:
     def all(self) -> list[Equilibrium]:
         """Every equilibrium reached from the seeds, each once, in a fixed order."""
         found: list[np.ndarray] = []
+        if self.moving:
+            return []
         for seed in _seeds(self.model.initial_state):
             point = self.root_from(seed)
-            if point is not None and not any(_same_point(point, other) for other in found):
+            if point is not None and not any(_same_point(point, other, self.angles)
+                                             for other in found):
                 found.append(point)
         found.sort(key=_order_key)
         return [self.at(point) for point in found]
 
     def near(self, guess: np.ndarray) -> Equilibrium | None:
         """The equilibrium reached from ``guess`` (ndarray, shape (n,)), or None."""
+        if self.moving:
+            return None
         point = self.root_from(np.asarray(guess, dtype=float))
         return None if point is None else self.at(point)
 
@@ -179,6 +199,9 @@ class EquilibriumFinder:
         if not np.all(np.isfinite(left)) or float(np.max(left)) > 1e-9 * size * rate:
             return None
         point[np.abs(point) < 1e-12 * size] = 0.0   # report the origin as 0, not 1e-17 or -0
+        if self.angles.any():
+            point[self.angles] %= 2.0 * math.pi
+            point[self.angles & (np.abs(point - 2.0 * math.pi) < 1e-12)] = 0.0
         return point
 
 
@@ -203,9 +226,12 @@ def _seeds(initial: np.ndarray) -> np.ndarray:
     return np.vstack([initial, np.zeros(n), unit * reach])
 
 
-def _same_point(a: np.ndarray, b: np.ndarray) -> bool:
+def _same_point(a: np.ndarray, b: np.ndarray, angles: np.ndarray | None = None) -> bool:
     size = max(1.0, float(np.max(np.abs(a))), float(np.max(np.abs(b))))
-    return float(np.max(np.abs(a - b))) <= SAME_POINT_TOLERANCE * size
+    difference = a - b
+    if angles is not None and angles.any():
+        difference[angles] = (difference[angles] + math.pi) % (2.0 * math.pi) - math.pi
+    return float(np.max(np.abs(difference))) <= SAME_POINT_TOLERANCE * size
 
 
 def _order_key(point: np.ndarray) -> tuple[float, ...]:

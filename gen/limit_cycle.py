@@ -22,6 +22,11 @@ evaluations:
 3. Reading off: period, monodromy, Floquet multipliers; for two-state models the nontrivial
    multiplier comes from Liouville's formula (the divergence integrated over one period), which
    stays accurate where the multiplier is far below what the monodromy matrix resolves.
+
+Angle states (``State.angle``, phases in radians) live on the circle: returns to the section and
+the repeat test compare them modulo 2 pi, and a cycle may advance an angle by whole turns, so the
+shooting closes x(T) - x(0) = 2 pi k on angle states (k read off the search). The variational
+equations, and so the Floquet multipliers, are untouched by the wrap.
 """
 
 from __future__ import annotations
@@ -58,6 +63,7 @@ DEFAULT_EVALUATIONS = 3_000_000  # budget of vector-field evaluations for one se
 SEARCH_SPAN = 2000.0           # model-time budget of the search, in natural time units
 MAX_RETURNS = 200              # returns to the section without a repeat before giving up
 NEWTON_STEPS = 16
+TURN = 2.0 * math.pi           # one turn of an angle state, radians
 
 
 @dataclass(frozen=True, eq=False)
@@ -76,9 +82,12 @@ class LimitCycle:
     multipliers : ndarray, shape (n,), complex -- Floquet multipliers, the trivial one at
         ``trivial_index``. For two-state models the nontrivial one is exp(floquet_log[0]).
     floquet_log : ndarray, shape (n - 1,) -- ln of the modulus of each nontrivial multiplier.
-    state_min, state_max : ndarray, shape (n,) -- range of each state over the cycle.
+    state_min, state_max : ndarray, shape (n,) -- range of each state over the cycle. An angle
+        state that turns on the cycle is reported as the full turn, 0 to 2 pi.
     samples : ndarray, shape (n, SAMPLE_COUNT) -- states equally spaced in time over one period,
-        starting at ``point``.
+        starting at ``point``; angle states wrapped into [0, 2 pi).
+    turns : ndarray of int, shape (n,) -- whole turns each angle state advances per period (0 for
+        every other state).
     closing_error : float -- |x(period) - x(0)| (max norm) of the final shooting integration.
     settled_at : Equilibrium or None -- where trajectories settle, when they do.
     method : str -- the integrator the shooting used.
@@ -101,6 +110,7 @@ class LimitCycle:
     closing_error: float | None = None
     settled_at: Equilibrium | None = None
     method: str = ""
+    turns: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         if self.verdict and not self.verdict.endswith("."):
@@ -164,6 +174,8 @@ class _Flow:
     def __init__(self, model: Model, sign: float) -> None:
         self.sign = sign
         self.n = model.dimension
+        self.angles = model.angle_mask
+        self.free = np.nonzero(~self.angles)[0]   # states that can run away (angles only turn)
         states = list(model.state_symbols)
         rates = [sign * eq for eq in model.resolved_equations]
         jacobian = sympy.Matrix(rates).jacobian(sympy.Matrix(states))
@@ -253,9 +265,12 @@ class _Budget:
         self.deadline = time.monotonic() + seconds
         self.left = evaluations
 
-    def guard(self, fun, n: int, span: float, limit: float | None = None):
-        """``fun`` counted against the budget, stopped when the state's Euclidean size passes
-        ``limit``, and when time stops advancing (less than 1e-9 of the span per check)."""
+    def guard(self, fun, n: int, span: float, limit: float | None = None,
+              free: np.ndarray | None = None):
+        """``fun`` counted against the budget, stopped when the Euclidean size of the ``free``
+        states (all by default; angles only turn) passes ``limit``, and when time stops advancing
+        (less than 1e-9 of the span per check)."""
+        chosen = np.arange(n) if free is None else free
         mark = [None]
 
         def guarded(t: float, y: np.ndarray) -> np.ndarray:
@@ -268,7 +283,7 @@ class _Budget:
                 if mark[0] is not None and abs(t - mark[0]) <= 1e-9 * span:
                     raise _StalledError(t, y[:n])
                 mark[0] = t
-            if limit is not None and float(y[:n] @ y[:n]) > limit * limit:
+            if limit is not None and float(y[chosen] @ y[chosen]) > limit * limit:
                 raise _RunAwayError(t)
             return fun(t, y)
 
@@ -277,11 +292,11 @@ class _Budget:
 
 def _integrate(fun, y0: np.ndarray, t_span: tuple[float, float], budget: _Budget, *, n: int,
                method: str, rtol: float, atol: float | np.ndarray, jac=None, dense: bool = False,
-               limit: float | None = None):
+               limit: float | None = None, free: np.ndarray | None = None):
     """solve_ivp under the budget. Returns (success, message, result): a failed integration is a
     message, not an exception. Raises _RunAwayError when the state's size passes ``limit``."""
     options = {"jac": jac} if jac is not None else {}
-    guarded = budget.guard(fun, n, abs(t_span[1] - t_span[0]), limit)
+    guarded = budget.guard(fun, n, abs(t_span[1] - t_span[0]), limit, free)
     try:
         result = solve_ivp(guarded, t_span, y0, method=method, rtol=rtol, atol=atol,
                            dense_output=dense, **options)
@@ -310,6 +325,7 @@ class _Search:
     start: np.ndarray | None = None     # a point on the repeating motion
     period: float = 0.0
     size: float = 1.0                   # largest range of any state over the repeating motion
+    turns: np.ndarray | None = None     # whole turns of each angle state per period
 
 
 @dataclass(frozen=True)
@@ -319,14 +335,22 @@ class _Section:
     normal: np.ndarray
     anchor: np.ndarray
     time: float
+    angles: np.ndarray
 
     def crossings(self, run) -> list[tuple[float, np.ndarray]]:
-        """Crossings in the flow's direction within one dense integration."""
-        g = self.normal @ (run.y - self.anchor[:, None])
+        """Crossings in the flow's direction within one dense integration. Angle states are
+        compared with the anchor modulo 2 pi; where an angle's wrapped offset jumps by a turn
+        between two samples (the far side of the circle) there is no crossing."""
+        offsets = wrap_difference(run.y - self.anchor[:, None], self.angles)
+        g = self.normal @ offsets
+        upward = (g[:-1] < 0.0) & (g[1:] >= 0.0)
+        if self.angles.any():
+            jumps = np.abs(np.diff(offsets[self.angles], axis=1) - np.diff(run.y[self.angles], axis=1))
+            upward &= ~np.any(jumps > math.pi, axis=0)
         found = []
-        for i in np.nonzero((g[:-1] < 0.0) & (g[1:] >= 0.0))[0]:
+        for i in np.nonzero(upward)[0]:
             def height(s: float) -> float:
-                return float(self.normal @ (run.sol(s) - self.anchor))
+                return float(self.normal @ wrap_difference(run.sol(s) - self.anchor, self.angles))
 
             a, b = float(run.t[i]), float(run.t[i + 1])
             if height(a) * height(b) > 0.0:
@@ -344,7 +368,31 @@ def _section_at(flow: _Flow, p: np.ndarray, t: float, size: float) -> _Section |
     if speed == 0.0 or not math.isfinite(speed):
         return None
     normal = direction / speed
-    return _Section(normal=normal, anchor=p - 1e-9 * size * normal, time=t)
+    return _Section(normal=normal, anchor=p - 1e-9 * size * normal, time=t, angles=flow.angles)
+
+
+def wrap_difference(difference: np.ndarray, angles: np.ndarray) -> np.ndarray:
+    """A difference of states (shape (n,) or (n, k)) with its angle rows wrapped into
+    [-pi, pi): two states a whole number of turns apart are the same point."""
+    if not angles.any():
+        return difference
+    wrapped = np.array(difference, dtype=float)
+    wrapped[angles] = (wrapped[angles] + math.pi) % TURN - math.pi
+    return wrapped
+
+
+def wrap_angles(state: np.ndarray, angles: np.ndarray) -> np.ndarray:
+    """A state (shape (n,) or (n, k)) with its angle rows wrapped into [0, 2 pi)."""
+    if not angles.any():
+        return state
+    wrapped = np.array(state, dtype=float)
+    wrapped[angles] = wrapped[angles] % TURN
+    return wrapped
+
+
+def _turns(difference: np.ndarray, angles: np.ndarray) -> np.ndarray:
+    """Whole turns in a difference of states: per angle state, 0 elsewhere (int array, (n,))."""
+    return np.where(angles, np.rint(np.asarray(difference, dtype=float) / TURN), 0.0).astype(int)
 
 
 def _natural_time(flow: _Flow, x: np.ndarray) -> float:
@@ -378,7 +426,7 @@ def _follow(flow: _Flow, finder: EquilibriumFinder, x0: np.ndarray, budget: _Bud
             ok, message, run = _integrate(flow.field, x, (t, t + chunk), budget, n=n,
                                           method="LSODA", rtol=SEARCH_RTOL, atol=1e-9 * size0,
                                           jac=flow.jacobian, dense=section is not None,
-                                          limit=limit)
+                                          limit=limit, free=flow.free)
         except _RunAwayError as exc:
             return _Search("grows", f"the state's size passed {limit:.3g} at t = {exc.t:.4g} "
                                     "model time units")
@@ -408,11 +456,11 @@ def _follow(flow: _Flow, finder: EquilibriumFinder, x0: np.ndarray, budget: _Bud
         spiral = _decaying_spiral(flow, finder, returns, pieces)
         if spiral is not None:
             return _Search("settles", equilibrium=spiral)
-        repeat = _repeating(returns, pieces) or (_closing_in(returns, pieces) if extrapolate
-                                                 else None)
+        repeat = (_repeating(returns, pieces, flow.angles)
+                  or (_closing_in(returns, pieces, flow.angles) if extrapolate else None))
         if repeat is not None:
-            start, period, span = repeat
-            return _Search("oscillates", start=start, period=period, size=span)
+            start, period, span, turns = repeat
+            return _Search("oscillates", start=start, period=period, size=span, turns=turns)
         if total_returns >= MAX_RETURNS:
             return _Search("wanders", f"after {total_returns} returns to a Poincare section the "
                                       "motion still had not repeated (it may be chaotic or "
@@ -427,7 +475,8 @@ def _settled(flow: _Flow, finder: EquilibriumFinder, x: np.ndarray, size: float)
     equilibrium = finder.near(x)
     if equilibrium is None:
         return None
-    if float(np.max(np.abs(x - equilibrium.state))) > SETTLED_DISTANCE * size:
+    if float(np.max(np.abs(wrap_difference(x - equilibrium.state, flow.angles)))) > \
+            SETTLED_DISTANCE * size:
         return None
     return equilibrium if _rests(equilibrium, flow) else None
 
@@ -452,8 +501,10 @@ def _between(pieces, t_from: float, t_to: float) -> np.ndarray:
     return np.hstack(chosen) if chosen else np.empty((0, 0))
 
 
-def _repeating(returns: list, pieces) -> tuple[np.ndarray, float, float] | None:
-    """(start, period, range) when the last returns repeat, every 1, 2 or 3 returns."""
+def _repeating(returns: list, pieces, angles: np.ndarray
+               ) -> tuple[np.ndarray, float, float, np.ndarray] | None:
+    """(start, period, range, turns) when the last returns repeat, every 1, 2 or 3 returns
+    (angle states compared modulo 2 pi; turns counts their whole turns per period)."""
     for every in (1, 2, 3):
         if len(returns) < every + 2:
             continue
@@ -464,20 +515,23 @@ def _repeating(returns: list, pieces) -> tuple[np.ndarray, float, float] | None:
         if states.size == 0:
             continue
         span = float(np.max(np.ptp(states, axis=1)))
-        close = max(float(np.max(np.abs(x_a - x_b))), float(np.max(np.abs(x_c - x_d))))
+        close = max(float(np.max(np.abs(wrap_difference(x_a - x_b, angles)))),
+                    float(np.max(np.abs(wrap_difference(x_c - x_d, angles)))))
         if close <= RETURN_TOLERANCE * span and abs(period - previous) <= RETURN_TOLERANCE * period:
-            return x_a, period, span
+            return x_a, period, span, _turns(x_a - x_b, angles)
     return None
 
 
-def _closing_in(returns: list, pieces) -> tuple[np.ndarray, float, float] | None:
-    """(start, period, range) extrapolated to the limit when successive returns close in on a
-    point geometrically (a steady ratio below 1), and the limit is within 1% of the range."""
+def _closing_in(returns: list, pieces, angles: np.ndarray
+                ) -> tuple[np.ndarray, float, float, np.ndarray] | None:
+    """(start, period, range, turns) extrapolated to the limit when successive returns close in
+    on a point geometrically (a steady ratio below 1), and the limit is within 1% of the range."""
     if len(returns) < 5:
         return None
     times = [r[0] for r in returns[-4:]]
     points = [r[1] for r in returns[-4:]]
-    moves = [float(np.max(np.abs(b - a))) for a, b in itertools.pairwise(points)]
+    moves = [float(np.max(np.abs(wrap_difference(b - a, angles))))
+             for a, b in itertools.pairwise(points)]
     if min(moves) == 0.0:
         return None
     first, ratio = moves[1] / moves[0], moves[2] / moves[1]
@@ -493,8 +547,9 @@ def _closing_in(returns: list, pieces) -> tuple[np.ndarray, float, float] | None
     if moves[2] * ahead > 1e-2 * span:
         return None
     period = times[-1] - times[-2]
-    start = points[-1] + ahead * (points[-1] - points[-2])
-    return start, period + ahead * (period - (times[-2] - times[-3])), span
+    last_move = points[-1] - points[-2]
+    start = points[-1] + ahead * wrap_difference(last_move, angles)
+    return start, period + ahead * (period - (times[-2] - times[-3])), span, _turns(last_move, angles)
 
 
 def _decaying_spiral(flow: _Flow, finder: EquilibriumFinder, returns: list, pieces) -> Equilibrium | None:
@@ -511,7 +566,8 @@ def _decaying_spiral(flow: _Flow, finder: EquilibriumFinder, returns: list, piec
     if equilibrium is None or equilibrium.kind != spiral_in:
         return None
     expected = math.exp(float(np.max(flow.sign * equilibrium.eigenvalues.real)) * (t_last - t_before))
-    distances = [float(np.linalg.norm(x - equilibrium.state)) for _, x in returns[-4:]]
+    distances = [float(np.linalg.norm(wrap_difference(x - equilibrium.state, flow.angles)))
+                 for _, x in returns[-4:]]
     if min(distances) == 0.0:
         return equilibrium
     ratios = [b / a for a, b in itertools.pairwise(distances)]
@@ -533,10 +589,16 @@ class _Shot:
     monodromy: np.ndarray
     divergence_integral: float
     solution: object
+    offset: np.ndarray   # 2 pi k on angle states that turn k times per period, 0 elsewhere
+
+    @property
+    def gap(self) -> np.ndarray:
+        """x(period) - x(0) - 2 pi k: zero on a closed orbit."""
+        return self.end - self.start - self.offset
 
 
 def _run_once(flow: _Flow, start: np.ndarray, period: float, method: str, budget: _Budget,
-              size: float) -> tuple[bool, str, _Shot | None]:
+              size: float, offset: np.ndarray) -> tuple[bool, str, _Shot | None]:
     """Integrate state, monodromy and divergence integral once over [0, period]."""
     n = flow.n
     y0 = np.concatenate([start, np.eye(n).ravel(), [0.0]])
@@ -550,23 +612,25 @@ def _run_once(flow: _Flow, start: np.ndarray, period: float, method: str, budget
     end = run.y[:, -1]
     return True, "", _Shot(start=start, period=period, end=end[:n].copy(),
                            monodromy=end[n:n + n * n].reshape(n, n).copy(),
-                           divergence_integral=float(end[-1]), solution=run.sol)
+                           divergence_integral=float(end[-1]), solution=run.sol, offset=offset)
 
 
 def _shoot(flow: _Flow, guess: np.ndarray, period: float, size: float, method: str,
-           budget: _Budget) -> tuple[bool, str, _Shot | None]:
-    """Newton's method on (start, period) for x(period) = start, the start held on the section
-    through ``guess`` normal to the flow there (the phase condition)."""
+           budget: _Budget, turns: np.ndarray) -> tuple[bool, str, _Shot | None]:
+    """Newton's method on (start, period) for x(period) = start + 2 pi k (k: the whole turns of
+    each angle state, 0 for the others), the start held on the section through ``guess`` normal
+    to the flow there (the phase condition)."""
     n = flow.n
+    offset = TURN * np.asarray(turns, dtype=float)
     normal = flow.field(0.0, guess)
     normal = normal / np.linalg.norm(normal)
     start = guess.copy()
     best: tuple[float, _Shot] | None = None
     for _ in range(NEWTON_STEPS):
-        ok, message, shot = _run_once(flow, start, period, method, budget, size)
+        ok, message, shot = _run_once(flow, start, period, method, budget, size, offset)
         if not ok:
             return False, f"shooting failed: {message}", None
-        gap = shot.end - start
+        gap = shot.gap
         closing = float(np.max(np.abs(gap)))
         if best is None or closing < best[0]:
             best = (closing, shot)
@@ -607,7 +671,8 @@ def _peak_start(flow: _Flow, start: np.ndarray, period: float, budget: _Budget,
     if not ok:
         return start, 0.0
     states = run.sol(np.linspace(0.0, period, 2001))
-    peak = states[:, int(np.argmax(states[0]))]
+    watched = int(flow.free[0]) if flow.free.size else 0   # an angle's peak is where it wraps
+    peak = wrap_angles(states[:, int(np.argmax(states[watched]))], flow.angles)
     radius = max(float(np.max(np.abs(np.linalg.eigvals(flow.jacobian(0.0, states[:, i])))))
                  for i in range(0, states.shape[1], 20))
     return peak, radius
@@ -663,13 +728,14 @@ def _find(model: Model, flow: _Flow, budget: _Budget) -> LimitCycle:
 
     guess, radius = _peak_start(flow, search.start, search.period, budget, search.size)
     method = "LSODA" if radius * search.period > STIFF_INDEX else "DOP853"
-    ok, message, shot = _shoot(flow, guess, search.period, search.size, method, budget)
+    ok, message, shot = _shoot(flow, guess, search.period, search.size, method, budget, search.turns)
     if not ok:
         # the extrapolated guess may have been too rough: follow the flow until returns repeat
         search = _follow(flow, finder, x0, budget, extrapolate=False)
         if search.outcome == "oscillates":
             guess, radius = _peak_start(flow, search.start, search.period, budget, search.size)
-            ok, message, shot = _shoot(flow, guess, search.period, search.size, method, budget)
+            ok, message, shot = _shoot(flow, guess, search.period, search.size, method, budget,
+                                       search.turns)
     if not ok:
         return LimitCycle(found=False, outcome="failed", method=method,
                           verdict=f"the motion repeats (period about {search.period:.5g}) but no "
@@ -697,8 +763,10 @@ def _read_cycle(flow: _Flow, finder: EquilibriumFinder, shot: _Shot, method: str
                 size: float) -> LimitCycle:
     n, period = flow.n, shot.period
     times = np.arange(SAMPLE_COUNT) * (period / SAMPLE_COUNT)
-    samples = shot.solution(times)[:n]
+    samples = wrap_angles(shot.solution(times)[:n], flow.angles)
     low, high = _extremes(shot.solution, period, n)
+    turning = flow.angles & (shot.offset != 0.0)
+    low[turning], high[turning] = 0.0, TURN   # an angle that turns covers the whole circle
     if float(np.max(high - low)) <= 1e-6 * size:
         return LimitCycle(found=False, outcome="failed", method=method,
                           verdict="no limit cycle: the shooting closed onto a resting state, "
@@ -721,13 +789,16 @@ def _read_cycle(flow: _Flow, finder: EquilibriumFinder, shot: _Shot, method: str
     neutral = bool(np.any(np.abs(floquet_log) <= NEUTRAL_TOLERANCE))
     stable = bool(not neutral and np.all(floquet_log < -NEUTRAL_TOLERANCE))
     point = shot.start.copy()
-    for array in (point, monodromy, multipliers, floquet_log, low, high, samples):
+    turns = np.rint(shot.offset / TURN).astype(int)
+    if flow.backward:
+        turns = -turns
+    for array in (point, monodromy, multipliers, floquet_log, low, high, samples, turns):
         array.setflags(write=False)
     cycle = LimitCycle(found=True, stable=stable, isolated=not neutral, verdict="", outcome="",
                        period=period, point=point, monodromy=monodromy, multipliers=multipliers,
                        trivial_index=trivial, floquet_log=floquet_log, state_min=low,
                        state_max=high, samples=samples,
-                       closing_error=float(np.max(np.abs(shot.end - shot.start))), method=method)
+                       closing_error=float(np.max(np.abs(shot.gap))), method=method, turns=turns)
     outcome, verdict = _cycle_verdict(cycle, finder, samples)
     return replace(cycle, outcome=outcome, verdict=verdict)
 
@@ -743,6 +814,10 @@ def _cycle_verdict(cycle: LimitCycle, finder: EquilibriumFinder, samples: np.nda
             f"no isolated limit cycle: the cycles{where} form a continuous family ({because}; "
             f"this one has {period}), so there is no single rhythm to lock onto and any "
             "disturbance moves the oscillator to a neighbouring cycle for good")
+    if cycle.floquet_log.size == 0:
+        return "stable cycle", (
+            f"limit cycle, {period}: the single angle state turns round the whole circle, so every "
+            "start is on the cycle (the only Floquet multiplier is the trivial one)")
     worst = _factor(float(np.max(cycle.floquet_log)))
     if cycle.stable:
         return "stable cycle", (

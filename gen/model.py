@@ -23,11 +23,16 @@ RESERVED = set(FUNCTIONS) | {"t", "time"}
 
 @dataclass(frozen=True)
 class State:
-    """One state variable: its name, initial value and what it means to the user."""
+    """One state variable: its name, initial value and what it means to the user.
+
+    angle : bool -- the state is an angle in radians that lives modulo 2 pi (a phase): the
+        analysis compares it on the circle, and a cycle may advance it by whole turns.
+    """
 
     name: str
     initial: float
     meaning: str = ""
+    angle: bool = False
 
 
 @dataclass(frozen=True)
@@ -56,7 +61,7 @@ class FixedPointRequest:
     """What the user asks of the fixed-point plan; ``None`` leaves a choice to the planner."""
 
     fraction_bits: int | None = None
-    margin: float = 4.0
+    margin: float = 2.0
     integrator: str = "rk4"
     word_bits: int = 32
     rounding: str = "half-up"
@@ -137,6 +142,11 @@ class Model:
     def dimension(self) -> int:
         return len(self.states)
 
+    @property
+    def angle_mask(self) -> np.ndarray:
+        """Boolean array, shape (n,): True for the states that are angles (modulo 2 pi)."""
+        return np.array([s.angle for s in self.states], dtype=bool)
+
     # -- numeric functions ---------------------------------------------------------------------
 
     def vector_field(self) -> Callable[[float, np.ndarray], np.ndarray]:
@@ -182,7 +192,8 @@ class Model:
         return {
             "name": self.name,
             "description": self.description,
-            "states": [{"name": s.name, "initial": s.initial, "meaning": s.meaning}
+            "states": [{"name": s.name, "initial": s.initial, "meaning": s.meaning,
+                        **({"angle": True} if s.angle else {})}
                        for s in self.states],
             "parameters": [{"name": p.name, "value": p.value, "meaning": p.meaning}
                            for p in self.parameters],
@@ -213,11 +224,16 @@ def define_model(
     description: str = "",
     fraction_bits: int | None = None,
     integrator: str = "rk4",
+    angles: tuple[str, ...] | list[str] = (),
 ) -> Model:
     """Build a model in Python: ``define_model("osc", {"x": 1, "y": 0}, {"x": "y", "y": "-x"}, ...)``.
 
-    ``equations`` maps each state name to the text of its time derivative.
+    ``equations`` maps each state name to the text of its time derivative; ``angles`` names the
+    states that are angles in radians, living modulo 2 pi (phases).
     """
+    unknown_angles = [a for a in angles if a not in states]
+    if unknown_angles:
+        raise InputError(f"model '{name}': angles must name states (unknown: {unknown_angles})")
     missing = [s for s in states if s not in equations]
     extra = [e for e in equations if e not in states]
     if missing or extra:
@@ -226,7 +242,7 @@ def define_model(
     return Model(
         name=name,
         description=description,
-        states=tuple(State(n, float(v)) for n, v in states.items()),
+        states=tuple(State(n, float(v), angle=n in angles) for n, v in states.items()),
         parameters=tuple(Parameter(n, float(v)) for n, v in (parameters or {}).items()),
         equation_text=tuple(equations[n] for n in states),
         rhythm=Rhythm(float(cycle_hz), float(loop_hz)),

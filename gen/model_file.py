@@ -19,7 +19,7 @@ from gen.networks import GAITS, LIMBS, LINKS, OSCILLATORS, PATTERNS, build_netwo
 MODELS_FOLDER = Path(__file__).parent / "models"
 
 TOP_KEYS = {"name", "description", "states", "parameters", "equations", "rhythm", "fixed_point"}
-STATE_KEYS = {"initial", "meaning"}
+STATE_KEYS = {"initial", "meaning", "angle"}
 PARAMETER_KEYS = {"value", "meaning"}
 RHYTHM_KEYS = {"cycle_hz", "loop_hz"}
 FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator"}
@@ -34,7 +34,8 @@ NETWORK_HINT = (
 )
 
 LAYOUT_HINT = (
-    "a model file has: name = \"...\", description = \"...\", [states] x = { initial = 0.5 }, "
+    "a model file has: name = \"...\", description = \"...\", [states] x = { initial = 0.5 } "
+    "(add angle = true for an angle in radians, modulo 2 pi), "
     "[parameters] mu = 1.0, [equations] x = \"...\", [rhythm] cycle_hz = ..., loop_hz = ..., "
     "and optionally [fixed_point] fraction_bits, margin, integrator"
 )
@@ -160,6 +161,17 @@ class _Reader:
             result.append((name, self.number(value, section, name, f"'{name}'"), str(meaning)))
         return result
 
+    def angle_flag(self, data: dict, name: str) -> bool:
+        """``angle = true`` on a state: it is an angle in radians, living modulo 2 pi."""
+        entry = data["states"][name]
+        flag = entry.get("angle", False) if isinstance(entry, dict) else False
+        if not isinstance(flag, bool):
+            raise self.error(self.line_of("states", name), f"'angle' of '{name}' must be true or "
+                             f"false, got {flag!r}",
+                             f"{name} = {{ initial = 0.0, angle = true }} (an angle in radians, "
+                             "modulo 2 pi)")
+        return flag
+
     def build(self, data: dict) -> Model:
         if "network" in data:
             return self.build_network(data)
@@ -168,7 +180,7 @@ class _Reader:
         if not isinstance(name, str):
             raise self.error(self.line_of(None, "name"), "the model needs a name string",
                              "name = \"my_oscillator\"")
-        states = [State(n, v, m) for n, v, m in
+        states = [State(n, v, m, angle=self.angle_flag(data, n)) for n, v, m in
                   self.entries(data, "states", "initial", STATE_KEYS)]
         parameters = [Parameter(n, v, m) for n, v, m in
                       self.entries(data, "parameters", "value", PARAMETER_KEYS)]
@@ -289,7 +301,7 @@ class _Reader:
         if bits is not None and (isinstance(bits, bool) or not isinstance(bits, int)):
             raise self.error(self.line_of("fixed_point", "fraction_bits"),
                              "fraction_bits must be a whole number", "fraction_bits = 24")
-        margin = self.number(fixed.get("margin", 4.0), "fixed_point", "margin", "margin")
+        margin = self.number(fixed.get("margin", 2.0), "fixed_point", "margin", "margin")
         integrator = fixed.get("integrator", "rk4")
         if not isinstance(integrator, str):
             raise self.error(self.line_of("fixed_point", "integrator"),
