@@ -298,10 +298,15 @@ def render_drift_harness(design: Design) -> str:
         declarations=DRIFT_DECLARATIONS)
 
 
-def build_drift_module(design: Design) -> HostModule:
-    """Firmware, host harness and drift harness compiled into one module (strict flags)."""
+def build_drift_module(design: Design, sources: dict[str, str] | None = None) -> HostModule:
+    """Firmware, host harness and drift harness compiled into one module (strict flags).
+
+    sources : the firmware files NAME.h and NAME.c (e.g. from ``verify.host_check.read_sources``);
+        generated afresh from the design when not given.
+    """
     names = CNames(design.model.name)
-    files = render_model(design.model, design.timing, design.integrator, design.plan)
+    files = sources if sources is not None else render_model(
+        design.model, design.timing, design.integrator, design.plan)
     return build_host_module(
         sources={**files, "drift_harness.c": render_drift_harness(design)},
         harness=render_host_harness(design.model, design.plan.program.word_bits),
