@@ -191,7 +191,9 @@ class EquilibriumFinder:
                 point = np.asarray(result.x, dtype=float)
                 if not np.all(np.isfinite(point)):
                     return None
-                size = max(1.0, float(np.max(np.abs(point))))
+                point[self.angles] %= 2.0 * math.pi   # judged where it is on the circle
+                free = point[~self.angles]
+                size = max(1.0, float(np.max(np.abs(free))) if free.size else 1.0)
                 rate = max(1.0, float(np.max(np.abs(jacobian(point)))))
                 left = np.abs(field(0.0, point))
             except (ValueError, ArithmeticError, np.linalg.LinAlgError):
@@ -199,9 +201,7 @@ class EquilibriumFinder:
         if not np.all(np.isfinite(left)) or float(np.max(left)) > 1e-9 * size * rate:
             return None
         point[np.abs(point) < 1e-12 * size] = 0.0   # report the origin as 0, not 1e-17 or -0
-        if self.angles.any():
-            point[self.angles] %= 2.0 * math.pi
-            point[self.angles & (np.abs(point - 2.0 * math.pi) < 1e-12)] = 0.0
+        point[self.angles & (np.abs(point - 2.0 * math.pi) < 1e-12)] = 0.0
         return point
 
 

@@ -341,18 +341,19 @@ class _Section:
         """Crossings in the flow's direction within one dense integration. Angle states are
         compared with the anchor modulo 2 pi; where an angle's wrapped offset jumps by a turn
         between two samples (the far side of the circle) there is no crossing."""
-        offsets = wrap_difference(run.y - self.anchor[:, None], self.angles)
+        times, states = _looks(run, self.angles)
+        offsets = wrap_difference(states - self.anchor[:, None], self.angles)
         g = self.normal @ offsets
         upward = (g[:-1] < 0.0) & (g[1:] >= 0.0)
         if self.angles.any():
-            jumps = np.abs(np.diff(offsets[self.angles], axis=1) - np.diff(run.y[self.angles], axis=1))
+            jumps = np.abs(np.diff(offsets[self.angles], axis=1) - np.diff(states[self.angles], axis=1))
             upward &= ~np.any(jumps > math.pi, axis=0)
         found = []
         for i in np.nonzero(upward)[0]:
             def height(s: float) -> float:
                 return float(self.normal @ wrap_difference(run.sol(s) - self.anchor, self.angles))
 
-            a, b = float(run.t[i]), float(run.t[i + 1])
+            a, b = float(times[i]), float(times[i + 1])
             if height(a) * height(b) > 0.0:
                 continue
             t_cross = brentq(height, a, b, xtol=1e-15 * max(1.0, abs(b)), rtol=1e-15)
@@ -369,6 +370,22 @@ def _section_at(flow: _Flow, p: np.ndarray, t: float, size: float) -> _Section |
         return None
     normal = direction / speed
     return _Section(normal=normal, anchor=p - 1e-9 * size * normal, time=t, angles=flow.angles)
+
+
+def _looks(run, angles: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Times and states of a dense integration, close enough together that no angle state turns
+    more than an eighth of a turn between two (a solver step may turn an angle by more than half
+    a turn, where wrapping could no longer tell which way it went)."""
+    times, states = run.t, run.y
+    if not angles.any() or run.sol is None or times.size < 2:
+        return times, states
+    advance = np.max(np.abs(np.diff(states[angles], axis=1)), axis=0)
+    pieces = np.maximum(1, np.ceil(advance / (TURN / 8))).astype(int)
+    if not np.any(pieces > 1):
+        return times, states
+    times = np.concatenate([np.linspace(a, b, k, endpoint=False) for a, b, k in
+                            zip(times[:-1], times[1:], pieces, strict=True)] + [times[-1:]])
+    return times, run.sol(times)
 
 
 def wrap_difference(difference: np.ndarray, angles: np.ndarray) -> np.ndarray:
@@ -432,7 +449,7 @@ def _follow(flow: _Flow, finder: EquilibriumFinder, x0: np.ndarray, budget: _Bud
                                     "model time units")
         if not ok:
             return _Search("failed", message)
-        pieces.append((run.t, run.y))
+        pieces.append(_looks(run, flow.angles))
         x, t = run.y[:, -1].copy(), float(run.t[-1])
         settled = _settled(flow, finder, x, size0)
         if settled is not None:

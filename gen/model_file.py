@@ -14,7 +14,17 @@ from typing import Any
 from gen.errors import InputError
 from gen.expressions import ACCEPTED, ExpressionError
 from gen.model import FixedPointRequest, Model, Parameter, Rhythm, State
-from gen.networks import GAITS, LIMBS, LINKS, OSCILLATORS, PATTERNS, build_network, chain_lags, gait_lags
+from gen.networks import (
+    GAITS,
+    LIMBS,
+    LINKS,
+    OSCILLATORS,
+    PATTERNS,
+    build_diffusive_network,
+    build_network,
+    chain_lags,
+    gait_lags,
+)
 
 MODELS_FOLDER = Path(__file__).parent / "models"
 
@@ -24,13 +34,18 @@ PARAMETER_KEYS = {"value", "meaning"}
 RHYTHM_KEYS = {"cycle_hz", "loop_hz"}
 FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator"}
 NETWORK_TOP_KEYS = {"name", "description", "network", "parameters", "rhythm", "fixed_point"}
-NETWORK_KEYS = {"oscillator", "pattern", "count", "waves", "lags", "links", "labels"}
+NETWORK_KEYS = {"oscillator", "pattern", "count", "waves", "lags", "links", "labels", "coupling",
+                "coupled_state"}
 
 NETWORK_HINT = (
-    "a network file has: name, description, [network] oscillator = \"hopf\" and either "
-    f"pattern = one of {', '.join(PATTERNS)} (chain also takes count and waves) or lags = [0, 0.5, "
-    "...] in cycles (with links = \"all\" or \"neighbours\" and optional labels), then optional "
-    "[parameters] mu, omega, gamma, k, [rhythm] cycle_hz and loop_hz, optional [fixed_point]"
+    "a network file has: name, description, [network] oscillator = \"hopf\" or \"phase_amplitude\" "
+    f"and either pattern = one of {', '.join(PATTERNS)} (chain also takes count and waves) or lags = "
+    "[0, 0.5, ...] in cycles (with links = \"all\" or \"neighbours\" and optional labels), then "
+    "optional [parameters] (hopf: mu, omega, gamma, k; phase_amplitude: nu, R, a, w); or "
+    "oscillator = the name of a single built-in model (e.g. \"vanderpol\") with coupling = [[0, k], "
+    "[k, 0]] (diffusive, s_i' += sum_j k_ij (s_j - s_i)) and coupled_state = \"y\", optional lags "
+    "(default all 0) and labels, optional [parameters] of that model; then [rhythm] cycle_hz and "
+    "loop_hz, optional [fixed_point]"
 )
 
 LAYOUT_HINT = (
@@ -64,6 +79,14 @@ def load_model(name_or_path: str) -> Model:
         return _as_builtin(model)
     raise InputError(f"unknown model '{name_or_path}': not a file, and not a built-in model "
                      f"(built-in: {', '.join(builtin_names())})")
+
+
+def _is_single(name: str) -> bool:
+    """A built-in model that is one oscillator, not a network file (read without building it)."""
+    try:
+        return "network" not in tomllib.loads((MODELS_FOLDER / f"{name}.toml").read_text("utf-8"))
+    except (OSError, tomllib.TOMLDecodeError):
+        return False
 
 
 def _as_builtin(model: Model) -> Model:
@@ -244,9 +267,19 @@ class _Reader:
         spec = self.table(data, "network")
         self.check_keys(spec, NETWORK_KEYS, "network")
         oscillator = spec.get("oscillator", "hopf")
-        if oscillator not in OSCILLATORS:
+        singles = [n for n in builtin_names() if n not in OSCILLATORS and _is_single(n)]
+        if oscillator not in OSCILLATORS and oscillator not in singles:
             raise self.error(self.line_of("network", "oscillator"),
-                             f"unknown oscillator {oscillator!r}", ", ".join(OSCILLATORS))
+                             f"unknown oscillator {oscillator!r}",
+                             f"{', '.join(OSCILLATORS)} (coupled from the wanted lags), or with a "
+                             f"coupling matrix one of: {', '.join(singles)}")
+        if oscillator not in OSCILLATORS:
+            return self.build_diffusive(data, name, spec, oscillator)
+        for key in ("coupling", "coupled_state"):
+            if key in spec:
+                raise self.error(self.line_of("network", key), f"'{key}' is for networks of "
+                                 f"single built-in models; a {oscillator} network is coupled from "
+                                 "its wanted lags", NETWORK_HINT)
         pattern = spec.get("pattern")
         labels = spec.get("labels")
         links = spec.get("links", "neighbours" if pattern == "chain" else "all")
@@ -295,6 +328,50 @@ class _Reader:
                                  fixed_point=self.fixed_point_request(fixed), source=str(self.path))
         except InputError as exc:
             raise self.error(None, str(exc), NETWORK_HINT) from None
+
+    def build_diffusive(self, data: dict, name: str, spec: dict, oscillator: str) -> Model:
+        """N copies of a single built-in model with a diffusive coupling matrix on one state."""
+        for key in ("pattern", "count", "waves", "links"):
+            if key in spec:
+                raise self.error(self.line_of("network", key), f"'{key}' is for hopf and "
+                                 "phase_amplitude networks; a network of "
+                                 f"'{oscillator}' copies takes a coupling matrix", NETWORK_HINT)
+        coupling = spec.get("coupling")
+        if not isinstance(coupling, list) or not all(isinstance(row, list) for row in coupling):
+            raise self.error(self.line_of("network", "coupling") or self.line_of("network"),
+                             "a network of single oscillators needs coupling, a square matrix "
+                             "(a list of rows)", "coupling = [[0, 0.5], [0.5, 0]]")
+        base = load_model(oscillator)
+        coupled = spec.get("coupled_state")
+        if not isinstance(coupled, str) or coupled not in base.state_names:
+            raise self.error(self.line_of("network", "coupled_state") or self.line_of("network"),
+                             f"coupled_state must name a state of '{oscillator}', got {coupled!r}",
+                             f"one of: {', '.join(base.state_names)}")
+        lags = spec.get("lags")
+        if lags is not None:
+            if not isinstance(lags, list):
+                raise self.error(self.line_of("network", "lags"), "lags must be a list of numbers "
+                                 "of cycles, one per oscillator", "lags = [0, 0]")
+            lags = [self.number(v, "network", "lags", "every lag") for v in lags]
+        labels = spec.get("labels")
+        if labels is not None and (not isinstance(labels, list) or len(labels) != len(coupling)
+                                   or not all(isinstance(v, str) for v in labels)):
+            raise self.error(self.line_of("network", "labels"),
+                             f"labels must be a list of {len(coupling)} names, one per oscillator",
+                             "labels = [\"left\", \"right\"]")
+        parameters = {n: v for n, v, _ in self.entries(data, "parameters", "value", PARAMETER_KEYS)}
+        fixed = self.table(data, "fixed_point", required=False)
+        self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")
+        rhythm = self.rhythm(data)
+        try:
+            return build_diffusive_network(
+                name, base, coupling=coupling, coupled_state=coupled, cycle_hz=rhythm.cycle_hz,
+                loop_hz=rhythm.loop_hz, lags=lags, parameters=parameters, labels=labels,
+                description=str(data.get("description", "")),
+                fixed_point=self.fixed_point_request(fixed), source=str(self.path))
+        except InputError as exc:
+            line = self.line_of("network", "coupling") if "coupling" in str(exc) else None
+            raise self.error(line, str(exc), NETWORK_HINT) from None
 
     def fixed_point_request(self, fixed: dict) -> FixedPointRequest:
         bits = fixed.get("fraction_bits")

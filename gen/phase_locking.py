@@ -7,6 +7,8 @@ built-in networks start off the wanted pattern on purpose) to count the cycles i
 
 Phase of an oscillator: the times its first state crosses its mean over the cycle going up. Lag of
 oscillator i: how much later than oscillator 1 it crosses, in cycles, in [0, 1) (gen/networks.py).
+Oscillators with a phase state (an angle, ``NetworkLayout.phases``) give their lags directly:
+lag_i = (theta_1 - theta_i) / 2 pi modulo 1, the part of a turn by which i trails oscillator 1.
 """
 
 from __future__ import annotations
@@ -85,6 +87,8 @@ def analyse_locking(model: Model, cycle: LimitCycle) -> PhaseLocking:
     if not (cycle.found and cycle.stable):
         return PhaseLocking(labels, False, wanted, None, None, None, None,
                             "not phase-locked: the network has no stable limit cycle to lock onto")
+    if layout.phases is not None:
+        return _locking_of_phases(model, cycle, labels, wanted)
     first = [members[0] for members in layout.members]
     samples = cycle.samples[first]
     levels = samples.mean(axis=1)
@@ -94,8 +98,14 @@ def analyse_locking(model: Model, cycle: LimitCycle) -> PhaseLocking:
         return PhaseLocking(labels, False, wanted, None, None, cycle.period, None,
                             "not phase-locked: some oscillator does not oscillate on the cycle")
     lags = tuple(_tidy_lag((c - crossings[0]) / cycle.period) for c in crossings)
-    errors = tuple(wrap_lag(m - w) for m, w in zip(lags, wanted, strict=True))
     locked, to_lock, note = _run_to_lock(model, first, levels, cycle.period, lags, wanted)
+    return _judged(labels, wanted, lags, cycle.period, locked, to_lock, note)
+
+
+def _judged(labels: tuple[str, ...], wanted: tuple[float, ...], lags: tuple[float, ...],
+            period: float, locked: bool, to_lock: int | None, note: str) -> PhaseLocking:
+    """The verdict from the lags on the cycle and the run from the initial state."""
+    errors = tuple(wrap_lag(m - w) for m, w in zip(lags, wanted, strict=True))
     worst = max(abs(e) for e in errors)
     if not locked:
         verdict = f"not phase-locked from the initial state: {note}"
@@ -104,9 +114,62 @@ def analyse_locking(model: Model, cycle: LimitCycle) -> PhaseLocking:
                    f"off (tolerance {LOCK_TOLERANCE:g})")
     else:
         verdict = (f"phase-locked at the wanted lags (worst error {worst:.2g} cycles), common period "
-                   f"{cycle.period:.6g} model time units; locked within {LOCK_TOLERANCE:g} cycles "
+                   f"{period:.6g} model time units; locked within {LOCK_TOLERANCE:g} cycles "
                    f"after {to_lock} cycle{'' if to_lock == 1 else 's'} from the initial state")
-    return PhaseLocking(labels, locked, wanted, lags, errors, float(cycle.period), to_lock, verdict)
+    return PhaseLocking(labels, locked, wanted, lags, errors, float(period), to_lock, verdict)
+
+
+def _phase_lags(thetas: np.ndarray) -> np.ndarray:
+    """Lags in cycles, in [0, 1), from phases (rows: oscillators; columns: instants, averaged
+    on the circle): the part of a turn by which each trails oscillator 1."""
+    trail = np.exp(1j * (thetas[:1] - thetas)).mean(axis=-1)
+    return np.angle(trail) / (2 * math.pi) % 1.0
+
+
+def _locking_of_phases(model: Model, cycle: LimitCycle, labels: tuple[str, ...],
+                       wanted: tuple[float, ...]) -> PhaseLocking:
+    """Lags read from the phase states on the cycle, and the run from the initial state sampled
+    once per period (the phases' differences are the lags at every instant)."""
+    phases = list(model.network.phases)
+    lags = tuple(_tidy_lag(v) for v in _phase_lags(cycle.samples[phases]))
+    field = sympy.lambdify(list(model.state_symbols), list(model.resolved_equations),
+                           modules="math", cse=True)
+    deadline = time.monotonic() + RUN_SECONDS
+
+    def rates(t: float, x: np.ndarray) -> list[float]:
+        if time.monotonic() > deadline:
+            raise TimeoutError
+        return field(*x.tolist())
+
+    period = float(cycle.period)
+    x, history = model.initial_state.astype(float), []
+    note = (f"after {MAX_CYCLES} periods the lags still had not settled on the cycle's")
+    locked = False
+    with warnings.catch_warnings(), np.errstate(all="ignore"):
+        warnings.simplefilter("ignore", RuntimeWarning)
+        for chunk in range(MAX_CYCLES // CHUNK_CYCLES):
+            marks = period * (chunk * CHUNK_CYCLES + np.arange(1, CHUNK_CYCLES + 1))
+            try:
+                run = solve_ivp(rates, (marks[0] - period, marks[-1]), x, method="DOP853",
+                                rtol=RUN_RTOL, atol=1e-9, t_eval=marks)
+            except TimeoutError:
+                note = f"the run used up its {RUN_SECONDS:g} s budget"
+                break
+            if run.status == -1 or not np.all(np.isfinite(run.y)):
+                note = f"the integration failed near t = {run.t[-1] if run.t.size else marks[0]:.4g}"
+                break
+            history += [tuple(float(v) for v in _phase_lags(run.y[phases, k:k + 1]))
+                        for k in range(run.y.shape[1])]
+            x = run.y[:, -1]
+            if len(history) >= STEADY_CYCLES and all(
+                    max(abs(wrap_lag(a - b)) for a, b in zip(row, lags, strict=True))
+                    <= STEADY_TOLERANCE for row in history[-STEADY_CYCLES:]):
+                locked = True
+                break
+    to_lock = _cycles_to_lock(history, wanted) if locked else None
+    if to_lock is not None:
+        to_lock += 1   # history[k] is the lags after k + 1 periods
+    return _judged(labels, wanted, lags, period, locked, to_lock, "" if locked else note)
 
 
 def _tidy_lag(value: float) -> float:

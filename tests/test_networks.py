@@ -141,7 +141,10 @@ def test_network_file_with_custom_lags(tmp_path: Path) -> None:
     (('oscillator = "hopf"', 'oscillator = "hopf"\npattern = "trot"'), "either a pattern or lags"),
     (("k = 0.8", "kappa = 0.8"), "no parameter 'kappa'"),
     (('labels = ["left", "middle", "right"]', 'labels = ["left"]'), "labels must be a list of 3"),
-    (('oscillator = "hopf"', 'oscillator = "vanderpol"'), "unknown oscillator"),
+    (('oscillator = "hopf"', 'oscillator = "duffing"'), "unknown oscillator"),
+    (('oscillator = "hopf"', 'oscillator = "chain_wave"'), "unknown oscillator"),
+    (('oscillator = "hopf"', 'oscillator = "vanderpol"'), "needs coupling, a square matrix"),
+    (('oscillator = "hopf"', 'oscillator = "hopf"\ncoupled_state = "x"'), "'coupled_state' is for"),
 ])
 def test_broken_network_files_exit_2_with_a_clear_message(tmp_path: Path, capsys, change,
                                                           message) -> None:
