@@ -31,11 +31,12 @@ from gen.pipeline import Design
 DEFAULT_BAND = 0.03
 DEFAULT_TOLERANCE = 0.08
 BOX_SCALE = 1.5
-LARGEST_DOMAIN = 150_000_000     # lattice points; the tables then take about 3 GiB at most
+LARGEST_DOMAIN = 1 << 28         # lattice points; the tables then take about 5 GiB at most
 CHUNK = 1 << 16                  # states per golden step: small batches stay in cache
 EXAMPLES = 3                     # example starts named per group of uncertified states
 GROUPS_SHOWN = 12                # groups of uncertified states described in full
 LONGEST_WALK = 200_000           # steps walked to measure one terminal cycle
+COUNT_CAP = np.uint32(2**31)      # step counts saturate here (only states that never arrive)
 LONGEST_EXCURSION = 4096         # steps followed outside the domain before calling it gone
 
 
@@ -111,6 +112,8 @@ class Certificate:
     exception_count: int
     exceptions: tuple[UncertifiedGroup, ...]
     exception_groups: int
+    fates: dict
+    cover_radius: float | None
     exclude_radius: float
     excluded_states: int
     equilibria_excluded: tuple[str, ...]
@@ -146,6 +149,9 @@ class Certificate:
             "certified_states": self.certified_states,
             "certified_fraction": self.certified_fraction,
             "exceptions": {"count": self.exception_count, "groups": self.exception_groups,
+                           "by_fate": {fate: {"states": n, "ends": e}
+                                       for fate, (n, e) in self.fates.items()},
+                           "within_radius_of_an_equilibrium": self.cover_radius,
                            "shown": [g.to_json() for g in self.exceptions]},
             "excluded": {"radius": self.exclude_radius, "states": self.excluded_states,
                          "equilibria": list(self.equilibria_excluded)},
@@ -190,6 +196,15 @@ class Certificate:
             if self.exception_groups > len(self.exceptions):
                 lines.append(f"    - and {self.exception_groups - len(self.exceptions)} smaller "
                              "group(s)")
+            ends = {"leaves the domain": "leave the domain", "fixed point": "integer fixed point(s)",
+                    "cycle": "integer cycle(s)"}
+            lines.append("    in all: " + "; ".join(
+                f"{n} state(s) leave the domain" if fate == "leaves the domain"
+                else f"{n} state(s) end on {e} {ends[fate]}"
+                for fate, (n, e) in self.fates.items() if n))
+            if self.cover_radius is not None:
+                lines.append(f"    all of them lie within {self.cover_radius:.4g} (normalised) of an "
+                             "equilibrium; an exclusion radius above that leaves them out")
         for reason in self.reasons:
             lines.append(f"  why not proved: {reason}")
         if self.proved:
@@ -243,11 +258,8 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
                          "this certificate enumerates; use fewer fraction bits or a smaller box")
     lattice = _Lattice(domain)
 
-    distance, distance_error, curve_error = _band_distances(cycle.samples, half, scale, band_int,
-                                                            lattice)
-    inner = distance <= band
-    within = distance <= tolerance
-    del distance
+    inner, within, distance_error, curve_error = _band_masks(cycle.samples, half, scale, band_int,
+                                                             lattice, band, tolerance)
     table, length = _next_state_table(program, lattice)
     invariant, reachable, path_index = _reachable_from(table, length, inner, within)
     path = _path_states(program, lattice, path_index)
@@ -260,8 +272,9 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
     exceptions = considered & never
     exception_count = int(np.count_nonzero(exceptions))
     steps_bound = int(steps[certified].max()) if np.any(certified) else None
-    groups, group_count = _group_exceptions(table, length, never, exceptions, lattice, scale, design)
+    groups, group_count, fates = _group_exceptions(table, length, never, exceptions, lattice, scale, design)
 
+    cover_radius = _cover_radius(design, lattice, exceptions, half, scale)
     reasons = []
     if not invariant:
         reasons.append(f"a state reachable from the inner band leaves the tolerance band "
@@ -287,7 +300,8 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
         tolerance_band_states=int(np.count_nonzero(within)), reachable_states=reachable,
         invariant=invariant, escape_path=tuple(path), certified_states=int(np.count_nonzero(certified)),
         steps_bound=steps_bound, exception_count=exception_count, exceptions=tuple(groups),
-        exception_groups=group_count, exclude_radius=exclude_radius,
+        exception_groups=group_count, fates=fates, cover_radius=cover_radius,
+        exclude_radius=exclude_radius,
         excluded_states=int(np.count_nonzero(in_box & excluded)),
         equilibria_excluded=tuple(equilibria_excluded),
         seconds=time.perf_counter() - started,
@@ -371,10 +385,12 @@ def _box(box: Mapping[str, tuple[float, float]] | Sequence[tuple[float, float]] 
     return out
 
 
-def _band_distances(samples: np.ndarray, half: np.ndarray, scale: np.ndarray,
-                    region: list[tuple[int, int]], lattice: _Lattice) -> tuple[np.ndarray, float, float]:
-    """Normalised distance from every lattice state to the cycle's curve (infinite outside
-    ``region``), with a bound on the raster error and an estimate of the curve's own error.
+def _band_masks(samples: np.ndarray, half: np.ndarray, scale: np.ndarray,
+                region: list[tuple[int, int]], lattice: _Lattice, band: float,
+                tolerance: float) -> tuple[np.ndarray, np.ndarray, float, float]:
+    """The lattice states within ``band`` and within ``tolerance`` (normalised distance) of the
+    cycle's curve (none outside ``region``), with a bound on the raster error of that distance and
+    an estimate of the curve's own error.
 
     The curve is a periodic cubic spline through the cycle's samples, resampled so that consecutive
     points lie less than half a lattice step apart, each marked on its nearest lattice state;
@@ -406,12 +422,15 @@ def _band_distances(samples: np.ndarray, half: np.ndarray, scale: np.ndarray,
     keep = np.all((marks >= 0) & (marks < np.array(shape)[:, None]), axis=0)
     free = np.ones(shape, dtype=bool)
     free[marks[0, keep], marks[1, keep]] = False
-    near = ndimage.distance_transform_edt(free, sampling=tuple(step_norm)).astype(np.float32)
+    near = ndimage.distance_transform_edt(free, sampling=tuple(step_norm))
     del free
-    distance = np.full(lattice.shape, np.inf, dtype=np.float32)
     o = lo - lattice.low
-    distance[o[0]:o[0] + shape[0], o[1]:o[1] + shape[1]] = near
-    return distance.reshape(-1), distance_error, curve_error
+    masks = []
+    for width in (band, tolerance):
+        mask = np.zeros(lattice.shape, dtype=bool)
+        mask[o[0]:o[0] + shape[0], o[1]:o[1] + shape[1]] = near <= width
+        masks.append(mask.reshape(-1))
+    return masks[0], masks[1], distance_error, curve_error
 
 
 def _next_state_table(program, lattice: _Lattice) -> tuple[np.ndarray, np.ndarray]:
@@ -511,22 +530,30 @@ def _steps_to_band(table: np.ndarray, length: np.ndarray,
     absorbing = np.append(inner, False)
     jump = table.copy()
     jump[:size][inner] = np.flatnonzero(inner).astype(np.int32)
-    count = np.where(absorbing, 0, length).astype(np.int64)
+    count = np.where(absorbing, 0, length).astype(np.uint32)
+    spare_jump = np.empty_like(jump)
+    spare_count = np.empty_like(count)
     outside = int(np.count_nonzero(~absorbing[jump]))
-    for _level in range(64):
-        count += count[jump]
-        jump = jump[jump]
+    for _level in range(40):
+        np.take(count, jump, out=spare_count)
+        np.minimum(spare_count, COUNT_CAP - count, out=spare_count)   # saturate, never wrap
+        count += spare_count
+        np.take(jump, jump, out=spare_jump)
+        jump, spare_jump = spare_jump, jump
         now = int(np.count_nonzero(~absorbing[jump]))
         if now == outside:
             break
         outside = now
+    del spare_jump, spare_count
     never = ~absorbing[jump[:size]]
+    if np.any(count[:size][~never] >= COUNT_CAP):
+        raise RuntimeError("a step count reached its cap; the certificate cannot state its bound")
     return count[:size], never
 
 
 def _group_exceptions(table: np.ndarray, steps: np.ndarray, never: np.ndarray,
                       exceptions: np.ndarray, lattice: _Lattice, scale: np.ndarray,
-                      design: Design) -> tuple[list[UncertifiedGroup], int]:
+                      design: Design) -> tuple[list[UncertifiedGroup], int, dict]:
     """Group the box states that never enter the band by their terminal cycle (or the sink).
 
     The states that never enter the band form a set closed under the map; on it, doubling to at
@@ -534,7 +561,7 @@ def _group_exceptions(table: np.ndarray, steps: np.ndarray, never: np.ndarray,
     steps names that cycle.
     """
     if not np.any(exceptions):
-        return [], 0
+        return [], 0, {}
     members = np.append(np.flatnonzero(never), lattice.size).astype(np.int64)
     local = np.searchsorted(members, table[members]).astype(np.int64)
     least = np.arange(members.size, dtype=np.int64)
@@ -547,7 +574,22 @@ def _group_exceptions(table: np.ndarray, steps: np.ndarray, never: np.ndarray,
     label = least[jump]                      # the least member of each orbit's terminal cycle
     wanted = np.searchsorted(members, np.flatnonzero(exceptions))
     ends, inverse, counts = np.unique(label[wanted], return_inverse=True, return_counts=True)
-    order = np.argsort(-counts, kind="stable")
+    end_index = members[ends]
+    resting = np.zeros(ends.size, dtype=bool)         # fixed points at an equilibrium come first
+    inside = end_index < lattice.size
+    fixed = np.zeros(ends.size, dtype=bool)
+    fixed[inside] = table[end_index[inside]] == end_index[inside]
+    if np.any(fixed):
+        at = lattice.states(end_index[fixed]) / scale[:, None]
+        for eq in design.analysis.equilibria:
+            state = np.asarray(eq.state, float)[:, None]
+            resting[np.flatnonzero(fixed)[np.all(np.abs(at - state) <= 0.5 / scale[:, None],
+                                                  axis=0)]] = True
+    order = np.lexsort((-counts, ~resting))
+    summary = {"leaves the domain": [0, 0], "fixed point": [0, 0], "cycle": [0, 0]}
+    for fate, pick in (("leaves the domain", ~inside), ("fixed point", fixed),
+                       ("cycle", inside & ~fixed)):
+        summary[fate] = [int(counts[pick].sum()), int(np.count_nonzero(pick))]
     groups = []
     starts = np.flatnonzero(exceptions)
     for g in order[:GROUPS_SHOWN]:
@@ -566,7 +608,20 @@ def _group_exceptions(table: np.ndarray, steps: np.ndarray, never: np.ndarray,
                                        _reals(examples, scale),
                                        _equilibrium_at(design, state / scale, scale) if length == 1
                                        else None))
-    return groups, int(ends.size)
+    return groups, int(ends.size), summary
+
+
+def _cover_radius(design: Design, lattice: _Lattice, exceptions: np.ndarray, half: np.ndarray,
+                  scale: np.ndarray) -> float | None:
+    """The smallest radius (normalised) about the equilibria that holds every uncertified state."""
+    if not np.any(exceptions) or not design.analysis.equilibria:
+        return None
+    at = lattice.states(np.flatnonzero(exceptions)) / scale[:, None]
+    nearest = np.full(at.shape[1], np.inf)
+    for eq in design.analysis.equilibria:
+        state = np.asarray(eq.state, float)[:, None]
+        nearest = np.minimum(nearest, np.linalg.norm((at - state) / half[:, None], axis=0))
+    return float(nearest.max())
 
 
 def _cycle_length(table: np.ndarray, steps: np.ndarray, start: int) -> int | None:
@@ -581,10 +636,10 @@ def _cycle_length(table: np.ndarray, steps: np.ndarray, start: int) -> int | Non
 
 
 def _equilibrium_at(design: Design, point: np.ndarray, scale: np.ndarray) -> str | None:
-    """The model's equilibrium within one lattice step of ``point`` (real units), named."""
+    """The model's equilibrium whose nearest lattice state is ``point`` (real units), named."""
     for eq in design.analysis.equilibria:
         state = np.asarray(eq.state, float)
-        if np.all(np.abs(state - point) <= 1.0 / scale):
+        if np.all(np.abs(state - point) <= 0.5 / scale):
             where = ", ".join(f"{v:.6g}" for v in state)
             return f"{eq.kind} at ({where})"
     return None
