@@ -315,13 +315,17 @@ def build_diffusive_network(
                     equation = f"{equation} + " + " + ".join(
                         f"{value!r} * ({other} - {mine})" for value, other in terms)
             equations.append(equation)
-    # the copies start apart (oscillator i's states scaled by 1 + offset), so that the analysis
-    # shows the network locking by itself; oscillator 1 starts at the single oscillator's start
-    states = [replace_initial(s, s.initial * (1.0 + 2.0 * START_OFFSETS[i // base.dimension
-                                                                            % len(START_OFFSETS)]))
-              for i, s in enumerate(states)]
-    pairs = tuple((i, j) for i in range(count) for j in range(count) if i != j and matrix[i][j] != 0.0)
+    # the copies start apart, so that the analysis shows the network locking by itself: copy i
+    # starts at the single oscillator's start with its first two states turned about the origin
+    # by START_OFFSETS[i] of a turn (copy 1 is not moved)
     n = base.dimension
+    for i in range(count):
+        angle = 2 * math.pi * START_OFFSETS[i % len(START_OFFSETS)]
+        first, second = states[n * i], states[n * i + 1]
+        x, y = first.initial, second.initial
+        states[n * i] = replace_initial(first, _tidy(x * math.cos(angle) - y * math.sin(angle)))
+        states[n * i + 1] = replace_initial(second, _tidy(x * math.sin(angle) + y * math.cos(angle)))
+    pairs = tuple((i, j) for i in range(count) for j in range(count) if i != j and matrix[i][j] != 0.0)
     layout = NetworkLayout(pattern="custom", oscillator=base.name, labels=names,
                            members=tuple(tuple(range(n * i, n * (i + 1))) for i in range(count)),
                            wanted_lags=wanted, links=pairs)

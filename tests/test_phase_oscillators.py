@@ -147,3 +147,134 @@ def test_angle_flag_must_be_true_or_false(tmp_path: Path, capsys) -> None:
 def test_check_of_the_phase_oscillator_exits_0(capsys) -> None:
     assert main(["check", "phase_amplitude"]) == 0
     assert "stable limit cycle" in capsys.readouterr().out
+
+
+# -- the chain of phase oscillators (gen/networks.py, oscillator 'phase_amplitude') -----------------
+
+
+@functools.cache
+def chain_analysis():
+    return analyse(load_model("phase_chain"))
+
+
+def test_chain_locks_at_the_biases_with_period_one_over_nu() -> None:
+    # Ijspeert et al. (2007) / the standard analysis of sine coupling (direct calculation): with
+    # equal intrinsic frequencies and antisymmetric biases phi_ji = -phi_ij, theta_j - theta_i =
+    # phi_ij zeroes every sine, so every phase turns at 2 pi nu: period 1 / nu, lags i / 8
+    analysis = chain_analysis()
+    assert analysis.ok and analysis.network.phase_locked
+    nu = analysis.model.parameter_values["nu"]
+    assert analysis.cycle.period == pytest.approx(1.0 / nu, rel=1e-9)
+    assert analysis.network.common_period == pytest.approx(1.0 / nu, rel=1e-9)
+    assert np.allclose(analysis.network.lags, np.arange(8) / 8, atol=1e-9)
+    assert list(analysis.cycle.turns[0::3]) == [1] * 8
+    assert np.allclose(analysis.cycle.state_max[1::3], analysis.model.parameter_values["R"], rtol=1e-9)
+
+
+def test_chain_phase_multipliers_are_the_path_laplacians() -> None:
+    # direct calculation: on the locked wave r_j = R and every cosine is cos(0) = 1, so the phase
+    # disturbances obey d' = -w R L d with L the Laplacian of the path of 8 (neighbour links),
+    # whose eigenvalues are 2 (1 - cos(k pi / 8)), k = 0..7 (common practice, spectral graph
+    # theory); the multipliers over one period T are exp(-w R 2 (1 - cos(k pi / 8)) T), the k = 0
+    # one being the trivial 1. The amplitude disturbances decay as exp(-a T / 2), far smaller.
+    analysis = chain_analysis()
+    values = analysis.model.parameter_values
+    period = analysis.cycle.period
+    expected = np.sort([math.exp(-values["w"] * values["R"] * 2 * (1 - math.cos(k * math.pi / 8))
+                                 * period) for k in range(1, 8)])
+    nontrivial = np.sort(np.abs(analysis.cycle.nontrivial_multipliers))[-7:]
+    assert np.allclose(nontrivial, expected, rtol=1e-6)
+    assert analysis.cycle.stability_margin == pytest.approx(expected[-1], rel=1e-6)
+
+
+def test_chain_lock_time_agrees_with_scipy() -> None:
+    # reference library: scipy's DOP853 from the initial state; the lags after each period are
+    # (theta_1 - theta_i) / 2 pi modulo 1; the first period from which every lag stays within
+    # 0.01 cycles of i / 8 is the lock time
+    model = load_model("phase_chain")
+    marks = np.arange(1, 41, dtype=float)
+    run = solve_ivp(model.vector_field(), (0.0, 40.0), model.initial_state, method="DOP853",
+                    rtol=1e-11, atol=1e-11, t_eval=marks)
+    thetas = run.y[0::3]
+    errors = np.abs(((thetas[0] - thetas) / (2 * math.pi) - np.arange(8)[:, None] / 8 + 0.5) % 1.0 - 0.5)
+    late = np.max(errors, axis=0) <= 0.01
+    first_locked = next(k for k in range(len(late)) if late[k:].all())
+    assert chain_analysis().network.cycles_to_lock == first_locked + 1
+    assert first_locked >= 1   # the start is off the wave on purpose
+
+
+def test_phase_network_file_keys_and_errors(tmp_path: Path, capsys) -> None:
+    path = tmp_path / "fins.toml"
+    path.write_text('name = "fins"\n[network]\noscillator = "phase_amplitude"\nlags = [0, 0.5]\n'
+                    '[parameters]\nw = 1.0\n[rhythm]\ncycle_hz = 1\nloop_hz = 100\n')
+    model = load_model(str(path))
+    assert model.state_names == ("theta1", "r1", "r_dot1", "theta2", "r2", "r_dot2")
+    assert model.states[0].angle and not model.states[1].angle
+    # phi_12 = 2 pi (lag_1 - lag_2) = -pi
+    assert "sin(theta2 - theta1 + 3.141592653589793)" in model.equation_text[0]
+    path.write_text(path.read_text().replace("w = 1.0", "omega = 1.0"))
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "no parameter 'omega'" in err and "nu, R, a, w" in err and "Traceback" not in err
+
+
+def test_gen_refuses_the_phase_chain_with_exit_2(tmp_path: Path, capsys) -> None:
+    assert main(["gen", "phase_chain", "-o", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert "no fixed-point form yet" in err and "Traceback" not in err
+
+
+# -- diffusive networks of a single built-in: two Van der Pol oscillators ---------------------------
+
+
+@functools.cache
+def pair_analysis():
+    return analyse(load_model("vanderpol_pair"))
+
+
+def test_van_der_pol_pair_synchronises_on_the_single_oscillators_cycle() -> None:
+    # exact (Pikovsky, Rosenblum and Kurths, "Synchronization", 2001, identical systems, from
+    # memory): diffusive coupling vanishes when x1 = x2, y1 = y2, so the in-phase motion is the
+    # single Van der Pol cycle: same period, same range, lag 0
+    pair, single = pair_analysis(), find_limit_cycle(load_model("vanderpol"))
+    assert pair.ok and pair.network.phase_locked
+    assert pair.cycle.period == pytest.approx(single.period, rel=1e-8)
+    assert np.allclose(pair.cycle.state_max, np.tile(single.state_max, 2), rtol=1e-7)
+    assert np.allclose(pair.network.lags, [0.0, 0.0], atol=1e-9)
+    # Liouville's formula (exact): the trace of the pair's Jacobian is twice the single one's
+    # minus 2 k (the coupling on y), so det(monodromy) = m^2 exp(-2 k T), m the single
+    # oscillator's nontrivial multiplier
+    k = 0.4
+    expected = math.exp(2 * single.floquet_log[0] - 2 * k * single.period)
+    assert np.linalg.det(pair.cycle.monodromy) == pytest.approx(expected, rel=1e-5)
+    assert single.floquet_log[0] < np.log(pair.cycle.stability_margin) + 1e-6   # sync is kept
+
+
+def test_van_der_pol_pair_synchronises_in_scipy_from_the_start() -> None:
+    # reference library: scipy's DOP853 from the network's initial state (the copies start a
+    # tenth of a turn apart): after 20 periods the two oscillators move as one
+    model = load_model("vanderpol_pair")
+    period = pair_analysis().cycle.period
+    run = solve_ivp(model.vector_field(), (0.0, 20 * period), model.initial_state, method="DOP853",
+                    rtol=1e-11, atol=1e-12)
+    x1, y1, x2, y2 = run.y[:, -1]
+    assert abs(model.initial_state[0] - model.initial_state[2]) > 0.1
+    assert abs(x1 - x2) < 1e-8 and abs(y1 - y2) < 1e-8
+
+
+def test_diffusive_network_file_errors_exit_2(tmp_path: Path, capsys) -> None:
+    good = ('name = "pair"\n[network]\noscillator = "vanderpol"\ncoupling = [[0, 0.4], [0.4, 0]]\n'
+            'coupled_state = "y"\n[rhythm]\ncycle_hz = 1\nloop_hz = 100\n')
+    path = tmp_path / "pair.toml"
+    path.write_text(good)
+    assert load_model(str(path)).equation_text[1].endswith("+ 0.4 * (y2 - y1)")
+    for change, message in [
+            (("[[0, 0.4], [0.4, 0]]", "[[0, 0.4]]"), "square matrix"),
+            (("[[0, 0.4], [0.4, 0]]", "[[1, 0.4], [0.4, 0]]"), "diagonal and must be 0"),
+            (("[[0, 0.4], [0.4, 0]]", '[[0, "a"], [0.4, 0]]'), "must be a finite number"),
+            (('coupled_state = "y"', 'coupled_state = "z"'), "coupled_state must name a state"),
+            (('coupled_state = "y"', 'coupled_state = "y"\npattern = "trot"'), "takes a coupling")]:
+        path.write_text(good.replace(*change))
+        assert main(["check", str(path)]) == 2
+        err = capsys.readouterr().err
+        assert message in err and "pair.toml" in err and "Traceback" not in err
