@@ -91,7 +91,8 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
             for s, v in zip(model.states, plan.initial_state, strict=True)
         ],
         "constants": constants,
-        "values": [_value_line(i, op, names, model, constant_of) for i, op in enumerate(program.ops)],
+        "values": [_value_line(i, op, names, model, constant_of, program.word_bits)
+                   for i, op in enumerate(program.ops)],
         "next_state": [{"field": names.field(n), "value": f"v{i}"}
                        for n, i in zip(program.state_names, program.next_state, strict=True)],
         "safety": SAFETY_NOTE,
@@ -137,7 +138,7 @@ def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
 
 
 def _value_line(index: int, op: Op, names: CNames, model: Model,
-                constant_of: dict[int, str]) -> dict:
+                constant_of: dict[int, str], word_bits: int) -> dict:
     a = [f"v{i}" for i in op.args]
     kind = op.kind
     if kind == "state":
@@ -145,16 +146,19 @@ def _value_line(index: int, op: Op, names: CNames, model: Model,
     elif kind == "const":
         expression = constant_of[index]
     elif kind in ("add", "sub", "min", "max"):
-        expression = f"{_HELPER[kind]}({a[0]}, {a[1]})"
+        expression = (f"{_HELPER[kind]}({a[0]}, {op.align[0]}u, {a[1]}, {op.align[1]}u, "
+                      f"{op.shift}u)")
     elif kind in ("neg", "abs"):
-        expression = f"{_HELPER[kind]}({a[0]})"
+        expression = f"{_HELPER[kind]}({a[0]}, {op.shift}u)"
     elif kind == "mul":
         expression = f"mul_word({a[0]}, {a[1]}, {op.shift}u)"
     elif kind == "scale":
         expression = f"mul_word({a[0]}, {constant_of[index]}, {op.shift}u)"
     else:
         raise ValueError(f"no C form for {kind!r}")
-    return {"name": f"v{index}", "expression": expression, "note": comment_text(op.note)}
+    fmt = f"Q{word_bits - op.fraction_bits}.{op.fraction_bits}"
+    return {"name": f"v{index}", "expression": expression,
+            "note": comment_text(f"{fmt}, {op.note}")}
 
 
 _HELPER = {"add": "add_word", "sub": "sub_word", "min": "min_word", "max": "max_word",

@@ -16,6 +16,7 @@ import numpy as np
 from gen.errors import InputError
 from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
 from gen.lowering import evaluate_real
+from gen.ranges import interval_ranges, planning_box
 
 
 @dataclass(frozen=True)
@@ -65,7 +66,15 @@ class ConstantReport:
 
 @dataclass(frozen=True)
 class FixedPointPlan:
-    """The chosen formats and the fully planned integer program."""
+    """The chosen formats and the fully planned integer program.
+
+    signal_format -- the format every state shares (one scale reads the whole state vector);
+    each intermediate value has its own format, in ``program.ops[i].fraction_bits``.
+    largest_signal -- the largest state magnitude met on the cycle.
+    signal_ranges -- per value, (min, max) met on the cycle (and at the initial state).
+    sure_bounds -- per value, (min, max) by interval arithmetic over the planning box: no step
+    from a state in the box can exceed them, and every format holds them times the margin.
+    """
 
     signal_format: QFormat
     largest_signal: float
@@ -76,22 +85,42 @@ class FixedPointPlan:
     initial_state: tuple[int, ...]
     warnings: tuple[str, ...]
     signal_ranges: tuple[tuple[float, float], ...] = ()
+    sure_bounds: tuple[tuple[float, float], ...] = ()
+    box: tuple[tuple[float, float], ...] = ()
+
+    def value_format(self, index: int) -> QFormat:
+        return QFormat(self.program.word_bits, self.program.ops[index].fraction_bits)
 
     def signal_table(self) -> list[dict]:
-        """One row per value of the step: its range on the cycle, format, headroom and the size
-        of its quantisation step."""
-        fmt = self.signal_format
+        """One row per value of the step: its range on the cycle, its sure bound over the box,
+        its format, the headroom between format and sure bound, and its quantisation step."""
         rows = []
-        for index, (op, (low, high)) in enumerate(zip(self.program.ops, self.signal_ranges,
-                                                      strict=True)):
-            peak = max(abs(low), abs(high))
+        for index, op in enumerate(self.program.ops):
+            fmt = self.value_format(index)
+            low, high = self.signal_ranges[index]
+            sure_low, sure_high = self.sure_bounds[index]
+            peak = max(abs(sure_low), abs(sure_high))
             rows.append({
                 "value": index, "kind": op.kind, "note": op.note, "min": low, "max": high,
-                "format": fmt.name,
+                "sure_min": sure_low, "sure_max": sure_high, "format": fmt.name,
                 "headroom_bits": math.log2(fmt.largest / peak) if peak else float(fmt.word_bits - 1),
                 "quantisation_step": fmt.step,
             })
         return rows
+
+    def planned_limits(self) -> list[int]:
+        """Per value, the largest magnitude (in its own integer units) the plan allows for: its
+        sure bound times the margin, capped at the word. A value beyond it in a run means the
+        run left the planned box."""
+        word_max = self.program.word_max
+        if not self.sure_bounds:
+            return [word_max] * len(self.program.ops)
+        limits = []
+        for index, (low, high) in enumerate(self.sure_bounds):
+            scale = 2.0 ** self.program.ops[index].fraction_bits
+            limits.append(int(min(word_max, math.floor(max(abs(low), abs(high)) * self.margin
+                                                       * scale))))
+        return limits
 
     @property
     def headroom_bits(self) -> float:
@@ -100,16 +129,19 @@ class FixedPointPlan:
         return math.log2(self.signal_format.largest / self.largest_signal)
 
     def formats_json(self) -> dict:
-        """The Q format of every state and constant (the verify report's ``formats``)."""
+        """The Q format of every state, intermediate and constant (the verify report's
+        ``formats``)."""
         return {
-            "signals": self.signal_format.name,
             "states": {name: self.signal_format.name for name in self.program.state_names},
+            "signals": [self.value_format(i).name for i in range(len(self.program.ops))],
             "constants": [c.to_json() for c in self.constants],
+            "box": [list(b) for b in self.box],
             "word_bits": self.program.word_bits,
             "product_bits": self.program.product_bits,
             "rounding": self.program.rounding,
             "overflow": self.program.overflow,
-            "largest_signal_on_cycle": self.largest_signal,
+            "margin": self.margin,
+            "largest_state_on_cycle": self.largest_signal,
             "headroom_bits": self.headroom_bits,
         }
 
@@ -119,16 +151,26 @@ def quantise(real: float, fraction_bits: int) -> int:
     return round(Fraction(real) * (1 << fraction_bits))
 
 
-def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.ndarray,
-                     margin: float = 4.0, fraction_bits: int | None = None,
-                     word_bits: int = 32, rounding: str = "half-up",
-                     overflow: str = "saturate") -> FixedPointPlan:
-    """Plan formats for ``program`` from states it will meet.
+def integer_bits_for(peak: float) -> int:
+    """Integer bits, sign included, that hold magnitudes up to ``peak`` (at least 1)."""
+    if peak <= 0:
+        return 1
+    bits = 1 + max(0, math.ceil(math.log2(peak)))
+    return bits + 1 if peak >= 2.0 ** (bits - 1) else bits
 
-    samples : ndarray, shape (n_states, k) -- states on the cycle (and any others to cover).
+
+def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.ndarray,
+                     margin: float = 2.0, fraction_bits: int | None = None,
+                     word_bits: int = 32, rounding: str = "half-up",
+                     overflow: str = "saturate", box_scale: float = 1.5) -> FixedPointPlan:
+    """Plan formats for ``program``.
+
+    samples : ndarray, shape (n_states, k) -- states on the cycle.
     initial : ndarray, shape (n_states,) -- the initial state, which must be representable.
-    margin : float -- the largest signal times ``margin`` must fit (4 leaves two bits of headroom).
+    margin : float -- every format holds its value's sure bound times ``margin`` (2 = one bit).
+    fraction_bits : int -- the states' format, if the user sets it; else chosen from the bounds.
     word_bits, rounding, overflow -- the integer semantics (see ``gen.integer_program``).
+    box_scale : float -- the planning box is the cycle's bounding box widened by this factor.
     """
     _check_choice("word size", word_bits, WORD_SIZES)
     _check_choice("rounding", rounding, ROUNDINGS)
@@ -136,46 +178,51 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     if margin < 1:
         raise InputError(f"the range margin must be at least 1, got {margin}")
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
-    values = evaluate_real(program, points)
-    ranges = tuple((float(np.min(v)), float(np.max(v))) for v in values)
-    peaks = [max(abs(low), abs(high)) for low, high in ranges]
-    worst = int(np.argmax(peaks))
-    largest = peaks[worst]
-    if not math.isfinite(largest):
-        raise InputError("a signal of the step is not finite on the cycle; the step size is too "
-                         "large for this model or the model has no bounded cycle")
-    needed_integer_bits = 1 + max(0, math.ceil(math.log2(largest * margin))) if largest else 1
+    met = tuple((float(np.min(v)), float(np.max(v))) for v in evaluate_real(program, points))
+    low, high = planning_box(samples, initial, box_scale)
+    sure = interval_ranges(program, low, high)
+    peaks = [max(abs(a), abs(b)) for a, b in sure]
+    if not all(math.isfinite(p) for p in peaks):
+        raise InputError("a signal of the step is not finite over the planning box; the step size "
+                         "is too large for this model or the model has no bounded cycle")
+    states = [i for i, op in enumerate(program.ops) if op.kind == "state"]
+    state_peak = max(peaks[i] for i in [*states, *program.next_state])
     warnings: list[str] = []
+    needed = integer_bits_for(state_peak * margin)
     if fraction_bits is None:
-        fraction_bits = word_bits - needed_integer_bits
+        fraction_bits = word_bits - needed
         if fraction_bits < 1:
-            raise InputError(f"the signals reach {largest:.4g} ({program.ops[worst].note}); with a "
+            raise InputError(f"the states reach {state_peak:.4g} over the planning box; with a "
                              f"margin of {margin} they do not fit a {word_bits}-bit word")
     else:
         if not 1 <= fraction_bits <= word_bits - 1:
             raise InputError(f"fraction bits must be between 1 and {word_bits - 1}, "
                              f"got {fraction_bits}")
         fmt = QFormat(word_bits, fraction_bits)
-        if largest >= fmt.largest:
+        if state_peak >= fmt.largest:
             raise InputError(
-                f"format {fmt.name} overflows: '{program.ops[worst].note}' reaches {largest:.6g} "
-                f"on the cycle but {fmt.name} holds at most {fmt.largest:.6g}; use at most "
-                f"{word_bits - needed_integer_bits} fraction bits (or leave the choice to the planner)")
-        if largest * margin >= fmt.largest:
+                f"format {fmt.name} overflows: the states reach {state_peak:.6g} over the planning "
+                f"box but {fmt.name} holds at most {fmt.largest:.6g}; use at most "
+                f"{word_bits - integer_bits_for(state_peak)} fraction bits (or leave the choice to "
+                "the planner)")
+        if state_peak * margin >= fmt.largest:
             warnings.append(f"format {fmt.name} leaves less headroom than the margin of {margin}: "
-                            f"'{program.ops[worst].note}' reaches {largest:.6g} of {fmt.largest:.6g}")
-    fmt = QFormat(word_bits, fraction_bits)
-    ops, constants = _fill(program, fmt)
-    initial_ints = tuple(_state_integer(x, fmt, name) for x, name in
+                            f"the states reach {state_peak:.6g} of {fmt.largest:.6g}")
+    state_format = QFormat(word_bits, fraction_bits)
+    ops, constants = _fill(program, state_format, [p * margin for p in peaks])
+    initial_ints = tuple(_state_integer(x, state_format, name) for x, name in
                          zip(initial, program.state_names, strict=True))
     planned = replace(program, ops=tuple(ops), word_bits=word_bits, product_bits=2 * word_bits,
                       rounding=rounding, overflow=overflow,
                       state_fraction_bits=tuple(fraction_bits for _ in program.state_names))
-    return FixedPointPlan(signal_format=fmt, largest_signal=largest,
+    state_met = [max(abs(met[i][0]), abs(met[i][1])) for i in states]
+    worst = states[int(np.argmax(state_met))]
+    return FixedPointPlan(signal_format=state_format, largest_signal=max(state_met),
                           largest_signal_note=program.ops[worst].note, margin=margin,
                           program=planned, constants=tuple(constants),
                           initial_state=initial_ints, warnings=tuple(warnings),
-                          signal_ranges=ranges)
+                          signal_ranges=met, sure_bounds=tuple(sure),
+                          box=tuple(zip(low.tolist(), high.tolist(), strict=True)))
 
 
 def _check_choice(what: str, value: object, choices: tuple) -> None:
@@ -184,28 +231,110 @@ def _check_choice(what: str, value: object, choices: tuple) -> None:
                          f"{', '.join(str(c) for c in choices)})")
 
 
-def _fill(program: IntegerProgram, fmt: QFormat) -> tuple[list, list[ConstantReport]]:
-    ops = []
+def _fill(program: IntegerProgram, state_format: QFormat,
+          bounds: list[float]) -> tuple[list, list[ConstantReport]]:
+    """Give every value its format and every operation its alignments and shift."""
+    w = state_format.word_bits
+    ops = program.ops
+    forced = set(program.next_state)
+    constant_formats = {i: _constant_format(op.real, w, op.note) for i, op in enumerate(ops)
+                        if op.kind in ("const", "scale")}
+    bits: list[int] = []
+    for index, op in enumerate(ops):
+        natural = w - integer_bits_for(bounds[index])
+        f_args = [bits[i] for i in op.args]
+        if op.kind == "state" or index in forced:
+            f = state_format.fraction_bits
+        elif op.kind == "const":
+            f = min(constant_formats[index].fraction_bits, natural)
+        elif op.kind in ("add", "sub", "min", "max"):
+            f = min(natural, max(f_args))
+        elif op.kind == "mul":
+            f = min(natural, f_args[0] + f_args[1])
+        elif op.kind == "scale":
+            f = min(natural, f_args[0] + constant_formats[index].fraction_bits)
+        else:  # neg, abs: the operand's own format holds the result (the word's edge saturates)
+            f = f_args[0]
+        bits.append(f)
+    while _limit_alignment(ops, bits, forced, w) | _cap_to_operands(ops, bits, constant_formats):
+        pass
+    filled: list = []
     constants: list[ConstantReport] = []
-    limit = (1 << (fmt.word_bits - 1)) - 1
-    for index, op in enumerate(program.ops):
+    for index, op in enumerate(ops):
+        f = bits[index]
+        f_args = [bits[i] for i in op.args]
         if op.kind == "const":
-            stored = quantise(op.real, fmt.fraction_bits)
-            if abs(stored) > limit:
+            fmt = QFormat(w, f)
+            stored = quantise(op.real, f)
+            if abs(stored) > (1 << (w - 1)) - 1:
                 raise InputError(f"the constant {op.real:.6g} ({op.note}) does not fit {fmt.name}")
             op = replace(op, constant=stored)
             constants.append(ConstantReport(index, op.note, op.real, stored, fmt, "added"))
         elif op.kind == "scale":
-            own = _constant_format(op.real, fmt.word_bits, op.note)
+            own = constant_formats[index]
             stored = quantise(op.real, own.fraction_bits)
-            op = replace(op, constant=stored, shift=own.fraction_bits)
+            op = replace(op, constant=stored, shift=f_args[0] + own.fraction_bits - f)
             constants.append(ConstantReport(index, op.note, op.real, stored, own, "multiplier"))
         elif op.kind == "mul":
-            op = replace(op, shift=fmt.fraction_bits)
-        ops.append(replace(op, fraction_bits=fmt.fraction_bits))
-    return ops, constants
+            op = replace(op, shift=f_args[0] + f_args[1] - f)
+        elif op.kind in ("add", "sub", "min", "max"):
+            top = max(*f_args, f)
+            op = replace(op, align=tuple(top - g for g in f_args), shift=top - f)
+        elif op.kind in ("neg", "abs"):
+            op = replace(op, shift=f_args[0] - f)
+        filled.append(replace(op, fraction_bits=f))
+    return filled, constants
 
 
+def _cap_to_operands(ops: tuple, bits: list[int], constant_formats: dict) -> bool:
+    """No result is finer than its exact value: a product has at most the sum of its factors'
+    fraction bits, a negation or absolute value its operand's. Returns True if anything changed."""
+    changed = False
+    for index, op in enumerate(ops):
+        f_args = [bits[i] for i in op.args]
+        if op.kind == "mul":
+            cap = f_args[0] + f_args[1]
+        elif op.kind == "scale":
+            cap = f_args[0] + constant_formats[index].fraction_bits
+        elif op.kind in ("neg", "abs"):
+            cap = f_args[0]
+        else:
+            continue
+        if bits[index] > cap or (op.kind in ("neg", "abs") and bits[index] != cap):
+            bits[index] = cap
+            changed = True
+    return changed
+
+
+def _limit_alignment(ops: tuple, bits: list[int], forced: set[int], w: int) -> bool:
+    """Keep every aligned operand within 2 * w - 3 bits of the wide type: no operand of a sum may
+    be shifted left by more than w - 2. Where that would happen, the finer value (or result)
+    is given fewer fraction bits, which never makes it overflow. Returns True if anything
+    changed."""
+    changed_any = False
+    changed = True
+    while changed:
+        changed = False
+        for index, op in enumerate(ops):
+            if op.kind not in ("add", "sub", "min", "max"):
+                continue
+            coarse = min(bits[i] for i in op.args)
+            ceiling = coarse + w - 2
+            for i in op.args:
+                if bits[i] > ceiling:
+                    if ops[i].kind == "state" or i in forced:
+                        raise InputError(f"operation {index} ({op.note}) adds values whose "
+                                         "formats are too far apart for the word; rescale the model")
+                    bits[i] = ceiling
+                    changed = True
+            if bits[index] > ceiling:
+                if index in forced:
+                    raise InputError(f"operation {index} ({op.note}) adds values whose formats are "
+                                     "too far apart for the word; rescale the model")
+                bits[index] = ceiling
+                changed = True
+        changed_any |= changed
+    return changed_any
 def _constant_format(real: float, word_bits: int, note: str) -> QFormat:
     """The format with the most fraction bits that still holds a multiplier in one word.
 

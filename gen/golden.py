@@ -62,6 +62,11 @@ def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
 
     values: list[np.ndarray] = []
     batch = np.shape(states)[1:]
+    rounding = program.rounding
+
+    def aligned(op_args: list[np.ndarray], align: tuple[int, ...]) -> list[np.ndarray]:
+        return [v * np.int64(1 << k) if k else v for v, k in zip(op_args, align, strict=True)]
+
     for op in program.ops:
         a = [values[i] for i in op.args]
         kind = op.kind
@@ -69,22 +74,18 @@ def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
             v = np.asarray(states[op.state], dtype=np.int64)
         elif kind == "const":
             v = np.full(batch, op.constant, dtype=np.int64)
-        elif kind == "add":
-            v = fit(a[0] + a[1])
-        elif kind == "sub":
-            v = fit(a[0] - a[1])
-        elif kind == "neg":
-            v = fit(-a[0])
-        elif kind == "abs":
-            v = fit(np.abs(a[0]))
-        elif kind == "min":
-            v = np.minimum(a[0], a[1])
-        elif kind == "max":
-            v = np.maximum(a[0], a[1])
         elif kind == "mul":
-            v = fit(round_shift(np.multiply(a[0], a[1]), op.shift, program.rounding))
+            v = fit(round_shift(np.multiply(a[0], a[1]), op.shift, rounding))
         elif kind == "scale":
-            v = fit(round_shift(a[0] * np.int64(op.constant), op.shift, program.rounding))
+            v = fit(round_shift(a[0] * np.int64(op.constant), op.shift, rounding))
+        elif kind in ("neg", "abs"):
+            exact = -a[0] if kind == "neg" else np.abs(a[0])
+            v = fit(round_shift(exact, op.shift, rounding))
+        elif kind in ("add", "sub", "min", "max"):
+            x, y = aligned(a, op.align)
+            exact = {"add": np.add, "sub": np.subtract, "min": np.minimum,
+                     "max": np.maximum}[kind](x, y)
+            v = fit(round_shift(exact, op.shift, rounding))
         else:
             raise ValueError(f"no golden rule for {kind!r}")
         values.append(v)

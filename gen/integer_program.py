@@ -6,21 +6,25 @@ planner fills in the integer part (stored constants, shifts, fraction bits). The
 interpreter (``gen.golden``) runs it and the C emitter (``gen.emit_c``) renders it; neither adds
 an arithmetic decision of its own.
 
-Semantics of each kind, on two's complement words of ``word_bits`` (16 or 32) with products formed
-in ``product_bits`` (twice the word). Every kind computes its exact result first; a result outside
-the word is then clamped to it (``overflow`` = ``saturate``) or reduced modulo 2**word_bits into it
-(``wrap``). Shifts divide by a power of two with the program's ``rounding``: ``truncate`` (toward
-minus infinity), ``half-up`` (nearest, ties toward plus infinity) or ``half-even`` (nearest, ties to
-the even neighbour).
+Every value is an integer standing for integer / 2**fraction_bits, each value with its own
+``fraction_bits``. Semantics of each kind, on two's complement words of ``word_bits`` (16 or 32)
+with products formed in ``product_bits`` (twice the word):
+
+1. form the exact wide result from the arguments, each first multiplied by 2**align[i] (for
+   ``add``, ``sub``, ``min`` and ``max``; this brings them to one scale and never overflows the
+   wide type, since no alignment exceeds word_bits - 2);
+2. divide it by 2**shift with the program's ``rounding``: ``truncate`` (toward minus infinity),
+   ``half-up`` (nearest, ties toward plus infinity) or ``half-even`` (nearest, ties to even);
+3. bring it into the word: clamp (``overflow`` = ``saturate``) or reduce modulo 2**word_bits
+   (``wrap``).
 
 - ``state``: the state variable ``state`` at the start of the step;
-- ``const``: the stored integer ``constant``, already in the signal format;
-- ``add``, ``sub``: exact sum or difference of two values;
-- ``neg``, ``abs``: exact negation or absolute value;
-- ``min``, ``max``: the smaller or larger of two values (cannot overflow);
-- ``mul``: the exact product of two values, shifted right by ``shift`` with the program's rounding;
-- ``scale``: the exact product of a value and the stored integer ``constant`` (whose own format has
-  ``shift`` fraction bits), shifted right by ``shift`` with the program's rounding.
+- ``const``: the stored integer ``constant``, in the value's own format;
+- ``add``, ``sub``: sum or difference of the aligned arguments;
+- ``min``, ``max``: the smaller or larger aligned argument;
+- ``neg``, ``abs``: negation or absolute value;
+- ``mul``: the product of two values;
+- ``scale``: the product of a value and the stored integer ``constant``.
 """
 
 from __future__ import annotations
@@ -49,6 +53,7 @@ class Op:
     constant: int | None = None
     shift: int | None = None
     fraction_bits: int | None = None
+    align: tuple[int, ...] = ()
 
     def __post_init__(self) -> None:
         if self.kind not in KINDS:
@@ -62,6 +67,8 @@ class Op:
             value = getattr(self, key)
             if value is not None:
                 data[key] = value
+        if self.align:
+            data["align"] = list(self.align)
         if self.note:
             data["note"] = self.note
         return data

@@ -4,6 +4,7 @@ user mistakes."""
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -68,6 +69,7 @@ def test_zero_damping_is_a_center_with_no_isolated_cycle(capsys) -> None:
     ["gen", "vanderpol", "-o", "/proc/orbitfix-cannot-write-here"],
     ["verify", "vanderpol", "--sources", "/nonexistent-folder"],
     ["verify", "vanderpol", "--fraction-bits", "30"],
+    ["verify", "vanderpol", "--hours", "-1", "--states", "10", "--steps", "10"],
 ])
 def test_user_mistakes_exit_2_with_a_message(capsys, argv: list[str]) -> None:
     code, _, err = run(capsys, *argv)
@@ -111,19 +113,25 @@ def test_gen_refuses_a_model_with_no_cycle_and_shows_the_analysis(capsys, tmp_pa
 
 def test_verify_json_contract_and_sources(capsys, tmp_path: Path) -> None:
     code, out, _ = run(capsys, "verify", "vanderpol", "--json", "--states", "5000",
-                       "--steps", "5000", "--set", "mu=2")
+                       "--steps", "5000", "--set", "mu=2", "--hours", "0.01")
     assert code == 0
     data = json.loads(out)
+    drift = data["drift"]
+    assert drift["verdict"] == "pass" and drift["steps"] == 36_000
+    for one in drift["runs"]:
+        for key in ("amplitude_error", "period_error_ppm", "phase_drift_cycles",
+                    "integer_period_steps", "saturation_events", "verdict"):
+            assert key in one
     assert data["bit_exact"] is True
     assert data["states_compared"] == 5000 and data["steps_compared"] == 5000
     assert data["first_mismatch"] is None
     assert data["integrator"] == "rk4" and data["step_size"] > 0
-    assert data["formats"]["states"] == {"x": data["formats"]["signals"],
-                                         "y": data["formats"]["signals"]}
+    states = data["formats"]["states"]
+    assert set(states) == {"x", "y"} and states["x"] == data["formats"]["signals"][0]
     assert data["formats"]["constants"]
     run(capsys, "gen", "vanderpol", "--set", "mu=2", "-o", str(tmp_path))
     code, out, _ = run(capsys, "verify", "vanderpol", "--set", "mu=2", "--sources", str(tmp_path),
-                       "--states", "5000", "--steps", "5000")
+                       "--states", "5000", "--steps", "5000", "--hours", "0.01")
     assert code == 0
     assert "bit-exact" in out
 
@@ -131,13 +139,27 @@ def test_verify_json_contract_and_sources(capsys, tmp_path: Path) -> None:
 def test_verify_of_edited_sources_exits_1_naming_the_step(capsys, tmp_path: Path) -> None:
     run(capsys, "gen", "vanderpol", "-o", str(tmp_path))
     source = tmp_path / "vanderpol.c"
-    source.write_text(source.read_text().replace("26u)", "25u)", 1))
+    text = source.read_text()
+    product = re.search(r"mul_word\(v0, v0, (\d+)u\)", text)
+    assert product
+    source.write_text(text.replace(product.group(0),
+                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u)", 1))
     code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path),
-                       "--states", "5000", "--steps", "5000", "--json")
+                       "--states", "5000", "--steps", "5000", "--json", "--hours", "0.01")
     assert code == 1
     data = json.loads(out)
     assert data["bit_exact"] is False
     assert data["first_mismatch"]["operation"]["kind"] == "mul"
+    assert "drift" not in data  # no drift run on C that is not bit-exact
+
+
+def test_verify_fails_when_the_drift_test_fails(capsys) -> None:
+    # 16-bit words with 4 fraction bits: the orbit collapses (see tests/test_drift.py).
+    code, out, _ = run(capsys, "verify", "vanderpol", "--word", "16", "--fraction-bits", "4",
+                       "--states", "2000", "--steps", "2000", "--hours", "0.01", "--json")
+    assert code == 1
+    data = json.loads(out)
+    assert data["bit_exact"] is True and data["drift"]["verdict"] == "fail"
 
 
 def test_console_entry_point_runs_as_a_module() -> None:
@@ -154,7 +176,8 @@ def test_plan_json_has_signals_constants_and_integrators(capsys) -> None:
     signals = data["plan"]["signals"]
     assert len(signals) == len(data["plan"]["formats"]["constants"]) + 32  # 47 values, 15 constants
     for row in signals:
-        assert row["min"] <= row["max"] and row["headroom_bits"] >= 2  # margin 4 = 2 bits
+        assert row["sure_min"] <= row["min"] <= row["max"] <= row["sure_max"]
+        assert row["headroom_bits"] >= 1  # margin 2 = one bit over the sure bound
     names = [s["integrator"] for s in data["integrators"]]
     assert names == ["euler", "symplectic-euler", "heun", "rk4"]
     euler = data["integrators"][0]

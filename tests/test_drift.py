@@ -39,7 +39,7 @@ def congruential_design(a: int, c: int) -> Design:
            Op("state", state=1, note="y", fraction_bits=0),
            Op("scale", (0,), real=float(a), note="a*x", constant=a, shift=0, fraction_bits=0),
            Op("const", real=float(c), note="c", constant=c, fraction_bits=0),
-           Op("add", (2, 3), note="a*x + c", fraction_bits=0))
+           Op("add", (2, 3), note="a*x + c", fraction_bits=0, align=(0, 0), shift=0))
     program = IntegerProgram(name="lcg", state_names=("x", "y"), ops=ops, next_state=(4, 0),
                              word_bits=16, product_bits=32, rounding="truncate", overflow="wrap",
                              state_fraction_bits=(0, 0))
@@ -100,7 +100,7 @@ def test_brent_finds_the_full_period_of_a_hull_dobell_generator() -> None:
     assert cycle_start(host, (17, 0), period, budget=1 << 20) == 1  # y joins x's cycle after one step
     # The drift run's own Brent (inside the traced loop) finds the same period.
     stats = harness_statistics(host, (17, 0), steps=300_000, settle=10, window=10,
-                               section_level=0, planned_limit=32767)
+                               section_level=0)
     assert stats.counts["period"] == 1 << 16
 
 
@@ -130,7 +130,7 @@ def test_brent_reports_no_repeat_when_the_budget_is_too_small() -> None:
 
 
 def numpy_statistics(x: np.ndarray, program: IntegerProgram, settle: int, window: int, level: int,
-                     limit: int) -> dict:
+                     limits: list[int]) -> dict:
     """The harness's statistics recomputed from a golden trajectory ``x`` (row k: the state after
     k steps), written from their definitions: an independent reference for the C's streaming
     bookkeeping."""
@@ -142,7 +142,7 @@ def numpy_statistics(x: np.ndarray, program: IntegerProgram, settle: int, window
     values = golden.evaluate(program, x[:-1].T)  # every intermediate of steps 1..steps
     trace = np.stack(values)
     at_limit = np.any((trace == program.word_max) | (trace == program.word_min), axis=0)
-    outside = np.any(np.abs(trace) > limit, axis=0)
+    outside = np.any(np.abs(trace) > np.array(limits, dtype=np.int64).reshape(-1, 1), axis=0)
     step_no = k[1:]
 
     def first(mask: np.ndarray) -> int:
@@ -191,7 +191,7 @@ def test_harness_statistics_equal_numpy_on_the_golden_trajectory(vanderpol_desig
                    analysis=vanderpol_design.analysis)
     plan = built.plan
     program = plan.program
-    limit = int(plan.largest_signal * plan.margin * 2 ** plan.signal_format.fraction_bits)
+    limits = plan.planned_limits()
     start = (program.word_max - program.word_max // 64, 0)
     steps, settle, window = 20_000, 3_000, 1_500
     host = build_drift_module(built)
@@ -200,8 +200,8 @@ def test_harness_statistics_equal_numpy_on_the_golden_trajectory(vanderpol_desig
     # rule (x_{k-1} < level <= x_k) is exercised.
     rising = np.flatnonzero(np.diff(trajectory[settle:, 0]) > 0)
     level = int(trajectory[settle + rising[len(rising) // 2] + 1, 0])
-    got = harness_statistics(host, start, steps, settle, window, level, limit)
-    want = numpy_statistics(trajectory, program, settle, window, level, limit)
+    got = harness_statistics(host, start, steps, settle, window, level)
+    want = numpy_statistics(trajectory, program, settle, window, level, limits)
     assert want["counts"]["limit_steps"] > 0 and want["counts"]["range_steps"] > 0
     for name, value in want["counts"].items():
         assert got.counts[name] == value, name

@@ -14,12 +14,29 @@ from gen.lowering import evaluate_real
 from gen.pipeline import design
 
 
-def test_format_covers_the_cycle_with_the_margin(vanderpol_design) -> None:
+def test_every_format_holds_its_sure_bound_with_the_margin(vanderpol_design) -> None:
     plan = vanderpol_design.plan
-    assert plan.largest_signal * plan.margin < plan.signal_format.largest
-    # One bit fewer of integer part would not hold largest * margin.
-    assert plan.largest_signal * plan.margin >= plan.signal_format.largest / 2
     assert plan.program.is_planned
+    for row in plan.signal_table():
+        peak = max(abs(row["sure_min"]), abs(row["sure_max"]))
+        fmt = plan.value_format(row["value"])
+        # every format holds its sure bound times the margin (a constant holds its own value)
+        assert peak * (1 if row["kind"] == "const" else plan.margin) <= fmt.largest
+        # the range met on the cycle lies inside the sure bound (interval arithmetic is sound)
+        assert row["sure_min"] <= row["min"] + 1e-12 and row["max"] <= row["sure_max"] + 1e-12
+    states = [r for r in plan.signal_table() if r["kind"] == "state"]
+    assert all(r["headroom_bits"] >= 1 for r in states)  # margin 2 = one bit over the box
+
+
+def test_sure_bounds_hold_for_random_states_in_the_box(vanderpol_design) -> None:
+    # Sampling check of soundness: no value of one step from a state in the box leaves its bound.
+    plan = vanderpol_design.plan
+    rng = np.random.default_rng(3)
+    low = np.array([b[0] for b in plan.box])
+    high = np.array([b[1] for b in plan.box])
+    states = rng.uniform(low[:, None], high[:, None], size=(2, 20000))
+    for value, (lo, hi) in zip(evaluate_real(plan.program, states), plan.sure_bounds, strict=True):
+        assert lo - 1e-9 <= value.min() and value.max() <= hi + 1e-9
 
 
 def test_constant_reports_are_exact(vanderpol_design) -> None:

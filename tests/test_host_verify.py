@@ -139,7 +139,8 @@ def test_c_products_round_like_exact_rationals_at_ties(word: int, rounding: str,
     files = render_model(TIES, timing, EULER, plan)
     host = build_host_module(files, render_host_harness(TIES, word), "ties.h")
     mul = next(i for i, op in enumerate(plan.program.ops) if op.kind == "mul")
-    half = 1 << (fraction_bits - 1)
+    shift = plan.program.ops[mul].shift  # the product's own format decides the shift
+    half = 1 << (shift - 1)
     low, high = -(1 << (word - 1)), (1 << (word - 1)) - 1
     cases = [(1, k * half) for k in (1, 3, 5, -1, -3, -5)] + [(3, half), (-3, half), (1, high),
                                                                (low, low), (high, high), (low, -1)]
@@ -152,7 +153,7 @@ def test_c_products_round_like_exact_rationals_at_ties(word: int, rounding: str,
         host.lib.orbitfix_harness_trace(host.ffi.from_buffer("int32_t[]", state),
                                         host.ffi.from_buffer("int32_t[]", out),
                                         host.ffi.from_buffer("int32_t[]", trace))
-        value = exact(Fraction(a * b, 1 << fraction_bits))
+        value = exact(Fraction(a * b, 1 << shift))
         if overflow == "saturate":
             value = min(max(value, low), high)
         else:

@@ -14,7 +14,7 @@ def test_python_example_runs(capsys) -> None:
     block = re.search(r"```python\n(.*?)```", README, flags=re.S)
     assert block
     exec(compile(block.group(1), "README.md", "exec"), {})  # the README's own example
-    assert capsys.readouterr().out.startswith("Q6.26 ")
+    assert capsys.readouterr().out.startswith("Q5.27 ")
 
 
 def test_model_file_shown_is_the_builtin_one(tmp_path: Path) -> None:

@@ -66,6 +66,10 @@ def test_constants_round_to_nearest_ties_to_even() -> None:
 
 def small_program(kind: str, args: tuple[int, ...], word_bits: int = 32, overflow: str = "saturate",
                   **fields: int) -> IntegerProgram:
+    if kind in ("add", "sub", "min", "max"):
+        fields = {"align": (0, 0), "shift": 0, **fields}
+    elif kind in ("neg", "abs"):
+        fields = {"shift": 0, **fields}
     ops = (Op("state", state=0, fraction_bits=24), Op("state", state=1, fraction_bits=24),
            Op(kind, args, fraction_bits=24, **fields))
     return IntegerProgram(name="t", state_names=("a", "b"), ops=ops, next_state=(2, 1),
@@ -104,6 +108,19 @@ def test_every_operation_fits_the_word_by_its_overflow_rule(kind: str, bits: int
     states = np.array(pairs, dtype=np.int64).T
     got = golden.step(program, states)[0]
     want = [into_word(exact(kind, a, b, shift), bits, overflow) for a, b in pairs]
+    assert got.tolist() == want
+
+
+@pytest.mark.parametrize("kind", ["add", "sub", "min", "max"])
+def test_aligned_operands_are_exact_before_one_rounding(kind: str) -> None:
+    # Reference: exact rationals. a has 20 fraction bits, b has 24; the result keeps 22.
+    program = small_program(kind, (0, 1), align=(4, 0), shift=2)
+    rng = np.random.default_rng(7)
+    states = rng.integers(-(1 << 26), 1 << 26, size=(2, 3000))
+    got = golden.step(program, states)[0]
+    op = {"add": lambda x, y: x + y, "sub": lambda x, y: x - y, "min": min, "max": max}[kind]
+    want = [half_up(op(Fraction(int(a), 1 << 20), Fraction(int(b), 1 << 24)) * (1 << 22))
+            for a, b in states.T]
     assert got.tolist() == want
 
 

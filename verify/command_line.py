@@ -20,13 +20,14 @@ from gen.errors import InputError, OrbitfixError
 from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from gen.integrators import INTEGRATORS
 from gen.pipeline import Design, NoStableCycleError, design
-from verify import models_command, plan_command, sweep_command
+from verify import basin_command, models_command, plan_command, sweep_command
 from verify.cli_support import CAUTION, add_model_arguments, model_from_args, plain_json
+from verify.drift import DriftTolerances, build_drift_module, run_drift
 from verify.host_build import STRICT_FLAGS
-from verify.host_check import check_on_host
+from verify.host_check import check_on_host, read_sources
 
 # Verbs defined in modules of their own: each module has register(verbs) adding its parser.
-VERB_MODULES: tuple = (models_command, plan_command, sweep_command)
+VERB_MODULES: tuple = (models_command, plan_command, sweep_command, basin_command)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -103,6 +104,20 @@ def _parser() -> argparse.ArgumentParser:
                         help="random states to compare one step from (default 1000000)")
     verify.add_argument("--steps", type=_count, default=1_000_000, metavar="N",
                         help="trajectory steps to compare (default 1000000)")
+    drift = verify.add_argument_group("long-run drift test (compiled C, several starts)")
+    drift.add_argument("--hours", type=float, default=24.0, metavar="H",
+                       help="length in hours of loop time (default 24)")
+    drift.add_argument("--skip-drift", action="store_true", help="leave out the long-run drift test")
+    drift.add_argument("--max-amplitude-error", type=float, default=2.0, metavar="PERCENT",
+                       help="amplitude error allowed against the continuous cycle and the float "
+                            "step map (default 2 %%)")
+    drift.add_argument("--max-period-error", type=float, default=1000.0, metavar="PPM",
+                       help="period error allowed (default 1000 ppm)")
+    drift.add_argument("--max-phase-drift", type=float, default=1.0, metavar="CYCLES",
+                       help="phase drift against the float step map over the run (default 1)")
+    drift.add_argument("--max-return-spread", type=float, default=2.0, metavar="PERCENT",
+                       help="spread of return points on the section, of each state's range "
+                            "(default 2 %%)")
     verify.set_defaults(handler=_verify)
     for module in VERB_MODULES:
         module.register(verbs)
@@ -159,6 +174,10 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
     partial["model"] = model.name
     built = design(model)
     partial.update(_design_json(built))
+    tolerances = DriftTolerances(amplitude=args.max_amplitude_error / 100,
+                                 period_ppm=args.max_period_error,
+                                 phase_drift_cycles=args.max_phase_drift,
+                                 return_spread=args.max_return_spread / 100)
     outcome = check_on_host(built, args.sources, states=args.states, steps=args.steps)
     report = outcome.report
     mismatch = report.first_mismatch
@@ -172,6 +191,12 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
         "compiler_flags": list(STRICT_FLAGS),
         "seconds": {"host_build": outcome.build_seconds, **report.seconds},
     })
+    drift = None
+    if not args.skip_drift and report.bit_exact:
+        sources = read_sources(built, args.sources)[0] if args.sources else None
+        drift = run_drift(built, hours=args.hours, tolerances=tolerances,
+                          host=build_drift_module(built, sources))
+        partial["drift"] = drift.to_json()
     if args.json:
         print(json.dumps(plain_json(partial), indent=2))
     else:
@@ -192,8 +217,13 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
             print("result: NOT bit-exact: the C does not give the golden model's bits")
         else:
             print("result: bit-exact: the C gives the golden model's bits at every compared step")
+        if drift is not None:
+            print()
+            print("\n".join(drift.describe()))
+        elif not args.skip_drift:
+            print("long-run drift test: not run, since the C is not bit-exact")
         print(CAUTION)
-    return 0 if report.bit_exact else 1
+    return 0 if report.bit_exact and (drift is None or drift.verdict == "pass") else 1
 
 
 def _seconds(value: float | None) -> str:
@@ -219,9 +249,10 @@ def _design_lines(built: Design) -> list[str]:
         f"model {built.model.name}: cycle period {t.model_period:.6g} model time units; "
         f"{t.cycle_hz:g} Hz at a {t.loop_hz:g} Hz loop gives a step of {t.step:.6g} "
         f"({t.steps_per_cycle:.1f} steps per cycle)",
-        f"integrator {built.integrator.name}; every signal {plan.signal_format.name} in "
-        f"{plan.program.word_bits}-bit words, {plan.program.product_bits}-bit products, rounding "
-        f"{plan.program.rounding}, overflow {plan.program.overflow}; largest signal "
+        f"integrator {built.integrator.name}; states {plan.signal_format.name}, each "
+        f"intermediate in its own format; {plan.program.word_bits}-bit words, "
+        f"{plan.program.product_bits}-bit products, rounding "
+        f"{plan.program.rounding}, overflow {plan.program.overflow}; largest state "
         f"{plan.largest_signal:.4g} on the cycle, {plan.headroom_bits:.2f} bits of headroom",
     ]
     lines += [f"  warning: {w}" for w in plan.warnings]

@@ -35,7 +35,7 @@ from verify.host_build import HostModule, build_host_module
 
 DRIFT_DECLARATIONS = """\
 void orbitfix_drift_run(const int32_t *start, uint64_t steps, uint64_t settle, uint64_t window,
-                        int32_t section_level, int32_t planned_limit, uint64_t *counts,
+                        int32_t section_level, uint64_t *counts,
                         int32_t *ranges, int32_t *brackets, int32_t *end_state);
 uint64_t orbitfix_drift_period(const int32_t *start, uint64_t budget, uint64_t *seen_at);
 uint64_t orbitfix_drift_cycle_start(const int32_t *start, uint64_t period, uint64_t budget);
@@ -193,7 +193,7 @@ class DriftReport:
     settle_steps: int
     window_steps: int
     section_level: int
-    planned_limit: int
+    planned_limits: list[int]
     fraction_bits: int
     state_names: tuple[str, ...]
     tolerances: DriftTolerances
@@ -219,8 +219,7 @@ class DriftReport:
             "window_steps": self.window_steps,
             "section": {"state": self.state_names[0], "level": self.section_level,
                         "level_real": self.section_level * scale, "direction": "upward"},
-            "planned_limit": self.planned_limit,
-            "planned_limit_real": self.planned_limit * scale,
+            "planned_limits": self.planned_limits,
             "tolerances": self.tolerances.to_json(),
             "references": {
                 "continuous": {"period_steps": self.continuous_period_steps,
@@ -295,7 +294,7 @@ def render_drift_harness(design: Design) -> str:
     return environment().get_template("drift_harness.c.j2").render(
         names=names, fields=[names.field(n) for n in model.state_names], count=model.dimension,
         version=__version__, word_type=f"int{bits}_t", word_bits=bits,
-        declarations=DRIFT_DECLARATIONS)
+        declarations=DRIFT_DECLARATIONS, limits=design.plan.planned_limits())
 
 
 def build_drift_module(design: Design, sources: dict[str, str] | None = None) -> HostModule:
@@ -314,7 +313,7 @@ def build_drift_module(design: Design, sources: dict[str, str] | None = None) ->
 
 
 def harness_statistics(host: HostModule, start: tuple[int, ...], steps: int, settle: int,
-                       window: int, section_level: int, planned_limit: int) -> HarnessStatistics:
+                       window: int, section_level: int) -> HarnessStatistics:
     """One streaming run in C from ``start`` (integer units) with the statistics kept on the way."""
     n = len(start)
     ffi = host.ffi
@@ -325,7 +324,7 @@ def harness_statistics(host: HostModule, start: tuple[int, ...], steps: int, set
     end = np.zeros(n, dtype=np.int32)
     started = time.perf_counter()
     host.lib.orbitfix_drift_run(ffi.from_buffer("int32_t[]", begin), steps, settle, window,
-                                section_level, planned_limit,
+                                section_level,
                                 ffi.from_buffer("uint64_t[]", counts),
                                 ffi.from_buffer("int32_t[]", ranges),
                                 ffi.from_buffer("int32_t[]", brackets),
@@ -487,7 +486,6 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     cycle = design.analysis.cycle
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
     level = round(float(low[0] + high[0]) / 2 * scale)
-    planned_limit = int(min(program.word_max, math.floor(plan.largest_signal * plan.margin * scale)))
     starts, notes = choose_starts(design, equilibrium_offset)
     notes.append("parameter corners are not run: the generated C has no runtime parameters yet")
     seconds: dict[str, float] = {}
@@ -504,7 +502,7 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     report = DriftReport(
         model=design.model.name, hours=float(hours), loop_hz=timing.loop_hz, steps=steps,
         settle_steps=settle, window_steps=window, section_level=level,
-        planned_limit=planned_limit, fraction_bits=fraction, state_names=program.state_names,
+        planned_limits=plan.planned_limits(), fraction_bits=fraction, state_names=program.state_names,
         tolerances=tolerances, continuous_period_steps=spc,
         continuous_amplitude=continuous_amplitude, step_map=reference, runs=[], notes=notes,
         seconds=seconds)
@@ -520,7 +518,7 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     tol = report.tolerances
     scale = 2.0 ** -report.fraction_bits
     stats = harness_statistics(host, start.state, report.steps, report.settle_steps,
-                               report.window_steps, report.section_level, report.planned_limit)
+                               report.window_steps, report.section_level)
     seconds = stats.seconds
     c, r = stats.counts, stats.ranges
     names = report.state_names
