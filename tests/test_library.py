@@ -24,7 +24,7 @@ def cycle_of(name: str, **params: float):
     return find_limit_cycle(load_model(name).with_parameters(params))
 
 
-@pytest.mark.parametrize("name", [*PLANAR, "matsuoka"])
+@pytest.mark.parametrize("name", [*PLANAR, "matsuoka", "phase_amplitude"])
 def test_builtin_model_documents_itself_and_has_a_stable_cycle(name: str) -> None:
     model = load_model(name)
     assert model.description and model.source == f"built-in:{name}"
@@ -199,3 +199,12 @@ def test_a_model_with_sin_is_analysed_and_gen_refuses_it_with_exit_2(tmp_path, c
     assert main(["gen", str(path), "-o", str(tmp_path / "out")]) == 2
     err = capsys.readouterr().err
     assert "no fixed-point form yet" in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize("name", ["phase_amplitude", "phase_chain", "vanderpol_pair"])
+def test_check_of_the_newer_builtins_gives_a_clear_verdict_and_exit_0(name: str, capsys) -> None:
+    assert main(["check", name]) == 0
+    out = capsys.readouterr().out
+    assert "verdict: stable limit cycle" in out
+    model = load_model(name)
+    assert all(s.meaning for s in model.states) and all(p.meaning for p in model.parameters)

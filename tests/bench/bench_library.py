@@ -1,7 +1,7 @@
 """Time the check (the whole continuous-model analysis) of every built-in model, networks included.
 
 Run as ``python tests/bench/bench_library.py``; prints the median of a few runs per model, with the
-number of states and the verdict.
+number of states, the verdict and the number of angle states (phases, modulo 2 pi).
 """
 
 from __future__ import annotations
@@ -21,6 +21,7 @@ RUNS = 3
 
 def median_seconds(name: str) -> tuple[float, int, str]:
     model = load_model(name)
+    angles = int(model.angle_mask.sum())
     times, outcome = [], ""
     for _ in range(RUNS):
         start = time.perf_counter()
@@ -29,6 +30,8 @@ def median_seconds(name: str) -> tuple[float, int, str]:
         outcome = "ok" if analysis.ok else "NOT ok"
         if analysis.network is not None:
             outcome += f", locks in {analysis.network.cycles_to_lock} cycles"
+    if angles:
+        outcome += f", {angles} angle state{'' if angles == 1 else 's'}"
     return statistics.median(times), model.dimension, outcome
 
 
