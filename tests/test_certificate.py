@@ -206,3 +206,16 @@ def test_refusals_name_what_to_do(vanderpol_design, coarse) -> None:
         certify(coarse, box=[(1.0, -1.0), (-1.0, 1.0)])
     with pytest.raises(InputError, match="fewer fraction bits or a smaller box"):
         certify(coarse, box=[(-500.0, 500.0), (-500.0, 500.0)])
+
+
+def test_band_in_strips_equals_the_band_in_one_piece(coarse, coarse_certificate, monkeypatch) -> None:
+    # Source: scipy's distance transform over the whole region at once (strips of 512 rows cover
+    # this coarse lattice in one piece), against strips of 7 rows with their halos.
+    import verify.certificate as certificate
+
+    monkeypatch.setattr(certificate, "STRIP_ROWS", 7)
+    striped = certify(coarse, keep_tables=True)
+    whole = coarse_certificate.tables
+    assert np.array_equal(striped.tables["inner"], whole["inner"])
+    assert np.array_equal(striped.tables["within"], whole["within"])
+    assert striped.steps_bound == coarse_certificate.steps_bound

@@ -32,6 +32,7 @@ DEFAULT_BAND = 0.03
 DEFAULT_TOLERANCE = 0.08
 BOX_SCALE = 1.5
 LARGEST_DOMAIN = 1 << 28         # lattice points; the tables then take about 5 GiB at most
+STRIP_ROWS = 512                 # rows of the band's distance transform done at once
 CHUNK = 1 << 16                  # states per golden step: small batches stay in cache
 EXAMPLES = 3                     # example starts named per group of uncertified states
 GROUPS_SHOWN = 12                # groups of uncertified states described in full
@@ -118,6 +119,7 @@ class Certificate:
     excluded_states: int
     equilibria_excluded: tuple[str, ...]
     seconds: float
+    phase_seconds: dict
     tables: dict = field(default_factory=dict, repr=False)
 
     @property
@@ -156,6 +158,7 @@ class Certificate:
             "excluded": {"radius": self.exclude_radius, "states": self.excluded_states,
                          "equilibria": list(self.equilibria_excluded)},
             "seconds": self.seconds,
+            "phase_seconds": self.phase_seconds,
         }
 
     def describe(self) -> list[str]:
@@ -257,12 +260,23 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
         raise InputError(f"the lattice domain holds {total} states, more than the {LARGEST_DOMAIN} "
                          "this certificate enumerates; use fewer fraction bits or a smaller box")
     lattice = _Lattice(domain)
+    phases: dict[str, float] = {}
+    clock = time.perf_counter()
+
+    def lap(name: str) -> None:
+        nonlocal clock
+        now = time.perf_counter()
+        phases[name] = now - clock
+        clock = now
 
     inner, within, distance_error, curve_error = _band_masks(cycle.samples, half, scale, band_int,
                                                              lattice, band, tolerance)
+    lap("bands")
     table, length = _next_state_table(program, lattice)
+    lap("next_state_table")
     invariant, reachable, path_index = _reachable_from(table, length, inner, within)
     path = _path_states(program, lattice, path_index)
+    lap("invariance")
 
     in_box = lattice.box_mask(box_int)
     excluded, equilibria_excluded = _excluded(design, lattice, in_box, half, scale, exclude_radius)
@@ -271,10 +285,12 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
     certified = considered & ~never
     exceptions = considered & never
     exception_count = int(np.count_nonzero(exceptions))
-    steps_bound = int(steps[certified].max()) if np.any(certified) else None
-    groups, group_count, fates = _group_exceptions(table, length, never, exceptions, lattice, scale, design)
-
+    steps_bound = int(steps.max(where=certified, initial=0)) if np.any(certified) else None
+    lap("attraction")
+    groups, group_count, fates = _group_exceptions(table, length, never, exceptions, lattice, scale,
+                                                   design)
     cover_radius = _cover_radius(design, lattice, exceptions, half, scale)
+    lap("exceptions")
     reasons = []
     if not invariant:
         reasons.append(f"a state reachable from the inner band leaves the tolerance band "
@@ -304,7 +320,7 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
         exclude_radius=exclude_radius,
         excluded_states=int(np.count_nonzero(in_box & excluded)),
         equilibria_excluded=tuple(equilibria_excluded),
-        seconds=time.perf_counter() - started,
+        seconds=time.perf_counter() - started, phase_seconds=phases,
         tables=({"steps": steps, "never": never, "inner": inner, "within": within, "in_box": in_box,
                  "excluded": excluded, "lattice": lattice} if keep_tables else {}))
 
@@ -422,14 +438,22 @@ def _band_masks(samples: np.ndarray, half: np.ndarray, scale: np.ndarray,
     keep = np.all((marks >= 0) & (marks < np.array(shape)[:, None]), axis=0)
     free = np.ones(shape, dtype=bool)
     free[marks[0, keep], marks[1, keep]] = False
-    near = ndimage.distance_transform_edt(free, sampling=tuple(step_norm))
-    del free
+    # in strips of rows, each with a halo wider than the tolerance: a mark farther away than the
+    # halo cannot decide whether a state of the strip is within the tolerance
+    halo = math.ceil(tolerance / step_norm[0]) + 2
     o = lo - lattice.low
-    masks = []
-    for width in (band, tolerance):
-        mask = np.zeros(lattice.shape, dtype=bool)
-        mask[o[0]:o[0] + shape[0], o[1]:o[1] + shape[1]] = near <= width
-        masks.append(mask.reshape(-1))
+    masks = [np.zeros(lattice.shape, dtype=bool) for _ in (band, tolerance)]
+    for first in range(0, shape[0], STRIP_ROWS):
+        last = min(first + STRIP_ROWS, shape[0])
+        top, bottom = max(0, first - halo), min(shape[0], last + halo)
+        window = free[top:bottom]
+        if window.all():                      # no mark near these rows: none of them is in a band
+            continue
+        near = ndimage.distance_transform_edt(window, sampling=tuple(step_norm))
+        near = near[first - top:last - top]
+        for mask, width in zip(masks, (band, tolerance), strict=True):
+            mask[o[0] + first:o[0] + last, o[1]:o[1] + shape[1]] = near <= width
+    masks = [m.reshape(-1) for m in masks]
     return masks[0], masks[1], distance_error, curve_error
 
 
@@ -447,7 +471,7 @@ def _next_state_table(program, lattice: _Lattice) -> tuple[np.ndarray, np.ndarra
         index = np.arange(start, min(start + CHUNK, size), dtype=np.int64)
         table[start:start + index.size] = lattice.index(golden.step(program, lattice.states(index)))
     table[size] = size
-    length = np.ones(size + 1, dtype=np.uint16)
+    returned, lengths = [], []
     away = np.flatnonzero(table[:size] == size)
     if away.size:
         state = golden.step(program, lattice.states(away))
@@ -456,14 +480,38 @@ def _next_state_table(program, lattice: _Lattice) -> tuple[np.ndarray, np.ndarra
             where = lattice.index(state)
             back = where < size
             table[away[back]] = where[back]
-            length[away[back]] = steps
+            returned.append(away[back])
+            lengths.append(np.full(np.count_nonzero(back), steps, dtype=np.int64))
             away, state = away[~back], state[:, ~back]
             if not away.size:
                 break
-    return table, length
+    return table, _Excursions(returned, lengths)
 
 
-def _reachable_from(table: np.ndarray, length: np.ndarray, inner: np.ndarray,
+class _Excursions:
+    """The table moves that leave the domain and come back: few, so kept sparse, sorted by state."""
+
+    def __init__(self, index: list[np.ndarray], steps: list[np.ndarray]) -> None:
+        index_all = np.concatenate(index) if index else np.zeros(0, dtype=np.int64)
+        steps_all = np.concatenate(steps) if steps else np.zeros(0, dtype=np.int64)
+        order = np.argsort(index_all)
+        self.index, self.steps = index_all[order], steps_all[order]
+        self._lookup = dict(zip(self.index.tolist(), self.steps.tolist(), strict=True))
+
+    def of(self, index: np.ndarray) -> np.ndarray:
+        """Golden steps of the table moves from ``index`` (1 for a move that stays inside)."""
+        out = np.ones(index.shape, dtype=np.int64)
+        if self.index.size:
+            at = np.minimum(np.searchsorted(self.index, index), self.index.size - 1)
+            hit = self.index[at] == index
+            out[hit] = self.steps[at[hit]]
+        return out
+
+    def one(self, index: int) -> int:
+        return self._lookup.get(index, 1)
+
+
+def _reachable_from(table: np.ndarray, length: _Excursions, inner: np.ndarray,
                     within: np.ndarray) -> tuple[bool, int, list[int]]:
     """The forward-reachable set of the inner band, to its fixed point, breadth first.
 
@@ -486,7 +534,7 @@ def _reachable_from(table: np.ndarray, length: np.ndarray, inner: np.ndarray,
         return path[::-1]
 
     while frontier.size:
-        out = frontier[length[frontier] > 1]
+        out = frontier[length.of(frontier) > 1]
         if out.size:
             return False, total, [*path_to(int(out[0])), size]
         after = table[frontier]
@@ -515,7 +563,7 @@ def _path_states(program, lattice: _Lattice, path: list[int]) -> list[tuple[int,
     return states
 
 
-def _steps_to_band(table: np.ndarray, length: np.ndarray,
+def _steps_to_band(table: np.ndarray, length: _Excursions,
                    inner: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Steps from every lattice state to the inner band, by pointer doubling with the band made
     absorbing, and the mask of states that never enter it.
@@ -530,7 +578,8 @@ def _steps_to_band(table: np.ndarray, length: np.ndarray,
     absorbing = np.append(inner, False)
     jump = table.copy()
     jump[:size][inner] = np.flatnonzero(inner).astype(np.int32)
-    count = np.where(absorbing, 0, length).astype(np.uint32)
+    count = (~absorbing).astype(np.uint32)
+    count[length.index] = np.where(absorbing[length.index], 0, length.steps)
     spare_jump = np.empty_like(jump)
     spare_count = np.empty_like(count)
     outside = int(np.count_nonzero(~absorbing[jump]))
@@ -546,12 +595,12 @@ def _steps_to_band(table: np.ndarray, length: np.ndarray,
         outside = now
     del spare_jump, spare_count
     never = ~absorbing[jump[:size]]
-    if np.any(count[:size][~never] >= COUNT_CAP):
+    if count[:size].max(where=~never, initial=0) >= COUNT_CAP:
         raise RuntimeError("a step count reached its cap; the certificate cannot state its bound")
     return count[:size], never
 
 
-def _group_exceptions(table: np.ndarray, steps: np.ndarray, never: np.ndarray,
+def _group_exceptions(table: np.ndarray, steps: _Excursions, never: np.ndarray,
                       exceptions: np.ndarray, lattice: _Lattice, scale: np.ndarray,
                       design: Design) -> tuple[list[UncertifiedGroup], int, dict]:
     """Group the box states that never enter the band by their terminal cycle (or the sink).
@@ -624,13 +673,13 @@ def _cover_radius(design: Design, lattice: _Lattice, exceptions: np.ndarray, hal
     return float(nearest.max())
 
 
-def _cycle_length(table: np.ndarray, steps: np.ndarray, start: int) -> int | None:
+def _cycle_length(table: np.ndarray, steps: _Excursions, start: int) -> int | None:
     """Golden steps around the terminal cycle through ``start`` (None if longer than the walk)."""
-    here, total = int(table[start]), int(steps[start])
+    here, total = int(table[start]), steps.one(start)
     for _move in range(LONGEST_WALK):
         if here == start:
             return total
-        total += int(steps[here])
+        total += steps.one(here)
         here = int(table[here])
     return None
 
@@ -652,14 +701,23 @@ def _excluded(design: Design, lattice: _Lattice, in_box: np.ndarray, half: np.nd
     named = []
     if radius <= 0:
         return mask, named
-    axes = [(np.arange(lattice.shape[i]) + lattice.low[i]) / scale[i] for i in range(2)]
+    grid = mask.reshape(lattice.shape)
+    box = in_box.reshape(lattice.shape)
     for eq in design.analysis.equilibria:
         state = np.asarray(eq.state, float)
-        u = ((axes[0] - state[0]) / half[0]) ** 2
-        v = ((axes[1] - state[1]) / half[1]) ** 2
-        near = (u[:, None] + v[None, :] <= radius ** 2).reshape(-1)
-        if np.any(near & in_box):
-            mask |= near
+        # the window of lattice rows and columns that can lie within the radius
+        first = np.maximum(np.floor((state - radius * half) * scale).astype(np.int64) - lattice.low, 0)
+        last = np.minimum(np.ceil((state + radius * half) * scale).astype(np.int64) - lattice.low,
+                          np.array(lattice.shape) - 1)
+        if np.any(first > last):
+            continue
+        rows = (np.arange(first[0], last[0] + 1) + lattice.low[0]) / scale[0]
+        cols = (np.arange(first[1], last[1] + 1) + lattice.low[1]) / scale[1]
+        near = (((rows - state[0]) / half[0]) ** 2)[:, None] + (((cols - state[1]) / half[1]) ** 2)
+        near = near <= radius ** 2
+        window = (slice(first[0], last[0] + 1), slice(first[1], last[1] + 1))
+        if np.any(near & box[window]):
+            grid[window] |= near
             named.append(f"the {eq.kind} at (" + ", ".join(f"{s:.6g}" for s in state) + ")")
     return mask, named
 
