@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import os
 from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from gen.discrete_cycle import (
     CycleTolerance,
@@ -79,6 +79,48 @@ class SearchResult:
     def to_json(self) -> dict:
         return {"best": self.best.to_json() if self.best else None, "binding": self.binding,
                 "candidates": [c.to_json() for c in self.candidates]}
+
+
+@dataclass(frozen=True)
+class CoefficientEffect:
+    """How much rounding the constants alone moves the stepped cycle: the float step map with the
+    constants' real values against the same map with the values the stored integers stand for."""
+
+    frequency_shift_ppm: float | None
+    amplitude_shift: float | None
+    worst_constants: tuple[str, ...]
+    warning: str | None
+
+    def to_json(self) -> dict:
+        return {"frequency_shift_ppm": self.frequency_shift_ppm,
+                "amplitude_shift": self.amplitude_shift,
+                "worst_constants": list(self.worst_constants), "warning": self.warning}
+
+
+def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -> CoefficientEffect:
+    """Measure the cycle shift caused by quantising the constants, and warn past the tolerance."""
+    tolerance = tolerance or CycleTolerance()
+    program = built.plan.program
+    represented = {c.index: c.represents for c in built.plan.constants}
+    rounded = replace(program, ops=tuple(replace(op, real=represented[i]) if i in represented
+                                          else op for i, op in enumerate(program.ops)))
+    cycle = built.analysis.cycle
+    loose = CycleTolerance(frequency_ppm=1e9, amplitude=1e9)
+    exact, quantised = (float_cycle(p, cycle.samples, built.timing.steps_per_cycle,
+                                    cycle.state_min, cycle.state_max, tolerance=loose)
+                        for p in (program, rounded))
+    ranked = sorted(built.plan.constants, key=lambda c: -abs(c.error / c.real) if c.real else 0.0)
+    worst = tuple(f"{c.note} ({c.error / c.real:+.2e})" for c in ranked[:3] if c.real and c.error)
+    if exact.period_steps is None or quantised.period_steps is None:
+        return CoefficientEffect(None, None, worst, "the float step map keeps no cycle to compare")
+    frequency = (exact.period_steps / quantised.period_steps - 1) * 1e6
+    amplitude = max(abs(q / e - 1) for q, e in zip(quantised.amplitude, exact.amplitude, strict=True))
+    warning = None
+    if abs(frequency) > tolerance.frequency_ppm or amplitude > tolerance.amplitude:
+        warning = (f"rounding the constants alone moves the cycle by {frequency:+.1f} ppm in "
+                   f"frequency and {100 * amplitude:.3f} % in amplitude, past the tolerance; the "
+                   f"largest relative errors: {', '.join(worst)}")
+    return CoefficientEffect(frequency, amplitude, worst, warning)
 
 
 def _counts(built: Design) -> tuple[int, int]:

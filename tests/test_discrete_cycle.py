@@ -22,7 +22,7 @@ from gen.integrators import INTEGRATORS
 from gen.lowering import lower_step
 from gen.model import define_model
 from gen.pipeline import design
-from gen.plan_study import search
+from gen.plan_study import coefficient_effect, search
 
 HARMONIC = define_model("harmonic", {"x": 1.0, "y": 0.0}, {"x": "y", "y": "-x"},
                         cycle_hz=1, loop_hz=100)
@@ -102,3 +102,21 @@ def test_search_picks_the_cheapest_candidate_that_keeps_the_cycle(vanderpol_desi
     cheaper = [c for c in found.candidates if c.cost < found.best.cost]
     assert cheaper and not any(c.kept for c in cheaper)
     assert found.binding.startswith(("frequency", "amplitude"))
+
+
+def test_constant_rounding_shifts_frequency_by_the_step_weights_error(vanderpol_design) -> None:
+    # Rounding the final weights h*b_i by a common relative error e rescales time by (1 + e), so
+    # the frequency moves by e to first order (direct calculation); the stage weights enter at
+    # higher order only.
+    built = design(vanderpol_design.model.with_fixed_point(word_bits=16),
+                   analysis=vanderpol_design.analysis)
+    finals = [c for c in built.plan.constants if c.note.startswith("h*1/6") or
+              c.note.startswith("h*1/3")]
+    errors = {round(c.error / c.real, 12) for c in finals}
+    assert len(errors) == 1  # h/6 and h/3 share their mantissa, so their rounding too
+    expected_ppm = errors.pop() * 1e6
+    effect = coefficient_effect(built)
+    assert effect.frequency_shift_ppm == pytest.approx(expected_ppm, rel=0.05, abs=0.2)
+    assert effect.warning is None
+    strict = coefficient_effect(built, CycleTolerance(frequency_ppm=abs(expected_ppm) / 10))
+    assert strict.warning is not None and "past the tolerance" in strict.warning

@@ -12,7 +12,7 @@ from gen.errors import InputError
 from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from gen.integrators import INTEGRATORS
 from gen.pipeline import Design, design
-from gen.plan_study import SearchResult, study_integrators
+from gen.plan_study import CoefficientEffect, SearchResult, coefficient_effect, study_integrators
 from gen.plan_study import search as run_search
 from verify.cli_support import CAUTION, add_model_arguments, model_from_args, plain_json
 
@@ -47,6 +47,8 @@ def _plan(args: argparse.Namespace, partial: dict) -> int:
                                amplitude=args.max_amplitude_error / 100.0)
     built = design(model_from_args(args))
     partial.update({"model": built.model.name, "plan": _plan_json(built)})
+    effect = coefficient_effect(built, tolerance)
+    partial["coefficients"] = effect.to_json()
     studies = study_integrators(built, tolerance)
     partial["integrators"] = [s.to_json() for s in studies]
     found: SearchResult | None = None
@@ -57,6 +59,7 @@ def _plan(args: argparse.Namespace, partial: dict) -> int:
         print(json.dumps(plain_json(partial), indent=2))
     else:
         print("\n".join(_plan_lines(built)))
+        print(_coefficient_line(effect))
         print()
         print("\n".join(_integrator_lines(built, studies, tolerance)))
         if found is not None:
@@ -80,16 +83,23 @@ def _plan_lines(built: Design) -> list[str]:
         f"fixed-point plan for {built.model.name}: {built.integrator.name}, step "
         f"{timing.step:.6g} model time units ({timing.loop_hz:g} Hz loop, {timing.cycle_hz:g} Hz "
         "cycle)",
-        f"every signal {plan.signal_format.name}: {program.word_bits}-bit words, "
-        f"{program.product_bits}-bit products, rounding {program.rounding}, overflow "
-        f"{program.overflow}; ranges over the cycle times a margin of {plan.margin:g}",
+        f"states {plan.signal_format.name}, each intermediate in its own format: "
+        f"{program.word_bits}-bit words, {program.product_bits}-bit products, rounding "
+        f"{program.rounding}, overflow {program.overflow}",
+        "formats hold each value's sure bound over the planning box ("
+        + ", ".join(f"{n} in [{lo:.4g}, {hi:.4g}]" for n, (lo, hi) in
+                    zip(program.state_names, plan.box, strict=True))
+        + f") times a margin of {plan.margin:g}",
         "",
-        f"  {'value':>5}  {'kind':<6} {'range on the cycle':>24}  {'headroom':>9}  what it is",
+        f"  {'value':>5}  {'kind':<6} {'range on the cycle':>24}  {'sure bound':>10}  "
+        f"{'format':<7} {'headroom':>9}  what it is",
     ]
     for row in plan.signal_table():
+        bound = max(abs(row["sure_min"]), abs(row["sure_max"]))
         lines.append(f"  v{row['value']:<4}  {row['kind']:<6} {row['min']:>11.5g} .. "
-                     f"{row['max']:<10.5g}  {row['headroom_bits']:>5.2f} bit  {row['note']}")
-    lines.append(f"  quantisation step of every signal: {plan.signal_format.step:.3g}")
+                     f"{row['max']:<10.5g}  {bound:>10.4g}  {row['format']:<7} "
+                     f"{row['headroom_bits']:>5.2f} bit  {row['note']}")
+    lines.append(f"  quantisation step of the states: {plan.signal_format.step:.3g}")
     lines += ["", f"  {'constant':<10} {'format':<8} {'stored':>12}  {'stands for':>22}  "
                   f"{'relative error':>14}  first use"]
     for c in plan.constants:
@@ -98,6 +108,16 @@ def _plan_lines(built: Design) -> list[str]:
                      f"{relative:>14.2e}  {c.note}")
     lines += [f"  warning: {w}" for w in plan.warnings]
     return lines
+
+
+def _coefficient_line(effect: CoefficientEffect) -> str:
+    if effect.warning:
+        return f"  warning: {effect.warning}"
+    if effect.frequency_shift_ppm is None:
+        return "  rounding of the constants: not measured (no cycle in the float step map)"
+    return (f"  rounding the constants moves the cycle by {effect.frequency_shift_ppm:+.3g} ppm in "
+            f"frequency and {100 * (effect.amplitude_shift or 0):.2g} % in amplitude (within "
+            "tolerance)")
 
 
 def _integrator_lines(built: Design, studies: list, tolerance: CycleTolerance) -> list[str]:
