@@ -219,3 +219,11 @@ def test_band_in_strips_equals_the_band_in_one_piece(coarse, coarse_certificate,
     assert np.array_equal(striped.tables["inner"], whole["inner"])
     assert np.array_equal(striped.tables["within"], whole["within"])
     assert striped.steps_bound == coarse_certificate.steps_bound
+
+
+def test_a_box_wholly_excluded_proves_nothing(coarse) -> None:
+    # Source: common practice; a claim over no states is no proof.
+    cert = certify(coarse, box={"x": (-0.05, 0.05), "y": (-0.05, 0.05)}, exclude_radius=0.5)
+    assert cert.box_states > 0 and cert.excluded_states == cert.box_states
+    assert not cert.proved
+    assert any("no state of the box is left" in reason for reason in cert.reasons)

@@ -172,7 +172,8 @@ class Certificate:
                  + ", ".join(f"{n}: {h:.6g}" for n, h in zip(names, self.half_range, strict=True))
                  + f"): inner {self.band:g} ({self.inner_band_states} states), tolerance "
                    f"{self.tolerance:g} ({self.tolerance_band_states} states); band edges are "
-                   f"exact to {self.distance_error:.2g}",
+                   f"exact to {self.distance_error:.2g} about the cycle's curve, itself known to "
+                   f"about {self.curve_error:.1g}",
                  "  box: " + ", ".join(f"{n} in [{lo:.6g}, {hi:.6g}]" for n, (lo, hi)
                                        in zip(names, self.box, strict=True))
                  + f" ({self.box_states} lattice states)",
@@ -215,6 +216,9 @@ class Certificate:
                          f"the integer program is inside the tolerance band after at most "
                          f"{self.steps_bound} steps and never leaves it, however long it runs")
         lines.append(f"  time: {self.seconds:.1f} s")
+        lines.append("  This proves a property of the integer program's arithmetic, not the safety of a "
+                     "machine: bench-test with the load disconnected and keep an independent "
+                     "hardware stop.")
         return lines
 
 
@@ -292,6 +296,9 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
     cover_radius = _cover_radius(design, lattice, exceptions, half, scale)
     lap("exceptions")
     reasons = []
+    if not np.any(considered):
+        reasons.append("no state of the box is left once the neighbourhoods are excluded; use a "
+                       "smaller exclusion radius or a larger box")
     if not invariant:
         reasons.append(f"a state reachable from the inner band leaves the tolerance band "
                        f"(first found at {path[-1]})")
@@ -307,7 +314,8 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
     return Certificate(
         model=design.model.name, state_names=names,
         state_formats=tuple(f"Q{program.word_bits - n}.{n}" for n in program.state_fraction_bits),
-        proved=invariant and exception_count == 0, reasons=tuple(reasons), band=band,
+        proved=invariant and exception_count == 0 and bool(np.any(considered)),
+        reasons=tuple(reasons), band=band,
         tolerance=tolerance, half_range=tuple(float(h) for h in half),
         distance_error=distance_error, curve_error=curve_error,
         box=tuple((float(lo), float(hi)) for lo, hi in real_box), box_integer=tuple(box_int),
