@@ -3,8 +3,6 @@ search for the cheapest word size and integrator that keep it within tolerance."
 
 from __future__ import annotations
 
-import os
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, replace
 
 from gen.discrete_cycle import (
@@ -16,6 +14,7 @@ from gen.discrete_cycle import (
     needed_loop_rate,
 )
 from gen.errors import InputError
+from gen.fan_out import fan_out
 from gen.integer_program import WORD_SIZES
 from gen.integrators import INTEGRATORS
 from gen.pipeline import Design, design
@@ -153,8 +152,7 @@ def study_integrators(base: Design, tolerance: CycleTolerance | None = None) -> 
     return studies
 
 
-def _try(job: tuple[Design, int, str, CycleTolerance]) -> Candidate:
-    base, word_bits, name, tolerance = job
+def _try(base: Design, word_bits: int, name: str, tolerance: CycleTolerance) -> Candidate:
     try:
         built = design(base.model.with_fixed_point(integrator=name, word_bits=word_bits,
                                                    fraction_bits=None),
@@ -166,18 +164,14 @@ def _try(job: tuple[Design, int, str, CycleTolerance]) -> Candidate:
                      _cycle_of(built, tolerance, integer=True))
 
 
-def search(base: Design, tolerance: CycleTolerance | None = None,
-           workers: int | None = None) -> SearchResult:
-    """Try every word size and integrator (in a local process pool), and pick the cheapest that
-    keeps the cycle within tolerance at the model's loop rate."""
+def search(base: Design, tolerance: CycleTolerance | None = None, workers: int | None = None,
+           scheduler: object | None = None) -> SearchResult:
+    """Try every word size and integrator (over a local process pool, or the Dask cluster at
+    ``scheduler``), and pick the cheapest that keeps the cycle within tolerance at the model's
+    loop rate."""
     tolerance = tolerance or CycleTolerance()
     jobs = [(base, w, name, tolerance) for w in WORD_SIZES for name in INTEGRATORS]
-    workers = workers or min(len(jobs), os.cpu_count() or 1)
-    if workers > 1:
-        with ProcessPoolExecutor(max_workers=workers) as pool:
-            candidates = list(pool.map(_try, jobs))
-    else:
-        candidates = [_try(job) for job in jobs]
+    candidates = fan_out(_try, jobs, workers, scheduler)
     candidates.sort(key=lambda c: c.cost)
     best = next((c for c in candidates if c.kept), None)
     cheaper = [c for c in candidates if best is None or c.cost < best.cost]

@@ -25,10 +25,8 @@ Method:
 from __future__ import annotations
 
 import math
-import os
 import time
 import warnings
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -37,6 +35,7 @@ from scipy.optimize import root
 
 from gen.equilibria import Equilibrium, classify, find_equilibria
 from gen.errors import InputError
+from gen.fan_out import fan_out
 from gen.hopf import LyapunovCoefficient, first_lyapunov_coefficient
 from gen.limit_cycle import find_limit_cycle
 from gen.model import Model
@@ -168,12 +167,14 @@ class Sweep:
 
 
 def sweep(model: Model, parameter: str, start: float, stop: float, *,
-          samples: int = DEFAULT_SAMPLES, workers: int = 1, follow_cycles: bool = True,
-          seconds: float = DEFAULT_SECONDS) -> Sweep:
+          samples: int = DEFAULT_SAMPLES, workers: int | None = None, follow_cycles: bool = True,
+          seconds: float = DEFAULT_SECONDS, scheduler: object | None = None) -> Sweep:
     """Sweep ``parameter`` from ``start`` to ``stop`` over ``samples`` evenly spaced values.
 
     workers : int -- processes for the independent parts (the equilibrium search at each sample,
-        and the branches of different Hopf points); 1 runs everything in this process.
+        and the branches of different Hopf points); default one per core, 1 runs everything in
+        this process.
+    scheduler : a Dask scheduler address (or client) to run those parts on a cluster instead.
     follow_cycles : bool -- follow the cycle born at each Hopf point (the slow part).
     seconds : float, s -- wall-clock budget; when it runs out the sweep stops and says so.
 
@@ -186,7 +187,8 @@ def sweep(model: Model, parameter: str, start: float, stop: float, *,
     notes: list[str] = []
 
     searched = sorted(set(range(0, samples, SEARCH_EVERY)) | {samples - 1})
-    found = _map(_equilibria_at, [(model, parameter, float(values[k])) for k in searched], workers)
+    found = fan_out(_equilibria_at, [(model, parameter, float(values[k])) for k in searched],
+                    workers, scheduler)
     states: list[list[np.ndarray]] = [[] for _ in values]
     for k, points in zip(searched, found, strict=True):
         states[k] = points
@@ -220,7 +222,7 @@ def sweep(model: Model, parameter: str, start: float, stop: float, *,
                            key=lambda v: abs(v - point.param_value))
             ahead = [v for v in ahead if min(start, stop) <= v <= max(start, stop)]
             jobs.append((model, parameter, index, point, ahead, deadline))
-        for points, note, finished in _map(_follow_branch, jobs, workers):
+        for points, note, finished in fan_out(_follow_branch, jobs, workers, scheduler):
             branch.extend(points)
             notes.extend([note] if note else [])
             complete = complete and finished
@@ -250,20 +252,10 @@ def _check_request(model: Model, parameter: str, start: float, stop: float, samp
                          "give two different values")
     if not 3 <= samples <= MAX_SAMPLES:
         raise InputError(f"the number of samples must be between 3 and {MAX_SAMPLES}, got {samples}")
-    if workers < 1:
+    if workers is not None and workers < 1:
         raise InputError(f"workers must be at least 1, got {workers}")
     if not (math.isfinite(seconds) and seconds > 0):
         raise InputError(f"the time budget must be a positive number of seconds, got {seconds}")
-
-
-def _map(function, jobs: list, workers: int) -> list:
-    """``function(*job)`` for every job, in order: in this process, or over a process pool."""
-    workers = min(workers, os.cpu_count() or 1, len(jobs))
-    if workers <= 1:
-        return [function(*job) for job in jobs]
-    with ProcessPoolExecutor(max_workers=workers) as pool:
-        futures = [pool.submit(function, *job) for job in jobs]
-        return [f.result() for f in futures]
 
 
 def _equilibria_at(model: Model, parameter: str, value: float) -> list[np.ndarray]:

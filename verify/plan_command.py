@@ -34,7 +34,10 @@ def register(verbs: Any) -> None:
     plan.add_argument("--search", action="store_true",
                       help="find the cheapest word size and integrator within the tolerances")
     plan.add_argument("--workers", type=int, default=None, metavar="N",
-                      help="processes for --search (default: one per core; 1 runs in-process)")
+                      help="local processes for --search (default: one per core; 1 runs in-process)")
+    plan.add_argument("--scheduler", metavar="ADDRESS",
+                      help="run --search on the Dask cluster whose scheduler is at ADDRESS "
+                           "(e.g. tcp://10.0.0.5:8786) instead of local processes")
     plan.set_defaults(handler=_plan)
 
 
@@ -53,7 +56,7 @@ def _plan(args: argparse.Namespace, partial: dict) -> int:
     partial["integrators"] = [s.to_json() for s in studies]
     found: SearchResult | None = None
     if args.search:
-        found = run_search(built, tolerance, workers=args.workers)
+        found = run_search(built, tolerance, workers=args.workers, scheduler=args.scheduler)
         partial["search"] = found.to_json()
     if args.json:
         print(json.dumps(plain_json(partial), indent=2))

@@ -39,8 +39,12 @@ def register(verbs: Any) -> None:
                         help="last value of the parameter")
     parser.add_argument("--samples", type=int, default=DEFAULT_SAMPLES, metavar="N",
                         help=f"evenly spaced values from A to B (default {DEFAULT_SAMPLES})")
-    parser.add_argument("--workers", type=int, default=1, metavar="N",
-                        help="processes for independent parts (default 1: all in this process)")
+    parser.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="local processes for the independent parts (default: one per core; "
+                             "1 runs all in this process)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="run the independent parts on the Dask cluster whose scheduler is at "
+                             "ADDRESS (e.g. tcp://10.0.0.5:8786) instead of local processes")
     parser.add_argument("--seconds", type=float, default=DEFAULT_SECONDS, metavar="S",
                         help=f"time budget of the whole sweep (default {DEFAULT_SECONDS:g} s)")
     parser.add_argument("--no-cycles", action="store_true",
@@ -52,7 +56,8 @@ def _sweep(args: argparse.Namespace, partial: dict) -> int:
     model = model_from_args(args)
     partial.update({"model": model.name, "parameter": args.param})
     result = sweep(model, args.param, args.start, args.stop, samples=args.samples,
-                   workers=args.workers, follow_cycles=not args.no_cycles, seconds=args.seconds)
+                   workers=args.workers, follow_cycles=not args.no_cycles, seconds=args.seconds,
+                   scheduler=args.scheduler)
     if args.json:
         print(json.dumps(plain_json(result.to_json()), indent=2))
     else:
