@@ -17,6 +17,12 @@ from gen.model import Model
 
 def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProgram:
     """One integrator step of ``model`` with step size ``step`` (model time units)."""
+    angles = [s.name for s in model.states if s.angle]
+    if angles:
+        raise UnsupportedError(
+            f"model '{model.name}': the angle states {', '.join(angles)} have no fixed-point form "
+            "yet (an angle grows without bound unless it is kept as a wrapping word of turns); "
+            "orbitfix can analyse this model with 'check' but cannot generate its C")
     builder = _Builder(model)
     names = model.state_names
     start = [builder.add(Op("state", state=i, note=name)) for i, name in enumerate(names)]

@@ -187,3 +187,13 @@ def test_plan_json_has_signals_constants_and_integrators(capsys) -> None:
 def test_plan_refuses_a_non_positive_tolerance(capsys) -> None:
     code, _, err = run(capsys, "plan", "vanderpol", "--max-amplitude-error", "0")
     assert code == 2 and "positive" in err
+
+
+@pytest.mark.parametrize("verb", ["gen", "verify"])
+def test_models_with_angle_states_are_refused_for_fixed_point(capsys, tmp_path, verb) -> None:
+    # Regression: an unwrapped phase grew past its Q format after a few cycles.
+    argv = [verb, "phase_amplitude"] + (["-o", str(tmp_path)] if verb == "gen" else [])
+    code, _, err = run(capsys, *argv)
+    assert code == 2
+    assert "angle states theta have no fixed-point form" in err
+    assert not (tmp_path / "phase_amplitude.c").exists()
