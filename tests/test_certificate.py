@@ -209,7 +209,7 @@ def test_refusals_name_what_to_do(vanderpol_design, coarse) -> None:
 
 
 def test_band_in_strips_equals_the_band_in_one_piece(coarse, coarse_certificate, monkeypatch) -> None:
-    # Source: scipy's distance transform over the whole region at once (strips of 512 rows cover
+    # Source: scipy's distance transform over the whole region at once (strips of 2048 rows cover
     # this coarse lattice in one piece), against strips of 7 rows with their halos.
     import verify.certificate as certificate
 

@@ -32,12 +32,12 @@ DEFAULT_BAND = 0.03
 DEFAULT_TOLERANCE = 0.08
 BOX_SCALE = 1.5
 LARGEST_DOMAIN = 1 << 28         # lattice points; the tables then take about 5 GiB at most
-STRIP_ROWS = 512                 # rows of the band's distance transform done at once
+STRIP_ROWS = 2048                # rows of the band's distance transform done at once
 CHUNK = 1 << 16                  # states per golden step: small batches stay in cache
 EXAMPLES = 3                     # example starts named per group of uncertified states
 GROUPS_SHOWN = 12                # groups of uncertified states described in full
 LONGEST_WALK = 200_000           # steps walked to measure one terminal cycle
-COUNT_CAP = np.uint32(2**31)      # step counts saturate here (only states that never arrive)
+COUNT_CAP = np.uint32(2**31 - 1)     # step counts saturate here (only states that never arrive)
 LONGEST_EXCURSION = 4096         # steps followed outside the domain before calling it gone
 
 
@@ -285,13 +285,14 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
     in_box = lattice.box_mask(box_int)
     excluded, equilibria_excluded = _excluded(design, lattice, in_box, half, scale, exclude_radius)
     steps, never = _steps_to_band(table, length, inner)
+    del table                                   # overwritten by the doubling
     considered = in_box & ~excluded
     certified = considered & ~never
     exceptions = considered & never
     exception_count = int(np.count_nonzero(exceptions))
     steps_bound = int(steps.max(where=certified, initial=0)) if np.any(certified) else None
     lap("attraction")
-    groups, group_count, fates = _group_exceptions(table, length, never, exceptions, lattice, scale,
+    groups, group_count, fates = _group_exceptions(program, length, never, exceptions, lattice, scale,
                                                    design)
     cover_radius = _cover_radius(design, lattice, exceptions, half, scale)
     lap("exceptions")
@@ -465,8 +466,8 @@ def _band_masks(samples: np.ndarray, half: np.ndarray, scale: np.ndarray,
     return masks[0], masks[1], distance_error, curve_error
 
 
-def _next_state_table(program, lattice: _Lattice) -> tuple[np.ndarray, np.ndarray]:
-    """One golden step from every lattice state, as a lattice index, and its length in steps.
+def _next_state_table(program, lattice: _Lattice) -> tuple[np.ndarray, _Excursions]:
+    """One golden step from every lattice state, as a lattice index, with the excursions.
 
     A step that leaves the domain is followed outside it with the golden step, up to
     ``LONGEST_EXCURSION`` steps, to where it comes back: the table then holds the state of return
@@ -479,21 +480,45 @@ def _next_state_table(program, lattice: _Lattice) -> tuple[np.ndarray, np.ndarra
         index = np.arange(start, min(start + CHUNK, size), dtype=np.int64)
         table[start:start + index.size] = lattice.index(golden.step(program, lattice.states(index)))
     table[size] = size
-    returned, lengths = [], []
     away = np.flatnonzero(table[:size] == size)
-    if away.size:
-        state = golden.step(program, lattice.states(away))
-        for steps in range(2, LONGEST_EXCURSION + 1):
-            state = golden.step(program, state)
-            where = lattice.index(state)
-            back = where < size
-            table[away[back]] = where[back]
-            returned.append(away[back])
-            lengths.append(np.full(np.count_nonzero(back), steps, dtype=np.int64))
-            away, state = away[~back], state[:, ~back]
-            if not away.size:
-                break
+    returned, lengths = _follow_outside(program, lattice, away, table, away)
     return table, _Excursions(returned, lengths)
+
+
+def _follow_outside(program, lattice: _Lattice, away: np.ndarray, out: np.ndarray,
+                    positions: np.ndarray) -> tuple[list[np.ndarray], list[np.ndarray]]:
+    """Follow the lattice states ``away`` (whose first step leaves the domain) until they come
+    back, writing each state of return to ``out[positions]``; returns who came back and after how
+    many steps."""
+    returned: list[np.ndarray] = []
+    lengths: list[np.ndarray] = []
+    if not away.size:
+        return returned, lengths
+    state = golden.step(program, lattice.states(away))
+    for steps in range(2, LONGEST_EXCURSION + 1):
+        state = golden.step(program, state)
+        where = lattice.index(state)
+        back = where < lattice.size
+        out[positions[back]] = where[back]
+        returned.append(away[back])
+        lengths.append(np.full(np.count_nonzero(back), steps, dtype=np.int64))
+        away, positions, state = away[~back], positions[~back], state[:, ~back]
+        if not away.size:
+            break
+    return returned, lengths
+
+
+def _moves_of(program, lattice: _Lattice, members: np.ndarray) -> np.ndarray:
+    """The table's entries for the sorted lattice indices ``members`` (the sink included),
+    computed again with the golden step, so that the full table need not outlive the doubling."""
+    inside = members[members < lattice.size]
+    moves = np.full(members.size, lattice.size, dtype=np.int64)
+    for start in range(0, inside.size, CHUNK):
+        part = inside[start:start + CHUNK]
+        moves[start:start + part.size] = lattice.index(golden.step(program, lattice.states(part)))
+    away = np.flatnonzero(moves[:inside.size] == lattice.size)
+    _follow_outside(program, lattice, inside[away], moves, away)
+    return moves
 
 
 class _Excursions:
@@ -584,7 +609,7 @@ def _steps_to_band(table: np.ndarray, length: _Excursions,
     """
     size = inner.size
     absorbing = np.append(inner, False)
-    jump = table.copy()
+    jump = table                               # consumed: the caller no longer needs it
     jump[:size][inner] = np.flatnonzero(inner).astype(np.int32)
     count = (~absorbing).astype(np.uint32)
     count[length.index] = np.where(absorbing[length.index], 0, length.steps)
@@ -593,8 +618,8 @@ def _steps_to_band(table: np.ndarray, length: _Excursions,
     outside = int(np.count_nonzero(~absorbing[jump]))
     for _level in range(40):
         np.take(count, jump, out=spare_count)
-        np.minimum(spare_count, COUNT_CAP - count, out=spare_count)   # saturate, never wrap
-        count += spare_count
+        count += spare_count                   # both at most the cap, so the sum cannot wrap
+        np.minimum(count, COUNT_CAP, out=count)
         np.take(jump, jump, out=spare_jump)
         jump, spare_jump = spare_jump, jump
         now = int(np.count_nonzero(~absorbing[jump]))
@@ -608,7 +633,7 @@ def _steps_to_band(table: np.ndarray, length: _Excursions,
     return count[:size], never
 
 
-def _group_exceptions(table: np.ndarray, steps: _Excursions, never: np.ndarray,
+def _group_exceptions(program, steps: _Excursions, never: np.ndarray,
                       exceptions: np.ndarray, lattice: _Lattice, scale: np.ndarray,
                       design: Design) -> tuple[list[UncertifiedGroup], int, dict]:
     """Group the box states that never enter the band by their terminal cycle (or the sink).
@@ -620,7 +645,7 @@ def _group_exceptions(table: np.ndarray, steps: _Excursions, never: np.ndarray,
     if not np.any(exceptions):
         return [], 0, {}
     members = np.append(np.flatnonzero(never), lattice.size).astype(np.int64)
-    local = np.searchsorted(members, table[members]).astype(np.int64)
+    local = np.searchsorted(members, _moves_of(program, lattice, members)).astype(np.int64)
     least = np.arange(members.size, dtype=np.int64)
     jump = local
     reach = 1
@@ -635,7 +660,7 @@ def _group_exceptions(table: np.ndarray, steps: _Excursions, never: np.ndarray,
     resting = np.zeros(ends.size, dtype=bool)         # fixed points at an equilibrium come first
     inside = end_index < lattice.size
     fixed = np.zeros(ends.size, dtype=bool)
-    fixed[inside] = table[end_index[inside]] == end_index[inside]
+    fixed[inside] = local[ends[inside]] == ends[inside]
     if np.any(fixed):
         at = lattice.states(end_index[fixed]) / scale[:, None]
         for eq in design.analysis.equilibria:
@@ -657,7 +682,7 @@ def _group_exceptions(table: np.ndarray, steps: _Excursions, never: np.ndarray,
             groups.append(UncertifiedGroup("leaves the domain", int(counts[g]), None, None, None,
                                            _ints(examples), _reals(examples, scale)))
             continue
-        length = _cycle_length(table, steps, end)
+        length = _cycle_length(local, members, steps, int(ends[g]))
         state = lattice.states(np.array([end]))[:, 0]
         fate = "fixed point" if length == 1 else "cycle"
         groups.append(UncertifiedGroup(fate, int(counts[g]), length, tuple(int(v) for v in state),
@@ -681,14 +706,16 @@ def _cover_radius(design: Design, lattice: _Lattice, exceptions: np.ndarray, hal
     return float(nearest.max())
 
 
-def _cycle_length(table: np.ndarray, steps: _Excursions, start: int) -> int | None:
-    """Golden steps around the terminal cycle through ``start`` (None if longer than the walk)."""
-    here, total = int(table[start]), steps.one(start)
+def _cycle_length(local: np.ndarray, members: np.ndarray, steps: _Excursions,
+                  start: int) -> int | None:
+    """Golden steps around the terminal cycle through member ``start`` (None if longer than the
+    walk); ``local`` is the table on the members, in member positions."""
+    here, total = int(local[start]), steps.one(int(members[start]))
     for _move in range(LONGEST_WALK):
         if here == start:
             return total
-        total += steps.one(here)
-        here = int(table[here])
+        total += steps.one(int(members[here]))
+        here = int(local[here])
     return None
 
 
