@@ -63,6 +63,9 @@ class CNames:
     def step_traced(self) -> str:
         return f"{self.prefix}_step_traced"
 
+    def setter(self, parameter: str) -> str:
+        return f"{self.prefix}_set_{identifier(parameter)}"
+
     def macro(self, name: str) -> str:
         return f"{self.macro_prefix}_{identifier(name).upper()}"
 

@@ -85,13 +85,18 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
         "word_type": f"int{program.word_bits}_t",
         "wide_type": f"int{program.product_bits}_t",
         "word_bits": program.word_bits,
-        "states": [
-            {"field": names.field(s.name), "meaning": comment_text(s.meaning or s.name),
-             "initial": int_literal(v, program.word_bits), "initial_real": s.initial}
-            for s, v in zip(model.states, plan.initial_state, strict=True)
+        "states": _state_fields(model, plan, names),
+        "setters": [
+            {"name": names.setter(p.name), "target": names.field(f"{p.name}_target"),
+             "parameter": names.field(p.name), "low": p.low, "high": p.high, "rate": p.rate,
+             "format": f"Q{program.word_bits - f}.{f}", "fraction_bits": f,
+             "fraction_macro": names.macro(f"{p.name}_fraction_bits"),
+             "meaning": comment_text(p.meaning or p.name)}
+            for p, f in zip(model.runtime_parameters,
+                            program.state_fraction_bits[program.model_state_count::2], strict=True)
         ],
         "constants": constants,
-        "values": [_value_line(i, op, names, model, constant_of, program.word_bits)
+        "values": [_value_line(i, op, names, program.state_names, constant_of, program.word_bits)
                    for i, op in enumerate(program.ops)],
         "next_state": [{"field": names.field(n), "value": f"v{i}"}
                        for n, i in zip(program.state_names, program.next_state, strict=True)],
@@ -107,13 +112,32 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
     }
 
 
-def render_host_harness(model: Model, word_bits: int) -> str:
+def render_host_harness(model: Model, program: IntegerProgram) -> str:
     """The verification-only C that drives the firmware functions in bulk from the host."""
     names = CNames(model.name)
+    word_bits = program.word_bits
     return environment().get_template("host_harness.c.j2").render(
-        names=names, fields=[names.field(n) for n in model.state_names],
-        count=model.dimension, version=__version__, word_type=f"int{word_bits}_t",
+        names=names, fields=[names.field(n) for n in program.state_names],
+        count=len(program.state_names), version=__version__, word_type=f"int{word_bits}_t",
         declarations=HARNESS_DECLARATIONS)
+
+
+def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dict]:
+    """The state struct's fields: the model's states, then each runtime parameter's current
+    value and target."""
+    program = plan.program
+    meanings = [s.meaning or s.name for s in model.states]
+    reals = [s.initial for s in model.states]
+    for p in model.runtime_parameters:
+        meanings += [f"runtime parameter {p.name} ({p.meaning or 'set at run time'}): its value "
+                     "now, moved toward its target by the step",
+                     f"target for {p.name}; write it with {names.setter(p.name)}()"]
+        reals += [p.value, p.value]
+    return [{"field": names.field(name), "meaning": comment_text(meaning),
+             "initial": int_literal(v, program.word_bits), "initial_real": real,
+             "format": f"Q{program.word_bits - f}.{f}"}
+            for name, meaning, v, real, f in zip(program.state_names, meanings, plan.initial_state,
+                                                 reals, program.state_fraction_bits, strict=True)]
 
 
 def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
@@ -137,12 +161,12 @@ def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
     return constants, constant_of
 
 
-def _value_line(index: int, op: Op, names: CNames, model: Model,
+def _value_line(index: int, op: Op, names: CNames, program_states: tuple[str, ...],
                 constant_of: dict[int, str], word_bits: int) -> dict:
     a = [f"v{i}" for i in op.args]
     kind = op.kind
     if kind == "state":
-        expression = f"state->{names.field(model.state_names[op.state])}"
+        expression = f"state->{names.field(program_states[op.state])}"
     elif kind == "const":
         expression = constant_of[index]
     elif kind in ("add", "sub", "min", "max"):

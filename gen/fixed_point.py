@@ -16,6 +16,7 @@ import numpy as np
 from gen.errors import InputError
 from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
 from gen.lowering import evaluate_real
+from gen.model import Parameter
 from gen.ranges import interval_ranges, planning_box
 
 
@@ -162,7 +163,8 @@ def integer_bits_for(peak: float) -> int:
 def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.ndarray,
                      margin: float = 2.0, fraction_bits: int | None = None,
                      word_bits: int = 32, rounding: str = "half-up",
-                     overflow: str = "saturate", box_scale: float = 1.5) -> FixedPointPlan:
+                     overflow: str = "saturate", box_scale: float = 1.5,
+                     runtime: tuple[Parameter, ...] = ()) -> FixedPointPlan:
     """Plan formats for ``program``.
 
     samples : ndarray, shape (n_states, k) -- states on the cycle.
@@ -171,22 +173,29 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     fraction_bits : int -- the states' format, if the user sets it; else chosen from the bounds.
     word_bits, rounding, overflow -- the integer semantics (see ``gen.integer_program``).
     box_scale : float -- the planning box is the cycle's bounding box widened by this factor.
+    runtime : the model's runtime parameters, in the program's order: each holds its whole
+        [low, high] range, and its current value and target share one format.
     """
     _check_choice("word size", word_bits, WORD_SIZES)
     _check_choice("rounding", rounding, ROUNDINGS)
     _check_choice("overflow mode", overflow, OVERFLOWS)
     if margin < 1:
         raise InputError(f"the range margin must be at least 1, got {margin}")
+    n = program.model_state_count
+    nominal = [v for p in runtime for v in (p.value, p.value)]
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
+    points = np.vstack([points, np.repeat(np.reshape(nominal, (-1, 1)), points.shape[1], axis=1)])
     met = tuple((float(np.min(v)), float(np.max(v))) for v in evaluate_real(program, points))
     low, high = planning_box(samples, initial, box_scale)
+    low = np.concatenate([low, [v for p in runtime for v in (p.low, p.low)]])
+    high = np.concatenate([high, [v for p in runtime for v in (p.high, p.high)]])
     sure = interval_ranges(program, low, high)
     peaks = [max(abs(a), abs(b)) for a, b in sure]
     if not all(math.isfinite(p) for p in peaks):
         raise InputError("a signal of the step is not finite over the planning box; the step size "
                          "is too large for this model or the model has no bounded cycle")
-    states = [i for i, op in enumerate(program.ops) if op.kind == "state"]
-    state_peak = max(peaks[i] for i in [*states, *program.next_state])
+    states = [i for i, op in enumerate(program.ops) if op.kind == "state" and op.state < n]
+    state_peak = max(peaks[i] for i in [*states, *program.next_state[:n]])
     warnings: list[str] = []
     needed = integer_bits_for(state_peak * margin)
     if fraction_bits is None:
@@ -209,12 +218,15 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
             warnings.append(f"format {fmt.name} leaves less headroom than the margin of {margin}: "
                             f"the states reach {state_peak:.6g} of {fmt.largest:.6g}")
     state_format = QFormat(word_bits, fraction_bits)
-    ops, constants = _fill(program, state_format, [p * margin for p in peaks])
-    initial_ints = tuple(_state_integer(x, state_format, name) for x, name in
-                         zip(initial, program.state_names, strict=True))
+    formats = [fraction_bits] * n
+    for p in runtime:  # a runtime parameter's value and target share a format holding its range
+        bits = word_bits - integer_bits_for(max(abs(p.low), abs(p.high)) * margin)
+        formats += [bits, bits]
+    ops, constants = _fill(program, formats, [p * margin for p in peaks], word_bits)
+    initial_ints = tuple(_state_integer(x, QFormat(word_bits, f), name) for x, f, name in
+                         zip([*initial, *nominal], formats, program.state_names, strict=True))
     planned = replace(program, ops=tuple(ops), word_bits=word_bits, product_bits=2 * word_bits,
-                      rounding=rounding, overflow=overflow,
-                      state_fraction_bits=tuple(fraction_bits for _ in program.state_names))
+                      rounding=rounding, overflow=overflow, state_fraction_bits=tuple(formats))
     state_met = [max(abs(met[i][0]), abs(met[i][1])) for i in states]
     worst = states[int(np.argmax(state_met))]
     return FixedPointPlan(signal_format=state_format, largest_signal=max(state_met),
@@ -231,20 +243,21 @@ def _check_choice(what: str, value: object, choices: tuple) -> None:
                          f"{', '.join(str(c) for c in choices)})")
 
 
-def _fill(program: IntegerProgram, state_format: QFormat,
-          bounds: list[float]) -> tuple[list, list[ConstantReport]]:
-    """Give every value its format and every operation its alignments and shift."""
-    w = state_format.word_bits
+def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float],
+          w: int) -> tuple[list, list[ConstantReport]]:
+    """Give every value its format and every operation its alignments and shift (words of w
+    bits)."""
     ops = program.ops
-    forced = set(program.next_state)
+    forced = {value: state_formats[i] for i, value in enumerate(program.next_state)}
+    forced.update({i: state_formats[op.state] for i, op in enumerate(ops) if op.kind == "state"})
     constant_formats = {i: _constant_format(op.real, w, op.note) for i, op in enumerate(ops)
                         if op.kind in ("const", "scale")}
     bits: list[int] = []
     for index, op in enumerate(ops):
         natural = w - integer_bits_for(bounds[index])
         f_args = [bits[i] for i in op.args]
-        if op.kind == "state" or index in forced:
-            f = state_format.fraction_bits
+        if index in forced:
+            f = forced[index]
         elif op.kind == "const":
             f = min(constant_formats[index].fraction_bits, natural)
         elif op.kind in ("add", "sub", "min", "max"):

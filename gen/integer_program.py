@@ -78,7 +78,9 @@ class Op:
 class IntegerProgram:
     """A step function x[k+1] = F(x[k]) as straight-line integer operations.
 
-    ``next_state[i]`` is the index of the value that becomes state ``i`` after the step.
+    ``next_state[i]`` is the index of the value that becomes state ``i`` after the step. The first
+    ``model_states`` states are the model's (0: all of them); each runtime parameter follows as
+    two more states, its current value and its target (which the step leaves as it is).
     """
 
     name: str
@@ -90,6 +92,7 @@ class IntegerProgram:
     rounding: str = "half-up"
     overflow: str = "saturate"
     state_fraction_bits: tuple[int, ...] = field(default=())
+    model_states: int = 0
 
     def __post_init__(self) -> None:
         if self.word_bits not in WORD_SIZES:
@@ -104,6 +107,10 @@ class IntegerProgram:
         loads = [op.state for op in self.ops if op.kind == "state"]
         if loads != list(range(len(self.state_names))):
             raise ValueError("the program must load every state once, in order, first")
+
+    @property
+    def model_state_count(self) -> int:
+        return self.model_states or len(self.state_names)
 
     @property
     def word_min(self) -> int:
@@ -131,6 +138,7 @@ class IntegerProgram:
             "overflow": self.overflow,
             "state_fraction_bits": list(self.state_fraction_bits),
             "next_state": list(self.next_state),
+            "model_states": self.model_state_count,
             "ops": [op.to_json() for op in self.ops],
         }
 

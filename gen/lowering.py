@@ -12,7 +12,7 @@ import sympy
 from gen.errors import UnsupportedError
 from gen.integer_program import IntegerProgram, Op
 from gen.integrators import Integrator
-from gen.model import Model
+from gen.model import Model, Parameter
 
 
 def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProgram:
@@ -26,6 +26,14 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
     builder = _Builder(model)
     names = model.state_names
     start = [builder.add(Op("state", state=i, note=name)) for i, name in enumerate(names)]
+    runtime = model.runtime_parameters
+    current, target = [], []
+    for k, p in enumerate(runtime):
+        current.append(builder.add(Op("state", state=len(names) + 2 * k, note=p.name)))
+        target.append(builder.add(Op("state", state=len(names) + 2 * k + 1,
+                                     note=f"{p.name} target")))
+    builder.parameters = dict(zip((sympy.Symbol(p.name, real=True) for p in runtime), current,
+                                  strict=True))
     if integrator.sweep:
         finish = list(start)
         for i, name in enumerate(names):
@@ -46,8 +54,13 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
         finish = [builder.combine(start[i], _terms(step, integrator.b, slopes, i, names[i]),
                                   f"next {names[i]}")
                   for i in range(len(names))]
-    return IntegerProgram(name=model.name, state_names=names, ops=tuple(builder.ops),
-                          next_state=tuple(finish))
+    ramps = [builder.ramp(p, cur, tgt, model.rhythm.loop_hz)
+             for p, cur, tgt in zip(runtime, current, target, strict=True)]
+    extra_names = tuple(n for p in runtime for n in (p.name, f"{p.name}_target"))
+    extra_next = tuple(v for ramp, tgt in zip(ramps, target, strict=True) for v in (ramp, tgt))
+    return IntegerProgram(name=model.name, state_names=names + extra_names,
+                          ops=tuple(builder.ops), next_state=tuple(finish) + extra_next,
+                          model_states=len(names))
 
 
 def _terms(step: float, weights: tuple[Fraction, ...], slopes: list[list[int]], state: int,
@@ -65,7 +78,8 @@ class _Builder:
         self.ops: list[Op] = []
         self.seen: dict[tuple, int] = {}
         self.symbols = model.state_symbols
-        self.equations = model.resolved_equations
+        self.equations = model.fixed_equations
+        self.parameters: dict[sympy.Symbol, int] = {}
 
     def add(self, op: Op) -> int:
         key = (op.kind, op.args, op.state, op.real)
@@ -95,9 +109,27 @@ class _Builder:
             total = self.add(Op(kind, (total, self.scaled(value, abs(weight), label)), note=note))
         return total
 
+    def ramp(self, parameter: Parameter, current: int, target: int, loop_hz: float) -> int:
+        """The parameter's value after one step: toward its target (held in [low, high]) by at
+        most rate / loop_hz, or all the way when it has no rate."""
+        name = parameter.name
+        held = self.add(Op("max", (target, self.constant(Fraction(parameter.low), f"{name} low")),
+                           note=f"{name} target, at least its low limit"))
+        held = self.add(Op("min", (held, self.constant(Fraction(parameter.high), f"{name} high")),
+                           note=f"{name} target, held in its range"))
+        if parameter.rate is None:
+            return held
+        step = Fraction(parameter.rate) / Fraction(loop_hz)
+        change = self.add(Op("sub", (held, current), note=f"{name}: distance to its target"))
+        change = self.add(Op("max", (change, self.constant(-step, f"{name} largest fall per step")),
+                             note=f"{name}: change, limited"))
+        change = self.add(Op("min", (change, self.constant(step, f"{name} largest rise per step")),
+                             note=f"{name}: change, limited"))
+        return self.add(Op("add", (current, change), note=f"next {name}"))
+
     def slope(self, point: list[int], stage: int, only: int | None = None) -> list[int]:
         """Values of f at the stage point, one per state (or of state ``only`` alone)."""
-        table = dict(zip(self.symbols, point, strict=True))
+        table = {**self.parameters, **dict(zip(self.symbols, point, strict=True))}
         memo: dict[sympy.Expr, int] = {}
         chosen = range(len(self.equations)) if only is None else [only]
         return [self.expression(self.equations[i], table, memo, stage, self.model.state_names[i])

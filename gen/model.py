@@ -37,11 +37,21 @@ class State:
 
 @dataclass(frozen=True)
 class Parameter:
-    """One named constant of the equations, with its value."""
+    """One named constant of the equations, with its value.
+
+    A runtime parameter (``runtime`` True) is one the firmware may change between steps, within
+    [low, high]: it becomes a field of the generated state with a setter, and the plan must hold
+    over the whole range. rate : float, units per second -- the fastest it may move toward a
+    new setting (a ramp, so the output does not jump); None moves it in one step.
+    """
 
     name: str
     value: float
     meaning: str = ""
+    runtime: bool = False
+    low: float | None = None
+    high: float | None = None
+    rate: float | None = None
 
 
 @dataclass(frozen=True)
@@ -89,6 +99,7 @@ class Model:
         if len(self.equation_text) != len(self.states):
             raise InputError(f"model '{self.name}': {len(self.states)} states but "
                              f"{len(self.equation_text)} equations; give one equation per state")
+        _check_runtime(self)
         self.equations  # noqa: B018 -- parse now so a broken equation fails at construction
 
     # -- symbols and expressions ---------------------------------------------------------------
@@ -132,6 +143,19 @@ class Model:
         """Right-hand sides with every parameter replaced by its value."""
         values = {sym: _number(p.value) for sym, p in zip(self.parameter_symbols,
                                                            self.parameters, strict=True)}
+        return tuple(eq.xreplace(values) for eq in self.equations)
+
+    @property
+    def runtime_parameters(self) -> tuple[Parameter, ...]:
+        return tuple(p for p in self.parameters if p.runtime)
+
+    @property
+    def fixed_equations(self) -> tuple[sympy.Expr, ...]:
+        """Right-hand sides with every parameter but the runtime ones replaced by its value (the
+        runtime ones stay symbols: the firmware sets them)."""
+        values = {sym: _number(p.value) for sym, p in zip(self.parameter_symbols,
+                                                           self.parameters, strict=True)
+                  if not p.runtime}
         return tuple(eq.xreplace(values) for eq in self.equations)
 
     @property
@@ -182,6 +206,10 @@ class Model:
                                  f"(its parameters are: {choices})")
         parameters = tuple(replace(p, value=float(overrides.get(p.name, p.value)))
                            for p in self.parameters)
+        for p in parameters:
+            if p.runtime and not p.low <= p.value <= p.high:
+                raise InputError(f"model '{self.name}': {p.name} = {p.value:g} lies outside its "
+                                 f"runtime range [{p.low:g}, {p.high:g}]")
         return replace(self, parameters=parameters)
 
     def with_fixed_point(self, **changes: object) -> Model:
@@ -195,7 +223,9 @@ class Model:
             "states": [{"name": s.name, "initial": s.initial, "meaning": s.meaning,
                         **({"angle": True} if s.angle else {})}
                        for s in self.states],
-            "parameters": [{"name": p.name, "value": p.value, "meaning": p.meaning}
+            "parameters": [{"name": p.name, "value": p.value, "meaning": p.meaning,
+                            **({"runtime": {"min": p.low, "max": p.high, "rate": p.rate}}
+                               if p.runtime else {})}
                            for p in self.parameters],
             "equations": {s.name: t for s, t in zip(self.states, self.equation_text, strict=True)},
             "rhythm": {"cycle_hz": self.rhythm.cycle_hz, "loop_hz": self.rhythm.loop_hz},
@@ -225,6 +255,7 @@ def define_model(
     fraction_bits: int | None = None,
     integrator: str = "rk4",
     angles: tuple[str, ...] | list[str] = (),
+    runtime: Mapping[str, Mapping[str, float]] | None = None,
 ) -> Model:
     """Build a model in Python: ``define_model("osc", {"x": 1, "y": 0}, {"x": "y", "y": "-x"}, ...)``.
 
@@ -243,11 +274,38 @@ def define_model(
         name=name,
         description=description,
         states=tuple(State(n, float(v), angle=n in angles) for n, v in states.items()),
-        parameters=tuple(Parameter(n, float(v)) for n, v in (parameters or {}).items()),
+        parameters=tuple(_parameter(n, float(v), (runtime or {}).get(n))
+                         for n, v in (parameters or {}).items()),
         equation_text=tuple(equations[n] for n in states),
         rhythm=Rhythm(float(cycle_hz), float(loop_hz)),
         fixed_point=FixedPointRequest(fraction_bits=fraction_bits, integrator=integrator),
     )
+
+
+def _parameter(name: str, value: float, runtime: Mapping[str, float] | None) -> Parameter:
+    if runtime is None:
+        return Parameter(name, value)
+    unknown = set(runtime) - {"min", "max", "rate"}
+    if unknown or "min" not in runtime or "max" not in runtime:
+        raise InputError(f"runtime parameter '{name}': give min and max (and optionally rate), "
+                         f"e.g. {{'min': 0.5, 'max': 2.0, 'rate': 0.5}}")
+    rate = runtime.get("rate")
+    return Parameter(name, value, runtime=True, low=float(runtime["min"]),
+                     high=float(runtime["max"]), rate=None if rate is None else float(rate))
+
+
+def _check_runtime(model: Model) -> None:
+    for p in model.runtime_parameters:
+        finite = all(v is not None and math.isfinite(v) for v in (p.low, p.high))
+        if not finite or not p.low < p.high:
+            raise InputError(f"model '{model.name}': runtime parameter '{p.name}' needs finite "
+                             f"min < max, got [{p.low}, {p.high}]")
+        if not p.low <= p.value <= p.high:
+            raise InputError(f"model '{model.name}': {p.name} = {p.value:g} lies outside its "
+                             f"runtime range [{p.low:g}, {p.high:g}]")
+        if p.rate is not None and not (math.isfinite(p.rate) and p.rate > 0):
+            raise InputError(f"model '{model.name}': the rate of '{p.name}' must be a positive "
+                             f"number of units per second, got {p.rate}")
 
 
 def _check_names(model: Model) -> None:

@@ -30,12 +30,15 @@ MODELS_FOLDER = Path(__file__).parent / "models"
 
 TOP_KEYS = {"name", "description", "states", "parameters", "equations", "rhythm", "fixed_point"}
 STATE_KEYS = {"initial", "meaning", "angle"}
-PARAMETER_KEYS = {"value", "meaning"}
+PARAMETER_KEYS = {"value", "meaning", "runtime", "min", "max", "rate"}
 RHYTHM_KEYS = {"cycle_hz", "loop_hz"}
-FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator"}
+FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator", "word_bits", "rounding", "overflow"}
 NETWORK_TOP_KEYS = {"name", "description", "network", "parameters", "rhythm", "fixed_point"}
 NETWORK_KEYS = {"oscillator", "pattern", "count", "waves", "lags", "links", "labels", "coupling",
                 "coupled_state"}
+
+RUNTIME_HINT = ("{name} = {{ value = 1.0, runtime = true, min = 0.5, max = 2.0, rate = 0.25 }} "
+                "(rate: the fastest change per second; leave it out to change in one step)")
 
 NETWORK_HINT = (
     "a network file has: name, description, [network] oscillator = \"hopf\" or \"phase_amplitude\" "
@@ -184,6 +187,26 @@ class _Reader:
             result.append((name, self.number(value, section, name, f"'{name}'"), str(meaning)))
         return result
 
+    def parameter(self, data: dict, name: str, value: float, meaning: str) -> Parameter:
+        """A parameter, with its runtime range when it has ``runtime = true``."""
+        entry = data["parameters"][name]
+        if not isinstance(entry, dict) or not entry.get("runtime", False):
+            if isinstance(entry, dict) and any(k in entry for k in ("min", "max", "rate")):
+                raise self.error(self.line_of("parameters", name),
+                                 f"'{name}' has min, max or rate but is not runtime = true",
+                                 RUNTIME_HINT.format(name=name))
+            return Parameter(name, value, meaning)
+        if entry["runtime"] is not True or "min" not in entry or "max" not in entry:
+            raise self.error(self.line_of("parameters", name),
+                             f"the runtime parameter '{name}' needs runtime = true, min and max",
+                             RUNTIME_HINT.format(name=name))
+        low = self.number(entry["min"], "parameters", name, f"min of '{name}'")
+        high = self.number(entry["max"], "parameters", name, f"max of '{name}'")
+        rate = entry.get("rate")
+        if rate is not None:
+            rate = self.number(rate, "parameters", name, f"rate of '{name}'")
+        return Parameter(name, value, meaning, runtime=True, low=low, high=high, rate=rate)
+
     def angle_flag(self, data: dict, name: str) -> bool:
         """``angle = true`` on a state: it is an angle in radians, living modulo 2 pi."""
         entry = data["states"][name]
@@ -205,7 +228,7 @@ class _Reader:
                              "name = \"my_oscillator\"")
         states = [State(n, v, m, angle=self.angle_flag(data, n)) for n, v, m in
                   self.entries(data, "states", "initial", STATE_KEYS)]
-        parameters = [Parameter(n, v, m) for n, v, m in
+        parameters = [self.parameter(data, n, v, m) for n, v, m in
                       self.entries(data, "parameters", "value", PARAMETER_KEYS)]
         equations = self.table(data, "equations")
         state_names = [s.name for s in states]
@@ -383,4 +406,18 @@ class _Reader:
         if not isinstance(integrator, str):
             raise self.error(self.line_of("fixed_point", "integrator"),
                              "integrator must be a quoted name", "integrator = \"rk4\"")
-        return FixedPointRequest(fraction_bits=bits, margin=margin, integrator=integrator)
+        word_bits = fixed.get("word_bits", 32)
+        if word_bits not in (16, 32) or isinstance(word_bits, bool):
+            raise self.error(self.line_of("fixed_point", "word_bits"),
+                             f"word_bits must be 16 or 32, got {word_bits!r}", "word_bits = 16")
+        choices = {"rounding": ("truncate", "half-up", "half-even"), "overflow": ("saturate", "wrap")}
+        chosen = {}
+        for key, allowed in choices.items():
+            chosen[key] = fixed.get(key, allowed[1] if key == "rounding" else allowed[0])
+            if chosen[key] not in allowed:
+                raise self.error(self.line_of("fixed_point", key),
+                                 f"{key} must be one of {', '.join(allowed)}, got {chosen[key]!r}",
+                                 f"{key} = \"{allowed[0]}\"")
+        return FixedPointRequest(fraction_bits=bits, margin=margin, integrator=integrator,
+                                 word_bits=word_bits, rounding=chosen["rounding"],
+                                 overflow=chosen["overflow"])

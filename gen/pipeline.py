@@ -3,12 +3,16 @@ integer program, each stage reading only what the one before produced."""
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass
 
+import numpy as np
+
 from gen.analysis import Analysis, analyse
-from gen.errors import OrbitfixError
+from gen.errors import InputError, OrbitfixError
 from gen.fixed_point import FixedPointPlan, plan_fixed_point
 from gen.integrators import Integrator, get_integrator
+from gen.limit_cycle import LimitCycle, find_limit_cycle
 from gen.lowering import lower_step
 from gen.model import Model
 from gen.timing import Timing, plan_timing
@@ -29,6 +33,15 @@ class NoStableCycleError(OrbitfixError):
                          "--set) so that the cycle is stable before generating code.")
 
 
+class CornerError(OrbitfixError):
+    """At a corner of the runtime parameters' ranges the model has no stable cycle (exit 1)."""
+
+    exit_code = 1
+
+
+MOST_RUNTIME_PARAMETERS = 4  # 2**4 corners, each a limit-cycle search
+
+
 @dataclass(frozen=True)
 class Design:
     """Everything the C emitter and the verifiers need for one model."""
@@ -38,6 +51,7 @@ class Design:
     timing: Timing
     integrator: Integrator
     plan: FixedPointPlan
+    corners: tuple[tuple[dict[str, float], LimitCycle], ...] = ()
 
 
 def design(model: Model, analysis: Analysis | None = None) -> Design:
@@ -49,8 +63,32 @@ def design(model: Model, analysis: Analysis | None = None) -> Design:
     timing = plan_timing(model, analysis.cycle.period)
     program = lower_step(model, integrator, timing.step)
     request = model.fixed_point
-    plan = plan_fixed_point(program, analysis.cycle.samples, model.initial_state,
+    corners = corner_cycles(model)
+    samples = np.hstack([analysis.cycle.samples, *(cycle.samples for _, cycle in corners)])
+    plan = plan_fixed_point(program, samples, model.initial_state,
                             margin=request.margin, fraction_bits=request.fraction_bits,
                             word_bits=request.word_bits, rounding=request.rounding,
-                            overflow=request.overflow)
-    return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan)
+                            overflow=request.overflow, runtime=model.runtime_parameters)
+    return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan,
+                  corners=corners)
+
+
+def corner_cycles(model: Model) -> tuple[tuple[dict[str, float], LimitCycle], ...]:
+    """The limit cycle at every corner of the runtime parameters' ranges: the plan must hold
+    there too. Raises CornerError where a corner has no stable cycle."""
+    runtime = model.runtime_parameters
+    if len(runtime) > MOST_RUNTIME_PARAMETERS:
+        raise InputError(f"model '{model.name}' has {len(runtime)} runtime parameters; the plan "
+                         f"checks every corner of their ranges, so at most "
+                         f"{MOST_RUNTIME_PARAMETERS} are supported")
+    found = []
+    for values in itertools.product(*((p.low, p.high) for p in runtime)):
+        corner = dict(zip((p.name for p in runtime), values, strict=True))
+        cycle = find_limit_cycle(model.with_parameters(corner))
+        if not (cycle.found and cycle.stable and cycle.isolated):
+            where = ", ".join(f"{k} = {v:g}" for k, v in corner.items())
+            raise CornerError(f"model '{model.name}' at {where} (a corner of its runtime ranges) "
+                              f"has no stable limit cycle: {cycle.verdict} Narrow the runtime "
+                              "range so the rhythm holds over all of it.")
+        found.append((corner, cycle))
+    return tuple(found) if runtime else ()

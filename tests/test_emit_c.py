@@ -23,7 +23,7 @@ STRICT = ["-std=c99", "-pedantic", "-Werror", "-Wall", "-Wextra", "-Wconversion"
 
 def write_sources(folder: Path, built) -> dict[str, str]:
     files = render_model(built.model, built.timing, built.integrator, built.plan)
-    files["harness.c"] = render_host_harness(built.model, built.plan.program.word_bits)
+    files["harness.c"] = render_host_harness(built.model, built.plan.program)
     for name, text in files.items():
         (folder / name).write_text(text)
     return files

@@ -137,7 +137,7 @@ def test_c_products_round_like_exact_rationals_at_ties(word: int, rounding: str,
     timing = Timing(model_period=1.0, cycle_hz=1.0, loop_hz=100.0, time_scale=1.0, step=1.0,
                     steps_per_cycle=100.0)
     files = render_model(TIES, timing, EULER, plan)
-    host = build_host_module(files, render_host_harness(TIES, word), "ties.h")
+    host = build_host_module(files, render_host_harness(TIES, plan.program), "ties.h")
     mul = next(i for i, op in enumerate(plan.program.ops) if op.kind == "mul")
     shift = plan.program.ops[mul].shift  # the product's own format decides the shift
     half = 1 << (shift - 1)

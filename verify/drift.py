@@ -291,8 +291,10 @@ def render_drift_harness(design: Design) -> str:
     model = design.model
     names = CNames(model.name)
     bits = design.plan.program.word_bits
+    program = design.plan.program
     return environment().get_template("drift_harness.c.j2").render(
-        names=names, fields=[names.field(n) for n in model.state_names], count=model.dimension,
+        names=names, fields=[names.field(n) for n in program.state_names],
+        count=len(program.state_names),
         version=__version__, word_type=f"int{bits}_t", word_bits=bits,
         declarations=DRIFT_DECLARATIONS, limits=design.plan.planned_limits())
 
@@ -308,7 +310,7 @@ def build_drift_module(design: Design, sources: dict[str, str] | None = None) ->
         design.model, design.timing, design.integrator, design.plan)
     return build_host_module(
         sources={**files, "drift_harness.c": render_drift_harness(design)},
-        harness=render_host_harness(design.model, design.plan.program.word_bits),
+        harness=render_host_harness(design.model, design.plan.program),
         header=names.header, declarations=HARNESS_DECLARATIONS + DRIFT_DECLARATIONS)
 
 
@@ -380,6 +382,8 @@ def choose_starts(design: Design, equilibrium_offset: float = 1e-3) -> tuple[lis
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
     centre, half = (low + high) / 2, (high - low) / 2
     word_max = program.word_max
+    n = program.model_state_count
+    held = tuple(plan.initial_state[n:])  # runtime parameters stay at their nominal values
     starts = [Start("nominal", tuple(plan.initial_state), "the model's initial state")]
     notes: list[str] = []
 
@@ -397,12 +401,12 @@ def choose_starts(design: Design, equilibrium_offset: float = 1e-3) -> tuple[lis
         else:
             offset = np.maximum(np.round(equilibrium_offset * 2 * half * scale), 4)
             point = np.round(equilibrium.state * scale) + offset
-            starts.append(Start("near the equilibrium", _fit(point, word_max),
+            starts.append(Start("near the equilibrium", _fit(point, word_max) + held,
                                 f"the {equilibrium.kind} plus {equilibrium_offset:g} of the "
                                 "cycle's range"))
 
     corner = centre + 0.95 * plan.margin * half
-    starts.append(Start("near the basin edge", _fit(np.round(corner * scale), word_max),
+    starts.append(Start("near the basin edge", _fit(np.round(corner * scale), word_max) + held,
                         f"just inside the upper corner of the cycle's bounding box scaled by the "
                         f"planner's margin of {plan.margin:g} (a stand-in for the basin's edge)"))
     near = np.array(plan.initial_state, dtype=float)
@@ -421,11 +425,13 @@ def step_map_reference(design: Design, level: float, starts: list[Start],
                        amplitude_tolerance: float) -> StepMapReference:
     """Run the float step map (L1) from the cycle's point and from every start, vectorised."""
     program = design.plan.program
-    scale = 2.0 ** -design.plan.signal_format.fraction_bits
+    n = program.model_state_count
+    scale = 2.0 ** -np.array(program.state_fraction_bits, dtype=float)
     spc = design.timing.steps_per_cycle
     total = round(STEP_MAP_CYCLES * spc)
     measured = round(STEP_MAP_MEASURED * spc)
-    columns = [np.asarray(design.analysis.cycle.point, dtype=float)]
+    nominal = [v for p in design.model.runtime_parameters for v in (p.value, p.value)]
+    columns = [np.concatenate([np.asarray(design.analysis.cycle.point, dtype=float), nominal])]
     columns += [np.array(s.state, dtype=float) * scale for s in starts]
     x = np.stack(columns, axis=1)
     record = np.empty((measured + 1, x.shape[0], x.shape[1]))
@@ -436,7 +442,7 @@ def step_map_reference(design: Design, level: float, starts: list[Start],
             values = evaluate_real(program, x)
             x = np.stack([values[i] for i in program.next_state])
         record[-1] = x
-    amplitude = (np.max(record, axis=0) - np.min(record, axis=0)) / 2
+    amplitude = (np.max(record, axis=0) - np.min(record, axis=0))[:n] / 2
     first = record[:-1, 0, 0]
     second = record[1:, 0, 0]
     up = np.flatnonzero((first < level) & (second >= level))
@@ -487,7 +493,9 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
     level = round(float(low[0] + high[0]) / 2 * scale)
     starts, notes = choose_starts(design, equilibrium_offset)
-    notes.append("parameter corners are not run: the generated C has no runtime parameters yet")
+    if design.model.runtime_parameters:
+        notes.append("the runs hold the runtime parameters at their nominal values; runs at the "
+                     "corners of their ranges are not built yet (the plan itself covers them)")
     seconds: dict[str, float] = {}
 
     started = time.perf_counter()
@@ -502,7 +510,8 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     report = DriftReport(
         model=design.model.name, hours=float(hours), loop_hz=timing.loop_hz, steps=steps,
         settle_steps=settle, window_steps=window, section_level=level,
-        planned_limits=plan.planned_limits(), fraction_bits=fraction, state_names=program.state_names,
+        planned_limits=plan.planned_limits(), fraction_bits=fraction,
+        state_names=program.state_names[:program.model_state_count],
         tolerances=tolerances, continuous_period_steps=spc,
         continuous_amplitude=continuous_amplitude, step_map=reference, runs=[], notes=notes,
         seconds=seconds)
@@ -520,8 +529,9 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     stats = harness_statistics(host, start.state, report.steps, report.settle_steps,
                                report.window_steps, report.section_level)
     seconds = stats.seconds
-    c, r = stats.counts, stats.ranges
     names = report.state_names
+    c = stats.counts
+    r = {group: values[:len(names)] for group, values in stats.ranges.items()}
     amplitude = [(hi - lo) / 2 * scale for lo, hi in zip(r["final_low"], r["final_high"], strict=True)]
     amplitude_first = [(hi - lo) / 2 * scale
                        for lo, hi in zip(r["first_low"], r["first_high"], strict=True)]

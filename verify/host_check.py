@@ -70,14 +70,15 @@ def check_on_host(design: Design, sources_folder: Path | None = None, states: in
         sources, notes = read_sources(design, sources_folder)
         origin = str(sources_folder)
     started = time.perf_counter()
-    harness = render_host_harness(design.model, design.plan.program.word_bits)
+    harness = render_host_harness(design.model, design.plan.program)
     host = build_host_module(sources, harness, names.header)
     build_seconds = time.perf_counter() - started
     plan = design.plan
-    scale = 2.0 ** plan.signal_format.fraction_bits
-    cycle = design.analysis.cycle
-    typical = np.maximum(np.abs(cycle.state_min), np.abs(cycle.state_max)) * scale
+    # The states come first in the program, so value i is state i: its sure bound over the
+    # planning box, in its own integer units, is the size of a typical state.
+    typical = [max(abs(low), abs(high)) * 2.0 ** bits for (low, high), bits in
+               zip(plan.sure_bounds, plan.program.state_fraction_bits, strict=False)]
     report = prove_bit_exact(plan.program, host, np.array(plan.initial_state, dtype=np.int64),
-                             typical.astype(np.int64), states=states, steps=steps)
+                             np.array(typical).astype(np.int64), states=states, steps=steps)
     return HostCheck(sources=origin, report=report, build_seconds=build_seconds,
                      build_reused=host.reused, notes=notes)

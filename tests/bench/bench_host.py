@@ -36,7 +36,7 @@ def main() -> None:
     design_seconds = time.perf_counter() - started
     files = render_model(built.model, built.timing, built.integrator, built.plan)
     started = time.perf_counter()
-    harness = render_host_harness(built.model, built.plan.program.word_bits)
+    harness = render_host_harness(built.model, built.plan.program)
     host = build_host_module(files, harness, "vanderpol.h")
     build_seconds = time.perf_counter() - started
     program = built.plan.program

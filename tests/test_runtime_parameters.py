@@ -1,0 +1,146 @@
+"""Runtime parameters: declared in a model file, held in the generated state with a setter,
+moved toward their target at a limited rate and never out of range, covered by the plan at every
+corner, and bit-exact in C."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from gen import golden
+from gen.errors import InputError
+from gen.model_file import load_model
+from gen.pipeline import CornerError, design
+from verify.command_line import main
+from verify.host_check import check_on_host
+
+HIP = """\
+name = "hip"
+description = "Hopf oscillator pacing a hip joint, its frequency set by the gait controller"
+
+[states]
+x = 1.0
+y = 0.0
+
+[parameters]
+mu = 1.0
+omega = { value = 6.283185307179586, runtime = true, min = 3.0, max = 9.0, rate = 2.0, \
+meaning = "angular frequency" }
+
+[equations]
+x = "mu*x - omega*y - (x^2 + y^2)*x"
+y = "omega*x + mu*y - (x^2 + y^2)*y"
+
+[rhythm]
+cycle_hz = 1.0
+loop_hz = 500
+"""
+
+
+@pytest.fixture(scope="module")
+def hip(tmp_path_factory):
+    path = tmp_path_factory.mktemp("hip") / "hip.toml"
+    path.write_text(HIP)
+    return design(load_model(str(path)))
+
+
+def test_the_program_carries_each_parameter_and_its_target(hip) -> None:
+    program = hip.plan.program
+    assert program.state_names == ("x", "y", "omega", "omega_target")
+    assert program.model_state_count == 2
+    # the target is left as it is by the step
+    assert program.next_state[3] == 3
+
+
+def set_target(hip, state: np.ndarray, value: float) -> np.ndarray:
+    bits = hip.plan.program.state_fraction_bits[3]
+    state = state.copy()
+    state[3] = round(value * 2**bits)
+    return state
+
+
+def test_ramp_moves_at_the_rate_limit_and_never_leaves_the_range(hip) -> None:
+    # A rate limiter (common practice): |change per step| <= rate / loop_hz, stopping at the target.
+    program = hip.plan.program
+    bits = program.state_fraction_bits[2]
+    per_step = 2.0 / 500 * 2**bits
+    state = set_target(hip, np.array(hip.plan.initial_state, dtype=np.int64), 100.0)  # far above max
+    omegas = [state[2]]
+    for _ in range(800):
+        state = golden.step(program, state.reshape(-1, 1))[:, 0]
+        omegas.append(state[2])
+    steps = np.diff(np.array(omegas, dtype=float))
+    assert np.all(np.abs(steps) <= per_step + 1)
+    assert omegas[-1] == round(9.0 * 2**bits)  # held at its high limit, not at 100
+    assert np.all(np.array(omegas) <= round(9.0 * 2**bits))
+    rising = steps[steps > 0]
+    assert rising.size == pytest.approx((9.0 - 2 * math.pi) / 2.0 * 500, abs=2)
+
+
+def integer_period(program, state: np.ndarray, steps: int) -> float:
+    """Mean steps between upward zero crossings of x after the given run."""
+    x = golden.run(program, state, steps)[:, 0].astype(float)
+    up = np.flatnonzero((x[:-1] < 0) & (x[1:] >= 0))
+    times = up + (-x[up]) / (x[up + 1] - x[up])
+    tail = times[len(times) // 2:]
+    return float((tail[-1] - tail[0]) / (len(tail) - 1))
+
+
+def test_setting_the_frequency_changes_the_integer_cycles_period(hip) -> None:
+    # Hopf normal form: the cycle's period is 2 pi / omega exactly, so at the loop's fixed step
+    # the period in steps scales as omega_0 / omega_1.
+    program = hip.plan.program
+    start = set_target(hip, np.array(hip.plan.initial_state, dtype=np.int64), 1.25 * 2 * math.pi)
+    period = integer_period(program, start, 8000)
+    assert period == pytest.approx(500 / 1.25, rel=2e-4)
+    # a target beyond the range is held at its limit: omega = 9, period 500 * 2 pi / 9
+    start = set_target(hip, np.array(hip.plan.initial_state, dtype=np.int64), 1.5 * 2 * math.pi)
+    assert integer_period(program, start, 8000) == pytest.approx(500 * 2 * math.pi / 9, rel=2e-4)
+
+
+def test_c_is_bit_exact_with_any_target(hip) -> None:
+    # Random states put the target anywhere in the word, so the range clamp runs in both back ends.
+    outcome = check_on_host(hip, states=50_000, steps=50_000)
+    assert outcome.report.bit_exact, outcome.report.first_mismatch
+
+
+def test_the_plan_covers_every_corner(hip) -> None:
+    assert sorted(c["omega"] for c, _ in hip.corners) == [3.0, 9.0]
+    bits = hip.plan.program.state_fraction_bits[2]
+    assert 9.0 * 2 < 2.0 ** (31 - bits)  # the parameter's format holds its range with the margin
+
+
+def test_a_corner_without_a_cycle_fails_with_exit_1(tmp_path: Path, capsys) -> None:
+    path = tmp_path / "hip.toml"
+    path.write_text(HIP.replace("mu = 1.0",
+                                "mu = { value = 1.0, runtime = true, min = -0.5, max = 2.0 }"))
+    with pytest.raises(CornerError, match=r"mu = -0\.5"):
+        design(load_model(str(path)))
+    assert main(["gen", str(path), "-o", str(tmp_path / "out")]) == 1
+    assert "corner of its runtime ranges" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(("entry", "words"), [
+    ("omega = { value = 6.0, runtime = true, min = 9.0, max = 3.0 }", "min < max"),
+    ("omega = { value = 10.0, runtime = true, min = 3.0, max = 9.0 }", "outside its runtime range"),
+    ("omega = { value = 6.0, runtime = true, min = 3.0, max = 9.0, rate = -1 }", "positive"),
+    ("omega = { value = 6.0, min = 3.0, max = 9.0 }", "not runtime = true"),
+    ("omega = { value = 6.0, runtime = true, max = 9.0 }", "needs runtime = true, min and max"),
+])
+def test_broken_runtime_declarations_are_refused(tmp_path: Path, entry: str, words: str) -> None:
+    path = tmp_path / "hip.toml"
+    text = HIP.split("omega = {")[0] + entry + "\n" + HIP.split("meaning = \"angular frequency\" }\n")[1]
+    path.write_text(text)
+    with pytest.raises(InputError, match=words):
+        load_model(str(path))
+
+
+def test_header_declares_the_setter(hip) -> None:
+    from gen.emit_c import render_model
+
+    header = render_model(hip.model, hip.timing, hip.integrator, hip.plan)["hip.h"]
+    assert "void hip_set_omega(hip_state_t *state, int32_t target);" in header
+    assert "HIP_OMEGA_FRACTION_BITS" in header
