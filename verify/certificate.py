@@ -33,6 +33,7 @@ DEFAULT_TOLERANCE = 0.08
 BOX_SCALE = 1.5
 LARGEST_DOMAIN = 1 << 28         # lattice points; the tables then take about 5 GiB at most
 STRIP_ROWS = 2048                # rows of the band's distance transform done at once
+GATHER_SLICE = 1 << 22           # indices gathered at once
 CHUNK = 1 << 16                  # states per golden step: small batches stay in cache
 EXAMPLES = 3                     # example starts named per group of uncertified states
 GROUPS_SHOWN = 12                # groups of uncertified states described in full
@@ -615,22 +616,36 @@ def _steps_to_band(table: np.ndarray, length: _Excursions,
     count[length.index] = np.where(absorbing[length.index], 0, length.steps)
     spare_jump = np.empty_like(jump)
     spare_count = np.empty_like(count)
-    outside = int(np.count_nonzero(~absorbing[jump]))
+    outside = _count_outside(absorbing, jump)
     for _level in range(40):
-        np.take(count, jump, out=spare_count)
+        _gather(count, jump, spare_count)
         count += spare_count                   # both at most the cap, so the sum cannot wrap
         np.minimum(count, COUNT_CAP, out=count)
-        np.take(jump, jump, out=spare_jump)
+        _gather(jump, jump, spare_jump)
         jump, spare_jump = spare_jump, jump
-        now = int(np.count_nonzero(~absorbing[jump]))
+        now = _count_outside(absorbing, jump)
         if now == outside:
             break
         outside = now
     del spare_jump, spare_count
-    never = ~absorbing[jump[:size]]
+    never = np.empty(size, dtype=bool)
+    for start in range(0, size, GATHER_SLICE):
+        never[start:start + GATHER_SLICE] = ~absorbing[jump[start:min(start + GATHER_SLICE, size)]]
     if count[:size].max(where=~never, initial=0) >= COUNT_CAP:
         raise RuntimeError("a step count reached its cap; the certificate cannot state its bound")
     return count[:size], never
+
+
+def _gather(source: np.ndarray, index: np.ndarray, out: np.ndarray) -> None:
+    """out = source[index], in slices, so numpy's wide copy of the indices stays small."""
+    for start in range(0, index.size, GATHER_SLICE):
+        np.take(source, index[start:start + GATHER_SLICE], out=out[start:start + GATHER_SLICE])
+
+
+def _count_outside(absorbing: np.ndarray, jump: np.ndarray) -> int:
+    """How many states ``jump`` sends outside the absorbing set, in slices."""
+    return sum(int(np.count_nonzero(~absorbing[jump[start:start + GATHER_SLICE]]))
+               for start in range(0, jump.size, GATHER_SLICE))
 
 
 def _group_exceptions(program, steps: _Excursions, never: np.ndarray,
