@@ -144,3 +144,18 @@ def test_header_declares_the_setter(hip) -> None:
     header = render_model(hip.model, hip.timing, hip.integrator, hip.plan)["hip.h"]
     assert "void hip_set_omega(hip_state_t *state, int32_t target);" in header
     assert "HIP_OMEGA_FRACTION_BITS" in header
+
+
+def test_drift_runs_at_every_corner_against_the_cycle_there(hip) -> None:
+    # Hopf normal form: period 2 pi / omega exactly, so at omega = 3 and 9 the loop's 500 steps
+    # per nominal cycle become 500 * 2 pi / omega steps.
+    from verify.drift import run_drift
+
+    report = run_drift(hip, hours=0.02)
+    corners = {run.start.name: run for run in report.runs if run.against}
+    assert set(corners) == {"omega = 3", "omega = 9"}
+    for name, omega in (("omega = 3", 3.0), ("omega = 9", 9.0)):
+        run = corners[name]
+        assert run.verdict == "pass", run.reasons
+        assert run.period_steps == pytest.approx(500 * 2 * math.pi / omega, rel=1e-6)
+    assert report.verdict == "pass"

@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
 
@@ -148,17 +148,19 @@ class DriftRun:
     step_map_returns: bool
     reasons: list[str]
     seconds: float
+    against: dict | None = None
 
     @property
     def verdict(self) -> str:
         return "fail" if self.reasons else "pass"
 
-    def to_json(self, fraction_bits: int) -> dict:
+    def to_json(self, fraction_bits: int, model_states: int) -> dict:
         return {
             "start": self.start.name,
             "why": self.start.why,
             "initial_state": list(self.start.state),
-            "initial_state_real": [v / 2.0 ** fraction_bits for v in self.start.state],
+            "initial_state_real": [v / 2.0 ** fraction_bits
+                                   for v in self.start.state[:model_states]],
             "amplitude": self.amplitude,
             "amplitude_first_window": self.amplitude_first,
             "amplitude_error": self.amplitude_error,
@@ -179,6 +181,7 @@ class DriftRun:
             "verdict": self.verdict,
             "reasons": list(self.reasons),
             "seconds": self.seconds,
+            **({"references": self.against} if self.against else {}),
         }
 
 
@@ -227,7 +230,7 @@ class DriftReport:
                 "step_map": {"period_steps": self.step_map.period_steps,
                              "amplitude": [_finite(v) for v in self.step_map.amplitude]},
             },
-            "runs": [run.to_json(self.fraction_bits) for run in self.runs],
+            "runs": [run.to_json(self.fraction_bits, len(self.state_names)) for run in self.runs],
             "notes": list(self.notes),
             "seconds": dict(self.seconds),
             "verdict": self.verdict,
@@ -463,12 +466,56 @@ def step_map_reference(design: Design, level: float, starts: list[Start],
 def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances | None = None,
               settle_fraction: float = 0.25, equilibrium_offset: float = 1e-3,
               host: HostModule | None = None) -> DriftReport:
-    """The long-run drift proof: steps = round(hours * 3600 * loop rate) from every start.
+    """The long-run drift proof: steps = round(hours * 3600 * loop rate) from every start, and,
+    for a model with runtime parameters, from its initial state at every corner of their ranges
+    (judged against the cycle at that corner).
 
     settle_fraction : the first part of each run that is left out of the period, return-point
         and after-settling counts (the way onto the cycle from a far start).
     host : a module from ``build_drift_module`` (built here when not given).
     """
+    if host is None:
+        started = time.perf_counter()
+        host = build_drift_module(design)
+        built_in = time.perf_counter() - started
+    else:
+        built_in = 0.0
+    report = _drift_report(design, hours, tolerances, settle_fraction, equilibrium_offset, host)
+    report.seconds["host_build"] = built_in
+    for corner, cycle in design.corners:
+        where = ", ".join(f"{name} = {value:g}" for name, value in corner.items())
+        at_corner = _drift_report(_at_corner(design, corner, cycle), hours, tolerances,
+                                  settle_fraction, equilibrium_offset, host, only_nominal=True)
+        for run in at_corner.runs:
+            run.start = replace(run.start, name=where,
+                                why=f"the initial state with {where} (a corner of the runtime "
+                                    "ranges), judged against the cycle there")
+            run.against = {"continuous_period_steps": at_corner.continuous_period_steps,
+                           "continuous_amplitude": at_corner.continuous_amplitude,
+                           "step_map_period_steps": at_corner.step_map.period_steps}
+            report.runs.append(run)
+    return report
+
+
+def _at_corner(design: Design, corner: dict[str, float], cycle: object) -> Design:
+    """The design seen from one corner: parameters, cycle, period and initial state there."""
+    model = design.model.with_parameters(corner)
+    plan = design.plan
+    program = plan.program
+    n = program.model_state_count
+    held = []
+    for k, p in enumerate(model.runtime_parameters):
+        bits = program.state_fraction_bits[n + 2 * k]
+        held += [round(p.value * 2**bits)] * 2
+    return replace(design, model=model, analysis=replace(design.analysis, cycle=cycle),
+                   timing=replace(design.timing, steps_per_cycle=cycle.period / design.timing.step),
+                   plan=replace(plan, initial_state=tuple(plan.initial_state[:n]) + tuple(held)))
+
+
+def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | None,
+                  settle_fraction: float, equilibrium_offset: float, host: HostModule,
+                  only_nominal: bool = False) -> DriftReport:
+    """The runs of one design (at one setting of the runtime parameters)."""
     tolerances = tolerances if tolerances is not None else DriftTolerances()
     timing, plan = design.timing, design.plan
     program = plan.program
@@ -493,18 +540,13 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
     level = round(float(low[0] + high[0]) / 2 * scale)
     starts, notes = choose_starts(design, equilibrium_offset)
-    if design.model.runtime_parameters:
-        notes.append("the runs hold the runtime parameters at their nominal values; runs at the "
-                     "corners of their ranges are not built yet (the plan itself covers them)")
+    if only_nominal:
+        starts, notes = starts[:1], []
     seconds: dict[str, float] = {}
 
     started = time.perf_counter()
     reference = step_map_reference(design, level / scale, starts, tolerances.amplitude)
     seconds["step_map_reference"] = time.perf_counter() - started
-    started = time.perf_counter()
-    if host is None:
-        host = build_drift_module(design)
-    seconds["host_build"] = time.perf_counter() - started
 
     continuous_amplitude = [float(v) for v in (high - low) / 2]
     report = DriftReport(
