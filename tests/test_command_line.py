@@ -197,3 +197,21 @@ def test_models_with_angle_states_are_refused_for_fixed_point(capsys, tmp_path, 
     assert code == 2
     assert "angle states theta have no fixed-point form" in err
     assert not (tmp_path / "phase_amplitude.c").exists()
+
+
+def test_verify_certify_json_contract_and_exit_codes(capsys) -> None:
+    argv = ["verify", "vanderpol", "--word", "16", "--fraction-bits", "8", "--certify",
+            "--skip-drift", "--states", "1000", "--steps", "1000", "--json"]
+    code, out, _ = run(capsys, *argv, "--exclude-radius", "0.25")
+    data = json.loads(out)
+    assert code == 0 and data["certificate"]["proved"] is True
+    assert data["certificate"]["states_checked"] > 1_000_000 and "band" in data["certificate"]
+    # Without the exclusion the origin, a fixed point of the integer map, breaks the proof.
+    code, out, _ = run(capsys, *argv)
+    assert code == 1 and json.loads(out)["certificate"]["proved"] is False
+
+
+def test_certify_refuses_32_bit_words(capsys) -> None:
+    code, _, err = run(capsys, "verify", "vanderpol", "--certify", "--skip-drift", "--states", "10",
+                       "--steps", "10")
+    assert code == 2 and "--word 16" in err

@@ -13,8 +13,7 @@ import math
 from typing import Any
 
 from gen.basin import DEFAULT_PERIODS, DEFAULT_SECONDS, BasinSample, NoCycleError, box_starts, sample_basin
-from gen.errors import InputError
-from verify.cli_support import CAUTION, add_model_arguments, model_from_args, plain_json
+from verify.cli_support import CAUTION, add_model_arguments, model_from_args, parse_box, plain_json
 
 
 def register(verbs: Any) -> None:
@@ -37,24 +36,6 @@ def register(verbs: Any) -> None:
     parser.add_argument("--list-starts", action="store_true",
                         help="with --json, also list every start and its outcome")
     parser.set_defaults(handler=_basin)
-
-
-def parse_box(items: list[str]) -> dict[str, tuple[float, float]]:
-    """'x=-3:3' items to {'x': (-3.0, 3.0)}; a malformed item is an input error."""
-    box: dict[str, tuple[float, float]] = {}
-    for item in items:
-        name, sep, span = item.partition("=")
-        low_text, colon, high_text = span.partition(":")
-        if not sep or not colon or not name.strip():
-            raise InputError(f"--box '{item}': write NAME=LOW:HIGH, e.g. --box x=-3:3")
-        try:
-            low, high = float(low_text), float(high_text)
-        except ValueError:
-            raise InputError(f"--box '{item}': '{low_text}' and '{high_text}' must be numbers") from None
-        if name.strip() in box:
-            raise InputError(f"--box gives the state '{name.strip()}' twice")
-        box[name.strip()] = (low, high)
-    return box
 
 
 def _basin(args: argparse.Namespace, partial: dict) -> int:

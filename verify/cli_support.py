@@ -59,3 +59,21 @@ def plain_json(value: Any) -> Any:
     if isinstance(value, float) and not math.isfinite(value):
         return str(value)
     return value
+
+
+def parse_box(items: list[str]) -> dict[str, tuple[float, float]]:
+    """'x=-3:3' items to {'x': (-3.0, 3.0)}; a malformed item is an input error."""
+    box: dict[str, tuple[float, float]] = {}
+    for item in items:
+        name, sep, span = item.partition("=")
+        low_text, colon, high_text = span.partition(":")
+        if not sep or not colon or not name.strip():
+            raise InputError(f"--box '{item}': write NAME=LOW:HIGH, e.g. --box x=-3:3")
+        try:
+            low, high = float(low_text), float(high_text)
+        except ValueError:
+            raise InputError(f"--box '{item}': '{low_text}' and '{high_text}' must be numbers") from None
+        if name.strip() in box:
+            raise InputError(f"--box gives the state '{name.strip()}' twice")
+        box[name.strip()] = (low, high)
+    return box

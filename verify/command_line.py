@@ -21,7 +21,8 @@ from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from gen.integrators import INTEGRATORS
 from gen.pipeline import Design, NoStableCycleError, design
 from verify import basin_command, models_command, plan_command, sweep_command
-from verify.cli_support import CAUTION, add_model_arguments, model_from_args, plain_json
+from verify.certificate import DEFAULT_BAND, DEFAULT_TOLERANCE, certify
+from verify.cli_support import CAUTION, add_model_arguments, model_from_args, parse_box, plain_json
 from verify.drift import DriftTolerances, build_drift_module, run_drift
 from verify.host_build import STRICT_FLAGS
 from verify.host_check import check_on_host, read_sources
@@ -118,6 +119,19 @@ def _parser() -> argparse.ArgumentParser:
     drift.add_argument("--max-return-spread", type=float, default=2.0, metavar="PERCENT",
                        help="spread of return points on the section, of each state's range "
                             "(default 2 %%)")
+    proof = verify.add_argument_group("lattice certificate (16-bit words, two states)")
+    proof.add_argument("--certify", action="store_true",
+                       help="prove over every lattice state of the box that the orbit enters the "
+                            "band round the cycle and never leaves the tolerance band")
+    proof.add_argument("--band", type=float, default=DEFAULT_BAND, metavar="WIDTH",
+                       help=f"inner band's half width, in units of each state's half range on the "
+                            f"cycle (default {DEFAULT_BAND:g})")
+    proof.add_argument("--tolerance-band", type=float, default=DEFAULT_TOLERANCE, metavar="WIDTH",
+                       help=f"the band the orbit must never leave (default {DEFAULT_TOLERANCE:g})")
+    proof.add_argument("--box", action="append", default=[], metavar="NAME=LOW:HIGH",
+                       help="the starts to prove for (default: the cycle's box times 1.5)")
+    proof.add_argument("--exclude-radius", type=float, default=0.0, metavar="R",
+                       help="leave out states this close to an equilibrium (normalised units)")
     verify.set_defaults(handler=_verify)
     for module in VERB_MODULES:
         module.register(verbs)
@@ -197,6 +211,11 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
         drift = run_drift(built, hours=args.hours, tolerances=tolerances,
                           host=build_drift_module(built, sources))
         partial["drift"] = drift.to_json()
+    certificate = None
+    if args.certify and report.bit_exact:
+        certificate = certify(built, band=args.band, tolerance=args.tolerance_band,
+                              box=parse_box(args.box) or None, exclude_radius=args.exclude_radius)
+        partial["certificate"] = certificate.to_json()
     if args.json:
         print(json.dumps(plain_json(partial), indent=2))
     else:
@@ -222,8 +241,13 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
             print("\n".join(drift.describe()))
         elif not args.skip_drift:
             print("long-run drift test: not run, since the C is not bit-exact")
+        if certificate is not None:
+            print()
+            print("\n".join(certificate.describe()))
         print(CAUTION)
-    return 0 if report.bit_exact and (drift is None or drift.verdict == "pass") else 1
+    passed = (report.bit_exact and (drift is None or drift.verdict == "pass")
+              and (certificate is None or certificate.proved))
+    return 0 if passed else 1
 
 
 def _seconds(value: float | None) -> str:
