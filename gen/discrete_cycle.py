@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from gen import golden
-from gen.errors import InputError
+from gen.errors import InputError, UnsupportedError
 from gen.fixed_point import plan_fixed_point
 from gen.integer_program import IntegerProgram
 from gen.integrators import Integrator
@@ -54,6 +54,15 @@ class SteppedCycle:
                 "frequency_error_ppm": self.frequency_error_ppm,
                 "amplitude": list(self.amplitude) if self.amplitude else None,
                 "amplitude_error": self.amplitude_error}
+
+
+NO_ANGLES = ("the stepped-cycle measurements do not handle angle states (phases) yet: they time "
+             "the cycle by a state that swings rather than turns")
+
+
+def _refuse_angles(program: IntegerProgram) -> None:
+    if program.angle_states:
+        raise UnsupportedError(NO_ANGLES)
 
 
 def measure(step: Callable[[np.ndarray], np.ndarray], start: np.ndarray, steps: int,
@@ -121,6 +130,7 @@ def float_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_step
                 cycle_min: np.ndarray, cycle_max: np.ndarray, cycles: float = 6.0,
                 tolerance: CycleTolerance | None = None) -> SteppedCycle:
     """The float step map's cycle (layer L1) against the continuous one (L0)."""
+    _refuse_angles(program)
 
     def step(x: np.ndarray) -> np.ndarray:
         values = evaluate_real(program, x)
@@ -135,6 +145,7 @@ def integer_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_st
                   cycle_min: np.ndarray, cycle_max: np.ndarray, cycles: float = 6.0,
                   tolerance: CycleTolerance | None = None, points: int = START_POINTS) -> SteppedCycle:
     """The integer program's cycle (layer L2) against the continuous one (L0), in real units."""
+    _refuse_angles(program)
     scale = 2.0 ** np.array(program.state_fraction_bits, dtype=float).reshape(-1, 1)
     start = np.round(start_points(samples, points) * scale).astype(np.int64)
     word_max = program.word_max

@@ -70,6 +70,7 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
     names = CNames(model.name)
     program = plan.program
     constants, constant_of = _constants(plan)
+    tables, table_of = _tables(program)
     context = {
         "names": names,
         "version": __version__,
@@ -81,7 +82,10 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
         "integrator": integrator,
         "plan": plan,
         "program": program,
-        "program_kinds": {op.kind for op in program.ops},
+        "program_kinds": {op.kind for op in program.ops if not op.wraps},
+        "wrap_kinds": {op.kind for op in program.ops if op.wraps},
+        "uses_wrap": any(op.wraps for op in program.ops),
+        "tables": tables,
         "word_type": f"int{program.word_bits}_t",
         "wide_type": f"int{program.product_bits}_t",
         "word_bits": program.word_bits,
@@ -96,7 +100,8 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
                             program.state_fraction_bits[program.model_state_count::2], strict=True)
         ],
         "constants": constants,
-        "values": [_value_line(i, op, names, program.state_names, constant_of, program.word_bits)
+        "values": [_value_line(i, op, names, program.state_names, {**constant_of, **table_of},
+                               program.word_bits)
                    for i, op in enumerate(program.ops)],
         "next_state": [{"field": names.field(n), "value": f"v{i}"}
                        for n, i in zip(program.state_names, program.next_state, strict=True)],
@@ -140,6 +145,26 @@ def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dic
                                                  reals, program.state_fraction_bits, strict=True)]
 
 
+def _tables(program: IntegerProgram) -> tuple[list[dict], dict[int, str]]:
+    """One C array per distinct sine table, in order of first use."""
+    tables: list[dict] = []
+    by_content: dict[tuple[int, ...], str] = {}
+    table_of: dict[int, str] = {}
+    for index, op in enumerate(program.ops):
+        if op.kind not in ("sin", "cos"):
+            continue
+        if op.table not in by_content:
+            name = f"sine_table{len(tables)}"
+            by_content[op.table] = name
+            fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
+            tables.append({"name": name, "length": len(op.table),
+                           "entries": [int_literal(v, program.word_bits) for v in op.table],
+                           "comment": f"sin at {len(op.table) - 1} points of one turn (and the "
+                                      f"first again), {fmt}, each rounded once"})
+        table_of[index] = by_content[op.table]
+    return tables, table_of
+
+
 def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
     """One C constant per distinct stored value and format, in order of first use."""
     constants: list[CConstant] = []
@@ -165,28 +190,29 @@ def _value_line(index: int, op: Op, names: CNames, program_states: tuple[str, ..
                 constant_of: dict[int, str], word_bits: int) -> dict:
     a = [f"v{i}" for i in op.args]
     kind = op.kind
+    family = "turns" if op.wraps else "word"
     if kind == "state":
         expression = f"state->{names.field(program_states[op.state])}"
     elif kind == "const":
         expression = constant_of[index]
     elif kind in ("add", "sub", "min", "max"):
-        expression = (f"{_HELPER[kind]}({a[0]}, {op.align[0]}u, {a[1]}, {op.align[1]}u, "
+        expression = (f"{kind}_{family}({a[0]}, {op.align[0]}u, {a[1]}, {op.align[1]}u, "
                       f"{op.shift}u)")
     elif kind in ("neg", "abs"):
-        expression = f"{_HELPER[kind]}({a[0]}, {op.shift}u)"
+        expression = f"{kind}_{family}({a[0]}, {op.shift}u)"
     elif kind == "mul":
-        expression = f"mul_word({a[0]}, {a[1]}, {op.shift}u)"
+        expression = f"mul_{family}({a[0]}, {a[1]}, {op.shift}u)"
     elif kind == "scale":
-        expression = f"mul_word({a[0]}, {constant_of[index]}, {op.shift}u)"
+        expression = f"mul_{family}({a[0]}, {constant_of[index]}, {op.shift}u)"
+    elif kind in ("sin", "cos"):
+        quarter = f"UINT{word_bits}_C({1 << (word_bits - 2)})" if kind == "cos" else "0u"
+        expression = f"sine_lookup({a[0]}, {constant_of[index]}, {op.shift}u, {quarter})"
     else:
         raise ValueError(f"no C form for {kind!r}")
     fmt = f"Q{word_bits - op.fraction_bits}.{op.fraction_bits}"
     return {"name": f"v{index}", "expression": expression,
             "note": comment_text(f"{fmt}, {op.note}")}
 
-
-_HELPER = {"add": "add_word", "sub": "sub_word", "min": "min_word", "max": "max_word",
-           "neg": "neg_word", "abs": "abs_word"}
 
 ROUNDING_WORDS = {
     "truncate": "toward minus infinity (an arithmetic shift right)",

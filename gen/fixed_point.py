@@ -17,7 +17,7 @@ from gen.errors import InputError
 from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
 from gen.lowering import evaluate_real
 from gen.model import Parameter
-from gen.ranges import interval_ranges, planning_box
+from gen.ranges import interval_ranges, planning_box, to_turns
 
 
 @dataclass(frozen=True)
@@ -182,11 +182,16 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     if margin < 1:
         raise InputError(f"the range margin must be at least 1, got {margin}")
     n = program.model_state_count
+    angles = program.angle_states
+    samples = np.array(samples, dtype=float)
+    initial = np.array(initial, dtype=float)
+    for i in angles:  # angle states are planned, and held, in turns
+        samples[i], initial[i] = to_turns(samples[i]), to_turns(initial[i])
     nominal = [v for p in runtime for v in (p.value, p.value)]
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
     points = np.vstack([points, np.repeat(np.reshape(nominal, (-1, 1)), points.shape[1], axis=1)])
     met = tuple((float(np.min(v)), float(np.max(v))) for v in evaluate_real(program, points))
-    low, high = planning_box(samples, initial, box_scale)
+    low, high = planning_box(samples, initial, box_scale, angles)
     low = np.concatenate([low, [v for p in runtime for v in (p.low, p.low)]])
     high = np.concatenate([high, [v for p in runtime for v in (p.high, p.high)]])
     sure = interval_ranges(program, low, high)
@@ -194,8 +199,12 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     if not all(math.isfinite(p) for p in peaks):
         raise InputError("a signal of the step is not finite over the planning box; the step size "
                          "is too large for this model or the model has no bounded cycle")
-    states = [i for i, op in enumerate(program.ops) if op.kind == "state" and op.state < n]
-    state_peak = max(peaks[i] for i in [*states, *program.next_state[:n]])
+    states = [i for i, op in enumerate(program.ops)
+              if op.kind == "state" and op.state < n and op.state not in angles]
+    if not states:
+        raise InputError("the model has only angle states; give it at least one other state")
+    plain_next = [v for i, v in enumerate(program.next_state[:n]) if i not in angles]
+    state_peak = max(peaks[i] for i in [*states, *plain_next])
     warnings: list[str] = []
     needed = integer_bits_for(state_peak * margin)
     if fraction_bits is None:
@@ -218,13 +227,15 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
             warnings.append(f"format {fmt.name} leaves less headroom than the margin of {margin}: "
                             f"the states reach {state_peak:.6g} of {fmt.largest:.6g}")
     state_format = QFormat(word_bits, fraction_bits)
-    formats = [fraction_bits] * n
+    formats = [word_bits if i in angles else fraction_bits for i in range(n)]
     for p in runtime:  # a runtime parameter's value and target share a format holding its range
         bits = word_bits - integer_bits_for(max(abs(p.low), abs(p.high)) * margin)
         formats += [bits, bits]
     ops, constants = _fill(program, formats, [p * margin for p in peaks], word_bits)
-    initial_ints = tuple(_state_integer(x, QFormat(word_bits, f), name) for x, f, name in
-                         zip([*initial, *nominal], formats, program.state_names, strict=True))
+    initial_ints = tuple(quantise(x, f) if i in angles else
+                         _state_integer(x, QFormat(word_bits, f), name)
+                         for i, (x, f, name) in enumerate(zip([*initial, *nominal], formats,
+                                                              program.state_names, strict=True)))
     planned = replace(program, ops=tuple(ops), word_bits=word_bits, product_bits=2 * word_bits,
                       rounding=rounding, overflow=overflow, state_fraction_bits=tuple(formats))
     state_met = [max(abs(met[i][0]), abs(met[i][1])) for i in states]
@@ -250,6 +261,8 @@ def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float]
     ops = program.ops
     forced = {value: state_formats[i] for i, value in enumerate(program.next_state)}
     forced.update({i: state_formats[op.state] for i, op in enumerate(ops) if op.kind == "state"})
+    forced.update({i: w for i, op in enumerate(ops) if op.wraps})  # angles: a word is one turn
+    forced.update({i: w - 2 for i, op in enumerate(ops) if op.kind in ("sin", "cos")})
     constant_formats = {i: _constant_format(op.real, w, op.note) for i, op in enumerate(ops)
                         if op.kind in ("const", "scale")}
     bits: list[int] = []
@@ -295,8 +308,37 @@ def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float]
             op = replace(op, align=tuple(top - g for g in f_args), shift=top - f)
         elif op.kind in ("neg", "abs"):
             op = replace(op, shift=f_args[0] - f)
+        elif op.kind in ("sin", "cos"):
+            index_bits = sine_table_bits(w, f)
+            op = replace(op, table=sine_table(index_bits, f), shift=w - index_bits)
         filled.append(replace(op, fraction_bits=f))
     return filled, constants
+
+
+def sine_table_bits(word_bits: int, fraction_bits: int) -> int:
+    """Index bits of the sine table: the fewest for which linear interpolation's error,
+    (2 pi / 2**bits)**2 / 8 at most (the second derivative of sin is at most 1), stays below one
+    step of the result's format; at most 12 (4097 entries)."""
+    lsb = 2.0 ** -fraction_bits
+    bits = 4
+    while bits < min(12, word_bits - 2) and (2 * math.pi / 2**bits) ** 2 / 8 > lsb:
+        bits += 1
+    return bits
+
+
+def sine_table(index_bits: int, fraction_bits: int) -> tuple[int, ...]:
+    """sin over one turn at 2**index_bits + 1 points (the last repeats the first), each rounded
+    once in the result's format."""
+    count = 1 << index_bits
+    return tuple(quantise(math.sin(2 * math.pi * k / count), fraction_bits)
+                 for k in range(count + 1))
+
+
+def sine_error_bound(word_bits: int, fraction_bits: int) -> float:
+    """The stated largest error of the sine table with interpolation: the interpolation's own
+    error plus half a step for rounding each entry and one step for rounding the product."""
+    bits = sine_table_bits(word_bits, fraction_bits)
+    return (2 * math.pi / 2**bits) ** 2 / 8 + 1.5 * 2.0 ** -fraction_bits
 
 
 def _cap_to_operands(ops: tuple, bits: list[int], constant_formats: dict) -> bool:

@@ -57,8 +57,8 @@ def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
         raise ValueError("the program has no fixed-point plan yet")
     bits, overflow = program.word_bits, program.overflow
 
-    def fit(v: np.ndarray) -> np.ndarray:
-        return fit_word(v, bits, overflow)
+    def fit(v: np.ndarray, wraps: bool = False) -> np.ndarray:
+        return fit_word(v, bits, "wrap" if wraps else overflow)
 
     values: list[np.ndarray] = []
     batch = np.shape(states)[1:]
@@ -75,17 +75,27 @@ def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
         elif kind == "const":
             v = np.full(batch, op.constant, dtype=np.int64)
         elif kind == "mul":
-            v = fit(round_shift(np.multiply(a[0], a[1]), op.shift, rounding))
+            v = fit(round_shift(np.multiply(a[0], a[1]), op.shift, rounding), op.wraps)
         elif kind == "scale":
-            v = fit(round_shift(a[0] * np.int64(op.constant), op.shift, rounding))
+            v = fit(round_shift(a[0] * np.int64(op.constant), op.shift, rounding), op.wraps)
         elif kind in ("neg", "abs"):
             exact = -a[0] if kind == "neg" else np.abs(a[0])
-            v = fit(round_shift(exact, op.shift, rounding))
+            v = fit(round_shift(exact, op.shift, rounding), op.wraps)
         elif kind in ("add", "sub", "min", "max"):
             x, y = aligned(a, op.align)
             exact = {"add": np.add, "sub": np.subtract, "min": np.minimum,
                      "max": np.maximum}[kind](x, y)
-            v = fit(round_shift(exact, op.shift, rounding))
+            v = fit(round_shift(exact, op.shift, rounding), op.wraps)
+        elif kind in ("sin", "cos"):
+            phase = a[0] & np.int64((1 << bits) - 1)  # the angle as an unsigned word
+            if kind == "cos":
+                phase = (phase + np.int64(1 << (bits - 2))) & np.int64((1 << bits) - 1)
+            table = np.asarray(op.table, dtype=np.int64)
+            index = phase >> np.int64(op.shift)
+            within = phase & np.int64((1 << op.shift) - 1)
+            low = table[index]
+            step = round_shift((table[index + 1] - low) * within, op.shift, rounding)
+            v = fit(low + step)
         else:
             raise ValueError(f"no golden rule for {kind!r}")
         values.append(v)

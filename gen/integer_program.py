@@ -24,7 +24,16 @@ with products formed in ``product_bits`` (twice the word):
 - ``min``, ``max``: the smaller or larger aligned argument;
 - ``neg``, ``abs``: negation or absolute value;
 - ``mul``: the product of two values;
-- ``scale``: the product of a value and the stored integer ``constant``.
+- ``scale``: the product of a value and the stored integer ``constant``;
+- ``sin``, ``cos``: of an angle held in turns (see below), from ``table``: with p the argument
+  read as an unsigned word (plus a quarter turn, 2**(word_bits - 2), for ``cos``, modulo
+  2**word_bits), i = p >> shift and r = p mod 2**shift, the result is
+  table[i] + round_shift((table[i + 1] - table[i]) * r, shift): linear interpolation.
+
+Angles (phases) are held in turns: an angle value has fraction_bits = word_bits, so the word
+covers exactly one turn and wrapping modulo 2**word_bits is wrapping modulo a full turn. An
+operation with ``wraps`` set brings its result into the word by wrapping, whatever the program's
+``overflow`` (that is how angles add up without ever losing precision).
 """
 
 from __future__ import annotations
@@ -33,9 +42,9 @@ import hashlib
 import json
 from dataclasses import dataclass, field
 
-KINDS = ("state", "const", "add", "sub", "neg", "abs", "min", "max", "mul", "scale")
+KINDS = ("state", "const", "add", "sub", "neg", "abs", "min", "max", "mul", "scale", "sin", "cos")
 ARITY = {"state": 0, "const": 0, "add": 2, "sub": 2, "neg": 1, "abs": 1, "min": 2, "max": 2,
-         "mul": 2, "scale": 1}
+         "mul": 2, "scale": 1, "sin": 1, "cos": 1}
 WORD_SIZES = (16, 32)
 ROUNDINGS = ("truncate", "half-up", "half-even")
 OVERFLOWS = ("saturate", "wrap")
@@ -54,6 +63,8 @@ class Op:
     shift: int | None = None
     fraction_bits: int | None = None
     align: tuple[int, ...] = ()
+    wraps: bool = False
+    table: tuple[int, ...] = ()
 
     def __post_init__(self) -> None:
         if self.kind not in KINDS:
@@ -69,6 +80,10 @@ class Op:
                 data[key] = value
         if self.align:
             data["align"] = list(self.align)
+        if self.wraps:
+            data["wraps"] = True
+        if self.table:
+            data["table"] = list(self.table)
         if self.note:
             data["note"] = self.note
         return data
@@ -93,6 +108,7 @@ class IntegerProgram:
     overflow: str = "saturate"
     state_fraction_bits: tuple[int, ...] = field(default=())
     model_states: int = 0
+    angle_states: tuple[int, ...] = ()
 
     def __post_init__(self) -> None:
         if self.word_bits not in WORD_SIZES:
@@ -139,6 +155,7 @@ class IntegerProgram:
             "state_fraction_bits": list(self.state_fraction_bits),
             "next_state": list(self.next_state),
             "model_states": self.model_state_count,
+            "angle_states": list(self.angle_states),
             "ops": [op.to_json() for op in self.ops],
         }
 

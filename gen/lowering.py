@@ -4,6 +4,8 @@ operations with real constants (the structure of the integer program, before any
 
 from __future__ import annotations
 
+import math
+from dataclasses import replace
 from fractions import Fraction
 
 import numpy as np
@@ -17,15 +19,11 @@ from gen.model import Model, Parameter
 
 def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProgram:
     """One integrator step of ``model`` with step size ``step`` (model time units)."""
-    angles = [s.name for s in model.states if s.angle]
-    if angles:
-        raise UnsupportedError(
-            f"model '{model.name}': the angle states {', '.join(angles)} have no fixed-point form "
-            "yet (an angle grows without bound unless it is kept as a wrapping word of turns); "
-            "orbitfix can analyse this model with 'check' but cannot generate its C")
     builder = _Builder(model)
     names = model.state_names
     start = [builder.add(Op("state", state=i, note=name)) for i, name in enumerate(names)]
+    angle_states = tuple(i for i, s in enumerate(model.states) if s.angle)
+    builder.angles.update(start[i] for i in angle_states)
     runtime = model.runtime_parameters
     current, target = [], []
     for k, p in enumerate(runtime):
@@ -40,19 +38,20 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
             slope = builder.slope(finish, stage=i + 1, only=i)[0]
             finish[i] = builder.combine(start[i], [(Fraction(step), slope,
                                                    f"h times the slope of {name}")],
-                                        f"next {name}")
+                                        f"next {name}", angle=i in angle_states)
     else:
         slopes: list[list[int]] = []
         for stage, row in enumerate(integrator.a, start=1):
             if any(row):
                 point = [builder.combine(start[i], _terms(step, row, slopes, i, names[i]),
-                                         f"stage {stage} point, {names[i]}")
+                                         f"stage {stage} point, {names[i]}",
+                                         angle=i in angle_states)
                          for i in range(len(names))]
             else:
                 point = start
             slopes.append(builder.slope(point, stage))
         finish = [builder.combine(start[i], _terms(step, integrator.b, slopes, i, names[i]),
-                                  f"next {names[i]}")
+                                  f"next {names[i]}", angle=i in angle_states)
                   for i in range(len(names))]
     ramps = [builder.ramp(p, cur, tgt, model.rhythm.loop_hz)
              for p, cur, tgt in zip(runtime, current, target, strict=True)]
@@ -60,7 +59,7 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
     extra_next = tuple(v for ramp, tgt in zip(ramps, target, strict=True) for v in (ramp, tgt))
     return IntegerProgram(name=model.name, state_names=names + extra_names,
                           ops=tuple(builder.ops), next_state=tuple(finish) + extra_next,
-                          model_states=len(names))
+                          model_states=len(names), angle_states=angle_states)
 
 
 def _terms(step: float, weights: tuple[Fraction, ...], slopes: list[list[int]], state: int,
@@ -68,6 +67,9 @@ def _terms(step: float, weights: tuple[Fraction, ...], slopes: list[list[int]], 
     """The weighted slopes h * w_j * k_j of one state, labelled for the C comments."""
     return [(Fraction(step) * w, k[state], f"h*{w} times slope {j} of {name}")
             for j, (w, k) in enumerate(zip(weights, slopes, strict=False), start=1)]
+
+
+TURN = Fraction(2 * math.pi)  # radians in a turn (as the float nearest 2 pi)
 
 
 class _Builder:
@@ -80,9 +82,10 @@ class _Builder:
         self.symbols = model.state_symbols
         self.equations = model.fixed_equations
         self.parameters: dict[sympy.Symbol, int] = {}
+        self.angles: set[int] = set()  # values that are angles held in turns
 
     def add(self, op: Op) -> int:
-        key = (op.kind, op.args, op.state, op.real)
+        key = (op.kind, op.args, op.state, op.real, op.wraps)
         if key in self.seen:
             return self.seen[key]
         self.ops.append(op)
@@ -99,15 +102,37 @@ class _Builder:
             return self.add(Op("neg", (value,), note=note))
         return self.add(Op("scale", (value,), real=float(factor), note=note))
 
-    def combine(self, base: int, terms: list[tuple[Fraction, int, str]], note: str) -> int:
-        """base + sum(weight * value), skipping zero weights."""
+    def angle_op(self, op: Op) -> int:
+        """An operation whose result is an angle in turns (it wraps at a full turn)."""
+        index = self.add(replace(op, wraps=True))
+        self.angles.add(index)
+        return index
+
+    def combine(self, base: int, terms: list[tuple[Fraction, int, str]], note: str,
+                angle: bool = False) -> int:
+        """base + sum(weight * value), skipping zero weights. For an angle state the weighted
+        rates (radians) are turned into turns and the sums wrap at a full turn."""
         total = base
         for weight, value, label in terms:
             if weight == 0:
                 continue
+            if value in self.angles:
+                raise UnsupportedError(f"model '{self.model.name}': {note} adds an angle as a "
+                                       "rate; only sin and cos of an angle can enter a rate")
             kind = "sub" if weight < 0 else "add"
-            total = self.add(Op(kind, (total, self.scaled(value, abs(weight), label)), note=note))
+            if angle:
+                term = self.scaled(value, abs(weight) / TURN, f"{label}, in turns")
+                total = self.angle_op(Op(kind, (total, term), note=note))
+            else:
+                total = self.add(Op(kind, (total, self.scaled(value, abs(weight), label)),
+                                    note=note))
         return total
+
+    def turns(self, value: int, note: str) -> int:
+        """An angle in turns from a plain value in radians."""
+        if value in self.angles:
+            return value
+        return self.angle_op(Op("scale", (value,), real=float(1 / TURN), note=f"{note}, in turns"))
 
     def ramp(self, parameter: Parameter, current: int, target: int, loop_hz: float) -> int:
         """The parameter's value after one step: toward its target (held in [low, high]) by at
@@ -149,6 +174,11 @@ class _Builder:
             return table[expr]
         if expr.is_Number:
             return self.constant(_exact(expr), note)
+        if isinstance(expr, sympy.sin | sympy.cos):
+            kind = "sin" if isinstance(expr, sympy.sin) else "cos"
+            return self.add(Op(kind, (self.turns(walk(expr.args[0]), note),), note=note))
+        if expr.is_Add and any(self._is_angle(t, table) for t in expr.args):
+            return self._angle_sum(expr, table, walk, note, name)
         if expr.is_Add:
             terms = sorted(expr.args, key=_has_negative_sign)
             first = terms[0]
@@ -162,6 +192,11 @@ class _Builder:
                 else:
                     total = self.add(Op("add", (total, walk(term)), note=note))
             return total
+        if expr.is_Mul and any(self._is_angle(f, table) for f in expr.args):
+            coefficient, factors = expr.as_coeff_mul()
+            if coefficient == -1 and len(factors) == 1:
+                return self.angle_op(Op("neg", (walk(factors[0]),), note=note))
+            raise self._angle_misuse(expr, name)
         if expr.is_Mul:
             coefficient, factors = expr.as_coeff_mul()
             product = None
@@ -196,6 +231,41 @@ class _Builder:
         raise UnsupportedError(f"model '{self.model.name}', equation for '{name}': "
                                f"'{sympy.sstr(expr)}' has no fixed-point form yet")
 
+    def _is_angle(self, expr: sympy.Expr, table: dict) -> bool:
+        """Whether a subexpression stands for an angle: an angle state, or a sum of angles."""
+        if expr in table:
+            return table[expr] in self.angles
+        if expr.is_Mul:
+            return any(self._is_angle(f, table) for f in expr.as_coeff_mul()[1])
+        if expr.is_Add:
+            return any(self._is_angle(t, table) for t in expr.args)
+        return False
+
+    def _angle_misuse(self, expr: sympy.Expr, name: str) -> UnsupportedError:
+        return UnsupportedError(
+            f"model '{self.model.name}', equation for '{name}': '{sympy.sstr(expr)}' uses an "
+            "angle in a way that has no fixed-point form: an angle may only be added to or "
+            "subtracted from angles and constants, negated, or passed to sin and cos")
+
+    def _angle_sum(self, expr: sympy.Expr, table: dict, walk, note: str, name: str) -> int:
+        """A sum of angles and constant offsets (in radians), as a wrapping sum in turns."""
+        total = None
+        for term in sorted(expr.args, key=_has_negative_sign):
+            negative = _has_negative_sign(term)
+            magnitude = -term if negative else term
+            if magnitude.is_Number:
+                value = self.angle_op(Op("const", real=float(_exact(magnitude) / TURN),
+                                         note=f"{sympy.sstr(magnitude)} rad, in turns"))
+            elif self._is_angle(magnitude, table):
+                value = walk(magnitude)
+            else:
+                raise self._angle_misuse(expr, name)
+            if total is None:
+                total = self.angle_op(Op("neg", (value,), note=note)) if negative else value
+            else:
+                total = self.angle_op(Op("sub" if negative else "add", (total, value), note=note))
+        return total
+
 
 def _has_negative_sign(term: sympy.Expr) -> bool:
     return term.could_extract_minus_sign()
@@ -220,6 +290,8 @@ def evaluate_real(program: IntegerProgram, states: np.ndarray) -> list[np.ndarra
             values.append(np.full(np.shape(states[0]), op.real))
         else:
             values.append(_REAL[op.kind](op, a))
+        if op.wraps:
+            values[-1] = np.mod(values[-1] + 0.5, 1.0) - 0.5
     return values
 
 
@@ -232,4 +304,6 @@ _REAL = {
     "max": lambda op, a: np.maximum(a[0], a[1]),
     "mul": lambda op, a: a[0] * a[1],
     "scale": lambda op, a: a[0] * op.real,
+    "sin": lambda op, a: np.sin(2 * np.pi * a[0]),
+    "cos": lambda op, a: np.cos(2 * np.pi * a[0]),
 }

@@ -48,17 +48,29 @@ def interval_ranges(program: IntegerProgram, low: np.ndarray,
         elif kind == "scale":
             corners = [a[0][0] * op.real, a[0][1] * op.real]
             bounds.append((min(corners), max(corners)))
+        elif kind in ("sin", "cos"):
+            bounds.append((-1.0, 1.0))
         else:
             raise ValueError(f"no interval rule for {kind!r}")
+        if op.wraps:  # an angle in turns, wrapped into half a turn either way
+            bounds[-1] = (-0.5, 0.5)
     return bounds
 
 
-def planning_box(samples: np.ndarray, initial: np.ndarray,
-                 scale: float) -> tuple[np.ndarray, np.ndarray]:
+def planning_box(samples: np.ndarray, initial: np.ndarray, scale: float,
+                 angles: tuple[int, ...] = ()) -> tuple[np.ndarray, np.ndarray]:
     """The states the plan must hold: the cycle's bounding box (with the initial state) widened
-    about its centre by ``scale``."""
+    about its centre by ``scale``; an angle state (in turns) holds the whole turn."""
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
     low, high = points.min(axis=1), points.max(axis=1)
     centre, half = 0.5 * (low + high), 0.5 * (high - low)
     half = np.maximum(half * scale, 1e-9)
-    return centre - half, centre + half
+    low, high = centre - half, centre + half
+    for i in angles:
+        low[i], high[i] = -0.5, 0.5
+    return low, high
+
+
+def to_turns(radians: np.ndarray) -> np.ndarray:
+    """Angles in radians as turns wrapped into [-1/2, 1/2)."""
+    return np.mod(np.asarray(radians, dtype=float) / (2 * np.pi) + 0.5, 1.0) - 0.5

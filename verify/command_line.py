@@ -16,14 +16,14 @@ from typing import Any
 from gen import __version__
 from gen.analysis import analyse, format_report
 from gen.emit_c import render_model
-from gen.errors import InputError, OrbitfixError
+from gen.errors import InputError, OrbitfixError, UnsupportedError
 from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from gen.integrators import INTEGRATORS
 from gen.pipeline import Design, NoStableCycleError, design
 from verify import basin_command, models_command, plan_command, sweep_command
 from verify.certificate import DEFAULT_BAND, DEFAULT_TOLERANCE, certify
 from verify.cli_support import CAUTION, add_model_arguments, model_from_args, parse_box, plain_json
-from verify.drift import DriftTolerances, build_drift_module, run_drift
+from verify.drift import NO_ANGLES, DriftTolerances, build_drift_module, run_drift
 from verify.host_build import STRICT_FLAGS
 from verify.host_check import check_on_host, read_sources
 
@@ -188,6 +188,8 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
     partial["model"] = model.name
     built = design(model)
     partial.update(_design_json(built))
+    if built.plan.program.angle_states and not args.skip_drift:
+        raise UnsupportedError(NO_ANGLES)
     tolerances = DriftTolerances(amplitude=args.max_amplitude_error / 100,
                                  period_ppm=args.max_period_error,
                                  phase_drift_cycles=args.max_phase_drift,

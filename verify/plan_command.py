@@ -7,7 +7,7 @@ import argparse
 import json
 from typing import Any
 
-from gen.discrete_cycle import CycleTolerance
+from gen.discrete_cycle import NO_ANGLES, CycleTolerance
 from gen.errors import InputError
 from gen.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from gen.integrators import INTEGRATORS
@@ -50,11 +50,20 @@ def _plan(args: argparse.Namespace, partial: dict) -> int:
                                amplitude=args.max_amplitude_error / 100.0)
     built = design(model_from_args(args))
     partial.update({"model": built.model.name, "plan": _plan_json(built)})
+    found: SearchResult | None = None
+    if built.plan.program.angle_states:
+        partial["note"] = NO_ANGLES
+        if args.json:
+            print(json.dumps(plain_json(partial), indent=2))
+        else:
+            print("\n".join(_plan_lines(built)))
+            print(f"\nnote: {NO_ANGLES}; the plan above still holds")
+            print(CAUTION)
+        return 2 if args.search else 0
     effect = coefficient_effect(built, tolerance)
     partial["coefficients"] = effect.to_json()
     studies = study_integrators(built, tolerance)
     partial["integrators"] = [s.to_json() for s in studies]
-    found: SearchResult | None = None
     if args.search:
         found = run_search(built, tolerance, workers=args.workers, scheduler=args.scheduler)
         partial["search"] = found.to_json()
