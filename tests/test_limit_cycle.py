@@ -254,3 +254,28 @@ def test_report_names_the_equilibrium_the_cycle_and_the_trivial_multiplier():
     assert "trivial" in text
     assert "stable limit cycle" in text
     assert "hardware stop" in text
+
+
+@pytest.mark.parametrize(("mu", "t_end"), [(0.1, 320.0), (0.5, 120.0), (2.0, 60.0), (10.0, 80.0)])
+def test_period_and_multiplier_to_the_issue_accuracy_over_the_damping_range(mu, t_end):
+    # Reference library: scipy's DOP853 at rtol 1e-13 from (2, 0); after the transient two
+    # successive upward crossings of x = 0 give the period, and the divergence mu (1 - x^2)
+    # integrated over that period along the same dense solution gives ln of the nontrivial
+    # multiplier (Liouville's formula). Targets: period to 1e-8 relative, multiplier to 1e-6.
+    model = vanderpol(mu)
+    f = model.vector_field()
+
+    def rising(t, x):
+        return x[0]
+
+    rising.direction = 1.0
+    solution = solve_ivp(f, (0.0, t_end), [2.0, 0.0], method="DOP853", rtol=1e-13, atol=1e-13,
+                         events=rising, dense_output=True)
+    crossings = solution.t_events[0]
+    start, end = crossings[-2], crossings[-1]
+    times = np.linspace(start, end, 200_001)
+    x = solution.sol(times)[0]
+    log_multiplier = simpson(mu * (1 - x**2), x=times)
+    cycle = cycle_at(mu)
+    assert cycle.period == pytest.approx(end - start, rel=1e-8)
+    assert abs(cycle.floquet_log[0] - log_multiplier) <= 1e-6  # the multiplier to 1e-6 relative
