@@ -132,14 +132,7 @@ def _locking_of_phases(model: Model, cycle: LimitCycle, labels: tuple[str, ...],
     once per period (the phases' differences are the lags at every instant)."""
     phases = list(model.network.phases)
     lags = tuple(_tidy_lag(v) for v in _phase_lags(cycle.samples[phases]))
-    field = sympy.lambdify(list(model.state_symbols), list(model.resolved_equations),
-                           modules="math", cse=True)
-    deadline = time.monotonic() + RUN_SECONDS
-
-    def rates(t: float, x: np.ndarray) -> list[float]:
-        if time.monotonic() > deadline:
-            raise TimeoutError
-        return field(*x.tolist())
+    rates = _rates_with_deadline(model)
 
     period = float(cycle.period)
     x, history = model.initial_state.astype(float), []
@@ -196,14 +189,7 @@ def _run_to_lock(model: Model, first: list[int], levels: np.ndarray, period: flo
                  ) -> tuple[bool, int | None, str]:
     """Follow the network from its initial state: (settled on the cycle's lags, cycles until
     every lag stays within LOCK_TOLERANCE of the wanted one, why not when not settled)."""
-    field = sympy.lambdify(list(model.state_symbols), list(model.resolved_equations),
-                           modules="math", cse=True)
-    deadline = time.monotonic() + RUN_SECONDS
-
-    def rates(t: float, x: np.ndarray) -> list[float]:
-        if time.monotonic() > deadline:
-            raise TimeoutError
-        return field(*x.tolist())
+    rates = _rates_with_deadline(model)
 
     events = []
     for index, level in zip(first, levels, strict=True):
@@ -279,3 +265,18 @@ def format_locking(locking: PhaseLocking) -> list[str]:
         lines.append(f"  cycles to lock from the initial state: {locking.cycles_to_lock}")
     lines.append(f"  verdict: {locking.verdict}")
     return lines
+
+
+def _rates_with_deadline(model: Model):
+    """The vector field as fast scalar code, raising TimeoutError once RUN_SECONDS have passed
+    (every run of the network has a time budget)."""
+    field = sympy.lambdify(list(model.state_symbols), list(model.resolved_equations),
+                           modules="math", cse=True)
+    deadline = time.monotonic() + RUN_SECONDS
+
+    def rates(t: float, x: np.ndarray) -> list[float]:
+        if time.monotonic() > deadline:
+            raise TimeoutError
+        return field(*x.tolist())
+
+    return rates
