@@ -334,21 +334,14 @@ class _Reader:
         else:
             raise self.error(self.line_of("network", "pattern"), f"unknown pattern {pattern!r}",
                              ", ".join(PATTERNS))
-        if labels is not None and (not isinstance(labels, list | tuple) or len(labels) != len(lags)
-                                   or not all(isinstance(v, str) for v in labels)):
-            raise self.error(self.line_of("network", "labels"),
-                             f"labels must be a list of {len(lags)} names, one per oscillator",
-                             "labels = [\"head\", \"tail\"]")
-        parameters = {n: v for n, v, _ in self.entries(data, "parameters", "value", PARAMETER_KEYS)}
-        fixed = self.table(data, "fixed_point", required=False)
-        self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")
-        rhythm = self.rhythm(data)
+        parameters, request, rhythm = self.network_common(data, labels, len(lags),
+                                                          "labels = [\"head\", \"tail\"]")
         try:
             return build_network(name, lags=lags, cycle_hz=rhythm.cycle_hz, loop_hz=rhythm.loop_hz,
                                  oscillator=oscillator, links=links, parameters=parameters,
                                  labels=labels, pattern=pattern,
                                  description=str(data.get("description", "")),
-                                 fixed_point=self.fixed_point_request(fixed), source=str(self.path))
+                                 fixed_point=request, source=str(self.path))
         except InputError as exc:
             raise self.error(None, str(exc), NETWORK_HINT) from None
 
@@ -377,24 +370,35 @@ class _Reader:
                                  "of cycles, one per oscillator", "lags = [0, 0]")
             lags = [self.number(v, "network", "lags", "every lag") for v in lags]
         labels = spec.get("labels")
-        if labels is not None and (not isinstance(labels, list) or len(labels) != len(coupling)
-                                   or not all(isinstance(v, str) for v in labels)):
-            raise self.error(self.line_of("network", "labels"),
-                             f"labels must be a list of {len(coupling)} names, one per oscillator",
-                             "labels = [\"left\", \"right\"]")
-        parameters = {n: v for n, v, _ in self.entries(data, "parameters", "value", PARAMETER_KEYS)}
-        fixed = self.table(data, "fixed_point", required=False)
-        self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")
-        rhythm = self.rhythm(data)
+        parameters, request, rhythm = self.network_common(data, labels, len(coupling),
+                                                          "labels = [\"left\", \"right\"]")
         try:
             return build_diffusive_network(
                 name, base, coupling=coupling, coupled_state=coupled, cycle_hz=rhythm.cycle_hz,
                 loop_hz=rhythm.loop_hz, lags=lags, parameters=parameters, labels=labels,
                 description=str(data.get("description", "")),
-                fixed_point=self.fixed_point_request(fixed), source=str(self.path))
+                fixed_point=request, source=str(self.path))
         except InputError as exc:
             line = self.line_of("network", "coupling") if "coupling" in str(exc) else None
             raise self.error(line, str(exc), NETWORK_HINT) from None
+
+    def network_common(self, data: dict, labels: object, count: int, example: str
+                       ) -> tuple[dict[str, float], FixedPointRequest, Rhythm]:
+        """What every network file shares: labels (checked), parameter values, the fixed-point
+        request and the rhythm. Runtime parameters are refused: networks do not carry them."""
+        if labels is not None and (not isinstance(labels, list | tuple) or len(labels) != count
+                                   or not all(isinstance(v, str) for v in labels)):
+            raise self.error(self.line_of("network", "labels"),
+                             f"labels must be a list of {count} names, one per oscillator", example)
+        for name, entry in self.table(data, "parameters", required=False).items():
+            if isinstance(entry, dict) and entry.get("runtime", False):
+                raise self.error(self.line_of("parameters", name),
+                                 f"'{name}' is declared runtime, but network files do not support "
+                                 "runtime parameters yet", f"{name} = 1.0")
+        parameters = {n: v for n, v, _ in self.entries(data, "parameters", "value", PARAMETER_KEYS)}
+        fixed = self.table(data, "fixed_point", required=False)
+        self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")
+        return parameters, self.fixed_point_request(fixed), self.rhythm(data)
 
     def fixed_point_request(self, fixed: dict) -> FixedPointRequest:
         bits = fixed.get("fraction_bits")

@@ -173,18 +173,9 @@ def build_network(
         pairs = tuple((i, j) for i in range(count) for j in (i - 1, i + 1) if 0 <= j < count)
     if oscillator == "phase_amplitude":
         states, equations, layout = _phase_amplitude(wanted, pairs, values, names, pattern)
-        return Model(
-            name=name,
-            description=description or f"{count} coupled phase oscillators ({pattern})",
-            states=tuple(states),
-            parameters=tuple(Parameter(key, values[key], meaning)
-                             for key, (_, meaning) in table.items()),
-            equation_text=tuple(equations),
-            rhythm=Rhythm(float(cycle_hz), float(loop_hz)),
-            fixed_point=fixed_point or FixedPointRequest(),
-            source=source,
-            network=layout,
-        )
+        return _network_model(name, description or f"{count} coupled phase oscillators "
+                              f"({pattern})", states, equations, values, table, cycle_hz,
+                              loop_hz, fixed_point, source, layout)
 
     states, equations = [], []
     radius = math.sqrt(values["mu"]) if values["mu"] > 0 else 1.0
@@ -211,12 +202,22 @@ def build_network(
     layout = NetworkLayout(pattern=pattern, oscillator=oscillator, labels=names,
                            members=tuple((2 * i, 2 * i + 1) for i in range(count)),
                            wanted_lags=wanted, links=pairs)
+    return _network_model(name, description or f"{count} coupled {oscillator} oscillators "
+                          f"({pattern})", states, equations, values, HOPF_PARAMETERS, cycle_hz,
+                          loop_hz, fixed_point, source, layout)
+
+
+def _network_model(name: str, description: str, states: list[State], equations: list[str],
+                   values: Mapping[str, float], table: Mapping[str, tuple[float, str]],
+                   cycle_hz: float, loop_hz: float, fixed_point: FixedPointRequest | None,
+                   source: str, layout: NetworkLayout) -> Model:
+    """The flattened model of a network, its parameters described by ``table``."""
     return Model(
         name=name,
-        description=description or f"{count} coupled {oscillator} oscillators ({pattern})",
+        description=description,
         states=tuple(states),
         parameters=tuple(Parameter(key, values[key], meaning)
-                         for key, (_, meaning) in HOPF_PARAMETERS.items()),
+                         for key, (_, meaning) in table.items()),
         equation_text=tuple(equations),
         rhythm=Rhythm(float(cycle_hz), float(loop_hz)),
         fixed_point=fixed_point or FixedPointRequest(),

@@ -154,3 +154,12 @@ def test_broken_network_files_exit_2_with_a_clear_message(tmp_path: Path, capsys
         load_model(str(path))
     assert main(["check", str(path)]) == 2
     assert "Traceback" not in capsys.readouterr().err
+
+
+def test_runtime_parameters_in_network_files_are_refused_not_dropped(tmp_path: Path) -> None:
+    # Regression: a runtime declaration in a network file was silently ignored.
+    path = tmp_path / "fins.toml"
+    path.write_text(NETWORK_FILE.replace("k = 0.8",
+                                         "k = { value = 0.8, runtime = true, min = 0.5, max = 1 }"))
+    with pytest.raises(InputError, match="network files do not support runtime parameters"):
+        load_model(str(path))
