@@ -12,7 +12,7 @@ from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from typing import Any
 
-from gen.errors import InputError, ToolchainError
+from orbitfix.gen.errors import InputError, ToolchainError
 
 
 def fan_out(function: Callable[..., Any], jobs: Sequence[tuple], workers: int | None = None,

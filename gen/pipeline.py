@@ -8,14 +8,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from gen.analysis import Analysis, analyse
-from gen.errors import InputError, OrbitfixError
-from gen.fixed_point import FixedPointPlan, plan_fixed_point
-from gen.integrators import Integrator, get_integrator
-from gen.limit_cycle import LimitCycle, find_limit_cycle
-from gen.lowering import lower_step
-from gen.model import Model
-from gen.timing import Timing, plan_timing
+from orbitfix.gen.analysis.limit_cycle import LimitCycle, find_limit_cycle
+from orbitfix.gen.analysis.summary import Analysis, analyse
+from orbitfix.gen.errors import InputError, OrbitfixError
+from orbitfix.gen.model.definition import Model
+from orbitfix.gen.program.fixed_point import FixedPointPlan, plan_fixed_point
+from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.timing.integrators import Integrator, get_integrator
+from orbitfix.gen.timing.step_size import Timing, plan_timing
 
 
 class NoStableCycleError(OrbitfixError):

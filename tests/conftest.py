@@ -25,7 +25,7 @@ def compilers() -> list[str]:
 @pytest.fixture(scope="session")
 def vanderpol_design():
     """The built-in model through the whole generation pipeline (analysed once per session)."""
-    from gen.model_file import load_model
-    from gen.pipeline import design
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.gen.pipeline import design
 
     return design(load_model("vanderpol"))

@@ -13,9 +13,9 @@ import math
 import numpy as np
 import pytest
 
-from gen.basin import CYCLE, GROWS, box_starts, sample_basin
-from gen.errors import InputError
-from gen.model import define_model
+from orbitfix.gen.analysis.basin import CYCLE, GROWS, box_starts, sample_basin
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.definition import define_model
 
 
 def radial(name: str, rate: str, x0: float = 1.0, **parameters: float):
@@ -98,7 +98,7 @@ def test_bad_boxes_are_input_errors(box, options, message):
 
 
 def test_basin_command_json_and_exit_codes(capsys, tmp_path):
-    from verify.command_line import main
+    from orbitfix.verify.cli.main import main
 
     path = tmp_path / "fin_drive.toml"
     # an invented demo: a fin drive's rhythm with a unit-radius cycle

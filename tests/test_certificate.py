@@ -11,11 +11,11 @@ import numpy as np
 import pytest
 from scipy.spatial import cKDTree
 
-from gen import golden
-from gen.errors import InputError
-from gen.model_file import load_model
-from gen.pipeline import design
-from verify.certificate import certify
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.pipeline import design
+from orbitfix.gen.program import golden
+from orbitfix.verify.proofs.certificate import certify
 
 
 def small_design(fraction_bits: int, loop_hz: float | None = None):
@@ -211,7 +211,7 @@ def test_refusals_name_what_to_do(vanderpol_design, coarse) -> None:
 def test_band_in_strips_equals_the_band_in_one_piece(coarse, coarse_certificate, monkeypatch) -> None:
     # Source: scipy's distance transform over the whole region at once (strips of 2048 rows cover
     # this coarse lattice in one piece), against strips of 7 rows with their halos.
-    import verify.certificate as certificate
+    import orbitfix.verify.proofs.certificate as certificate
 
     monkeypatch.setattr(certificate, "STRIP_ROWS", 7)
     striped = certify(coarse, keep_tables=True)

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from verify.command_line import main
+from orbitfix.verify.cli.main import main
 
 KINDS = {"stable node", "unstable node", "stable focus", "unstable focus", "saddle", "center"}
 
@@ -163,7 +163,7 @@ def test_verify_fails_when_the_drift_test_fails(capsys) -> None:
 
 
 def test_console_entry_point_runs_as_a_module() -> None:
-    done = subprocess.run([sys.executable, "-m", "verify.command_line", "check", "vanderpol",
+    done = subprocess.run([sys.executable, "-m", "orbitfix.verify.cli.main", "check", "vanderpol",
                            "--set", "mu=-1"], capture_output=True, text=True, check=False)
     assert done.returncode == 1
     assert "Traceback" not in done.stderr

@@ -10,7 +10,10 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from gen.discrete_cycle import (
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.pipeline import design
+from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.study.discrete_cycle import (
     CycleTolerance,
     SteppedCycle,
     float_cycle,
@@ -18,11 +21,8 @@ from gen.discrete_cycle import (
     lowest_loop_rate,
     needed_loop_rate,
 )
-from gen.integrators import INTEGRATORS
-from gen.lowering import lower_step
-from gen.model import define_model
-from gen.pipeline import design
-from gen.plan_study import coefficient_effect, search
+from orbitfix.gen.study.plan_study import coefficient_effect, search
+from orbitfix.gen.timing.integrators import INTEGRATORS
 
 HARMONIC = define_model("harmonic", {"x": 1.0, "y": 0.0}, {"x": "y", "y": "-x"},
                         cycle_hz=1, loop_hz=100)

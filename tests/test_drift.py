@@ -9,15 +9,15 @@ import json
 import numpy as np
 import pytest
 
-from gen import golden
-from gen.errors import InputError
-from gen.fixed_point import ConstantReport, FixedPointPlan, QFormat
-from gen.integer_program import IntegerProgram, Op
-from gen.integrators import EULER
-from gen.model import define_model
-from gen.pipeline import Design, design
-from gen.timing import Timing
-from verify.drift import (
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.pipeline import Design, design
+from orbitfix.gen.program import golden
+from orbitfix.gen.program.fixed_point import ConstantReport, FixedPointPlan, QFormat
+from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.timing.integrators import EULER
+from orbitfix.gen.timing.step_size import Timing
+from orbitfix.verify.proofs.drift import (
     DriftTolerances,
     build_drift_module,
     cycle_start,

@@ -9,12 +9,12 @@ import subprocess
 from pathlib import Path
 
 import pytest
+from conftest import compilers
 
-from gen.c_names import CNames, comment_text, identifier
-from gen.emit_c import render_host_harness, render_model
-from gen.model import define_model
-from gen.pipeline import design
-from tests.conftest import compilers
+from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.naming import CNames, comment_text, identifier
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.pipeline import design
 
 STRICT = ["-std=c99", "-pedantic", "-Werror", "-Wall", "-Wextra", "-Wconversion",
           "-Wsign-conversion", "-Wundef", "-Wshadow", "-Wcast-qual", "-Wstrict-prototypes",

@@ -5,9 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from gen.equilibria import KINDS, classify, describe_kind, equilibrium_near, find_equilibria
-from gen.model import define_model
-from gen.model_file import load_model
+from orbitfix.gen.analysis.equilibria import KINDS, classify, describe_kind, equilibrium_near, find_equilibria
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.model.model_file import load_model
 
 
 def vanderpol(mu: float):

@@ -6,7 +6,7 @@ from __future__ import annotations
 import pytest
 import sympy
 
-from gen.expressions import ExpressionError, parse_expression
+from orbitfix.gen.model.expressions import ExpressionError, parse_expression
 
 x, y, mu = sympy.symbols("x y mu", real=True)
 TABLE = {"x": x, "y": y, "mu": mu}

@@ -7,9 +7,9 @@ import math
 
 import pytest
 
-from gen.errors import InputError
-from gen.fan_out import fan_out
-from gen.plan_study import search
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.fan_out import fan_out
+from orbitfix.gen.study.plan_study import search
 
 
 def hypotenuse(a: float, b: float) -> float:

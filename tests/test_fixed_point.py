@@ -8,10 +8,10 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from gen import golden
-from gen.errors import InputError
-from gen.lowering import evaluate_real
-from gen.pipeline import design
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.pipeline import design
+from orbitfix.gen.program import golden
+from orbitfix.gen.program.lowering import evaluate_real
 
 
 def test_every_format_holds_its_sure_bound_with_the_margin(vanderpol_design) -> None:

@@ -11,17 +11,17 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from gen import golden
-from gen.emit_c import render_host_harness, render_model
-from gen.fixed_point import plan_fixed_point
-from gen.integrators import EULER
-from gen.lowering import lower_step
-from gen.model import define_model
-from gen.pipeline import design
-from gen.timing import Timing
-from verify.bit_exact import _c_run
-from verify.host_build import build_host_module
-from verify.host_check import check_on_host
+from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.pipeline import design
+from orbitfix.gen.program import golden
+from orbitfix.gen.program.fixed_point import plan_fixed_point
+from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.timing.integrators import EULER
+from orbitfix.gen.timing.step_size import Timing
+from orbitfix.verify.proofs.bit_exact import _c_run
+from orbitfix.verify.proofs.host_check import check_on_host
+from orbitfix.verify.targets.host_build import build_host_module
 
 
 def write_firmware(folder: Path, built) -> dict[str, str]:

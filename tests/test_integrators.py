@@ -9,9 +9,9 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from gen.integrators import INTEGRATORS, Integrator
-from gen.lowering import evaluate_real, lower_step
-from gen.model import define_model
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.program.lowering import evaluate_real, lower_step
+from orbitfix.gen.timing.integrators import INTEGRATORS, Integrator
 
 # Butcher's order conditions up to order 4 (Hairer, Norsett, Wanner, Solving ODEs I, Table II.2.1).
 

@@ -11,10 +11,10 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from gen.limit_cycle import find_limit_cycle
-from gen.model import define_model
-from gen.model_file import builtin_names, load_model
-from verify.command_line import main
+from orbitfix.gen.analysis.limit_cycle import find_limit_cycle
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.model.model_file import builtin_names, load_model
+from orbitfix.verify.cli.main import main
 
 PLANAR = ("vanderpol", "rayleigh", "hopf", "fitzhugh_nagumo")
 

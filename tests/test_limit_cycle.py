@@ -11,10 +11,10 @@ import numpy as np
 import pytest
 from scipy.integrate import simpson, solve_ivp
 
-from gen.analysis import analyse, format_report
-from gen.limit_cycle import find_limit_cycle
-from gen.model import define_model
-from gen.model_file import load_model
+from orbitfix.gen.analysis.limit_cycle import find_limit_cycle
+from orbitfix.gen.analysis.summary import analyse, format_report
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.model.model_file import load_model
 
 
 def vanderpol(mu: float):

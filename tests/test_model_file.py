@@ -7,9 +7,9 @@ from pathlib import Path
 
 import pytest
 
-from gen.errors import InputError
-from gen.model import define_model
-from gen.model_file import builtin_names, load_model
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.model.model_file import builtin_names, load_model
 
 GOOD = """\
 name = "pump"

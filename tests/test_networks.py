@@ -12,11 +12,11 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from gen.analysis import analyse, format_report
-from gen.errors import InputError
-from gen.model_file import load_model
-from gen.networks import GAITS, build_network, chain_lags
-from verify.command_line import main
+from orbitfix.gen.analysis.summary import analyse, format_report
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.model.networks import GAITS, build_network, chain_lags
+from orbitfix.verify.cli.main import main
 
 
 @functools.cache

@@ -11,12 +11,12 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from gen.analysis import analyse, format_report
-from gen.errors import InputError
-from gen.limit_cycle import find_limit_cycle
-from gen.model import define_model
-from gen.model_file import load_model
-from verify.command_line import main
+from orbitfix.gen.analysis.limit_cycle import find_limit_cycle
+from orbitfix.gen.analysis.summary import analyse, format_report
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.verify.cli.main import main
 
 
 @functools.cache

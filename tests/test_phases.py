@@ -9,19 +9,19 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import compilers
 
-from gen import golden
-from gen.emit_c import render_host_harness, render_model
-from gen.errors import UnsupportedError
-from gen.fixed_point import sine_error_bound, sine_table, sine_table_bits
-from gen.integer_program import IntegerProgram, Op
-from gen.integrators import EULER
-from gen.lowering import lower_step
-from gen.model import define_model
-from gen.model_file import load_model
-from gen.pipeline import design
-from tests.conftest import compilers
-from verify.host_check import check_on_host
+from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.errors import UnsupportedError
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.pipeline import design
+from orbitfix.gen.program import golden
+from orbitfix.gen.program.fixed_point import sine_error_bound, sine_table, sine_table_bits
+from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.timing.integrators import EULER
+from orbitfix.verify.proofs.host_check import check_on_host
 
 
 def sine_program(word_bits: int, kind: str) -> IntegerProgram:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-from gen.model_file import load_model, read_model_file
+from orbitfix.gen.model.model_file import load_model, read_model_file
 
 README = (Path(__file__).resolve().parents[1] / "README.md").read_text()
 

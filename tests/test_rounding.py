@@ -9,9 +9,9 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from gen import golden
-from gen.fixed_point import quantise
-from gen.integer_program import IntegerProgram, Op
+from orbitfix.gen.program import golden
+from orbitfix.gen.program.fixed_point import quantise
+from orbitfix.gen.program.integer_program import IntegerProgram, Op
 
 
 def half_up(value: Fraction) -> int:

@@ -10,12 +10,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from gen import golden
-from gen.errors import InputError
-from gen.model_file import load_model
-from gen.pipeline import CornerError, design
-from verify.command_line import main
-from verify.host_check import check_on_host
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.pipeline import CornerError, design
+from orbitfix.gen.program import golden
+from orbitfix.verify.cli.main import main
+from orbitfix.verify.proofs.host_check import check_on_host
 
 HIP = """\
 name = "hip"
@@ -139,7 +139,7 @@ def test_broken_runtime_declarations_are_refused(tmp_path: Path, entry: str, wor
 
 
 def test_header_declares_the_setter(hip) -> None:
-    from gen.emit_c import render_model
+    from orbitfix.gen.c.emit import render_model
 
     header = render_model(hip.model, hip.timing, hip.integrator, hip.plan)["hip.h"]
     assert "void hip_set_omega(hip_state_t *state, int32_t target);" in header
@@ -149,7 +149,7 @@ def test_header_declares_the_setter(hip) -> None:
 def test_drift_runs_at_every_corner_against_the_cycle_there(hip) -> None:
     # Hopf normal form: period 2 pi / omega exactly, so at omega = 3 and 9 the loop's 500 steps
     # per nominal cycle become 500 * 2 pi / omega steps.
-    from verify.drift import run_drift
+    from orbitfix.verify.proofs.drift import run_drift
 
     report = run_drift(hip, hours=0.02)
     corners = {run.start.name: run for run in report.runs if run.against}

@@ -9,10 +9,10 @@ import numpy as np
 import pytest
 import sympy
 
-from gen.errors import InputError
-from gen.hopf import first_lyapunov_coefficient
-from gen.model import define_model
-from gen.sweep import sweep
+from orbitfix.gen.analysis.hopf import first_lyapunov_coefficient
+from orbitfix.gen.analysis.sweep import sweep
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.definition import define_model
 
 # FitzHugh, "Impulses and physiological states in theoretical models of nerve membrane",
 # Biophysical Journal 1 (1961): v' = v - v^3/3 - w + I, w' = eps (v + a - b w), with a = 0.7,
@@ -200,7 +200,7 @@ loop_hz = 200
 
 
 def run_cli(capsys, tmp_path, *argv: str) -> tuple[int, str, str]:
-    from verify.command_line import main
+    from orbitfix.verify.cli.main import main
 
     path = tmp_path / "pump_rhythm.toml"
     path.write_text(NORMAL_FORM_FILE)

@@ -13,9 +13,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from gen.model_file import load_model
-from gen.pipeline import design
-from verify.certificate import certify
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.pipeline import design
+from orbitfix.verify.proofs.certificate import certify
 
 EXCLUDE_RADIUS = 0.1
 

@@ -15,9 +15,15 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from gen.model_file import load_model
-from gen.pipeline import design
-from verify.drift import build_drift_module, choose_starts, harness_statistics, integer_period, run_drift
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.pipeline import design
+from orbitfix.verify.proofs.drift import (
+    build_drift_module,
+    choose_starts,
+    harness_statistics,
+    integer_period,
+    run_drift,
+)
 
 
 def main() -> None:

@@ -17,12 +17,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from gen import golden
-from gen.emit_c import render_host_harness, render_model
-from gen.model_file import load_model
-from gen.pipeline import design
-from verify.bit_exact import _c_run, prove_bit_exact
-from verify.host_build import build_host_module
+from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.pipeline import design
+from orbitfix.gen.program import golden
+from orbitfix.verify.proofs.bit_exact import _c_run, prove_bit_exact
+from orbitfix.verify.targets.host_build import build_host_module
 
 
 def best(seconds: list[float]) -> float:

@@ -13,8 +13,8 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
-from gen.analysis import analyse
-from gen.model_file import builtin_names, load_model
+from orbitfix.gen.analysis.summary import analyse
+from orbitfix.gen.model.model_file import builtin_names, load_model
 
 RUNS = 3
 

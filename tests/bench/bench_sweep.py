@@ -15,10 +15,10 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
-from gen.basin import box_starts, sample_basin
-from gen.model import define_model
-from gen.model_file import load_model
-from gen.sweep import sweep
+from orbitfix.gen.analysis.basin import box_starts, sample_basin
+from orbitfix.gen.analysis.sweep import sweep
+from orbitfix.gen.model.definition import define_model
+from orbitfix.gen.model.model_file import load_model
 
 RUNS = 3
 

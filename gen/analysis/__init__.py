@@ -1,0 +1,1 @@
+"""What the continuous model does: equilibria, limit cycles, Hopf points, sweeps and basins."""

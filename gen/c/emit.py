@@ -1,0 +1,238 @@
+"""The C back end: renders a planned integer program through the jinja2 templates in
+``templates/``. It decides names and layout, never arithmetic: every value comes from the program.
+"""
+
+from __future__ import annotations
+
+import importlib
+from dataclasses import dataclass
+from pathlib import Path
+
+import jinja2
+
+from orbitfix.gen import __version__
+from orbitfix.gen.c.naming import CNames, comment_text
+from orbitfix.gen.model.definition import Model
+from orbitfix.gen.program.fixed_point import FixedPointPlan
+from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.timing.integrators import Integrator
+from orbitfix.gen.timing.step_size import Timing
+
+
+def templates_folder() -> Path:
+    """The installed templates (package data of ``orbitfix.templates``, the top-level ``templates/``)."""
+    package = importlib.import_module("orbitfix.templates")
+    return Path(next(iter(package.__path__)))
+
+SAFETY_NOTE = (
+    "This code can move an actuator. Clamp its outputs to the machine's limits, bench-test with "
+    "the load disconnected, keep an independent hardware stop, and follow local codes and the "
+    "machine's own safety standard. orbitfix claims no certification."
+)
+
+# The harness's functions, declared once: in the harness C and in the verifier's cffi definitions.
+HARNESS_DECLARATIONS = """\
+void orbitfix_harness_init(int32_t *out);
+void orbitfix_harness_step_each(const int32_t *in, int32_t *out, size_t count);
+void orbitfix_harness_run(int32_t *state_io, size_t steps, int32_t *record);
+void orbitfix_harness_trace(const int32_t *in, int32_t *out, int32_t *trace);
+size_t orbitfix_harness_state_count(void);
+size_t orbitfix_harness_trace_length(void);
+"""
+
+
+@dataclass(frozen=True)
+class CConstant:
+    name: str
+    literal: str
+    comment: str
+
+
+def environment() -> jinja2.Environment:
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(templates_folder())),
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        autoescape=False,
+    )
+    env.filters["split_lines"] = str.splitlines
+    return env
+
+
+def int_literal(value: int, word_bits: int) -> str:
+    """A literal of the word type that is right on every compiler, the most negative value too."""
+    macro = f"INT{word_bits}_C"
+    if value == -(1 << (word_bits - 1)):
+        return f"(-{macro}({(1 << (word_bits - 1)) - 1}) - 1)"
+    return f"{macro}({value})"
+
+
+def render_model(model: Model, timing: Timing, integrator: Integrator,
+                 plan: FixedPointPlan) -> dict[str, str]:
+    """The firmware files ``NAME.h`` and ``NAME.c`` for one planned model."""
+    names = CNames(model.name)
+    program = plan.program
+    constants, constant_of = _constants(plan)
+    tables, table_of = _tables(program)
+    context = {
+        "names": names,
+        "version": __version__,
+        "model": model,
+        "description": comment_text(model.description or model.name),
+        "model_fingerprint": model.fingerprint(),
+        "program_fingerprint": program.fingerprint(),
+        "timing": timing,
+        "integrator": integrator,
+        "plan": plan,
+        "program": program,
+        "program_kinds": {op.kind for op in program.ops if not op.wraps},
+        "wrap_kinds": {op.kind for op in program.ops if op.wraps},
+        "uses_wrap": any(op.wraps for op in program.ops),
+        "tables": tables,
+        "word_type": f"int{program.word_bits}_t",
+        "wide_type": f"int{program.product_bits}_t",
+        "word_bits": program.word_bits,
+        "states": _state_fields(model, plan, names),
+        "setters": [
+            {"name": names.setter(p.name), "target": names.field(f"{p.name}_target"),
+             "parameter": names.field(p.name), "low": p.low, "high": p.high, "rate": p.rate,
+             "format": f"Q{program.word_bits - f}.{f}", "fraction_bits": f,
+             "fraction_macro": names.macro(f"{p.name}_fraction_bits"),
+             "meaning": comment_text(p.meaning or p.name)}
+            for p, f in zip(model.runtime_parameters,
+                            program.state_fraction_bits[program.model_state_count::2], strict=True)
+        ],
+        "constants": constants,
+        "values": [_value_line(i, op, names, program.state_names, {**constant_of, **table_of},
+                               program.word_bits)
+                   for i, op in enumerate(program.ops)],
+        "next_state": [{"field": names.field(n), "value": f"v{i}"}
+                       for n, i in zip(program.state_names, program.next_state, strict=True)],
+        "safety": SAFETY_NOTE,
+        "rounding_words": ROUNDING_WORDS[program.rounding],
+        "overflow_words": OVERFLOW_WORDS[program.overflow].format(bits=program.word_bits),
+        "comment": comment_text,
+    }
+    env = environment()
+    return {
+        names.header: env.get_template("model.h.j2").render(context),
+        names.source: env.get_template("model.c.j2").render(context),
+    }
+
+
+def render_host_harness(model: Model, program: IntegerProgram) -> str:
+    """The verification-only C that drives the firmware functions in bulk from the host."""
+    names = CNames(model.name)
+    word_bits = program.word_bits
+    return environment().get_template("host_harness.c.j2").render(
+        names=names, fields=[names.field(n) for n in program.state_names],
+        count=len(program.state_names), version=__version__, word_type=f"int{word_bits}_t",
+        declarations=HARNESS_DECLARATIONS)
+
+
+def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dict]:
+    """The state struct's fields: the model's states, then each runtime parameter's current
+    value and target."""
+    program = plan.program
+    meanings = [s.meaning or s.name for s in model.states]
+    reals = [s.initial for s in model.states]
+    for p in model.runtime_parameters:
+        meanings += [f"runtime parameter {p.name} ({p.meaning or 'set at run time'}): its value "
+                     "now, moved toward its target by the step",
+                     f"target for {p.name}; write it with {names.setter(p.name)}()"]
+        reals += [p.value, p.value]
+    return [{"field": names.field(name), "meaning": comment_text(meaning),
+             "initial": int_literal(v, program.word_bits), "initial_real": real,
+             "format": f"Q{program.word_bits - f}.{f}"}
+            for name, meaning, v, real, f in zip(program.state_names, meanings, plan.initial_state,
+                                                 reals, program.state_fraction_bits, strict=True)]
+
+
+def _tables(program: IntegerProgram) -> tuple[list[dict], dict[int, str]]:
+    """One C array per distinct sine table, in order of first use."""
+    tables: list[dict] = []
+    by_content: dict[tuple[int, ...], str] = {}
+    table_of: dict[int, str] = {}
+    for index, op in enumerate(program.ops):
+        if op.kind not in ("sin", "cos"):
+            continue
+        if op.table not in by_content:
+            name = f"sine_table{len(tables)}"
+            by_content[op.table] = name
+            fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
+            tables.append({"name": name, "length": len(op.table),
+                           "entries": [int_literal(v, program.word_bits) for v in op.table],
+                           "comment": f"sin at {len(op.table) - 1} points of one turn (and the "
+                                      f"first again), {fmt}, each rounded once"})
+        table_of[index] = by_content[op.table]
+    return tables, table_of
+
+
+def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
+    """One C constant per distinct stored value and format, in order of first use."""
+    constants: list[CConstant] = []
+    by_key: dict[tuple[int, int], str] = {}
+    constant_of: dict[int, str] = {}
+    bits = plan.program.word_bits
+    for report in plan.constants:
+        key = (report.stored, report.format.fraction_bits)
+        if key not in by_key:
+            name = f"k{len(constants)}"
+            by_key[key] = name
+            exact = "exact" if report.error == 0 else (
+                f"stands for {report.represents:.17g}, error {report.error:+.3g}")
+            constants.append(CConstant(
+                name=name, literal=int_literal(report.stored, bits),
+                comment=comment_text(f"{report.real:.17g} in {report.format.name} "
+                                     f"({report.role}, first use: {report.note}); {exact}")))
+        constant_of[report.index] = by_key[key]
+    return constants, constant_of
+
+
+def _value_line(index: int, op: Op, names: CNames, program_states: tuple[str, ...],
+                constant_of: dict[int, str], word_bits: int) -> dict:
+    a = [f"v{i}" for i in op.args]
+    kind = op.kind
+    family = "turns" if op.wraps else "word"
+    if kind == "state":
+        expression = f"state->{names.field(program_states[op.state])}"
+    elif kind == "const":
+        expression = constant_of[index]
+    elif kind in ("add", "sub", "min", "max"):
+        expression = (f"{kind}_{family}({a[0]}, {op.align[0]}u, {a[1]}, {op.align[1]}u, "
+                      f"{op.shift}u)")
+    elif kind in ("neg", "abs"):
+        expression = f"{kind}_{family}({a[0]}, {op.shift}u)"
+    elif kind == "mul":
+        expression = f"mul_{family}({a[0]}, {a[1]}, {op.shift}u)"
+    elif kind == "scale":
+        expression = f"mul_{family}({a[0]}, {constant_of[index]}, {op.shift}u)"
+    elif kind in ("sin", "cos"):
+        quarter = f"UINT{word_bits}_C({1 << (word_bits - 2)})" if kind == "cos" else "0u"
+        expression = f"sine_lookup({a[0]}, {constant_of[index]}, {op.shift}u, {quarter})"
+    else:
+        raise ValueError(f"no C form for {kind!r}")
+    fmt = f"Q{word_bits - op.fraction_bits}.{op.fraction_bits}"
+    return {"name": f"v{index}", "expression": expression,
+            "note": comment_text(f"{fmt}, {op.note}")}
+
+
+ROUNDING_WORDS = {
+    "truncate": "toward minus infinity (an arithmetic shift right)",
+    "half-up": "to nearest, ties toward plus infinity (add half an LSB, then shift right)",
+    "half-even": "to nearest, ties to the even neighbour",
+}
+OVERFLOW_WORDS = {
+    "saturate": "saturates to",
+    "wrap": "wraps around (modulo 2^{bits}) into",
+}
+
+
+def program_summary(program: IntegerProgram) -> dict[str, int]:
+    """How many operations of each kind the step costs (for reports)."""
+    counts: dict[str, int] = {}
+    for op in program.ops:
+        counts[op.kind] = counts.get(op.kind, 0) + 1
+    return counts

@@ -1,0 +1,1 @@
+"""The model a user writes: expressions, definitions, model files and networks."""

@@ -1,0 +1,401 @@
+"""Networks of coupled oscillators, built from a declarative description into one ordinary model.
+
+A robot's rhythm generator is often N copies of one oscillator, coupled so that each keeps a chosen
+phase lag to the others: four legs in a gait, or the segments of a body in a travelling wave.
+Coupling matrices written by hand are where off-by-one mistakes leave an oscillator uncoupled, so
+here they are generated from the wanted lags, and the result is a plain :class:`Model` (states
+x1, y1, x2, y2, ...) that the whole pipeline -- analysis, code generation, verification -- takes as
+it is. The description (which states belong to which oscillator, the wanted lags) rides along in
+``Model.network`` for the phase-locking analysis (gen/phase_locking.py).
+
+Lag convention: the lag of oscillator i is how much later than oscillator 1 it passes the same
+point of its cycle, in cycles, in [0, 1). Oscillator 1 has lag 0.
+
+Coupling: rotation coupling between Hopf oscillators, the form common in the CPG literature (for
+example Righetti and Ijspeert, "Pattern generators with sensory feedback for the control of
+quadruped locomotion", ICRA 2008; Ijspeert, "Central pattern generators for locomotion control in
+animals and robots: a review", Neural Networks 21, 2008; written here from memory):
+
+    d/dt (x_i, y_i) = F(x_i, y_i) + k * sum over linked j of R(theta_ij) (x_j, y_j)
+
+with R the rotation by theta_ij, the wanted phase of i minus that of j. On the wanted pattern the
+rotated state of j is the state of i, so the coupling only pushes along the radius and the lags are
+an exact solution. cos(theta_ij) and sin(theta_ij) are numbers computed here, so the equations stay
+polynomial and have a fixed-point form.
+
+Phase oscillators with amplitude dynamics (oscillator 'phase_amplitude'; Ijspeert, Crespi, Ryczko
+and Cabelguen, "From swimming to walking with a salamander robot driven by a spinal cord model",
+Science 315, 2007): states theta_i (an angle), r_i, r_dot_i, with sine coupling and phase biases
+
+    theta_i' = 2 pi nu + sum over linked j of r_j w sin(theta_j - theta_i - phi_ij)
+    r_i'' = a (a / 4 (R - r_i) - r_i')
+
+and phi_ij = 2 pi (lag_i - lag_j), so that theta_j - theta_i = phi_ij on the wanted pattern: every
+sine vanishes there, every phase turns at 2 pi nu, and the wanted lags are an exact solution.
+
+Diffusive networks (:func:`build_diffusive_network`): N copies of any single oscillator, with a
+user-given coupling matrix k acting on one chosen state s, s_i' += sum_j k_ij (s_j - s_i): the
+common linear diffusive coupling of identical oscillators (Pikovsky, Rosenblum and Kurths,
+"Synchronization", Cambridge University Press 2001, the chapter on synchronisation of identical
+systems, from memory). The coupling vanishes when all copies are equal, so the in-phase motion is
+the single oscillator's own.
+"""
+
+from __future__ import annotations
+
+import ast
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.definition import FixedPointRequest, Model, Parameter, Rhythm, State
+
+# Four-limb gaits, oscillators in the order left fore, right fore, left hind, right hind (common
+# practice: trot pairs the diagonals, pace the same-side legs, bound the fore and the hind legs,
+# each pair half a cycle from the other; the walk is the lateral sequence LF, RH, RF, LH, a
+# quarter cycle apart).
+LIMBS = ("left_fore", "right_fore", "left_hind", "right_hind")
+GAITS: dict[str, tuple[float, float, float, float]] = {
+    "walk": (0.0, 0.5, 0.75, 0.25),
+    "trot": (0.0, 0.5, 0.5, 0.0),
+    "pace": (0.0, 0.5, 0.0, 0.5),
+    "bound": (0.0, 0.0, 0.5, 0.5),
+}
+PATTERNS = (*GAITS, "chain")
+OSCILLATORS = ("hopf", "phase_amplitude")   # coupled from the wanted lags; others diffusively
+LINKS = ("all", "neighbours")
+
+HOPF_PARAMETERS = {
+    "mu": (1.0, "squared amplitude of each oscillator's cycle (mu > 0 oscillates)"),
+    "omega": (2 * math.pi, "angular frequency of each oscillator, radians per model time unit"),
+    "gamma": (1.0, "convergence gain: how fast each amplitude settles (gamma > 0)"),
+    "k": (0.5, "coupling strength: how hard each oscillator is pulled to its wanted lags"),
+}
+PHASE_PARAMETERS = {
+    "nu": (1.0, "intrinsic frequency of each oscillator, cycles per model time unit"),
+    "R": (1.0, "wanted amplitude of each oscillator"),
+    "a": (20.0, "amplitude convergence rate, per model time unit (critically damped)"),
+    "w": (2.0, "coupling weight: how hard each phase is pulled to its wanted lags"),
+}
+PARAMETERS = {"hopf": HOPF_PARAMETERS, "phase_amplitude": PHASE_PARAMETERS}
+# the start is the wanted pattern moved off by these fractions of a cycle, in turn, so that the
+# analysis can show the network locking by itself (oscillator 1 is the reference, never moved)
+START_OFFSETS = (0.0, 0.12, -0.1, 0.08, -0.06, 0.1, -0.12, 0.05)
+
+
+@dataclass(frozen=True)
+class NetworkLayout:
+    """What the phase-locking analysis needs to know about a network model.
+
+    pattern : str -- gait name, 'chain', or 'custom'.
+    oscillator : str -- the kind of oscillator copied ('hopf').
+    labels : tuple of str -- one name per oscillator (e.g. 'left_fore').
+    members : tuple of tuple of int -- state indices of each oscillator; the first is the one whose
+        upward crossings mark its phase.
+    wanted_lags : tuple of float -- cycles, in [0, 1), relative to oscillator 1.
+    links : tuple of (int, int) -- (i, j): oscillator i is pulled by oscillator j (0-based).
+    phases : tuple of int or None -- for oscillators with a phase state (an angle), its index in
+        each oscillator; the lags are then read from the phases directly.
+    """
+
+    pattern: str
+    oscillator: str
+    labels: tuple[str, ...]
+    members: tuple[tuple[int, ...], ...]
+    wanted_lags: tuple[float, ...]
+    links: tuple[tuple[int, int], ...]
+    phases: tuple[int, ...] | None = None
+
+    @property
+    def count(self) -> int:
+        return len(self.members)
+
+
+def gait_lags(gait: str) -> tuple[float, ...]:
+    """Wanted lags of a four-limb gait (order LF, RF, LH, RH), in cycles."""
+    if gait not in GAITS:
+        raise InputError(f"unknown gait '{gait}' (gaits: {', '.join(GAITS)})")
+    return GAITS[gait]
+
+
+def chain_lags(count: int, waves: float) -> tuple[float, ...]:
+    """Wanted lags along a chain of ``count`` oscillators carrying ``waves`` waves along the body:
+    each oscillator lags its head-side neighbour by waves / count of a cycle (one oscillator per
+    body segment, the common practice for swimming and crawling robots)."""
+    return tuple((i * waves / count) % 1.0 for i in range(count))
+
+
+def build_network(
+    name: str,
+    *,
+    lags: Sequence[float],
+    cycle_hz: float,
+    loop_hz: float,
+    oscillator: str = "hopf",
+    links: str = "all",
+    parameters: Mapping[str, float] | None = None,
+    labels: Sequence[str] | None = None,
+    pattern: str = "custom",
+    description: str = "",
+    fixed_point: FixedPointRequest | None = None,
+    source: str = "python",
+) -> Model:
+    """N coupled copies of one oscillator as a single model, with the wanted lags enforced by
+    rotation coupling (Hopf) or phase biases (phase_amplitude). ``links`` is 'all' (every pair,
+    both ways) or 'neighbours' (a chain)."""
+    count = len(lags)
+    if oscillator not in OSCILLATORS:
+        raise InputError(f"network '{name}': unknown oscillator '{oscillator}' "
+                         f"(networks can copy: {', '.join(OSCILLATORS)})")
+    if count < 2:
+        raise InputError(f"network '{name}': a network needs at least two oscillators")
+    if links not in LINKS:
+        raise InputError(f"network '{name}': links must be one of {', '.join(LINKS)}, got '{links}'")
+    wanted = tuple(float(v) % 1.0 for v in lags)
+    if not all(math.isfinite(v) for v in wanted):
+        raise InputError(f"network '{name}': every lag must be a finite number of cycles")
+    if wanted[0] != 0.0:
+        wanted = tuple((v - wanted[0]) % 1.0 for v in wanted)   # oscillator 1 is the reference
+    names = tuple(labels) if labels is not None else tuple(f"oscillator_{i + 1}" for i in range(count))
+    if len(names) != count:
+        raise InputError(f"network '{name}': {len(names)} labels for {count} oscillators")
+    table = PARAMETERS[oscillator]
+    values = {key: default for key, (default, _) in table.items()}
+    for key, value in (parameters or {}).items():
+        if key not in values:
+            raise InputError(f"network '{name}': a {oscillator} network has no parameter '{key}' "
+                             f"(its parameters are: {', '.join(table)})")
+        values[key] = float(value)
+    if links == "all":
+        pairs = tuple((i, j) for i in range(count) for j in range(count) if i != j)
+    else:
+        pairs = tuple((i, j) for i in range(count) for j in (i - 1, i + 1) if 0 <= j < count)
+    if oscillator == "phase_amplitude":
+        states, equations, layout = _phase_amplitude(wanted, pairs, values, names, pattern)
+        return _network_model(name, description or f"{count} coupled phase oscillators "
+                              f"({pattern})", states, equations, values, table, cycle_hz,
+                              loop_hz, fixed_point, source, layout)
+
+    states, equations = [], []
+    radius = math.sqrt(values["mu"]) if values["mu"] > 0 else 1.0
+    for i in range(count):
+        offset = START_OFFSETS[i % len(START_OFFSETS)]
+        angle = -2 * math.pi * (wanted[i] + offset)
+        states.append(State(f"x{i + 1}", _tidy(radius * math.cos(angle)),
+                            f"output of oscillator {i + 1} ({names[i]})"))
+        states.append(State(f"y{i + 1}", _tidy(radius * math.sin(angle)),
+                            f"quadrature partner of x{i + 1} (a quarter cycle ahead of it)"))
+        x_terms, y_terms = [], []
+        for a, b in pairs:
+            if a != i:
+                continue
+            theta = -2 * math.pi * (wanted[i] - wanted[b])
+            c, s = _tidy(math.cos(theta)), _tidy(math.sin(theta))
+            x_terms += [(c, f"x{b + 1}"), (-s, f"y{b + 1}")]
+            y_terms += [(s, f"x{b + 1}"), (c, f"y{b + 1}")]
+        n = i + 1
+        growth = f"gamma * (mu - x{n}^2 - y{n}^2)"
+        equations.append(f"{growth} * x{n} - omega * y{n}{_coupling(x_terms)}")
+        equations.append(f"{growth} * y{n} + omega * x{n}{_coupling(y_terms)}")
+
+    layout = NetworkLayout(pattern=pattern, oscillator=oscillator, labels=names,
+                           members=tuple((2 * i, 2 * i + 1) for i in range(count)),
+                           wanted_lags=wanted, links=pairs)
+    return _network_model(name, description or f"{count} coupled {oscillator} oscillators "
+                          f"({pattern})", states, equations, values, HOPF_PARAMETERS, cycle_hz,
+                          loop_hz, fixed_point, source, layout)
+
+
+def _network_model(name: str, description: str, states: list[State], equations: list[str],
+                   values: Mapping[str, float], table: Mapping[str, tuple[float, str]],
+                   cycle_hz: float, loop_hz: float, fixed_point: FixedPointRequest | None,
+                   source: str, layout: NetworkLayout) -> Model:
+    """The flattened model of a network, its parameters described by ``table``."""
+    return Model(
+        name=name,
+        description=description,
+        states=tuple(states),
+        parameters=tuple(Parameter(key, values[key], meaning)
+                         for key, (_, meaning) in table.items()),
+        equation_text=tuple(equations),
+        rhythm=Rhythm(float(cycle_hz), float(loop_hz)),
+        fixed_point=fixed_point or FixedPointRequest(),
+        source=source,
+        network=layout,
+    )
+
+
+def _phase_amplitude(wanted: tuple[float, ...], pairs: tuple[tuple[int, int], ...],
+                     values: dict[str, float], names: tuple[str, ...], pattern: str
+                     ) -> tuple[list[State], list[str], NetworkLayout]:
+    """States, equations and layout of a chain or web of phase oscillators with amplitude
+    dynamics, the phase biases phi_ij = 2 pi (lag_i - lag_j) making the wanted lags exact."""
+    states, equations = [], []
+    for i in range(len(wanted)):
+        n = i + 1
+        offset = START_OFFSETS[i % len(START_OFFSETS)]
+        phase = (-2 * math.pi * (wanted[i] + offset)) % (2 * math.pi)
+        states.append(State(f"theta{n}", _tidy(phase), f"phase of oscillator {n} ({names[i]}), "
+                            "radians (modulo 2 pi)", angle=True))
+        states.append(State(f"r{n}", _tidy(0.2 * values["R"]),
+                            f"amplitude of oscillator {n}; its output is r{n} * (1 + cos(theta{n}))"))
+        states.append(State(f"r_dot{n}", 0.0, f"rate of change of r{n}, per model time unit"))
+        terms = []
+        for a, b in pairs:
+            if a != i:
+                continue
+            bias = _tidy(2 * math.pi * (wanted[i] - wanted[b]))
+            shift = "" if bias == 0.0 else (f" - {bias!r}" if bias > 0 else f" + {-bias!r}")
+            terms.append(f"r{b + 1} * sin(theta{b + 1} - theta{n}{shift})")
+        coupling = f" + w * ({' + '.join(terms)})" if terms else ""
+        equations += [f"6.283185307179586 * nu{coupling}", f"r_dot{n}",
+                      f"a * (a / 4 * (R - r{n}) - r_dot{n})"]
+    layout = NetworkLayout(pattern=pattern, oscillator="phase_amplitude", labels=names,
+                           members=tuple((3 * i + 1, 3 * i, 3 * i + 2) for i in range(len(wanted))),
+                           wanted_lags=wanted, links=pairs, phases=tuple(3 * i for i in range(len(wanted))))
+    return states, equations, layout
+
+
+def build_diffusive_network(
+    name: str,
+    base: Model,
+    *,
+    coupling: Sequence[Sequence[float]],
+    coupled_state: str,
+    cycle_hz: float,
+    loop_hz: float,
+    lags: Sequence[float] | None = None,
+    parameters: Mapping[str, float] | None = None,
+    labels: Sequence[str] | None = None,
+    description: str = "",
+    fixed_point: FixedPointRequest | None = None,
+    source: str = "python",
+) -> Model:
+    """N copies of the single oscillator ``base`` with diffusive coupling on ``coupled_state``:
+    s_i' += sum_j coupling[i][j] (s_j - s_i). The matrix is N x N (its diagonal is ignored, being
+    multiplied by s_i - s_i = 0, and must be 0). ``lags`` are the wanted lags in cycles (default:
+    all 0, in phase, what positive coupling of identical oscillators gives)."""
+    if base.network is not None:
+        raise InputError(f"network '{name}': the oscillator '{base.name}' is itself a network; "
+                         "copy a single oscillator")
+    if coupled_state not in base.state_names:
+        raise InputError(f"network '{name}': coupled_state '{coupled_state}' is not a state of "
+                         f"'{base.name}' (its states are: {', '.join(base.state_names)})")
+    if base.angle_mask.any():
+        raise InputError(f"network '{name}': '{base.name}' has an angle state; couple phase "
+                         "oscillators with oscillator = \"phase_amplitude\" instead")
+    matrix = _square_matrix(name, coupling)
+    count = len(matrix)
+    wanted = tuple(float(v) % 1.0 for v in (lags if lags is not None else [0.0] * count))
+    if len(wanted) != count:
+        raise InputError(f"network '{name}': {len(wanted)} lags for a {count} x {count} coupling "
+                         "matrix")
+    if wanted[0] != 0.0:
+        wanted = tuple((v - wanted[0]) % 1.0 for v in wanted)
+    names = tuple(labels) if labels is not None else tuple(f"oscillator_{i + 1}" for i in range(count))
+    if len(names) != count:
+        raise InputError(f"network '{name}': {len(names)} labels for {count} oscillators")
+    base = base.with_parameters(parameters or {})
+    digit = any(s.name[-1].isdigit() for s in base.states)
+    rename = [{s.name: f"{s.name}_{i + 1}" if digit else f"{s.name}{i + 1}" for s in base.states}
+              for i in range(count)]
+    states, equations = [], []
+    target = base.state_names.index(coupled_state)
+    for i in range(count):
+        for k, (state, text) in enumerate(zip(base.states, base.equation_text, strict=True)):
+            new = rename[i][state.name]
+            states.append(State(new, state.initial, f"{state.meaning} (oscillator {i + 1}, "
+                                f"{names[i]})" if state.meaning else f"oscillator {i + 1}, {names[i]}"))
+            equation = _renamed(text, rename[i])
+            if k == target:
+                mine = rename[i][coupled_state]
+                terms = [(matrix[i][j], rename[j][coupled_state]) for j in range(count)
+                         if j != i and matrix[i][j] != 0.0]
+                if terms:
+                    equation = f"{equation} + " + " + ".join(
+                        f"{value!r} * ({other} - {mine})" for value, other in terms)
+            equations.append(equation)
+    # the copies start apart, so that the analysis shows the network locking by itself: copy i
+    # starts at the single oscillator's start with its first two states turned about the origin
+    # by START_OFFSETS[i] of a turn (copy 1 is not moved)
+    n = base.dimension
+    for i in range(count):
+        angle = 2 * math.pi * START_OFFSETS[i % len(START_OFFSETS)]
+        first, second = states[n * i], states[n * i + 1]
+        x, y = first.initial, second.initial
+        states[n * i] = replace_initial(first, _tidy(x * math.cos(angle) - y * math.sin(angle)))
+        states[n * i + 1] = replace_initial(second, _tidy(x * math.sin(angle) + y * math.cos(angle)))
+    pairs = tuple((i, j) for i in range(count) for j in range(count) if i != j and matrix[i][j] != 0.0)
+    layout = NetworkLayout(pattern="custom", oscillator=base.name, labels=names,
+                           members=tuple(tuple(range(n * i, n * (i + 1))) for i in range(count)),
+                           wanted_lags=wanted, links=pairs)
+    return Model(
+        name=name,
+        description=description or f"{count} diffusively coupled {base.name} oscillators",
+        states=tuple(states),
+        parameters=base.parameters,
+        equation_text=tuple(equations),
+        rhythm=Rhythm(float(cycle_hz), float(loop_hz)),
+        fixed_point=fixed_point or FixedPointRequest(),
+        source=source,
+        network=layout,
+    )
+
+
+def replace_initial(state: State, initial: float) -> State:
+    return State(state.name, float(initial), state.meaning, state.angle)
+
+
+def _square_matrix(name: str, coupling: Sequence[Sequence[float]]) -> list[list[float]]:
+    """The coupling matrix as floats, checked square (at least 2 x 2), finite, zero diagonal."""
+    rows = [list(row) for row in coupling] if isinstance(coupling, Sequence) else []
+    count = len(rows)
+    if count < 2 or any(len(row) != count for row in rows):
+        raise InputError(f"network '{name}': the coupling must be a square matrix of at least 2 x 2 "
+                         "numbers, one row per oscillator, e.g. [[0, 0.5], [0.5, 0]]")
+    matrix = []
+    for i, row in enumerate(rows):
+        values = []
+        for j, value in enumerate(row):
+            if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+                raise InputError(f"network '{name}': coupling row {i + 1}, column {j + 1} must be a "
+                                 f"finite number, got {value!r}")
+            if i == j and value != 0:
+                raise InputError(f"network '{name}': coupling row {i + 1}, column {j + 1} is on the "
+                                 "diagonal and must be 0 (an oscillator is not coupled to itself)")
+            values.append(float(value))
+        matrix.append(values)
+    return matrix
+
+
+def _renamed(text: str, names: Mapping[str, str]) -> str:
+    """An equation's text with its state names replaced (parameters and functions kept)."""
+    tree = ast.parse(text.strip().replace("^", "**"), mode="eval")
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Name) and node.id in names:
+            node.id = names[node.id]
+    return ast.unparse(tree)
+
+
+def _tidy(value: float) -> float:
+    """Snap rounding noise: cos(pi / 2) is 0, cos(pi) is -1, so such terms fold away exactly."""
+    nearest = round(value * 2) / 2
+    return nearest if abs(value - nearest) < 1e-12 else value
+
+
+def _coupling(terms: list[tuple[float, str]]) -> str:
+    """' + k * (c1 * s1 + c2 * s2 ...)' with zero coefficients left out and unit ones unwritten."""
+    parts = []
+    for coefficient, state in terms:
+        if coefficient == 0.0:
+            continue
+        sign = "-" if coefficient < 0 else "+"
+        size = abs(coefficient)
+        body = state if size == 1.0 else f"{size!r} * {state}"
+        parts.append(f"{sign} {body}")
+    if not parts:
+        return ""
+    text = " ".join(parts)
+    text = text[2:] if text.startswith("+ ") else "-" + text[2:]
+    return f" + k * ({text})"

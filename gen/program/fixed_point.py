@@ -1,0 +1,415 @@
+"""The fixed-point planner: chooses the Q format from the signals' ranges on the cycle, rounds every
+constant once, and fills the integer part of the program.
+
+Q formats are written Qm.n: m integer bits counting the sign bit, n fraction bits, m + n = word
+size; Q8.24 holds [-128, 128) in steps of 2**-24 (common practice).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from fractions import Fraction
+
+import numpy as np
+
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.definition import Parameter
+from orbitfix.gen.program.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
+from orbitfix.gen.program.lowering import evaluate_real
+from orbitfix.gen.program.ranges import interval_ranges, planning_box, to_turns
+
+
+@dataclass(frozen=True)
+class QFormat:
+    """A signed two's complement fixed-point format."""
+
+    word_bits: int
+    fraction_bits: int
+
+    @property
+    def name(self) -> str:
+        return f"Q{self.word_bits - self.fraction_bits}.{self.fraction_bits}"
+
+    @property
+    def largest(self) -> float:
+        return ((1 << (self.word_bits - 1)) - 1) / 2.0 ** self.fraction_bits
+
+    @property
+    def step(self) -> float:
+        return 2.0 ** -self.fraction_bits
+
+
+@dataclass(frozen=True)
+class ConstantReport:
+    """One rounded constant: what it stands for, what is stored and what that really means."""
+
+    index: int
+    note: str
+    real: float
+    stored: int
+    format: QFormat
+    role: str
+
+    @property
+    def represents(self) -> float:
+        return float(Fraction(self.stored, 1 << self.format.fraction_bits))
+
+    @property
+    def error(self) -> float:
+        return self.represents - self.real
+
+    def to_json(self) -> dict:
+        return {"value_index": self.index, "note": self.note, "real": self.real,
+                "stored": self.stored, "represents": self.represents, "error": self.error,
+                "format": self.format.name, "role": self.role}
+
+
+@dataclass(frozen=True)
+class FixedPointPlan:
+    """The chosen formats and the fully planned integer program.
+
+    signal_format -- the format every state shares (one scale reads the whole state vector);
+    each intermediate value has its own format, in ``program.ops[i].fraction_bits``.
+    largest_signal -- the largest state magnitude met on the cycle.
+    signal_ranges -- per value, (min, max) met on the cycle (and at the initial state).
+    sure_bounds -- per value, (min, max) by interval arithmetic over the planning box: no step
+    from a state in the box can exceed them, and every format holds them times the margin.
+    """
+
+    signal_format: QFormat
+    largest_signal: float
+    largest_signal_note: str
+    margin: float
+    program: IntegerProgram
+    constants: tuple[ConstantReport, ...]
+    initial_state: tuple[int, ...]
+    warnings: tuple[str, ...]
+    signal_ranges: tuple[tuple[float, float], ...] = ()
+    sure_bounds: tuple[tuple[float, float], ...] = ()
+    box: tuple[tuple[float, float], ...] = ()
+
+    def value_format(self, index: int) -> QFormat:
+        return QFormat(self.program.word_bits, self.program.ops[index].fraction_bits)
+
+    def signal_table(self) -> list[dict]:
+        """One row per value of the step: its range on the cycle, its sure bound over the box,
+        its format, the headroom between format and sure bound, and its quantisation step."""
+        rows = []
+        for index, op in enumerate(self.program.ops):
+            fmt = self.value_format(index)
+            low, high = self.signal_ranges[index]
+            sure_low, sure_high = self.sure_bounds[index]
+            peak = max(abs(sure_low), abs(sure_high))
+            rows.append({
+                "value": index, "kind": op.kind, "note": op.note, "min": low, "max": high,
+                "sure_min": sure_low, "sure_max": sure_high, "format": fmt.name,
+                "headroom_bits": math.log2(fmt.largest / peak) if peak else float(fmt.word_bits - 1),
+                "quantisation_step": fmt.step,
+            })
+        return rows
+
+    def planned_limits(self) -> list[int]:
+        """Per value, the largest magnitude (in its own integer units) the plan allows for: its
+        sure bound times the margin, capped at the word. A value beyond it in a run means the
+        run left the planned box."""
+        word_max = self.program.word_max
+        if not self.sure_bounds:
+            return [word_max] * len(self.program.ops)
+        limits = []
+        for index, (low, high) in enumerate(self.sure_bounds):
+            scale = 2.0 ** self.program.ops[index].fraction_bits
+            limits.append(int(min(word_max, math.floor(max(abs(low), abs(high)) * self.margin
+                                                       * scale))))
+        return limits
+
+    @property
+    def headroom_bits(self) -> float:
+        if self.largest_signal == 0:
+            return float(self.signal_format.word_bits - 1)
+        return math.log2(self.signal_format.largest / self.largest_signal)
+
+    def formats_json(self) -> dict:
+        """The Q format of every state, intermediate and constant (the verify report's
+        ``formats``)."""
+        return {
+            "states": {name: self.signal_format.name for name in self.program.state_names},
+            "signals": [self.value_format(i).name for i in range(len(self.program.ops))],
+            "constants": [c.to_json() for c in self.constants],
+            "box": [list(b) for b in self.box],
+            "word_bits": self.program.word_bits,
+            "product_bits": self.program.product_bits,
+            "rounding": self.program.rounding,
+            "overflow": self.program.overflow,
+            "margin": self.margin,
+            "largest_state_on_cycle": self.largest_signal,
+            "headroom_bits": self.headroom_bits,
+        }
+
+
+def quantise(real: float, fraction_bits: int) -> int:
+    """round(real * 2**fraction_bits), exact, ties to even: the one rule for rounding constants."""
+    return round(Fraction(real) * (1 << fraction_bits))
+
+
+def integer_bits_for(peak: float) -> int:
+    """Integer bits, sign included, that hold magnitudes up to ``peak`` (at least 1)."""
+    if peak <= 0:
+        return 1
+    bits = 1 + max(0, math.ceil(math.log2(peak)))
+    return bits + 1 if peak >= 2.0 ** (bits - 1) else bits
+
+
+def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.ndarray,
+                     margin: float = 2.0, fraction_bits: int | None = None,
+                     word_bits: int = 32, rounding: str = "half-up",
+                     overflow: str = "saturate", box_scale: float = 1.5,
+                     runtime: tuple[Parameter, ...] = ()) -> FixedPointPlan:
+    """Plan formats for ``program``.
+
+    samples : ndarray, shape (n_states, k) -- states on the cycle.
+    initial : ndarray, shape (n_states,) -- the initial state, which must be representable.
+    margin : float -- every format holds its value's sure bound times ``margin`` (2 = one bit).
+    fraction_bits : int -- the states' format, if the user sets it; else chosen from the bounds.
+    word_bits, rounding, overflow -- the integer semantics (see ``gen.integer_program``).
+    box_scale : float -- the planning box is the cycle's bounding box widened by this factor.
+    runtime : the model's runtime parameters, in the program's order: each holds its whole
+        [low, high] range, and its current value and target share one format.
+    """
+    _check_choice("word size", word_bits, WORD_SIZES)
+    _check_choice("rounding", rounding, ROUNDINGS)
+    _check_choice("overflow mode", overflow, OVERFLOWS)
+    if margin < 1:
+        raise InputError(f"the range margin must be at least 1, got {margin}")
+    n = program.model_state_count
+    angles = program.angle_states
+    samples = np.array(samples, dtype=float)
+    initial = np.array(initial, dtype=float)
+    for i in angles:  # angle states are planned, and held, in turns
+        samples[i], initial[i] = to_turns(samples[i]), to_turns(initial[i])
+    nominal = [v for p in runtime for v in (p.value, p.value)]
+    points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
+    points = np.vstack([points, np.repeat(np.reshape(nominal, (-1, 1)), points.shape[1], axis=1)])
+    met = tuple((float(np.min(v)), float(np.max(v))) for v in evaluate_real(program, points))
+    low, high = planning_box(samples, initial, box_scale, angles)
+    low = np.concatenate([low, [v for p in runtime for v in (p.low, p.low)]])
+    high = np.concatenate([high, [v for p in runtime for v in (p.high, p.high)]])
+    sure = interval_ranges(program, low, high)
+    peaks = [max(abs(a), abs(b)) for a, b in sure]
+    if not all(math.isfinite(p) for p in peaks):
+        raise InputError("a signal of the step is not finite over the planning box; the step size "
+                         "is too large for this model or the model has no bounded cycle")
+    states = [i for i, op in enumerate(program.ops)
+              if op.kind == "state" and op.state < n and op.state not in angles]
+    if not states:
+        raise InputError("the model has only angle states; give it at least one other state")
+    plain_next = [v for i, v in enumerate(program.next_state[:n]) if i not in angles]
+    state_peak = max(peaks[i] for i in [*states, *plain_next])
+    warnings: list[str] = []
+    needed = integer_bits_for(state_peak * margin)
+    if fraction_bits is None:
+        fraction_bits = word_bits - needed
+        if fraction_bits < 1:
+            raise InputError(f"the states reach {state_peak:.4g} over the planning box; with a "
+                             f"margin of {margin} they do not fit a {word_bits}-bit word")
+    else:
+        if not 1 <= fraction_bits <= word_bits - 1:
+            raise InputError(f"fraction bits must be between 1 and {word_bits - 1}, "
+                             f"got {fraction_bits}")
+        fmt = QFormat(word_bits, fraction_bits)
+        if state_peak >= fmt.largest:
+            raise InputError(
+                f"format {fmt.name} overflows: the states reach {state_peak:.6g} over the planning "
+                f"box but {fmt.name} holds at most {fmt.largest:.6g}; use at most "
+                f"{word_bits - integer_bits_for(state_peak)} fraction bits (or leave the choice to "
+                "the planner)")
+        if state_peak * margin >= fmt.largest:
+            warnings.append(f"format {fmt.name} leaves less headroom than the margin of {margin}: "
+                            f"the states reach {state_peak:.6g} of {fmt.largest:.6g}")
+    state_format = QFormat(word_bits, fraction_bits)
+    formats = [word_bits if i in angles else fraction_bits for i in range(n)]
+    for p in runtime:  # a runtime parameter's value and target share a format holding its range
+        bits = word_bits - integer_bits_for(max(abs(p.low), abs(p.high)) * margin)
+        formats += [bits, bits]
+    ops, constants = _fill(program, formats, [p * margin for p in peaks], word_bits)
+    initial_ints = tuple(quantise(x, f) if i in angles else
+                         _state_integer(x, QFormat(word_bits, f), name)
+                         for i, (x, f, name) in enumerate(zip([*initial, *nominal], formats,
+                                                              program.state_names, strict=True)))
+    planned = replace(program, ops=tuple(ops), word_bits=word_bits, product_bits=2 * word_bits,
+                      rounding=rounding, overflow=overflow, state_fraction_bits=tuple(formats))
+    state_met = [max(abs(met[i][0]), abs(met[i][1])) for i in states]
+    worst = states[int(np.argmax(state_met))]
+    return FixedPointPlan(signal_format=state_format, largest_signal=max(state_met),
+                          largest_signal_note=program.ops[worst].note, margin=margin,
+                          program=planned, constants=tuple(constants),
+                          initial_state=initial_ints, warnings=tuple(warnings),
+                          signal_ranges=met, sure_bounds=tuple(sure),
+                          box=tuple(zip(low.tolist(), high.tolist(), strict=True)))
+
+
+def _check_choice(what: str, value: object, choices: tuple) -> None:
+    if value not in choices:
+        raise InputError(f"unknown {what} {value!r} (choose one of: "
+                         f"{', '.join(str(c) for c in choices)})")
+
+
+def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float],
+          w: int) -> tuple[list, list[ConstantReport]]:
+    """Give every value its format and every operation its alignments and shift (words of w
+    bits)."""
+    ops = program.ops
+    forced = {value: state_formats[i] for i, value in enumerate(program.next_state)}
+    forced.update({i: state_formats[op.state] for i, op in enumerate(ops) if op.kind == "state"})
+    forced.update({i: w for i, op in enumerate(ops) if op.wraps})  # angles: a word is one turn
+    forced.update({i: w - 2 for i, op in enumerate(ops) if op.kind in ("sin", "cos")})
+    constant_formats = {i: _constant_format(op.real, w, op.note) for i, op in enumerate(ops)
+                        if op.kind in ("const", "scale")}
+    bits: list[int] = []
+    for index, op in enumerate(ops):
+        natural = w - integer_bits_for(bounds[index])
+        f_args = [bits[i] for i in op.args]
+        if index in forced:
+            f = forced[index]
+        elif op.kind == "const":
+            f = min(constant_formats[index].fraction_bits, natural)
+        elif op.kind in ("add", "sub", "min", "max"):
+            f = min(natural, max(f_args))
+        elif op.kind == "mul":
+            f = min(natural, f_args[0] + f_args[1])
+        elif op.kind == "scale":
+            f = min(natural, f_args[0] + constant_formats[index].fraction_bits)
+        else:  # neg, abs: the operand's own format holds the result (the word's edge saturates)
+            f = f_args[0]
+        bits.append(f)
+    while _limit_alignment(ops, bits, forced, w) | _cap_to_operands(ops, bits, constant_formats):
+        pass
+    filled: list = []
+    constants: list[ConstantReport] = []
+    for index, op in enumerate(ops):
+        f = bits[index]
+        f_args = [bits[i] for i in op.args]
+        if op.kind == "const":
+            fmt = QFormat(w, f)
+            stored = quantise(op.real, f)
+            if abs(stored) > (1 << (w - 1)) - 1:
+                raise InputError(f"the constant {op.real:.6g} ({op.note}) does not fit {fmt.name}")
+            op = replace(op, constant=stored)
+            constants.append(ConstantReport(index, op.note, op.real, stored, fmt, "added"))
+        elif op.kind == "scale":
+            own = constant_formats[index]
+            stored = quantise(op.real, own.fraction_bits)
+            op = replace(op, constant=stored, shift=f_args[0] + own.fraction_bits - f)
+            constants.append(ConstantReport(index, op.note, op.real, stored, own, "multiplier"))
+        elif op.kind == "mul":
+            op = replace(op, shift=f_args[0] + f_args[1] - f)
+        elif op.kind in ("add", "sub", "min", "max"):
+            top = max(*f_args, f)
+            op = replace(op, align=tuple(top - g for g in f_args), shift=top - f)
+        elif op.kind in ("neg", "abs"):
+            op = replace(op, shift=f_args[0] - f)
+        elif op.kind in ("sin", "cos"):
+            index_bits = sine_table_bits(w, f)
+            op = replace(op, table=sine_table(index_bits, f), shift=w - index_bits)
+        filled.append(replace(op, fraction_bits=f))
+    return filled, constants
+
+
+def sine_table_bits(word_bits: int, fraction_bits: int) -> int:
+    """Index bits of the sine table: the fewest for which linear interpolation's error,
+    (2 pi / 2**bits)**2 / 8 at most (the second derivative of sin is at most 1), stays below one
+    step of the result's format; at most 12 (4097 entries)."""
+    lsb = 2.0 ** -fraction_bits
+    bits = 4
+    while bits < min(12, word_bits - 2) and (2 * math.pi / 2**bits) ** 2 / 8 > lsb:
+        bits += 1
+    return bits
+
+
+def sine_table(index_bits: int, fraction_bits: int) -> tuple[int, ...]:
+    """sin over one turn at 2**index_bits + 1 points (the last repeats the first), each rounded
+    once in the result's format."""
+    count = 1 << index_bits
+    return tuple(quantise(math.sin(2 * math.pi * k / count), fraction_bits)
+                 for k in range(count + 1))
+
+
+def sine_error_bound(word_bits: int, fraction_bits: int) -> float:
+    """The stated largest error of the sine table with interpolation: the interpolation's own
+    error plus half a step for rounding each entry and one step for rounding the product."""
+    bits = sine_table_bits(word_bits, fraction_bits)
+    return (2 * math.pi / 2**bits) ** 2 / 8 + 1.5 * 2.0 ** -fraction_bits
+
+
+def _cap_to_operands(ops: tuple, bits: list[int], constant_formats: dict) -> bool:
+    """No result is finer than its exact value: a product has at most the sum of its factors'
+    fraction bits, a negation or absolute value its operand's. Returns True if anything changed."""
+    changed = False
+    for index, op in enumerate(ops):
+        f_args = [bits[i] for i in op.args]
+        if op.kind == "mul":
+            cap = f_args[0] + f_args[1]
+        elif op.kind == "scale":
+            cap = f_args[0] + constant_formats[index].fraction_bits
+        elif op.kind in ("neg", "abs"):
+            cap = f_args[0]
+        else:
+            continue
+        if bits[index] > cap or (op.kind in ("neg", "abs") and bits[index] != cap):
+            bits[index] = cap
+            changed = True
+    return changed
+
+
+def _limit_alignment(ops: tuple, bits: list[int], forced: set[int], w: int) -> bool:
+    """Keep every aligned operand within 2 * w - 3 bits of the wide type: no operand of a sum may
+    be shifted left by more than w - 2. Where that would happen, the finer value (or result)
+    is given fewer fraction bits, which never makes it overflow. Returns True if anything
+    changed."""
+    changed_any = False
+    changed = True
+    while changed:
+        changed = False
+        for index, op in enumerate(ops):
+            if op.kind not in ("add", "sub", "min", "max"):
+                continue
+            coarse = min(bits[i] for i in op.args)
+            ceiling = coarse + w - 2
+            for i in op.args:
+                if bits[i] > ceiling:
+                    if ops[i].kind == "state" or i in forced:
+                        raise InputError(f"operation {index} ({op.note}) adds values whose "
+                                         "formats are too far apart for the word; rescale the model")
+                    bits[i] = ceiling
+                    changed = True
+            if bits[index] > ceiling:
+                if index in forced:
+                    raise InputError(f"operation {index} ({op.note}) adds values whose formats are "
+                                     "too far apart for the word; rescale the model")
+                bits[index] = ceiling
+                changed = True
+        changed_any |= changed
+    return changed_any
+def _constant_format(real: float, word_bits: int, note: str) -> QFormat:
+    """The format with the most fraction bits that still holds a multiplier in one word.
+
+    The shift after the product may not exceed 2 * word_bits - 2, so the widened product is
+    never shifted by its full width.
+    """
+    limit = (1 << (word_bits - 1)) - 1
+    if real == 0:
+        return QFormat(word_bits, word_bits - 1)
+    bits = min(2 * word_bits - 2, word_bits - 1 - math.floor(math.log2(abs(real))))
+    while bits >= 0 and abs(quantise(real, bits)) > limit:
+        bits -= 1
+    if bits < 0:
+        raise InputError(f"the multiplier {real:.6g} ({note}) is too large for a "
+                         f"{word_bits}-bit word; rescale the model")
+    return QFormat(word_bits, bits)
+
+
+def _state_integer(value: float, fmt: QFormat, name: str) -> int:
+    if abs(value) >= fmt.largest:
+        raise InputError(f"the initial value {value} of '{name}' does not fit {fmt.name} "
+                         f"(largest {fmt.largest:.6g}); start nearer the cycle")
+    return quantise(value, fmt.fraction_bits)

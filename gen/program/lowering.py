@@ -1,0 +1,309 @@
+"""Lowering: the model's equations and an integrator's tableau at a fixed step, as straight-line
+operations with real constants (the structure of the integer program, before any format is chosen).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+from fractions import Fraction
+
+import numpy as np
+import sympy
+
+from orbitfix.gen.errors import UnsupportedError
+from orbitfix.gen.model.definition import Model, Parameter
+from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.timing.integrators import Integrator
+
+
+def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProgram:
+    """One integrator step of ``model`` with step size ``step`` (model time units)."""
+    builder = _Builder(model)
+    names = model.state_names
+    start = [builder.add(Op("state", state=i, note=name)) for i, name in enumerate(names)]
+    angle_states = tuple(i for i, s in enumerate(model.states) if s.angle)
+    builder.angles.update(start[i] for i in angle_states)
+    runtime = model.runtime_parameters
+    current, target = [], []
+    for k, p in enumerate(runtime):
+        current.append(builder.add(Op("state", state=len(names) + 2 * k, note=p.name)))
+        target.append(builder.add(Op("state", state=len(names) + 2 * k + 1,
+                                     note=f"{p.name} target")))
+    builder.parameters = dict(zip((sympy.Symbol(p.name, real=True) for p in runtime), current,
+                                  strict=True))
+    if integrator.sweep:
+        finish = list(start)
+        for i, name in enumerate(names):
+            slope = builder.slope(finish, stage=i + 1, only=i)[0]
+            finish[i] = builder.combine(start[i], [(Fraction(step), slope,
+                                                   f"h times the slope of {name}")],
+                                        f"next {name}", angle=i in angle_states)
+    else:
+        slopes: list[list[int]] = []
+        for stage, row in enumerate(integrator.a, start=1):
+            if any(row):
+                point = [builder.combine(start[i], _terms(step, row, slopes, i, names[i]),
+                                         f"stage {stage} point, {names[i]}",
+                                         angle=i in angle_states)
+                         for i in range(len(names))]
+            else:
+                point = start
+            slopes.append(builder.slope(point, stage))
+        finish = [builder.combine(start[i], _terms(step, integrator.b, slopes, i, names[i]),
+                                  f"next {names[i]}", angle=i in angle_states)
+                  for i in range(len(names))]
+    ramps = [builder.ramp(p, cur, tgt, model.rhythm.loop_hz)
+             for p, cur, tgt in zip(runtime, current, target, strict=True)]
+    extra_names = tuple(n for p in runtime for n in (p.name, f"{p.name}_target"))
+    extra_next = tuple(v for ramp, tgt in zip(ramps, target, strict=True) for v in (ramp, tgt))
+    return IntegerProgram(name=model.name, state_names=names + extra_names,
+                          ops=tuple(builder.ops), next_state=tuple(finish) + extra_next,
+                          model_states=len(names), angle_states=angle_states)
+
+
+def _terms(step: float, weights: tuple[Fraction, ...], slopes: list[list[int]], state: int,
+           name: str) -> list[tuple[Fraction, int, str]]:
+    """The weighted slopes h * w_j * k_j of one state, labelled for the C comments."""
+    return [(Fraction(step) * w, k[state], f"h*{w} times slope {j} of {name}")
+            for j, (w, k) in enumerate(zip(weights, slopes, strict=False), start=1)]
+
+
+TURN = Fraction(2 * math.pi)  # radians in a turn (as the float nearest 2 pi)
+
+
+class _Builder:
+    """Appends operations, sharing identical ones, and walks sympy expressions."""
+
+    def __init__(self, model: Model) -> None:
+        self.model = model
+        self.ops: list[Op] = []
+        self.seen: dict[tuple, int] = {}
+        self.symbols = model.state_symbols
+        self.equations = model.fixed_equations
+        self.parameters: dict[sympy.Symbol, int] = {}
+        self.angles: set[int] = set()  # values that are angles held in turns
+
+    def add(self, op: Op) -> int:
+        key = (op.kind, op.args, op.state, op.real, op.wraps)
+        if key in self.seen:
+            return self.seen[key]
+        self.ops.append(op)
+        self.seen[key] = len(self.ops) - 1
+        return len(self.ops) - 1
+
+    def constant(self, value: Fraction, note: str) -> int:
+        return self.add(Op("const", real=float(value), note=note))
+
+    def scaled(self, value: int, factor: Fraction, note: str) -> int:
+        if factor == 1:
+            return value
+        if factor == -1:
+            return self.add(Op("neg", (value,), note=note))
+        return self.add(Op("scale", (value,), real=float(factor), note=note))
+
+    def angle_op(self, op: Op) -> int:
+        """An operation whose result is an angle in turns (it wraps at a full turn)."""
+        index = self.add(replace(op, wraps=True))
+        self.angles.add(index)
+        return index
+
+    def combine(self, base: int, terms: list[tuple[Fraction, int, str]], note: str,
+                angle: bool = False) -> int:
+        """base + sum(weight * value), skipping zero weights. For an angle state the weighted
+        rates (radians) are turned into turns and the sums wrap at a full turn."""
+        total = base
+        for weight, value, label in terms:
+            if weight == 0:
+                continue
+            if value in self.angles:
+                raise UnsupportedError(f"model '{self.model.name}': {note} adds an angle as a "
+                                       "rate; only sin and cos of an angle can enter a rate")
+            kind = "sub" if weight < 0 else "add"
+            if angle:
+                term = self.scaled(value, abs(weight) / TURN, f"{label}, in turns")
+                total = self.angle_op(Op(kind, (total, term), note=note))
+            else:
+                total = self.add(Op(kind, (total, self.scaled(value, abs(weight), label)),
+                                    note=note))
+        return total
+
+    def turns(self, value: int, note: str) -> int:
+        """An angle in turns from a plain value in radians."""
+        if value in self.angles:
+            return value
+        return self.angle_op(Op("scale", (value,), real=float(1 / TURN), note=f"{note}, in turns"))
+
+    def ramp(self, parameter: Parameter, current: int, target: int, loop_hz: float) -> int:
+        """The parameter's value after one step: toward its target (held in [low, high]) by at
+        most rate / loop_hz, or all the way when it has no rate."""
+        name = parameter.name
+        held = self.add(Op("max", (target, self.constant(Fraction(parameter.low), f"{name} low")),
+                           note=f"{name} target, at least its low limit"))
+        held = self.add(Op("min", (held, self.constant(Fraction(parameter.high), f"{name} high")),
+                           note=f"{name} target, held in its range"))
+        if parameter.rate is None:
+            return held
+        step = Fraction(parameter.rate) / Fraction(loop_hz)
+        change = self.add(Op("sub", (held, current), note=f"{name}: distance to its target"))
+        change = self.add(Op("max", (change, self.constant(-step, f"{name} largest fall per step")),
+                             note=f"{name}: change, limited"))
+        change = self.add(Op("min", (change, self.constant(step, f"{name} largest rise per step")),
+                             note=f"{name}: change, limited"))
+        return self.add(Op("add", (current, change), note=f"next {name}"))
+
+    def slope(self, point: list[int], stage: int, only: int | None = None) -> list[int]:
+        """Values of f at the stage point, one per state (or of state ``only`` alone)."""
+        table = {**self.parameters, **dict(zip(self.symbols, point, strict=True))}
+        memo: dict[sympy.Expr, int] = {}
+        chosen = range(len(self.equations)) if only is None else [only]
+        return [self.expression(self.equations[i], table, memo, stage, self.model.state_names[i])
+                for i in chosen]
+
+    def expression(self, expr: sympy.Expr, table: dict, memo: dict, stage: int, name: str) -> int:
+        if expr in memo:
+            return memo[expr]
+        result = self._expression(expr, table, memo, stage, name)
+        memo[expr] = result
+        return result
+
+    def _expression(self, expr: sympy.Expr, table: dict, memo: dict, stage: int, name: str) -> int:
+        note = f"stage {stage}: {sympy.sstr(expr)}"
+        walk = lambda e: self.expression(e, table, memo, stage, name)  # noqa: E731
+        if expr in table:
+            return table[expr]
+        if expr.is_Number:
+            return self.constant(_exact(expr), note)
+        if isinstance(expr, sympy.sin | sympy.cos):
+            kind = "sin" if isinstance(expr, sympy.sin) else "cos"
+            return self.add(Op(kind, (self.turns(walk(expr.args[0]), note),), note=note))
+        if expr.is_Add and any(self._is_angle(t, table) for t in expr.args):
+            return self._angle_sum(expr, table, walk, note, name)
+        if expr.is_Add:
+            terms = sorted(expr.args, key=_has_negative_sign)
+            first = terms[0]
+            if _has_negative_sign(first):
+                total = self.add(Op("neg", (walk(-first),), note=note))
+            else:
+                total = walk(first)
+            for term in terms[1:]:
+                if _has_negative_sign(term):
+                    total = self.add(Op("sub", (total, walk(-term)), note=note))
+                else:
+                    total = self.add(Op("add", (total, walk(term)), note=note))
+            return total
+        if expr.is_Mul and any(self._is_angle(f, table) for f in expr.args):
+            coefficient, factors = expr.as_coeff_mul()
+            if coefficient == -1 and len(factors) == 1:
+                return self.angle_op(Op("neg", (walk(factors[0]),), note=note))
+            raise self._angle_misuse(expr, name)
+        if expr.is_Mul:
+            coefficient, factors = expr.as_coeff_mul()
+            product = None
+            for factor in factors:
+                value = walk(factor)
+                product = value if product is None else self.add(Op("mul", (product, value),
+                                                                    note=note))
+            if product is None:
+                return self.constant(_exact(coefficient), note)
+            return self.scaled(product, _exact(coefficient), note)
+        if expr.is_Pow:
+            base, exponent = expr.args
+            if not (exponent.is_Integer and int(exponent) >= 1):
+                raise UnsupportedError(
+                    f"model '{self.model.name}', equation for '{name}': '{sympy.sstr(expr)}' "
+                    "divides by a signal, which fixed point cannot do safely; rewrite the model "
+                    "so that only constants divide")
+            value = walk(base)
+            result = value
+            for _ in range(int(exponent) - 1):
+                result = self.add(Op("mul", (result, value), note=note))
+            return result
+        if isinstance(expr, sympy.Min | sympy.Max):
+            kind = "min" if isinstance(expr, sympy.Min) else "max"
+            values = [walk(arg) for arg in expr.args]
+            result = values[0]
+            for value in values[1:]:
+                result = self.add(Op(kind, (result, value), note=note))
+            return result
+        if isinstance(expr, sympy.Abs):
+            return self.add(Op("abs", (walk(expr.args[0]),), note=note))
+        raise UnsupportedError(f"model '{self.model.name}', equation for '{name}': "
+                               f"'{sympy.sstr(expr)}' has no fixed-point form yet")
+
+    def _is_angle(self, expr: sympy.Expr, table: dict) -> bool:
+        """Whether a subexpression stands for an angle: an angle state, or a sum of angles."""
+        if expr in table:
+            return table[expr] in self.angles
+        if expr.is_Mul:
+            return any(self._is_angle(f, table) for f in expr.as_coeff_mul()[1])
+        if expr.is_Add:
+            return any(self._is_angle(t, table) for t in expr.args)
+        return False
+
+    def _angle_misuse(self, expr: sympy.Expr, name: str) -> UnsupportedError:
+        return UnsupportedError(
+            f"model '{self.model.name}', equation for '{name}': '{sympy.sstr(expr)}' uses an "
+            "angle in a way that has no fixed-point form: an angle may only be added to or "
+            "subtracted from angles and constants, negated, or passed to sin and cos")
+
+    def _angle_sum(self, expr: sympy.Expr, table: dict, walk, note: str, name: str) -> int:
+        """A sum of angles and constant offsets (in radians), as a wrapping sum in turns."""
+        total = None
+        for term in sorted(expr.args, key=_has_negative_sign):
+            negative = _has_negative_sign(term)
+            magnitude = -term if negative else term
+            if magnitude.is_Number:
+                value = self.angle_op(Op("const", real=float(_exact(magnitude) / TURN),
+                                         note=f"{sympy.sstr(magnitude)} rad, in turns"))
+            elif self._is_angle(magnitude, table):
+                value = walk(magnitude)
+            else:
+                raise self._angle_misuse(expr, name)
+            if total is None:
+                total = self.angle_op(Op("neg", (value,), note=note)) if negative else value
+            else:
+                total = self.angle_op(Op("sub" if negative else "add", (total, value), note=note))
+        return total
+
+
+def _has_negative_sign(term: sympy.Expr) -> bool:
+    return term.could_extract_minus_sign()
+
+
+def _exact(number: sympy.Expr) -> Fraction:
+    """The exact rational value of a sympy number (a float's exact binary value)."""
+    if number.is_Rational:
+        return Fraction(int(number.p), int(number.q))
+    return Fraction(float(number))
+
+
+def evaluate_real(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
+    """Every value of the program in float64 with its real constants and no rounding: the
+    integrator's step map at layer L1. ``states`` : ndarray, shape (n_states, batch)."""
+    values: list[np.ndarray] = []
+    for op in program.ops:
+        a = [values[i] for i in op.args]
+        if op.kind == "state":
+            values.append(np.asarray(states[op.state], dtype=float))
+        elif op.kind == "const":
+            values.append(np.full(np.shape(states[0]), op.real))
+        else:
+            values.append(_REAL[op.kind](op, a))
+        if op.wraps:
+            values[-1] = np.mod(values[-1] + 0.5, 1.0) - 0.5
+    return values
+
+
+_REAL = {
+    "add": lambda op, a: a[0] + a[1],
+    "sub": lambda op, a: a[0] - a[1],
+    "neg": lambda op, a: -a[0],
+    "abs": lambda op, a: np.abs(a[0]),
+    "min": lambda op, a: np.minimum(a[0], a[1]),
+    "max": lambda op, a: np.maximum(a[0], a[1]),
+    "mul": lambda op, a: a[0] * a[1],
+    "scale": lambda op, a: a[0] * op.real,
+    "sin": lambda op, a: np.sin(2 * np.pi * a[0]),
+    "cos": lambda op, a: np.cos(2 * np.pi * a[0]),
+}

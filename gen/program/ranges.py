@@ -1,0 +1,76 @@
+"""Range analysis of every value of the step: sure bounds by interval arithmetic over the
+operation graph, for every state in a box at once.
+
+A bound from interval arithmetic holds for every state of the box, so a format sized from it can
+never overflow on a step that starts in the box; it is wider than the values really met on the
+cycle (each operation forgets how its inputs are related), which the planner reports beside it.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from orbitfix.gen.program.integer_program import IntegerProgram
+
+
+def interval_ranges(program: IntegerProgram, low: np.ndarray,
+                    high: np.ndarray) -> list[tuple[float, float]]:
+    """Bounds (lo, hi) of every value of one step from any state with low <= x <= high."""
+    bounds: list[tuple[float, float]] = []
+    for op in program.ops:
+        a = [bounds[i] for i in op.args]
+        kind = op.kind
+        if kind == "state":
+            bounds.append((float(low[op.state]), float(high[op.state])))
+        elif kind == "const":
+            bounds.append((op.real, op.real))
+        elif kind == "add":
+            bounds.append((a[0][0] + a[1][0], a[0][1] + a[1][1]))
+        elif kind == "sub":
+            bounds.append((a[0][0] - a[1][1], a[0][1] - a[1][0]))
+        elif kind == "neg":
+            bounds.append((-a[0][1], -a[0][0]))
+        elif kind == "abs":
+            lo, hi = a[0]
+            bounds.append((0.0 if lo <= 0 <= hi else min(abs(lo), abs(hi)), max(abs(lo), abs(hi))))
+        elif kind == "min":
+            bounds.append((min(a[0][0], a[1][0]), min(a[0][1], a[1][1])))
+        elif kind == "max":
+            bounds.append((max(a[0][0], a[1][0]), max(a[0][1], a[1][1])))
+        elif kind == "mul":
+            if op.args[0] == op.args[1]:  # a square is never negative
+                lo, hi = a[0]
+                top = max(lo * lo, hi * hi)
+                bounds.append((0.0 if lo <= 0 <= hi else min(lo * lo, hi * hi), top))
+            else:
+                corners = [x * y for x in a[0] for y in a[1]]
+                bounds.append((min(corners), max(corners)))
+        elif kind == "scale":
+            corners = [a[0][0] * op.real, a[0][1] * op.real]
+            bounds.append((min(corners), max(corners)))
+        elif kind in ("sin", "cos"):
+            bounds.append((-1.0, 1.0))
+        else:
+            raise ValueError(f"no interval rule for {kind!r}")
+        if op.wraps:  # an angle in turns, wrapped into half a turn either way
+            bounds[-1] = (-0.5, 0.5)
+    return bounds
+
+
+def planning_box(samples: np.ndarray, initial: np.ndarray, scale: float,
+                 angles: tuple[int, ...] = ()) -> tuple[np.ndarray, np.ndarray]:
+    """The states the plan must hold: the cycle's bounding box (with the initial state) widened
+    about its centre by ``scale``; an angle state (in turns) holds the whole turn."""
+    points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
+    low, high = points.min(axis=1), points.max(axis=1)
+    centre, half = 0.5 * (low + high), 0.5 * (high - low)
+    half = np.maximum(half * scale, 1e-9)
+    low, high = centre - half, centre + half
+    for i in angles:
+        low[i], high[i] = -0.5, 0.5
+    return low, high
+
+
+def to_turns(radians: np.ndarray) -> np.ndarray:
+    """Angles in radians as turns wrapped into [-1/2, 1/2)."""
+    return np.mod(np.asarray(radians, dtype=float) / (2 * np.pi) + 0.5, 1.0) - 0.5

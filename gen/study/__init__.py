@@ -1,0 +1,1 @@
+"""Studies of the stepped cycle: the integer map's period and amplitude, and plan searches."""

@@ -1,0 +1,212 @@
+"""The cycle of the stepped model: how the float step map (L1) and the integer program (L2) keep
+the continuous cycle's frequency and amplitude, and the lowest loop rate that still keeps it.
+
+Both maps are run from a batch of points spread along the continuous cycle, so one vectorised run
+measures many cycles at once. The period is the mean time between upward crossings of the first
+state through the middle of its range, each crossing placed between two steps by linear
+interpolation.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from orbitfix.gen.errors import InputError, UnsupportedError
+from orbitfix.gen.model.definition import FixedPointRequest, Model
+from orbitfix.gen.program import golden
+from orbitfix.gen.program.fixed_point import plan_fixed_point
+from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.program.lowering import evaluate_real, lower_step
+from orbitfix.gen.timing.integrators import Integrator
+
+START_POINTS = 24
+
+
+@dataclass(frozen=True)
+class CycleTolerance:
+    """How far a stepped cycle may stray from the continuous one and still count as kept.
+
+    frequency_ppm : float -- largest frequency error, parts per million (1000 ppm = 0.1 %).
+    amplitude : float -- largest relative error of any state's half range (0.02 = 2 %).
+    """
+
+    frequency_ppm: float = 1000.0
+    amplitude: float = 0.02
+
+
+@dataclass(frozen=True)
+class SteppedCycle:
+    """What a stepped map does from points on the continuous cycle."""
+
+    kept: bool
+    verdict: str
+    period_steps: float | None
+    frequency_error_ppm: float | None
+    amplitude: tuple[float, ...] | None
+    amplitude_error: float | None
+
+    def to_json(self) -> dict:
+        return {"kept": self.kept, "verdict": self.verdict, "period_steps": self.period_steps,
+                "frequency_error_ppm": self.frequency_error_ppm,
+                "amplitude": list(self.amplitude) if self.amplitude else None,
+                "amplitude_error": self.amplitude_error}
+
+
+NO_ANGLES = ("the stepped-cycle measurements do not handle angle states (phases) yet: they time "
+             "the cycle by a state that swings rather than turns")
+
+
+def _refuse_angles(program: IntegerProgram) -> None:
+    if program.angle_states:
+        raise UnsupportedError(NO_ANGLES)
+
+
+def measure(step: Callable[[np.ndarray], np.ndarray], start: np.ndarray, steps: int,
+            wanted_period_steps: float, cycle_min: np.ndarray, cycle_max: np.ndarray,
+            tolerance: CycleTolerance) -> SteppedCycle:
+    """Run ``step`` (a map on arrays of shape (n_states, batch)) from ``start`` and compare the
+    cycle it settles on with the continuous one (given in the same units as the states)."""
+    level = 0.5 * (cycle_min[0] + cycle_max[0])
+    half_range = 0.5 * (np.asarray(cycle_max) - np.asarray(cycle_min))
+    state = np.array(start)
+    first = np.empty((steps + 1, state.shape[1]))
+    first[0] = state[0]
+    tail = max(2, math.ceil(wanted_period_steps * 1.5))
+    low = np.full(state.shape, np.inf)
+    high = np.full(state.shape, -np.inf)
+    for k in range(steps):
+        state = step(state)
+        first[k + 1] = state[0]
+        if k >= steps - tail:
+            low = np.minimum(low, state)
+            high = np.maximum(high, state)
+        if not np.all(np.isfinite(state)):
+            return SteppedCycle(False, "the stepped map grows without bound", None, None, None, None)
+    amplitude = np.mean(0.5 * (high - low), axis=1)
+    amplitude_error = float(np.max(np.abs(amplitude / half_range - 1)))
+    crossings = _crossing_periods(first, level)
+    if crossings.size == 0 or amplitude_error > 0.5:
+        shrink = np.all(amplitude < 0.5 * half_range)
+        verdict = ("the stepped map collapses toward an equilibrium or a small cycle" if shrink
+                   else "the stepped map leaves the continuous cycle")
+        return SteppedCycle(False, verdict, None, None, tuple(float(a) for a in amplitude),
+                            amplitude_error)
+    period = float(np.mean(crossings))
+    error_ppm = (wanted_period_steps / period - 1) * 1e6
+    kept = abs(error_ppm) <= tolerance.frequency_ppm and amplitude_error <= tolerance.amplitude
+    verdict = ("keeps the cycle within tolerance" if kept else
+               f"keeps a cycle, but off by {error_ppm:+.0f} ppm in frequency and "
+               f"{100 * amplitude_error:.2f} % in amplitude")
+    return SteppedCycle(kept, verdict, period, error_ppm, tuple(float(a) for a in amplitude),
+                        amplitude_error)
+
+
+def _crossing_periods(first_state: np.ndarray, level: float) -> np.ndarray:
+    """Times between upward crossings of ``level``, skipping each trajectory's first crossing."""
+    below = first_state[:-1] < level
+    above = first_state[1:] >= level
+    periods = []
+    for j in range(first_state.shape[1]):
+        steps = np.flatnonzero(below[:, j] & above[:, j])
+        if steps.size < 3:
+            continue
+        a, b = first_state[steps, j], first_state[steps + 1, j]
+        times = steps + (level - a) / (b - a)
+        periods.extend(np.diff(times[1:]))
+    return np.asarray(periods, dtype=float)
+
+
+def start_points(samples: np.ndarray, count: int = START_POINTS) -> np.ndarray:
+    """``count`` points spread evenly in time along the continuous cycle, shape (n, count)."""
+    index = np.linspace(0, samples.shape[1], count, endpoint=False).astype(int)
+    return samples[:, index]
+
+
+def float_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_steps: float,
+                cycle_min: np.ndarray, cycle_max: np.ndarray, cycles: float = 6.0,
+                tolerance: CycleTolerance | None = None) -> SteppedCycle:
+    """The float step map's cycle (layer L1) against the continuous one (L0)."""
+    _refuse_angles(program)
+
+    def step(x: np.ndarray) -> np.ndarray:
+        values = evaluate_real(program, x)
+        return np.stack([values[i] for i in program.next_state])
+
+    steps = math.ceil(cycles * wanted_period_steps)
+    return measure(step, start_points(samples), steps, wanted_period_steps, cycle_min, cycle_max,
+                   tolerance or CycleTolerance())
+
+
+def integer_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_steps: float,
+                  cycle_min: np.ndarray, cycle_max: np.ndarray, cycles: float = 6.0,
+                  tolerance: CycleTolerance | None = None, points: int = START_POINTS) -> SteppedCycle:
+    """The integer program's cycle (layer L2) against the continuous one (L0), in real units."""
+    _refuse_angles(program)
+    scale = 2.0 ** np.array(program.state_fraction_bits, dtype=float).reshape(-1, 1)
+    start = np.round(start_points(samples, points) * scale).astype(np.int64)
+    word_max = program.word_max
+
+    def step(x: np.ndarray) -> np.ndarray:
+        ints = golden.step(program, np.round(x * scale).astype(np.int64))
+        out = ints / scale
+        if np.any(np.abs(ints) >= word_max):
+            out[:, np.any(np.abs(ints) >= word_max, axis=0)] = np.inf  # at the word's edge
+        return out
+
+    steps = math.ceil(cycles * wanted_period_steps)
+    return measure(step, start / scale, steps, wanted_period_steps, cycle_min, cycle_max,
+                   tolerance or CycleTolerance())
+
+
+def lowest_loop_rate(model: Model, integrator: Integrator, period: float, samples: np.ndarray,
+                     cycle_min: np.ndarray, cycle_max: np.ndarray,
+                     tolerance: CycleTolerance | None = None, precision: float = 0.02) -> float | None:
+    """The lowest loop rate (Hz) at which the integer program still keeps the cycle within
+    tolerance, by bisection on a log scale between 4 times the cycle frequency and the model's
+    loop rate, to within ``precision`` (relative) above the true limit. None if the model's own
+    loop rate does not keep it (see :func:`needed_loop_rate`)."""
+    tolerance = tolerance or CycleTolerance()
+    request: FixedPointRequest = model.fixed_point
+    cycle_hz = model.rhythm.cycle_hz
+
+    def keeps(loop_hz: float) -> bool:
+        steps_per_cycle = loop_hz / cycle_hz
+        program = lower_step(model, integrator, period * cycle_hz / loop_hz)
+        try:
+            plan = plan_fixed_point(program, samples, model.initial_state, margin=request.margin,
+                                    fraction_bits=request.fraction_bits,
+                                    word_bits=request.word_bits, rounding=request.rounding,
+                                    overflow=request.overflow)
+        except InputError:
+            return False
+        return integer_cycle(plan.program, samples, steps_per_cycle, cycle_min, cycle_max,
+                             cycles=3.0, tolerance=tolerance, points=8).kept
+
+    low, high = 4.0 * cycle_hz, model.rhythm.loop_hz
+    if not keeps(high):
+        return None
+    if keeps(low):
+        return low
+    while high / low > 1 + precision:
+        middle = math.sqrt(low * high)
+        if keeps(middle):
+            high = middle
+        else:
+            low = middle
+    return high
+
+
+def needed_loop_rate(loop_hz: float, cycle: SteppedCycle, integrator: Integrator,
+                     tolerance: CycleTolerance) -> float | None:
+    """A first-order estimate of the loop rate at which a cycle that misses its frequency
+    tolerance would meet it: the error of an order-p integrator scales as h**p."""
+    if cycle.frequency_error_ppm is None:
+        return None
+    ratio = abs(cycle.frequency_error_ppm) / tolerance.frequency_ppm
+    if ratio <= 1:
+        return loop_hz
+    return loop_hz * ratio ** (1.0 / integrator.order)

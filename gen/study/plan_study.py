@@ -1,0 +1,197 @@
+"""Studies that help choose a plan: how each integrator keeps the cycle at the loop rate, and a
+search for the cheapest word size and integrator that keep it within tolerance."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.fan_out import fan_out
+from orbitfix.gen.pipeline import Design, design
+from orbitfix.gen.program.integer_program import WORD_SIZES
+from orbitfix.gen.study.discrete_cycle import (
+    CycleTolerance,
+    SteppedCycle,
+    float_cycle,
+    integer_cycle,
+    lowest_loop_rate,
+    needed_loop_rate,
+)
+from orbitfix.gen.timing.integrators import INTEGRATORS
+
+
+@dataclass(frozen=True)
+class IntegratorStudy:
+    """One integrator at the model's loop rate, in the model's word size."""
+
+    integrator: str
+    operations: int
+    products: int
+    float_cycle: SteppedCycle
+    integer_cycle: SteppedCycle
+    lowest_loop_hz: float | None
+    needed_loop_hz: float | None
+
+    def to_json(self) -> dict:
+        return {"integrator": self.integrator, "operations": self.operations,
+                "products": self.products, "float_map": self.float_cycle.to_json(),
+                "integer_map": self.integer_cycle.to_json(),
+                "lowest_loop_hz": self.lowest_loop_hz, "needed_loop_hz": self.needed_loop_hz}
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One word size and integrator tried by the search, with its cost and outcome."""
+
+    word_bits: int
+    integrator: str
+    signal_format: str
+    products: int
+    operations: int
+    cycle: SteppedCycle | None
+    problem: str = ""
+
+    @property
+    def cost(self) -> tuple[int, int, int]:
+        """Cheaper first: a narrower word, then fewer products, then fewer operations."""
+        return (self.word_bits, self.products, self.operations)
+
+    @property
+    def kept(self) -> bool:
+        return self.cycle is not None and self.cycle.kept
+
+    def to_json(self) -> dict:
+        return {"word_bits": self.word_bits, "integrator": self.integrator,
+                "format": self.signal_format, "products": self.products,
+                "operations": self.operations, "kept": self.kept,
+                "cycle": self.cycle.to_json() if self.cycle else None, "problem": self.problem}
+
+
+@dataclass(frozen=True)
+class SearchResult:
+    """The cheapest candidate that keeps the cycle, and which tolerance binds it."""
+
+    best: Candidate | None
+    binding: str
+    candidates: tuple[Candidate, ...]
+
+    def to_json(self) -> dict:
+        return {"best": self.best.to_json() if self.best else None, "binding": self.binding,
+                "candidates": [c.to_json() for c in self.candidates]}
+
+
+@dataclass(frozen=True)
+class CoefficientEffect:
+    """How much rounding the constants alone moves the stepped cycle: the float step map with the
+    constants' real values against the same map with the values the stored integers stand for."""
+
+    frequency_shift_ppm: float | None
+    amplitude_shift: float | None
+    worst_constants: tuple[str, ...]
+    warning: str | None
+
+    def to_json(self) -> dict:
+        return {"frequency_shift_ppm": self.frequency_shift_ppm,
+                "amplitude_shift": self.amplitude_shift,
+                "worst_constants": list(self.worst_constants), "warning": self.warning}
+
+
+def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -> CoefficientEffect:
+    """Measure the cycle shift caused by quantising the constants, and warn past the tolerance."""
+    tolerance = tolerance or CycleTolerance()
+    program = built.plan.program
+    represented = {c.index: c.represents for c in built.plan.constants}
+    rounded = replace(program, ops=tuple(replace(op, real=represented[i]) if i in represented
+                                          else op for i, op in enumerate(program.ops)))
+    cycle = built.analysis.cycle
+    loose = CycleTolerance(frequency_ppm=1e9, amplitude=1e9)
+    exact, quantised = (float_cycle(p, cycle.samples, built.timing.steps_per_cycle,
+                                    cycle.state_min, cycle.state_max, tolerance=loose)
+                        for p in (program, rounded))
+    ranked = sorted(built.plan.constants, key=lambda c: -abs(c.error / c.real) if c.real else 0.0)
+    worst = tuple(f"{c.note} ({c.error / c.real:+.2e})" for c in ranked[:3] if c.real and c.error)
+    if exact.period_steps is None or quantised.period_steps is None:
+        return CoefficientEffect(None, None, worst, "the float step map keeps no cycle to compare")
+    frequency = (exact.period_steps / quantised.period_steps - 1) * 1e6
+    amplitude = max(abs(q / e - 1) for q, e in zip(quantised.amplitude, exact.amplitude, strict=True))
+    warning = None
+    if abs(frequency) > tolerance.frequency_ppm or amplitude > tolerance.amplitude:
+        warning = (f"rounding the constants alone moves the cycle by {frequency:+.1f} ppm in "
+                   f"frequency and {100 * amplitude:.3f} % in amplitude, past the tolerance; the "
+                   f"largest relative errors: {', '.join(worst)}")
+    return CoefficientEffect(frequency, amplitude, worst, warning)
+
+
+def _counts(built: Design) -> tuple[int, int]:
+    ops = built.plan.program.ops
+    return len(ops), sum(op.kind in ("mul", "scale") for op in ops)
+
+
+def _cycle_of(built: Design, tolerance: CycleTolerance, integer: bool) -> SteppedCycle:
+    cycle = built.analysis.cycle
+    measure = integer_cycle if integer else float_cycle
+    return measure(built.plan.program, cycle.samples, built.timing.steps_per_cycle,
+                   cycle.state_min, cycle.state_max, tolerance=tolerance)
+
+
+def study_integrators(base: Design, tolerance: CycleTolerance | None = None) -> list[IntegratorStudy]:
+    """Every registered integrator at the base design's loop rate and number format."""
+    tolerance = tolerance or CycleTolerance()
+    studies = []
+    for name, integrator in INTEGRATORS.items():
+        built = design(base.model.with_fixed_point(integrator=name), analysis=base.analysis)
+        operations, products = _counts(built)
+        floats = _cycle_of(built, tolerance, integer=False)
+        ints = _cycle_of(built, tolerance, integer=True)
+        cycle = built.analysis.cycle
+        lowest = lowest_loop_rate(built.model, integrator, cycle.period, cycle.samples,
+                                  cycle.state_min, cycle.state_max, tolerance)
+        needed = None if lowest else needed_loop_rate(built.timing.loop_hz, ints, integrator,
+                                                      tolerance)
+        studies.append(IntegratorStudy(name, operations, products, floats, ints, lowest, needed))
+    return studies
+
+
+def _try(base: Design, word_bits: int, name: str, tolerance: CycleTolerance) -> Candidate:
+    try:
+        built = design(base.model.with_fixed_point(integrator=name, word_bits=word_bits,
+                                                   fraction_bits=None),
+                       analysis=base.analysis)
+    except InputError as exc:
+        return Candidate(word_bits, name, "-", 0, 0, None, problem=str(exc))
+    operations, products = _counts(built)
+    return Candidate(word_bits, name, built.plan.signal_format.name, products, operations,
+                     _cycle_of(built, tolerance, integer=True))
+
+
+def search(base: Design, tolerance: CycleTolerance | None = None, workers: int | None = None,
+           scheduler: object | None = None) -> SearchResult:
+    """Try every word size and integrator (over a local process pool, or the Dask cluster at
+    ``scheduler``), and pick the cheapest that keeps the cycle within tolerance at the model's
+    loop rate."""
+    tolerance = tolerance or CycleTolerance()
+    jobs = [(base, w, name, tolerance) for w in WORD_SIZES for name in INTEGRATORS]
+    candidates = fan_out(_try, jobs, workers, scheduler)
+    candidates.sort(key=lambda c: c.cost)
+    best = next((c for c in candidates if c.kept), None)
+    cheaper = [c for c in candidates if best is None or c.cost < best.cost]
+    return SearchResult(best, _binding(best, cheaper[-1] if cheaper else None, tolerance),
+                        tuple(candidates))
+
+
+def _binding(best: Candidate | None, cheaper: Candidate | None, tolerance: CycleTolerance) -> str:
+    """Which tolerance is nearest its limit for the chosen candidate, and what the next cheaper
+    candidate broke."""
+    if best is None or best.cycle is None:
+        return "no candidate keeps the cycle within tolerance"
+    why_not = ""
+    if cheaper is not None:
+        reason = cheaper.problem or (cheaper.cycle.verdict if cheaper.cycle else "")
+        why_not = f"; the next cheaper ({cheaper.word_bits}-bit {cheaper.integrator}) fails: {reason}"
+    frequency = abs(best.cycle.frequency_error_ppm or 0.0) / tolerance.frequency_ppm
+    amplitude = (best.cycle.amplitude_error or 0.0) / tolerance.amplitude
+    if frequency >= amplitude:
+        return (f"frequency: {abs(best.cycle.frequency_error_ppm or 0):.1f} ppm of the "
+                f"{tolerance.frequency_ppm:g} ppm allowed{why_not}")
+    return (f"amplitude: {100 * (best.cycle.amplitude_error or 0):.3f} % of the "
+            f"{100 * tolerance.amplitude:g} % allowed{why_not}")

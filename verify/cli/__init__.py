@@ -1,0 +1,1 @@
+"""The command line: one module per verb and the options they share."""

@@ -1,0 +1,1 @@
+"""The proofs: bit-exact agreement, long-run drift and the lattice certificate."""

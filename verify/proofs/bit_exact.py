@@ -1,0 +1,219 @@
+"""The bit-exact proof: compiled C (layer L3) against the golden interpreter (layer L2).
+
+Two parts: one step from each of many random states spread over the whole word range, and a long
+trajectory from the initial state in which every single step is compared. A mismatch names the
+first failing step, the state before it, what was expected and got, and the operation of the
+integer program where the two part.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from orbitfix.gen.program import golden
+from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.verify.targets.host_build import HostModule
+
+SEED = 20261202
+CHUNK = 1 << 16  # golden batches small enough to stay in cache
+
+
+@dataclass(frozen=True)
+class Mismatch:
+    """Where C and golden first disagree."""
+
+    part: str
+    step: int
+    state_before: list[int]
+    expected: list[int]
+    got: list[int]
+    operation: dict | None
+    fraction_bits: int
+
+    def to_json(self) -> dict:
+        scale = 2.0 ** -self.fraction_bits
+        return {
+            "part": self.part,
+            "step": self.step,
+            "state_before": self.state_before,
+            "state_before_real": [v * scale for v in self.state_before],
+            "expected": self.expected,
+            "got": self.got,
+            "operation": self.operation,
+        }
+
+    def describe(self) -> str:
+        where = (f"step {self.step} of the trajectory" if self.part == "trajectory"
+                 else f"random state number {self.step}")
+        lines = [f"first mismatch at {where}",
+                 f"  state before: {self.state_before}",
+                 f"  expected:     {self.expected}",
+                 f"  got:          {self.got}"]
+        if self.operation is None:
+            lines.append("  every intermediate value agrees; the difference is in how the C stores "
+                         "the next state")
+        else:
+            op = self.operation
+            lines.append(f"  they part at operation {op['index']} ({op['kind']}: {op['note']}): "
+                         f"expected {op['expected']}, got {op['got']}")
+        return "\n".join(lines)
+
+
+@dataclass
+class BitExactReport:
+    """The outcome of both parts of the proof."""
+
+    states_compared: int = 0
+    steps_compared: int = 0
+    first_mismatch: Mismatch | None = None
+    seconds: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def bit_exact(self) -> bool:
+        return self.first_mismatch is None
+
+
+def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
+                  rng: np.random.Generator) -> np.ndarray:
+    """States spread over the word's whole range, the cycle's neighbourhood, the edges of
+    saturation and the smallest values. typical : ndarray, shape (n_states,), integer magnitudes
+    of the states on the cycle. Returns int64 ndarray, shape (n_states, count)."""
+    n = len(program.state_names)
+    low, high = program.word_min, program.word_max
+    quarter = count // 4
+    spread = rng.integers(low, high, size=(n, count - 3 * quarter), endpoint=True)
+    reach = np.maximum(2 * np.asarray(typical, dtype=np.int64), 16).reshape(-1, 1)
+    near_cycle = rng.integers(-reach, reach, size=(n, quarter), endpoint=True)
+    edges = np.where(rng.random((n, quarter)) < 0.5, low, high) - np.sign(
+        rng.random((n, quarter)) - 0.5).astype(np.int64) * rng.integers(0, 1 << 12, (n, quarter))
+    edges = np.clip(edges, low, high)
+    small = rng.integers(-(1 << 10), 1 << 10, size=(n, quarter), endpoint=True)
+    return np.hstack([spread, near_cycle, edges, small]).astype(np.int64)
+
+
+def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarray,
+                    typical: np.ndarray, states: int = 1_000_000, steps: int = 1_000_000,
+                    segment: int = 64, block: int = 1 << 18, seed: int = SEED) -> BitExactReport:
+    """Compare C and golden on ``states`` random states and a ``steps``-step trajectory."""
+    report = BitExactReport()
+    _check_shape(program, host)
+    started = time.perf_counter()
+    rng = np.random.default_rng(seed)
+    batch = random_states(program, states, typical, rng)
+    got = _c_step_each(host, batch)
+    for first in range(0, states, CHUNK):
+        want = golden.step(program, batch[:, first:first + CHUNK])
+        bad = np.flatnonzero(np.any(got[:, first:first + CHUNK] != want, axis=0))
+        if bad.size:
+            k = first + int(bad[0])
+            report.states_compared = k + 1
+            report.seconds["random_states"] = time.perf_counter() - started
+            report.first_mismatch = _locate(program, host, "random states", k, batch[:, k],
+                                            want[:, int(bad[0])], got[:, k])
+            return report
+    report.states_compared = states
+    report.seconds["random_states"] = time.perf_counter() - started
+    started = time.perf_counter()
+    report.steps_compared, report.first_mismatch = _trajectory(
+        program, host, np.asarray(initial, dtype=np.int64), steps, segment, block)
+    report.seconds["trajectory"] = time.perf_counter() - started
+    return report
+
+
+def _check_shape(program: IntegerProgram, host: HostModule) -> None:
+    from orbitfix.gen.errors import InputError
+
+    n = int(host.lib.orbitfix_harness_state_count())
+    if n != len(program.state_names):
+        raise InputError(f"the C declares {n} states but the model has "
+                         f"{len(program.state_names)}; the sources belong to another model")
+
+
+def _c_step_each(host: HostModule, batch: np.ndarray) -> np.ndarray:
+    flat_in = np.ascontiguousarray(batch.T, dtype=np.int32)
+    flat_out = np.empty_like(flat_in)
+    ffi = host.ffi
+    host.lib.orbitfix_harness_step_each(ffi.from_buffer("int32_t[]", flat_in),
+                                         ffi.from_buffer("int32_t[]", flat_out), flat_in.shape[0])
+    return flat_out.T.astype(np.int64)
+
+
+def _c_run(host: HostModule, state: np.ndarray, steps: int) -> tuple[np.ndarray, np.ndarray]:
+    ffi = host.ffi
+    io = np.ascontiguousarray(state, dtype=np.int32).copy()
+    record = np.empty((steps, io.size), dtype=np.int32)
+    host.lib.orbitfix_harness_run(ffi.from_buffer("int32_t[]", io), steps,
+                                  ffi.from_buffer("int32_t[]", record))
+    return io.astype(np.int64), record.astype(np.int64)
+
+
+def _trajectory(program: IntegerProgram, host: HostModule, initial: np.ndarray, steps: int,
+                segment: int, block: int) -> tuple[int, Mismatch | None]:
+    """Run C in blocks; in each block golden runs freely from every ``segment``-th C state (the
+    checkpoints) for ``segment`` steps, vectorised over the checkpoints, and every step is compared
+    with the C's record. Returns (steps compared, first mismatch or None)."""
+    block = max(segment, block - block % segment)
+    state = initial
+    done = 0
+    while done < steps:
+        count = min(block, steps - done)
+        end_state, record = _c_run(host, state, count)
+        before = np.vstack([state.reshape(1, -1), record[:-1]])  # the state before each step
+        starts = np.arange(0, count, segment)
+        golden_state = before[starts].T
+        for i in range(segment):
+            index = starts + i
+            live = index < count
+            if not live.all():
+                golden_state, index, starts = golden_state[:, live], index[live], starts[live]
+            golden_state = golden.step(program, golden_state)
+            if np.any(golden_state != record[index].T):
+                # Segments advance together, so an earlier global step may also be wrong.
+                first = _earliest_wrong(program, before, record, int(index[-1]))
+                return done + first + 1, _locate(program, host, "trajectory", done + first + 1,
+                                                 before[first], _golden_one(program, before[first]),
+                                                 record[first])
+        done += count
+        state = end_state
+    return done, None
+
+
+def _golden_one(program: IntegerProgram, state: np.ndarray) -> np.ndarray:
+    return golden.step(program, state.reshape(-1, 1))[:, 0]
+
+
+def _earliest_wrong(program: IntegerProgram, before: np.ndarray, record: np.ndarray,
+                    candidate: int) -> int:
+    """The first step (index into ``record``) at or below ``candidate`` where one golden step from
+    the C's own previous state differs from the C."""
+    upto = candidate + 1
+    want = golden.step(program, before[:upto].T)
+    wrong = np.flatnonzero(np.any(want != record[:upto].T, axis=0))
+    return int(wrong[0]) if wrong.size else candidate
+
+
+def _locate(program: IntegerProgram, host: HostModule, part: str, step: int, before: np.ndarray,
+            expected: np.ndarray, got: np.ndarray) -> Mismatch:
+    """Trace one step in both back ends and name the first operation whose value differs."""
+    ffi = host.ffi
+    length = int(host.lib.orbitfix_harness_trace_length())
+    state_in = np.ascontiguousarray(before, dtype=np.int32)
+    state_out = np.empty_like(state_in)
+    trace = np.zeros(max(length, len(program.ops)), dtype=np.int32)
+    host.lib.orbitfix_harness_trace(ffi.from_buffer("int32_t[]", state_in),
+                                    ffi.from_buffer("int32_t[]", state_out),
+                                    ffi.from_buffer("int32_t[]", trace))
+    values = golden.evaluate(program, state_in.astype(np.int64).reshape(-1, 1))
+    operation = None
+    for index, (op, value) in enumerate(zip(program.ops, values, strict=True)):
+        if index >= length or int(trace[index]) != int(value[0]):
+            operation = {"index": index, "kind": op.kind, "note": op.note,
+                         "args": list(op.args), "expected": int(value[0]),
+                         "got": int(trace[index]) if index < length else None}
+            break
+    return Mismatch(part=part, step=step, state_before=[int(v) for v in before],
+                    expected=[int(v) for v in expected], got=[int(v) for v in got],
+                    operation=operation, fraction_bits=program.state_fraction_bits[0])

@@ -1,0 +1,84 @@
+"""The host verification run: take the generated C (or C already in a firmware tree), build it with
+the harness through cffi, and prove it bit-exact against the golden interpreter."""
+
+from __future__ import annotations
+
+import re
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.naming import CNames
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.pipeline import Design
+from orbitfix.verify.proofs.bit_exact import BitExactReport, prove_bit_exact
+from orbitfix.verify.targets.host_build import build_host_module
+
+PROGRAM_MARK = re.compile(r"integer program ([0-9a-f]{16})")
+
+
+@dataclass
+class HostCheck:
+    """What the host verification found, plus where the sources came from."""
+
+    sources: str
+    report: BitExactReport
+    build_seconds: float
+    build_reused: bool
+    notes: list[str] = field(default_factory=list)
+
+
+def read_sources(design: Design, folder: Path) -> tuple[dict[str, str], list[str]]:
+    """The firmware files NAME.h and NAME.c from a firmware tree, with notes on their origin."""
+    names = CNames(design.model.name)
+    if not folder.is_dir():
+        raise InputError(f"--sources: '{folder}' is not a folder (give the folder that holds "
+                         f"{names.header} and {names.source})")
+    sources = {}
+    for file_name in (names.header, names.source):
+        path = folder / file_name
+        if not path.is_file():
+            raise InputError(f"--sources: '{folder}' has no {file_name}; generate it with "
+                             f"'orbitfix gen {design.model.name} -o {folder}'")
+        try:
+            sources[file_name] = path.read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise InputError(f"--sources: cannot read {path} ({exc})") from None
+    notes = []
+    mark = PROGRAM_MARK.search(sources[names.source])
+    expected = design.plan.program.fingerprint()
+    if mark is None:
+        notes.append(f"{names.source} carries no integer program fingerprint: it was not made by "
+                     "orbitfix or its banner was edited")
+    elif mark.group(1) != expected:
+        notes.append(f"{names.source} was generated from integer program {mark.group(1)}, but this "
+                     f"model now gives {expected}: the model, its parameters or the tool changed")
+    return sources, notes
+
+
+def check_on_host(design: Design, sources_folder: Path | None = None, states: int = 1_000_000,
+                  steps: int = 1_000_000) -> HostCheck:
+    """Build the C on the host and run both parts of the bit-exact proof."""
+    names = CNames(design.model.name)
+    if sources_folder is None:
+        sources = render_model(design.model, design.timing, design.integrator, design.plan)
+        origin, notes = "generated afresh", []
+    else:
+        sources, notes = read_sources(design, sources_folder)
+        origin = str(sources_folder)
+    started = time.perf_counter()
+    harness = render_host_harness(design.model, design.plan.program)
+    host = build_host_module(sources, harness, names.header)
+    build_seconds = time.perf_counter() - started
+    plan = design.plan
+    # The states come first in the program, so value i is state i: its sure bound over the
+    # planning box, in its own integer units, is the size of a typical state.
+    typical = [max(abs(low), abs(high)) * 2.0 ** bits for (low, high), bits in
+               zip(plan.sure_bounds, plan.program.state_fraction_bits, strict=False)]
+    report = prove_bit_exact(plan.program, host, np.array(plan.initial_state, dtype=np.int64),
+                             np.array(typical).astype(np.int64), states=states, steps=steps)
+    return HostCheck(sources=origin, report=report, build_seconds=build_seconds,
+                     build_reused=host.reused, notes=notes)

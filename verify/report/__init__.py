@@ -1,0 +1,1 @@
+"""Every text and JSON rendering of results, fed by the same data."""

@@ -1,0 +1,1 @@
+"""What runs the generated C: the host build through cffi (boards come beside it)."""
