@@ -25,6 +25,7 @@ from orbitfix.verify.cli.options import CAUTION, add_model_arguments, model_from
 from orbitfix.verify.proofs.certificate import DEFAULT_BAND, DEFAULT_TOLERANCE, certify
 from orbitfix.verify.proofs.drift import NO_ANGLES, DriftTolerances, build_drift_module, run_drift
 from orbitfix.verify.proofs.host_check import check_on_host, read_sources
+from orbitfix.verify.report.certificate import certificate_json, certificate_lines
 from orbitfix.verify.targets.host_build import STRICT_FLAGS
 
 # Verbs defined in modules of their own: each module has register(verbs) adding its parser.
@@ -217,7 +218,7 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
     if args.certify and report.bit_exact:
         certificate = certify(built, band=args.band, tolerance=args.tolerance_band,
                               box=parse_box(args.box) or None, exclude_radius=args.exclude_radius)
-        partial["certificate"] = certificate.to_json()
+        partial["certificate"] = certificate_json(certificate)
     if args.json:
         print(json.dumps(plain_json(partial), indent=2))
     else:
@@ -245,7 +246,7 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
             print("long-run drift test: not run, since the C is not bit-exact")
         if certificate is not None:
             print()
-            print("\n".join(certificate.describe()))
+            print("\n".join(certificate_lines(certificate)))
         print(CAUTION)
     passed = (report.bit_exact and (drift is None or drift.verdict == "pass")
               and (certificate is None or certificate.proved))
