@@ -193,7 +193,6 @@ def certify(design: Design, band: float = DEFAULT_BAND, tolerance: float = DEFAU
                  "excluded": excluded, "lattice": lattice} if keep_tables else {}))
 
 
-
 def _check_bands(band: float, tolerance: float, exclude_radius: float) -> None:
     for what, value in (("band", band), ("tolerance", tolerance), ("exclude radius", exclude_radius)):
         if not math.isfinite(value) or value < 0:

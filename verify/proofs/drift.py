@@ -15,6 +15,10 @@ the harness measures, and what this module makes of it:
   cycle times the margin), which holds for both overflow modes;
 - the integer period: a finite-state orbit always ends up periodic; Brent's algorithm finds that
   exact period in steps over the run.
+
+Rooms: the C harness and the calls into it (``drift_harness``), the starts and the float step map
+(``drift_references``); this module judges the runs. The text and JSON renderings are in
+``verify/report/drift.py``.
 """
 
 from __future__ import annotations
@@ -25,28 +29,26 @@ from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
 
-from orbitfix.gen import __version__
-from orbitfix.gen.c.emit import HARNESS_DECLARATIONS, environment, render_host_harness, render_model
-from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.errors import InputError, UnsupportedError
 from orbitfix.gen.pipeline import Design
-from orbitfix.gen.program.lowering import evaluate_real
-from orbitfix.verify.targets.host_build import HostModule, build_host_module
+from orbitfix.verify.proofs.drift_harness import (
+    build_drift_module,
+    crossing_time,
+    cycle_start,
+    harness_statistics,
+    integer_period,
+)
+from orbitfix.verify.proofs.drift_references import (
+    STEP_MAP_CYCLES,
+    Start,
+    StepMapReference,
+    choose_starts,
+    step_map_reference,
+)
+from orbitfix.verify.targets.host_build import HostModule
 
-DRIFT_DECLARATIONS = """\
-void orbitfix_drift_run(const int32_t *start, uint64_t steps, uint64_t settle, uint64_t window,
-                        int32_t section_level, uint64_t *counts,
-                        int32_t *ranges, int32_t *brackets, int32_t *end_state);
-uint64_t orbitfix_drift_period(const int32_t *start, uint64_t budget, uint64_t *seen_at);
-uint64_t orbitfix_drift_cycle_start(const int32_t *start, uint64_t period, uint64_t budget);
-"""
-
-# Slots of the harness's counts array (the enum at the top of drift_harness.c.j2).
-COUNT_FIELDS = ("crossings", "settled_crossings", "first_settled_crossing", "last_crossing",
-                "limit_steps", "limit_first", "limit_settled", "range_steps", "range_first",
-                "range_settled", "period", "period_seen_at")
-RANGE_GROUPS = ("settled_low", "settled_high", "first_low", "first_high", "final_low",
-                "final_high", "return_low", "return_high")
+__all__ = ["NO_ANGLES", "DriftReport", "DriftRun", "DriftTolerances", "Start", "build_drift_module",
+           "choose_starts", "cycle_start", "harness_statistics", "integer_period", "run_drift"]
 
 NO_ANGLES = ("the long-run drift test does not handle angle states (phases) yet: its section and "
              "amplitudes assume states that swing rather than turn; run verify with --skip-drift")
@@ -54,8 +56,6 @@ NO_ANGLES = ("the long-run drift test does not handle angle states (phases) yet:
 LONGEST_RUN = 1 << 62
 FEWEST_CYCLES = 16      # a run shorter than this cannot settle and still measure a period
 WINDOW_CYCLES = 3       # the amplitude windows, in cycles
-STEP_MAP_CYCLES = 40    # the float step map's reference run, in cycles
-STEP_MAP_MEASURED = 15  # of which the last this many are measured
 
 
 @dataclass(frozen=True)
@@ -88,44 +88,6 @@ class DriftTolerances:
                 raise InputError(f"the drift tolerance '{name}' must be a positive number, "
                                  f"got {value!r}")
 
-    def to_json(self) -> dict:
-        return asdict(self)
-
-
-@dataclass(frozen=True)
-class Start:
-    """One initial state of a drift run, in integer units, and why it was chosen."""
-
-    name: str
-    state: tuple[int, ...]
-    why: str
-
-
-@dataclass(frozen=True)
-class HarnessStatistics:
-    """What the C harness returns for one run: counts, ranges and crossing brackets (integers)."""
-
-    counts: dict[str, int]
-    ranges: dict[str, list[int]]
-    first_bracket: tuple[list[int], list[int]]
-    last_bracket: tuple[list[int], list[int]]
-    end_state: list[int]
-    seconds: float
-
-
-@dataclass(frozen=True)
-class StepMapReference:
-    """The float step map (L1) run from the continuous cycle's point: period and amplitudes
-    (``period_steps`` is None when the step map does not go round the cycle at all).
-
-    reached : for each start, whether the float step map from it is on the cycle after
-        STEP_MAP_CYCLES cycles (amplitudes within the amplitude tolerance of the reference).
-    """
-
-    period_steps: float | None
-    amplitude: list[float]
-    reached: dict[str, bool]
-
 
 @dataclass
 class DriftRun:
@@ -157,36 +119,6 @@ class DriftRun:
     def verdict(self) -> str:
         return "fail" if self.reasons else "pass"
 
-    def to_json(self, fraction_bits: int, model_states: int) -> dict:
-        return {
-            "start": self.start.name,
-            "why": self.start.why,
-            "initial_state": list(self.start.state),
-            "initial_state_real": [v / 2.0 ** fraction_bits
-                                   for v in self.start.state[:model_states]],
-            "amplitude": self.amplitude,
-            "amplitude_first_window": self.amplitude_first,
-            "amplitude_error": self.amplitude_error,
-            "amplitude_error_step_map": self.amplitude_error_step_map,
-            "period_steps": self.period_steps,
-            "period_error_ppm": self.period_error_ppm,
-            "period_error_ppm_step_map": self.period_error_ppm_step_map,
-            "phase_drift_cycles": self.phase_drift_cycles,
-            "phase_drift_cycles_continuous": self.phase_drift_cycles_continuous,
-            "return_spread": self.return_spread,
-            "crossings": self.crossings,
-            "settled_crossings": self.settled_crossings,
-            "integer_period_steps": self.integer_period_steps,
-            "integer_period_seen_at_step": self.integer_period_seen_at,
-            "cycle_entered_at_step": self.cycle_entered_at_step,
-            "saturation_events": self.saturation_events,
-            "step_map_returns_from_this_start": self.step_map_returns,
-            "verdict": self.verdict,
-            "reasons": list(self.reasons),
-            "seconds": self.seconds,
-            **({"references": self.against} if self.against else {}),
-        }
-
 
 @dataclass
 class DriftReport:
@@ -214,256 +146,10 @@ class DriftReport:
     def verdict(self) -> str:
         return "fail" if any(run.verdict == "fail" for run in self.runs) else "pass"
 
-    def to_json(self) -> dict:
-        """The ``drift`` object of ``verify --json``: plain Python types only."""
-        scale = 2.0 ** -self.fraction_bits
-        return {
-            "steps": self.steps,
-            "hours": self.hours,
-            "loop_hz": self.loop_hz,
-            "settle_steps": self.settle_steps,
-            "window_steps": self.window_steps,
-            "section": {"state": self.state_names[0], "level": self.section_level,
-                        "level_real": self.section_level * scale, "direction": "upward"},
-            "planned_limits": self.planned_limits,
-            "tolerances": self.tolerances.to_json(),
-            "references": {
-                "continuous": {"period_steps": self.continuous_period_steps,
-                               "amplitude": self.continuous_amplitude},
-                "step_map": {"period_steps": self.step_map.period_steps,
-                             "amplitude": [_finite(v) for v in self.step_map.amplitude]},
-            },
-            "runs": [run.to_json(self.fraction_bits, len(self.state_names)) for run in self.runs],
-            "notes": list(self.notes),
-            "seconds": dict(self.seconds),
-            "verdict": self.verdict,
-        }
 
-    def describe(self) -> list[str]:
-        """The report as readable lines."""
-        names = self.state_names
-        lines = [f"Long-run drift of '{self.model}': {self.steps:,} steps "
-                 f"({self.hours:g} h at {self.loop_hz:g} Hz) from {len(self.runs)} starts, in "
-                 "compiled C",
-                 f"  references: continuous cycle {self.continuous_period_steps:.6f} steps per "
-                 "cycle, float step map " + _maybe(self.step_map.period_steps, lambda v: f"{v:.6f}",
-                                                   "has no cycle at this step size"),
-                 "  amplitudes (continuous / float step map): " + ", ".join(
-                     f"{n} {a:.6g} / {b:.6g}" for n, a, b in
-                     zip(names, self.continuous_amplitude, self.step_map.amplitude, strict=True)),
-                 f"  tolerances: amplitude {100 * self.tolerances.amplitude:g} %, period "
-                 f"{self.tolerances.period_ppm:g} ppm, phase drift "
-                 f"{self.tolerances.phase_drift_cycles:g} cycles over the run, return spread "
-                 f"{100 * self.tolerances.return_spread:g} % of the range"]
-        for run in self.runs:
-            lines.append(f"  from {run.start.name} ({run.start.why}): {run.verdict.upper()}")
-            lines.append("    amplitude at the end: " + ", ".join(
-                f"{n} {a:.6g}" for n, a in zip(names, run.amplitude, strict=True))
-                + _maybe(run.amplitude_error, lambda v: f"; worst error {100 * v:.4g} %"))
-            if run.period_steps is not None:
-                lines.append(f"    period {run.period_steps:.6f} steps: {run.period_error_ppm:+.4g} ppm "
-                             "against the continuous cycle" + _maybe(
-                                 run.period_error_ppm_step_map,
-                                 lambda v: f", {v:+.4g} ppm against the float step map") + _maybe(
-                                 run.phase_drift_cycles,
-                                 lambda v: f"; phase drift {v:+.4g} cycles over the run"))
-            if run.integer_period_steps is not None:
-                lines.append(f"    the integer orbit repeats exactly every {run.integer_period_steps:,} "
-                             f"steps ({run.integer_period_steps / self.continuous_period_steps:.4g} "
-                             f"continuous periods), from step {run.cycle_entered_at_step:,} on")
-            else:
-                lines.append("    the integer orbit did not repeat within the run")
-            events = run.saturation_events
-            lines.append(f"    word limit reached on {events['count']:,} steps"
-                         + _maybe(events["first_step"], lambda v: f" (first at step {v:,})")
-                         + f"; outside the planned range on "
-                         f"{events['outside_planned_range']['count']:,} steps")
-            lines += [f"    reason: {reason}" for reason in run.reasons]
-        lines += [f"  note: {note}" for note in self.notes]
-        lines.append(f"  verdict: {self.verdict.upper()}")
-        return lines
-
-
-def _finite(value: float) -> float | None:
+def finite_or_none(value: float) -> float | None:
+    """The value, or None where it is infinite or undefined (JSON has no such numbers)."""
     return value if math.isfinite(value) else None
-
-
-def _maybe(value: object, text, absent: str = "") -> str:
-    return absent if value is None else text(value)
-
-
-def render_drift_harness(design: Design) -> str:
-    """The drift harness C for one design."""
-    model = design.model
-    names = CNames(model.name)
-    bits = design.plan.program.word_bits
-    program = design.plan.program
-    return environment().get_template("drift_harness.c.j2").render(
-        names=names, fields=[names.field(n) for n in program.state_names],
-        count=len(program.state_names),
-        version=__version__, word_type=f"int{bits}_t", word_bits=bits,
-        declarations=DRIFT_DECLARATIONS, limits=design.plan.planned_limits())
-
-
-def build_drift_module(design: Design, sources: dict[str, str] | None = None) -> HostModule:
-    """Firmware, host harness and drift harness compiled into one module (strict flags).
-
-    sources : the firmware files NAME.h and NAME.c (e.g. from ``verify.host_check.read_sources``);
-        generated afresh from the design when not given.
-    """
-    names = CNames(design.model.name)
-    files = sources if sources is not None else render_model(
-        design.model, design.timing, design.integrator, design.plan)
-    return build_host_module(
-        sources={**files, "drift_harness.c": render_drift_harness(design)},
-        harness=render_host_harness(design.model, design.plan.program),
-        header=names.header, declarations=HARNESS_DECLARATIONS + DRIFT_DECLARATIONS)
-
-
-def harness_statistics(host: HostModule, start: tuple[int, ...], steps: int, settle: int,
-                       window: int, section_level: int) -> HarnessStatistics:
-    """One streaming run in C from ``start`` (integer units) with the statistics kept on the way."""
-    n = len(start)
-    ffi = host.ffi
-    begin = np.array(start, dtype=np.int32)
-    counts = np.zeros(len(COUNT_FIELDS), dtype=np.uint64)
-    ranges = np.zeros(len(RANGE_GROUPS) * n, dtype=np.int32)
-    brackets = np.zeros(4 * n, dtype=np.int32)
-    end = np.zeros(n, dtype=np.int32)
-    started = time.perf_counter()
-    host.lib.orbitfix_drift_run(ffi.from_buffer("int32_t[]", begin), steps, settle, window,
-                                section_level,
-                                ffi.from_buffer("uint64_t[]", counts),
-                                ffi.from_buffer("int32_t[]", ranges),
-                                ffi.from_buffer("int32_t[]", brackets),
-                                ffi.from_buffer("int32_t[]", end))
-    seconds = time.perf_counter() - started
-    b = [int(v) for v in brackets]
-    return HarnessStatistics(
-        counts={name: int(v) for name, v in zip(COUNT_FIELDS, counts, strict=True)},
-        ranges={name: [int(v) for v in ranges[i * n:(i + 1) * n]]
-                for i, name in enumerate(RANGE_GROUPS)},
-        first_bracket=(b[:n], b[n:2 * n]), last_bracket=(b[2 * n:3 * n], b[3 * n:]),
-        end_state=[int(v) for v in end], seconds=seconds)
-
-
-def integer_period(host: HostModule, start: tuple[int, ...], budget: int) -> tuple[int | None, int]:
-    """Brent's algorithm in C with the plain step: (exact period or None, step it was seen at)."""
-    ffi = host.ffi
-    seen = np.zeros(1, dtype=np.uint64)
-    begin = np.array(start, dtype=np.int32)
-    period = int(host.lib.orbitfix_drift_period(ffi.from_buffer("int32_t[]", begin), budget,
-                                                ffi.from_buffer("uint64_t[]", seen)))
-    return (period or None), int(seen[0])
-
-
-def cycle_start(host: HostModule, start: tuple[int, ...], period: int, budget: int) -> int | None:
-    """The first step from which the integer orbit is periodic (None if not within budget)."""
-    begin = np.array(start, dtype=np.int32)
-    mu = int(host.lib.orbitfix_drift_cycle_start(host.ffi.from_buffer("int32_t[]", begin), period,
-                                                 budget))
-    return None if mu > budget else mu
-
-
-def crossing_time(before: list[int] | np.ndarray, after: list[int] | np.ndarray, step: int,
-                  level: float) -> float:
-    """The (fractional) step at which state 0 crossed ``level`` between steps step-1 and step."""
-    low, high = float(before[0]), float(after[0])
-    return step - 1 + (level - low) / (high - low)
-
-
-def choose_starts(design: Design, equilibrium_offset: float = 1e-3) -> tuple[list[Start], list[str]]:
-    """The initial states of the drift runs, and notes on any that had to be left out.
-
-    equilibrium_offset : the distance from the equilibrium, as a fraction of each state's range on
-        the cycle (at least 4 LSB), so that the start can leave an unstable equilibrium at all: a
-        start only a few LSB away sits in the rounding's dead zone, where every increment rounds
-        to nothing (that would be a finding about starting from rest, not about drift).
-    """
-    plan = design.plan
-    program = plan.program
-    fraction = plan.signal_format.fraction_bits
-    scale = 2.0 ** fraction
-    cycle = design.analysis.cycle
-    low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
-    centre, half = (low + high) / 2, (high - low) / 2
-    word_max = program.word_max
-    n = program.model_state_count
-    held = tuple(plan.initial_state[n:])  # runtime parameters stay at their nominal values
-    starts = [Start("nominal", tuple(plan.initial_state), "the model's initial state")]
-    notes: list[str] = []
-
-    inside = [e for e in design.analysis.equilibria
-              if np.all(e.state >= low) and np.all(e.state <= high)]
-    if not inside:
-        notes.append("no equilibrium lies inside the cycle's bounding box, so there is no run "
-                     "from near the equilibrium")
-    else:
-        equilibrium = min(inside, key=lambda e: float(np.max(np.abs(e.state - centre))))
-        if equilibrium.stable:
-            notes.append(f"the equilibrium inside the cycle is a {equilibrium.kind} of the "
-                         "continuous model, so a start near it is not expected to reach the cycle; "
-                         "that run is left out")
-        else:
-            offset = np.maximum(np.round(equilibrium_offset * 2 * half * scale), 4)
-            point = np.round(equilibrium.state * scale) + offset
-            starts.append(Start("near the equilibrium", _fit(point, word_max) + held,
-                                f"the {equilibrium.kind} plus {equilibrium_offset:g} of the "
-                                "cycle's range"))
-
-    corner = centre + 0.95 * plan.margin * half
-    starts.append(Start("near the basin edge", _fit(np.round(corner * scale), word_max) + held,
-                        f"just inside the upper corner of the cycle's bounding box scaled by the "
-                        f"planner's margin of {plan.margin:g} (a stand-in for the basin's edge)"))
-    near = np.array(plan.initial_state, dtype=float)
-    near[0] = word_max - word_max // 64
-    starts.append(Start("near saturation", _fit(near, word_max),
-                        f"{program.state_names[0]} at 63/64 of the word's limit, the other states "
-                        "at their initial values"))
-    return starts, notes
-
-
-def _fit(point: np.ndarray, word_max: int) -> tuple[int, ...]:
-    return tuple(int(min(max(v, -word_max), word_max)) for v in point)
-
-
-def step_map_reference(design: Design, level: float, starts: list[Start],
-                       amplitude_tolerance: float) -> StepMapReference:
-    """Run the float step map (L1) from the cycle's point and from every start, vectorised."""
-    program = design.plan.program
-    n = program.model_state_count
-    scale = 2.0 ** -np.array(program.state_fraction_bits, dtype=float)
-    spc = design.timing.steps_per_cycle
-    total = round(STEP_MAP_CYCLES * spc)
-    measured = round(STEP_MAP_MEASURED * spc)
-    nominal = [v for p in design.model.runtime_parameters for v in (p.value, p.value)]
-    columns = [np.concatenate([np.asarray(design.analysis.cycle.point, dtype=float), nominal])]
-    columns += [np.array(s.state, dtype=float) * scale for s in starts]
-    x = np.stack(columns, axis=1)
-    record = np.empty((measured + 1, x.shape[0], x.shape[1]))
-    with np.errstate(all="ignore"):
-        for k in range(total):
-            if k >= total - measured - 1:
-                record[k - (total - measured - 1)] = x
-            values = evaluate_real(program, x)
-            x = np.stack([values[i] for i in program.next_state])
-        record[-1] = x
-    amplitude = (np.max(record, axis=0) - np.min(record, axis=0))[:n] / 2
-    first = record[:-1, 0, 0]
-    second = record[1:, 0, 0]
-    up = np.flatnonzero((first < level) & (second >= level))
-    reference = amplitude[:, 0]
-    if up.size < 2 or not np.all(np.isfinite(reference)):
-        return StepMapReference(period_steps=None, amplitude=[float("nan")] * len(reference),
-                                reached={s.name: False for s in starts})
-    times = up + (level - first[up]) / (second[up] - first[up])
-    period = float((times[-1] - times[0]) / (up.size - 1))
-    reached = {}
-    for index, start in enumerate(starts, start=1):
-        error = np.abs(amplitude[:, index] - reference) / reference
-        reached[start.name] = bool(np.all(np.isfinite(error)) and np.all(error <= amplitude_tolerance))
-    return StepMapReference(period_steps=period, amplitude=[float(v) for v in reference],
-                            reached=reached)
 
 
 def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances | None = None,
@@ -672,8 +358,8 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     }
     return DriftRun(
         start=start, amplitude=amplitude, amplitude_first=amplitude_first,
-        amplitude_error=_finite(max(versus_l0)),
-        amplitude_error_step_map=_finite(max(versus_l1)) if reference_ok else None,
+        amplitude_error=finite_or_none(max(versus_l0)),
+        amplitude_error_step_map=finite_or_none(max(versus_l1)) if reference_ok else None,
         period_steps=period, period_error_ppm=period_ppm, period_error_ppm_step_map=period_ppm_l1,
         phase_drift_cycles=drift, phase_drift_cycles_continuous=drift_l0, return_spread=spread,
         crossings=c["crossings"], settled_crossings=c["settled_crossings"],

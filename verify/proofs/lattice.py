@@ -42,7 +42,6 @@ class Lattice:
         return grid.reshape(-1)
 
 
-
 def band_masks(samples: np.ndarray, half: np.ndarray, scale: np.ndarray,
                region: list[tuple[int, int]], lattice: Lattice, band: float,
                tolerance: float) -> tuple[np.ndarray, np.ndarray, float, float]:
@@ -97,7 +96,6 @@ def band_masks(samples: np.ndarray, half: np.ndarray, scale: np.ndarray,
             mask[o[0] + first:o[0] + last, o[1]:o[1] + shape[1]] = near <= width
     masks = [m.reshape(-1) for m in masks]
     return masks[0], masks[1], distance_error, curve_error
-
 
 
 def excluded_near(design: Design, lattice: Lattice, in_box: np.ndarray, half: np.ndarray,
