@@ -31,6 +31,7 @@ import sympy
 from orbitfix.gen.analysis.equilibria import Equilibrium, find_equilibria, format_state
 from orbitfix.gen.analysis.limit_cycle import LimitCycle, find_limit_cycle
 from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.compiled import array_function
 from orbitfix.gen.model.definition import Model
 
 NEAR = 1e-2                 # decided when this close (relative to the cycle's size) to an attractor
@@ -172,8 +173,8 @@ class _Run:
         self.field = model.vector_field()
         states = list(model.state_symbols)
         matrix = sympy.Matrix(model.resolved_equations).jacobian(sympy.Matrix(states))
-        self.jacobian_rows = _vectorised(states, [sum((abs(e) for e in matrix.row(i)), sympy.S.Zero)
-                                                  for i in range(model.dimension)])
+        self.jacobian_rows = array_function(states, [sum((abs(e) for e in matrix.row(i)), sympy.S.Zero)
+                                                     for i in range(model.dimension)])
         self.deadline = time.monotonic() + seconds
         self.seconds = seconds
         every = max(1, cycle.samples.shape[1] // CYCLE_SAMPLES)
@@ -328,12 +329,6 @@ class _Run:
             if float(np.min(np.max(np.abs(ring - x[None, :]), axis=1))) <= NEAR * size:
                 return label
         return None
-
-
-def _vectorised(variables: list, expressions: list):
-    """numpy code for expressions of the states: f(x) with x of shape (n, k) -> shape (m, k)."""
-    f = sympy.lambdify([variables], expressions, modules="numpy")
-    return lambda x: np.array([np.broadcast_to(v, x.shape[1:]) for v in f(x)], dtype=float)
 
 
 def _settles(equilibrium: Equilibrium) -> str:

@@ -21,6 +21,7 @@ import sympy
 from scipy.optimize import root
 from scipy.stats import qmc
 
+from orbitfix.gen.model.compiled import point_function
 from orbitfix.gen.model.definition import Model
 
 KINDS = ("stable node", "unstable node", "stable focus", "unstable focus", "saddle", "center",
@@ -141,12 +142,10 @@ class EquilibriumFinder:
         n = model.dimension
         states = list(model.state_symbols)
         rates = list(model.resolved_equations)
-        field = sympy.lambdify(states, rates, modules="math", cse=True)
-        entries = list(sympy.Matrix(rates).jacobian(sympy.Matrix(states)))
-        jacobian = sympy.lambdify(states, entries, modules="math", cse=True)
-        self.field = lambda t, x: np.array(field(*np.asarray(x, dtype=float).tolist()), dtype=float)
-        self.jacobian = lambda x: np.array(jacobian(*np.asarray(x, dtype=float).tolist()),
-                                           dtype=float).reshape(n, n)
+        field = point_function(states, rates)
+        jacobian = point_function(states, list(sympy.Matrix(rates).jacobian(sympy.Matrix(states))))
+        self.field = lambda t, x: field(x)
+        self.jacobian = lambda x: jacobian(x).reshape(n, n)
 
     def all(self) -> list[Equilibrium]:
         """Every equilibrium reached from the seeds, each once, in a fixed order."""

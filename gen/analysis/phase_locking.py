@@ -19,10 +19,10 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import sympy
 from scipy.integrate import solve_ivp
 
 from orbitfix.gen.analysis.limit_cycle import LimitCycle
+from orbitfix.gen.model.compiled import scalar_function
 from orbitfix.gen.model.definition import Model
 
 LOCK_TOLERANCE = 0.01      # cycles: a lag this close to the wanted one counts as locked
@@ -270,8 +270,7 @@ def format_locking(locking: PhaseLocking) -> list[str]:
 def _rates_with_deadline(model: Model):
     """The vector field as fast scalar code, raising TimeoutError once RUN_SECONDS have passed
     (every run of the network has a time budget)."""
-    field = sympy.lambdify(list(model.state_symbols), list(model.resolved_equations),
-                           modules="math", cse=True)
+    field = scalar_function(model.state_symbols, model.resolved_equations)
     deadline = time.monotonic() + RUN_SECONDS
 
     def rates(t: float, x: np.ndarray) -> list[float]:
