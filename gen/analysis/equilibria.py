@@ -21,6 +21,7 @@ import sympy
 from scipy.optimize import root
 from scipy.stats import qmc
 
+from orbitfix.gen.model.angles import TURN, wrap_angles, wrap_difference
 from orbitfix.gen.model.compiled import point_function
 from orbitfix.gen.model.definition import Model
 
@@ -190,7 +191,7 @@ class EquilibriumFinder:
                 point = np.asarray(result.x, dtype=float)
                 if not np.all(np.isfinite(point)):
                     return None
-                point[self.angles] %= 2.0 * math.pi   # judged where it is on the circle
+                point = wrap_angles(point, self.angles)   # judged where it is on the circle
                 free = point[~self.angles]
                 size = max(1.0, float(np.max(np.abs(free))) if free.size else 1.0)
                 rate = max(1.0, float(np.max(np.abs(jacobian(point)))))
@@ -200,7 +201,7 @@ class EquilibriumFinder:
         if not np.all(np.isfinite(left)) or float(np.max(left)) > 1e-9 * size * rate:
             return None
         point[np.abs(point) < 1e-12 * size] = 0.0   # report the origin as 0, not 1e-17 or -0
-        point[self.angles & (np.abs(point - 2.0 * math.pi) < 1e-12)] = 0.0
+        point[self.angles & (np.abs(point - TURN) < 1e-12)] = 0.0
         return point
 
 
@@ -227,9 +228,7 @@ def _seeds(initial: np.ndarray) -> np.ndarray:
 
 def _same_point(a: np.ndarray, b: np.ndarray, angles: np.ndarray | None = None) -> bool:
     size = max(1.0, float(np.max(np.abs(a))), float(np.max(np.abs(b))))
-    difference = a - b
-    if angles is not None and angles.any():
-        difference[angles] = (difference[angles] + math.pi) % (2.0 * math.pi) - math.pi
+    difference = a - b if angles is None else wrap_difference(a - b, angles)
     return float(np.max(np.abs(difference))) <= SAME_POINT_TOLERANCE * size
 
 
