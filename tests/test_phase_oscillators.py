@@ -149,6 +149,18 @@ def test_check_of_the_phase_oscillator_exits_0(capsys) -> None:
     assert "stable limit cycle" in capsys.readouterr().out
 
 
+def test_an_angle_far_faster_than_the_motion_is_refused_before_its_samples_are_made(capsys) -> None:
+    # Source: the case (common practice: size work before starting it). At nu = 1e9 each
+    # phase turns about 1e10 times in one integrator step; following the motion at an eighth of a
+    # turn needs terabytes, which must be an input error naming the size, not an allocation failure.
+    fast = load_model("phase_chain").with_parameters({"nu": 1e9})
+    with pytest.raises(InputError, match=r"would need [\d,]+ values, [\d.]+ TiB.*smaller angular frequency"):
+        find_limit_cycle(fast)
+    assert main(["check", "phase_chain", "--set", "nu=1e9"]) == 2
+    err = capsys.readouterr().err
+    assert "TiB" in err and "Traceback" not in err
+
+
 # -- the chain of phase oscillators (gen/networks.py, oscillator 'phase_amplitude') -----------------
 
 
@@ -278,3 +290,17 @@ def test_diffusive_network_file_errors_exit_2(tmp_path: Path, capsys) -> None:
         assert main(["check", str(path)]) == 2
         err = capsys.readouterr().err
         assert message in err and "pair.toml" in err and "Traceback" not in err
+
+
+def test_work_sizes_are_stated_in_binary_units_and_refused_past_the_limit() -> None:
+    # Source: IEC 80000-13 binary prefixes (1 KiB = 1024 bytes, 1 TiB = 2**40 bytes).
+    from orbitfix.gen.analysis.work_size import LARGEST_ARRAY, byte_text, refuse_oversized
+
+    assert byte_text(96) == "96 bytes"
+    assert byte_text(1536) == "1.5 KiB"
+    assert byte_text(4.79 * 2**40) == "4.79 TiB"
+    refuse_oversized(LARGEST_ARRAY // 8, "an array at the limit", "never refused")
+    with pytest.raises(InputError, match=r"a grid would need 67,108,865 values, 512 MiB.*use fewer"):
+        refuse_oversized(LARGEST_ARRAY // 8 + 1, "a grid", "use fewer")
+    with pytest.raises(InputError, match="unbounded"):
+        refuse_oversized(float("inf"), "a grid", "use fewer")

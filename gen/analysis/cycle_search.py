@@ -20,6 +20,7 @@ from scipy.optimize import brentq
 
 from orbitfix.gen.analysis.equilibria import Equilibrium, EquilibriumFinder, format_state
 from orbitfix.gen.analysis.flow import Budget, Flow, OutOfBudgetError, RunAwayError, integrate
+from orbitfix.gen.analysis.work_size import refuse_oversized
 from orbitfix.gen.model.angles import TURN, whole_turns, wrap_difference
 
 SEARCH_RTOL = 1e-9             # relative tolerance while following the flow to find the cycle
@@ -95,7 +96,15 @@ def _looks(run, angles: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     if not angles.any() or run.sol is None or times.size < 2:
         return times, states
     advance = np.max(np.abs(np.diff(states[angles], axis=1)), axis=0)
-    pieces = np.maximum(1, np.ceil(advance / (TURN / 8))).astype(int)
+    wanted = np.maximum(1.0, np.ceil(advance / (TURN / 8)))
+    refuse_oversized(
+        (float(np.sum(wanted)) + 1.0) * (states.shape[0] + 1),
+        f"following the motion in steps of an eighth of a turn (an angle state turns up to "
+        f"{float(np.max(advance)) / TURN:.3g} times in one step of the integrator)",
+        "the angles turn far faster than the rest of the motion changes, so their rates span too "
+        "many time scales to follow; bring them closer (for example a smaller angular frequency "
+        "parameter: the rhythm's speed in Hz is set by cycle_hz, not by the model's own time unit)")
+    pieces = wanted.astype(int)
     if not np.any(pieces > 1):
         return times, states
     times = np.concatenate([np.linspace(a, b, k, endpoint=False) for a, b, k in
