@@ -304,3 +304,34 @@ def test_work_sizes_are_stated_in_binary_units_and_refused_past_the_limit() -> N
         refuse_oversized(LARGEST_ARRAY // 8 + 1, "a grid", "use fewer")
     with pytest.raises(InputError, match="unbounded"):
         refuse_oversized(float("inf"), "a grid", "use fewer")
+
+
+def test_angle_helpers_agree_with_pythons_remainder_and_modulo() -> None:
+    # Source: Python's math.remainder (IEEE 754 remainder, the nearest way round to within a tie)
+    # and float % (the sign of the divisor); one turn is math.tau.
+    from orbitfix.gen.model.angles import (
+        TURN,
+        part_of_turn,
+        radians_to_turns,
+        whole_turns,
+        wrap_angles,
+        wrap_difference,
+        wrap_turns,
+    )
+
+    assert TURN == math.tau
+    rng = np.random.default_rng(7)
+    values = rng.uniform(-50.0, 50.0, size=(2, 200))
+    mask = np.array([True, False])
+    near = wrap_difference(values, mask)
+    assert np.allclose(near[0], [math.remainder(v, math.tau) for v in values[0]], atol=1e-12)
+    assert np.array_equal(near[1], values[1])                 # not an angle: untouched
+    assert np.all((near[0] >= -math.pi) & (near[0] < math.pi))
+    ahead = wrap_angles(values, mask)
+    assert np.array_equal(ahead[0], [v % math.tau for v in values[0]])
+    assert np.array_equal(whole_turns(values[:, 0], mask), [round(values[0, 0] / math.tau), 0])
+    turns = values[0] / 7.0
+    assert np.allclose(wrap_turns(turns), [math.remainder(v, 1.0) for v in turns], atol=1e-12)
+    assert np.allclose(radians_to_turns(values[0]), near[0] / math.tau, atol=1e-12)
+    assert np.array_equal(part_of_turn(turns), [v % 1.0 for v in turns])
+    assert wrap_turns(0.5) == -0.5 and part_of_turn(-0.25) == 0.75     # the ranges' ends
