@@ -212,7 +212,7 @@ def test_refusals_name_what_to_do(vanderpol_design, coarse) -> None:
 def test_band_in_strips_equals_the_band_in_one_piece(coarse, coarse_certificate, monkeypatch) -> None:
     # Source: scipy's distance transform over the whole region at once (strips of 2048 rows cover
     # this coarse lattice in one piece), against strips of 7 rows with their halos.
-    import orbitfix.verify.proofs.lattice as lattice
+    import orbitfix.verify.proofs.certificate.lattice as lattice
 
     monkeypatch.setattr(lattice, "STRIP_ROWS", 7)
     striped = certify(coarse, keep_tables=True)

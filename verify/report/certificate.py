@@ -5,8 +5,8 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 from orbitfix.verify.proofs.certificate import Certificate, UncertifiedGroup
-from orbitfix.verify.proofs.lattice_map import LONGEST_EXCURSION
-from orbitfix.verify.proofs.uncertified import LONGEST_WALK
+from orbitfix.verify.proofs.certificate.lattice_map import LONGEST_EXCURSION
+from orbitfix.verify.proofs.certificate.uncertified import LONGEST_WALK
 
 
 def certificate_lines(cert: Certificate) -> list[str]:

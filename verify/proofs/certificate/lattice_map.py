@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 
 from orbitfix.gen.program import golden
-from orbitfix.verify.proofs.lattice import Lattice
+from orbitfix.verify.proofs.certificate.lattice import Lattice
 
 GATHER_SLICE = 1 << 22           # indices gathered at once
 CHUNK = 1 << 16                  # states per golden step: small batches stay in cache

@@ -16,8 +16,8 @@ the harness measures, and what this module makes of it:
 - the integer period: a finite-state orbit always ends up periodic; Brent's algorithm finds that
   exact period in steps over the run.
 
-Rooms: the C harness and the calls into it (``drift_harness``), the starts and the float step map
-(``drift_references``); this module judges the runs. The text and JSON renderings are in
+Rooms: the C harness and the calls into it (``harness``), the starts and the float step map
+(``references``); this module runs and judges the runs. The text and JSON renderings are in
 ``verify/report/drift.py``.
 """
 
@@ -31,14 +31,13 @@ import numpy as np
 
 from orbitfix.gen.errors import InputError, UnsupportedError
 from orbitfix.gen.pipeline import Design
-from orbitfix.verify.proofs.drift_harness import (
+from orbitfix.verify.proofs.drift.harness import (
     build_drift_module,
     crossing_time,
     cycle_start,
     harness_statistics,
-    integer_period,
 )
-from orbitfix.verify.proofs.drift_references import (
+from orbitfix.verify.proofs.drift.references import (
     STEP_MAP_CYCLES,
     Start,
     StepMapReference,
@@ -46,9 +45,6 @@ from orbitfix.verify.proofs.drift_references import (
     step_map_reference,
 )
 from orbitfix.verify.targets.host_build import HostModule
-
-__all__ = ["NO_ANGLES", "DriftReport", "DriftRun", "DriftTolerances", "Start", "build_drift_module",
-           "choose_starts", "cycle_start", "harness_statistics", "integer_period", "run_drift"]
 
 NO_ANGLES = ("the long-run drift test does not handle angle states (phases) yet: its section and "
              "amplitudes assume states that swing rather than turn; run verify with --skip-drift")

@@ -104,7 +104,6 @@ def continue_across(family: ParameterFamily, values: np.ndarray,
     return states
 
 
-
 def point_text(x: np.ndarray) -> str:
     """A state as '(1.5, -0.25)', six significant figures."""
     return "(" + ", ".join(f"{v:.6g}" for v in np.asarray(x, dtype=float)) + ")"

@@ -19,7 +19,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from orbitfix.gen.analysis.equilibria import Equilibrium, EquilibriumFinder, format_state
-from orbitfix.gen.analysis.flow import Budget, Flow, OutOfBudgetError, RunAwayError, integrate
+from orbitfix.gen.analysis.limit_cycle.flow import Budget, Flow, OutOfBudgetError, RunAwayError, integrate
 from orbitfix.gen.analysis.work_size import refuse_oversized
 from orbitfix.gen.model.angles import TURN, whole_turns, wrap_difference
 

@@ -25,11 +25,14 @@ import numpy as np
 
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.pipeline import Design
-from orbitfix.verify.proofs.lattice import Lattice, band_masks, excluded_near
-from orbitfix.verify.proofs.lattice_map import next_state_table, path_states, reachable_from, steps_to_band
-from orbitfix.verify.proofs.uncertified import UncertifiedGroup, covering_radius, group_exceptions
-
-__all__ = ["Certificate", "UncertifiedGroup", "certify"]
+from orbitfix.verify.proofs.certificate.lattice import Lattice, band_masks, excluded_near
+from orbitfix.verify.proofs.certificate.lattice_map import (
+    next_state_table,
+    path_states,
+    reachable_from,
+    steps_to_band,
+)
+from orbitfix.verify.proofs.certificate.uncertified import UncertifiedGroup, covering_radius, group_exceptions
 
 DEFAULT_BAND = 0.03
 DEFAULT_TOLERANCE = 0.08

@@ -10,8 +10,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from orbitfix.gen.pipeline import Design
-from orbitfix.verify.proofs.lattice import Lattice
-from orbitfix.verify.proofs.lattice_map import Excursions, moves_of
+from orbitfix.verify.proofs.certificate.lattice import Lattice
+from orbitfix.verify.proofs.certificate.lattice_map import Excursions, moves_of
 
 EXAMPLES = 3                     # example starts named per group of uncertified states
 GROUPS_SHOWN = 12                # groups of uncertified states described in full

@@ -28,7 +28,7 @@ the repeat test compare them modulo 2 pi, and a cycle may advance an angle by wh
 shooting closes x(T) - x(0) = 2 pi k on angle states (k read off the search). The variational
 equations, and so the Floquet multipliers, are untouched by the wrap.
 
-Rooms: the flow and its budgeted integration (``flow``), stage 1 (``cycle_search``), stage 2
+Rooms: the flow and its budgeted integration (``flow``), stage 1 (``search``), stage 2
 (``shooting``); this module holds the result, runs the stages and reads the cycle off (stage 3).
 """
 
@@ -41,10 +41,10 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.optimize import minimize_scalar
 
-from orbitfix.gen.analysis.cycle_search import follow_flow, rests
 from orbitfix.gen.analysis.equilibria import Equilibrium, EquilibriumFinder, format_state
-from orbitfix.gen.analysis.flow import Budget, Flow, OutOfBudgetError
-from orbitfix.gen.analysis.shooting import Shot, peak_start, shoot
+from orbitfix.gen.analysis.limit_cycle.flow import Budget, Flow, OutOfBudgetError
+from orbitfix.gen.analysis.limit_cycle.search import follow_flow, rests
+from orbitfix.gen.analysis.limit_cycle.shooting import Shot, peak_start, shoot
 from orbitfix.gen.model.angles import TURN, wrap_angles
 from orbitfix.gen.model.definition import Model
 

@@ -21,8 +21,8 @@ Method:
    one :func:`gen.limit_cycle.find_limit_cycle` per sample, each started from the last cycle's
    point (the first from the small cycle the normal form predicts).
 
-Rooms: continuation of equilibria (``continuation``), detection (``hopf_crossing``), the branch
-(``cycle_branch``); this module holds the results and runs the steps.
+Rooms: continuation of equilibria (``continuation``), detection (``hopf_points``), the branch
+(``branch``); this module holds the results and runs the steps.
 """
 
 from __future__ import annotations
@@ -33,15 +33,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from orbitfix.gen.analysis.continuation import ParameterFamily, continue_across, point_text
-from orbitfix.gen.analysis.cycle_branch import BranchPoint, follow_branch
 from orbitfix.gen.analysis.equilibria import Equilibrium, find_equilibria
-from orbitfix.gen.analysis.hopf_crossing import HopfPoint, locate_hopf, same_hopf
+from orbitfix.gen.analysis.sweep.branch import BranchPoint, follow_branch
+from orbitfix.gen.analysis.sweep.continuation import ParameterFamily, continue_across, point_text
+from orbitfix.gen.analysis.sweep.hopf_points import HopfPoint, locate_hopf, same_hopf
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
 from orbitfix.gen.model.definition import Model
-
-__all__ = ["BranchPoint", "HopfPoint", "Sweep", "SweepSample", "sweep"]
 
 DEFAULT_SAMPLES = 41
 DEFAULT_SECONDS = 60.0         # wall-clock budget of the whole sweep, s
@@ -56,7 +54,6 @@ class SweepSample:
 
     param_value: float
     equilibria: tuple[Equilibrium, ...]
-
 
 
 @dataclass(frozen=True, eq=False)

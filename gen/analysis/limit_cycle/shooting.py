@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from orbitfix.gen.analysis.cycle_search import SEARCH_RTOL
-from orbitfix.gen.analysis.flow import Budget, Flow, integrate
+from orbitfix.gen.analysis.limit_cycle.flow import Budget, Flow, integrate
+from orbitfix.gen.analysis.limit_cycle.search import SEARCH_RTOL
 from orbitfix.gen.model.angles import TURN, wrap_angles
 
 SHOOTING_RTOL = 1e-11          # relative tolerance of the shooting integrations (DOP853)

@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from orbitfix.gen.analysis.continuation import ParameterFamily, point_text, same_point
 from orbitfix.gen.analysis.hopf import LyapunovCoefficient, first_lyapunov_coefficient
+from orbitfix.gen.analysis.sweep.continuation import ParameterFamily, point_text, same_point
 from orbitfix.gen.model.definition import Model
 
 BISECTION_TOLERANCE = 1e-10    # relative to the sweep's span
@@ -51,7 +51,6 @@ class HopfPoint:
         if self.kind == "subcritical":
             return "below" if self.unstable_side == "above" else "above"
         return self.unstable_side
-
 
 
 def locate_hopf(family: ParameterFamily, model: Model, parameter: str, x: np.ndarray, lo: float,

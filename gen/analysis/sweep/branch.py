@@ -11,9 +11,9 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from orbitfix.gen.analysis.continuation import ParameterFamily
-from orbitfix.gen.analysis.hopf_crossing import HopfPoint
 from orbitfix.gen.analysis.limit_cycle import find_limit_cycle
+from orbitfix.gen.analysis.sweep.continuation import ParameterFamily
+from orbitfix.gen.analysis.sweep.hopf_points import HopfPoint
 from orbitfix.gen.model.definition import Model
 
 CYCLE_SECONDS = 10.0           # wall-clock budget of one cycle search on the branch, s
