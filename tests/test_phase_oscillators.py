@@ -292,6 +292,16 @@ def test_diffusive_network_file_errors_exit_2(tmp_path: Path, capsys) -> None:
         assert message in err and "pair.toml" in err and "Traceback" not in err
 
 
+@pytest.mark.slow
+def test_a_phase_a_million_times_faster_than_its_amplitude_still_closes() -> None:
+    # Source: the exact solution theta' = 2 pi nu, so the period is 1 / nu. At nu = 1e6 one run of
+    # the search holds millions of returns to the section; only the latest are refined (and the
+    # budget is read between them), where refining all of them outran the search's budget.
+    cycle = find_limit_cycle(load_model("phase_amplitude").with_parameters({"nu": 1e6}), seconds=60.0)
+    assert cycle.found and cycle.stable
+    assert cycle.period == pytest.approx(1e-6, rel=1e-9)
+
+
 def test_work_sizes_are_stated_in_binary_units_and_refused_past_the_limit() -> None:
     # Source: IEC 80000-13 binary prefixes (1 KiB = 1024 bytes, 1 TiB = 2**40 bytes).
     from orbitfix.gen.analysis.work_size import LARGEST_ARRAY, byte_text, refuse_oversized

@@ -45,6 +45,7 @@ MAX_PROBES = 12             # undecided starts followed one by one at the end, a
 PROBES_BETWEEN = 3          # the same, after PROBE_AFTER periods (to find other cycles early)
 PROBE_AFTER = 10.0          # periods
 CYCLE_SAMPLES = 1000        # cycle samples kept for distances
+CLOCK_STEPS = 256           # RK4 steps between looks at the clock, inside one check
 
 CYCLE = "reaches the cycle"
 GROWS = "grows without bound"
@@ -229,18 +230,24 @@ class _Run:
             warnings.simplefilter("ignore", RuntimeWarning)
             while active.size and self.elapsed < until:
                 if time.monotonic() > self.deadline:
-                    self.notes.append(f"the {self.seconds:g} s budget ran out after "
-                                      f"{self.elapsed:.4g} model time units "
-                                      f"({self.elapsed / self.period:.3g} periods)")
+                    note = (f"the {self.seconds:g} s budget ran out after {self.elapsed:.4g} model "
+                            f"time units ({self.elapsed / self.period:.3g} periods)")
+                    if note not in self.notes:
+                        self.notes.append(note)
                     break
                 y = x[:, active]
                 h = self._step(y)
                 self.step = min(self.step, h)
                 per_check = max(1, round(0.5 * self.period / h))
-                for _ in range(per_check):
-                    y = self._rk4(y, h)
+                done = 0
+                while done < per_check:   # the clock is read every CLOCK_STEPS steps
+                    for _ in range(min(CLOCK_STEPS, per_check - done)):
+                        y = self._rk4(y, h)
+                    done += min(CLOCK_STEPS, per_check - done)
+                    if time.monotonic() > self.deadline:
+                        break
                 x[:, active] = y
-                self.elapsed += per_check * h
+                self.elapsed += done * h
                 size = np.sqrt(np.sum(y * y, axis=0))
                 gone = ~np.isfinite(size) | (size > self.escape)
                 near = self._nearest_attractor(y)

@@ -118,6 +118,12 @@ class Budget:
         self.deadline = time.monotonic() + seconds
         self.left = evaluations
 
+    def check_clock(self) -> None:
+        """Raise OutOfBudgetError once the wall-clock budget is spent (for work between
+        vector-field evaluations, which :meth:`guard` does not see)."""
+        if time.monotonic() > self.deadline:
+            raise OutOfBudgetError(f"{self.seconds:g} s of computing")
+
     def guard(self, fun, n: int, span: float, limit: float | None = None,
               free: np.ndarray | None = None):
         """``fun`` counted against the budget, stopped when the Euclidean size of the ``free``

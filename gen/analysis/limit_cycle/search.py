@@ -20,7 +20,7 @@ from scipy.optimize import brentq
 
 from orbitfix.gen.analysis.equilibria import Equilibrium, EquilibriumFinder, format_state
 from orbitfix.gen.analysis.limit_cycle.flow import Budget, Flow, OutOfBudgetError, RunAwayError, integrate
-from orbitfix.gen.analysis.work_size import refuse_oversized
+from orbitfix.gen.analysis.work_size import LARGEST_ARRAY, refuse_oversized
 from orbitfix.gen.model.angles import TURN, whole_turns, wrap_difference
 
 SEARCH_RTOL = 1e-9             # relative tolerance while following the flow to find the cycle
@@ -53,10 +53,12 @@ class _Section:
     time: float
     angles: np.ndarray
 
-    def crossings(self, run) -> list[tuple[float, np.ndarray]]:
-        """Crossings in the flow's direction within one dense integration. Angle states are
-        compared with the anchor modulo 2 pi; where an angle's wrapped offset jumps by a turn
-        between two samples (the far side of the circle) there is no crossing."""
+    def crossings(self, run, budget: Budget) -> list[tuple[float, np.ndarray]]:
+        """Crossings in the flow's direction within one dense integration, in time order: the
+        last MAX_RETURNS at most (every decision of the search reads the latest returns, and more
+        than MAX_RETURNS ends it). Angle states are compared with the anchor modulo 2 pi; where an
+        angle's wrapped offset jumps by a turn between two samples (the far side of the circle)
+        there is no crossing."""
         times, states = _looks(run, self.angles)
         offsets = wrap_difference(states - self.anchor[:, None], self.angles)
         g = self.normal @ offsets
@@ -65,7 +67,11 @@ class _Section:
             jumps = np.abs(np.diff(offsets[self.angles], axis=1) - np.diff(states[self.angles], axis=1))
             upward &= ~np.any(jumps > math.pi, axis=0)
         found = []
-        for i in np.nonzero(upward)[0]:
+        for i in np.nonzero(upward)[0][::-1]:
+            if len(found) == MAX_RETURNS:
+                break
+            budget.check_clock()
+
             def height(s: float) -> float:
                 return float(self.normal @ wrap_difference(run.sol(s) - self.anchor, self.angles))
 
@@ -74,7 +80,7 @@ class _Section:
                 continue
             t_cross = brentq(height, a, b, xtol=1e-15 * max(1.0, abs(b)), rtol=1e-15)
             found.append((t_cross, run.sol(t_cross)))
-        return found
+        return found[::-1]
 
 
 def _section_at(flow: Flow, p: np.ndarray, t: float, size: float) -> _Section | None:
@@ -150,12 +156,14 @@ def follow_flow(flow: Flow, finder: EquilibriumFinder, x0: np.ndarray, budget: B
         if not ok:
             return Search("failed", message)
         pieces.append(_looks(run, flow.angles))
+        while len(pieces) > 1 and sum(p[1].nbytes for p in pieces) > 2 * LARGEST_ARRAY:
+            pieces.popleft()   # the oldest stretch: the decisions read the latest returns
         x, t = run.y[:, -1].copy(), float(run.t[-1])
         settled = _settled(flow, finder, x, size0)
         if settled is not None:
             return Search("settles", equilibrium=settled)
         fresh = [] if section is None else [
-            r for r in section.crossings(run) if not returns or r[0] - returns[-1][0] > 1e-9 * unit]
+            r for r in section.crossings(run, budget) if not returns or r[0] - returns[-1][0] > 1e-9 * unit]
         if not fresh:
             # no return in a whole run: the section may miss the motion, or a turn takes longer
             if section is not None:
