@@ -1,4 +1,4 @@
-"""Basin sampling (gen/basin.py) and the basin verb, on radial models whose basins are exact.
+"""Basin sampling (gen/analysis/basin.py) and the basin verb, on radial models whose basins are exact.
 
 Each model here is x' = P(r^2) x - y, y' = x + P(r^2) y, which in polar form is r' = P(r^2) r,
 theta' = 1 (common practice: a radial polynomial puts cycles exactly at the roots of P). A start's

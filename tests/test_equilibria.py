@@ -1,4 +1,4 @@
-"""Equilibria and their kinds (gen/equilibria.py)."""
+"""Equilibria and their kinds (gen/analysis/equilibria.py)."""
 
 from __future__ import annotations
 

@@ -161,7 +161,7 @@ def test_an_angle_far_faster_than_the_motion_is_refused_before_its_samples_are_m
     assert "TiB" in err and "Traceback" not in err
 
 
-# -- the chain of phase oscillators (gen/networks.py, oscillator 'phase_amplitude') -----------------
+# -- the chain of phase oscillators (gen/model/networks.py, oscillator 'phase_amplitude') -----------
 
 
 @functools.cache
