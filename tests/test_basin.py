@@ -1,4 +1,4 @@
-"""Basin sampling (gen/basin.py) and the basin verb, on radial models whose basins are exact.
+"""Basin sampling (gen/analysis/basin.py) and the basin verb, on radial models whose basins are exact.
 
 Each model here is x' = P(r^2) x - y, y' = x + P(r^2) y, which in polar form is r' = P(r^2) r,
 theta' = 1 (common practice: a radial polynomial puts cycles exactly at the roots of P). A start's
@@ -117,3 +117,19 @@ def test_basin_command_json_and_exit_codes(capsys, tmp_path):
     code = main(["basin", str(path), "--box", "x=-2"])
     _, err = capsys.readouterr()
     assert code == 2 and "NAME=LOW:HIGH" in err
+
+
+@pytest.mark.slow
+def test_a_stiff_model_stops_at_the_wall_clock_budget_inside_a_check():
+    # Regression (common practice: a budget bounds all the work): Van der Pol at mu = 1000 needs
+    # millions of RK4 steps between two checks; the integration read the clock only at the checks,
+    # so a 1 s budget ran for hours. Now it stops, says so once, and leaves the starts undecided.
+    from orbitfix.gen.analysis.basin import UNDECIDED
+    from orbitfix.gen.model.model_file import load_model
+
+    model = load_model("vanderpol").with_parameters({"mu": 1000.0})
+    box = {"x": (-3.0, 3.0)}
+    sample = sample_basin(model, box_starts(model, box, grid=3), box, seconds=1.0)
+    ran_out = [note for note in sample.notes if "1 s budget ran out" in note]
+    assert len(ran_out) == 1
+    assert set(sample.outcomes) == {UNDECIDED}

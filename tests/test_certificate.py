@@ -16,6 +16,7 @@ from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
 from orbitfix.verify.proofs.certificate import certify
+from orbitfix.verify.report.certificate import certificate_json, certificate_lines
 
 
 def small_design(fraction_bits: int, loop_hz: float | None = None):
@@ -143,7 +144,7 @@ def test_origin_is_a_fixed_point_so_the_whole_box_is_not_proved(coarse, coarse_c
     assert "unstable focus at (0, 0)" in first.near_equilibrium
     assert any("unstable focus" in reason for reason in cert.reasons)
     assert cert.cover_radius is not None
-    text = "\n".join(cert.describe())
+    text = "\n".join(certificate_lines(cert))
     assert "NOT PROVED" in text and "(0, 0)" in text
 
 
@@ -156,12 +157,12 @@ def test_excluding_the_equilibrium_neighbourhood_proves_the_rest(coarse, coarse_
     assert cert.exception_count == 0
     assert cert.excluded_states >= coarse_certificate.exception_count
     assert cert.certified_states == cert.box_states - cert.excluded_states
-    data = cert.to_json()
+    data = certificate_json(cert)
     assert data["proved"] is True
     assert data["states_checked"] == cert.states_checked >= cert.box_states
     assert data["band"]["inner"] == 0.03 and data["band"]["tolerance"] == 0.08
     assert data["steps_bound"] == cert.steps_bound
-    assert "PROVED" in cert.describe()[0]
+    assert "PROVED" in certificate_lines(cert)[0]
 
 
 def test_too_few_fraction_bits_at_the_full_loop_rate_stall_on_the_cycle() -> None:
@@ -186,7 +187,7 @@ def test_band_narrower_than_the_integer_deviation_fails_invariance(coarse) -> No
     replay = golden.step(coarse.plan.program, path[:, :-1])
     assert np.array_equal(replay, path[:, 1:])
     assert any("leaves the tolerance band" in reason for reason in cert.reasons)
-    assert "invariance FAILS" in "\n".join(cert.describe())
+    assert "invariance FAILS" in "\n".join(certificate_lines(cert))
 
 
 def test_refusals_name_what_to_do(vanderpol_design, coarse) -> None:
@@ -211,9 +212,9 @@ def test_refusals_name_what_to_do(vanderpol_design, coarse) -> None:
 def test_band_in_strips_equals_the_band_in_one_piece(coarse, coarse_certificate, monkeypatch) -> None:
     # Source: scipy's distance transform over the whole region at once (strips of 2048 rows cover
     # this coarse lattice in one piece), against strips of 7 rows with their halos.
-    import orbitfix.verify.proofs.certificate as certificate
+    import orbitfix.verify.proofs.certificate.lattice as lattice
 
-    monkeypatch.setattr(certificate, "STRIP_ROWS", 7)
+    monkeypatch.setattr(lattice, "STRIP_ROWS", 7)
     striped = certify(coarse, keep_tables=True)
     whole = coarse_certificate.tables
     assert np.array_equal(striped.tables["inner"], whole["inner"])

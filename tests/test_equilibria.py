@@ -1,4 +1,4 @@
-"""Equilibria and their kinds (gen/equilibria.py)."""
+"""Equilibria and their kinds (gen/analysis/equilibria.py)."""
 
 from __future__ import annotations
 
@@ -98,3 +98,24 @@ def test_every_kind_has_a_plain_description():
     assert describe_kind("stable focus") == "stable focus: nearby states spiral in"
     for kind in KINDS:
         assert describe_kind(kind).startswith(kind + ": ")
+
+
+def test_compiled_functions_agree_with_sympys_own_evaluation() -> None:
+    # Source: sympy's exact evaluation (subs + evalf) of the same expressions.
+    import sympy
+
+    from orbitfix.gen.model.compiled import array_function, point_function, scalar_function
+
+    x, y = sympy.symbols("x y", real=True)
+    expressions = [x * y - sympy.Max(0, x) ** 2, sympy.Abs(y) + sympy.Integer(3), sympy.Integer(2)]
+    points = np.array([[0.5, -1.25], [-2.0, 3.0], [1.5, 0.0]])
+    exact = np.array([[float(e.subs({x: a, y: b}).evalf()) for e in expressions] for a, b in points])
+    scalar = scalar_function((x, y), expressions)
+    point = point_function((x, y), expressions)
+    batch = array_function((x, y), expressions)
+    for (a, b), want in zip(points, exact, strict=True):
+        assert np.allclose(scalar(a, b), want, rtol=1e-15)
+        assert np.allclose(point(np.array([a, b])), want, rtol=1e-15)
+    together = batch(points.T)                  # shape (3 expressions, 3 points): constants broadcast
+    assert together.shape == (3, 3)
+    assert np.allclose(together, exact.T, rtol=1e-15)

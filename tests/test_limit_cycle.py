@@ -1,4 +1,4 @@
-"""The limit cycle (gen/limit_cycle.py) and the combined analysis (gen/analysis.py)."""
+"""The limit cycle (gen/analysis/limit_cycle/) and the combined analysis (gen/analysis/summary.py)."""
 
 from __future__ import annotations
 

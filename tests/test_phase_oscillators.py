@@ -149,7 +149,19 @@ def test_check_of_the_phase_oscillator_exits_0(capsys) -> None:
     assert "stable limit cycle" in capsys.readouterr().out
 
 
-# -- the chain of phase oscillators (gen/networks.py, oscillator 'phase_amplitude') -----------------
+def test_an_angle_far_faster_than_the_motion_is_refused_before_its_samples_are_made(capsys) -> None:
+    # Source: the issue's case (common practice: size work before starting it). At nu = 1e9 each
+    # phase turns about 1e10 times in one integrator step; following the motion at an eighth of a
+    # turn needs terabytes, which must be an input error naming the size, not an allocation failure.
+    fast = load_model("phase_chain").with_parameters({"nu": 1e9})
+    with pytest.raises(InputError, match=r"would need [\d,]+ values, [\d.]+ TiB.*smaller angular frequency"):
+        find_limit_cycle(fast)
+    assert main(["check", "phase_chain", "--set", "nu=1e9"]) == 2
+    err = capsys.readouterr().err
+    assert "TiB" in err and "Traceback" not in err
+
+
+# -- the chain of phase oscillators (gen/model/networks.py, oscillator 'phase_amplitude') -----------
 
 
 @functools.cache
@@ -278,3 +290,58 @@ def test_diffusive_network_file_errors_exit_2(tmp_path: Path, capsys) -> None:
         assert main(["check", str(path)]) == 2
         err = capsys.readouterr().err
         assert message in err and "pair.toml" in err and "Traceback" not in err
+
+
+@pytest.mark.slow
+def test_a_phase_a_million_times_faster_than_its_amplitude_still_closes() -> None:
+    # Source: the exact solution theta' = 2 pi nu, so the period is 1 / nu. At nu = 1e6 one run of
+    # the search holds millions of returns to the section; only the latest are refined (and the
+    # budget is read between them), where refining all of them outran the search's budget.
+    cycle = find_limit_cycle(load_model("phase_amplitude").with_parameters({"nu": 1e6}), seconds=60.0)
+    assert cycle.found and cycle.stable
+    assert cycle.period == pytest.approx(1e-6, rel=1e-9)
+
+
+def test_work_sizes_are_stated_in_binary_units_and_refused_past_the_limit() -> None:
+    # Source: IEC 80000-13 binary prefixes (1 KiB = 1024 bytes, 1 TiB = 2**40 bytes).
+    from orbitfix.gen.analysis.work_size import LARGEST_ARRAY, byte_text, refuse_oversized
+
+    assert byte_text(96) == "96 bytes"
+    assert byte_text(1536) == "1.5 KiB"
+    assert byte_text(4.79 * 2**40) == "4.79 TiB"
+    refuse_oversized(LARGEST_ARRAY // 8, "an array at the limit", "never refused")
+    with pytest.raises(InputError, match=r"a grid would need 67,108,865 values, 512 MiB.*use fewer"):
+        refuse_oversized(LARGEST_ARRAY // 8 + 1, "a grid", "use fewer")
+    with pytest.raises(InputError, match="unbounded"):
+        refuse_oversized(float("inf"), "a grid", "use fewer")
+
+
+def test_angle_helpers_agree_with_pythons_remainder_and_modulo() -> None:
+    # Source: Python's math.remainder (IEEE 754 remainder, the nearest way round to within a tie)
+    # and float % (the sign of the divisor); one turn is math.tau.
+    from orbitfix.gen.model.angles import (
+        TURN,
+        part_of_turn,
+        radians_to_turns,
+        whole_turns,
+        wrap_angles,
+        wrap_difference,
+        wrap_turns,
+    )
+
+    assert TURN == math.tau
+    rng = np.random.default_rng(7)
+    values = rng.uniform(-50.0, 50.0, size=(2, 200))
+    mask = np.array([True, False])
+    near = wrap_difference(values, mask)
+    assert np.allclose(near[0], [math.remainder(v, math.tau) for v in values[0]], atol=1e-12)
+    assert np.array_equal(near[1], values[1])                 # not an angle: untouched
+    assert np.all((near[0] >= -math.pi) & (near[0] < math.pi))
+    ahead = wrap_angles(values, mask)
+    assert np.array_equal(ahead[0], [v % math.tau for v in values[0]])
+    assert np.array_equal(whole_turns(values[:, 0], mask), [round(values[0, 0] / math.tau), 0])
+    turns = values[0] / 7.0
+    assert np.allclose(wrap_turns(turns), [math.remainder(v, 1.0) for v in turns], atol=1e-12)
+    assert np.allclose(radians_to_turns(values[0]), near[0] / math.tau, atol=1e-12)
+    assert np.array_equal(part_of_turn(turns), [v % 1.0 for v in turns])
+    assert wrap_turns(0.5) == -0.5 and part_of_turn(-0.25) == 0.75     # the ranges' ends

@@ -1,4 +1,5 @@
-"""Parameter sweep, Hopf points and the first Lyapunov coefficient (gen/sweep.py, gen/hopf.py)."""
+"""Parameter sweep, Hopf points and the first Lyapunov coefficient (gen/analysis/sweep/ and
+gen/analysis/hopf.py)."""
 
 from __future__ import annotations
 
@@ -38,7 +39,7 @@ def planar_l1(model, state: np.ndarray) -> float:
     """Kuznetsov, Elements of Applied Bifurcation Theory (2004), sec. 3.5, eq. (3.20), for a planar
     system: with z = <p, x - x0>, z' = i w z + g(z, conj z), g(z, conj z) = <p, F(x0 + z q +
     conj(z q))>, the Taylor coefficients g20, g11, g21 of g give
-    l1 = Re(i g20 g11 + w g21) / (2 w^2). Done here symbolically, independently of gen/hopf.py's
+    l1 = Re(i g20 g11 + w g21) / (2 w^2). Done here symbolically, independently of gen/analysis/hopf.py's
     multilinear forms (only the eigenvectors are shared, normalised as there: <q,q> = <p,q> = 1)."""
     x = sympy.Matrix(model.state_symbols)
     f = sympy.Matrix(model.resolved_equations)

@@ -31,6 +31,7 @@ import sympy
 from orbitfix.gen.analysis.equilibria import Equilibrium, find_equilibria, format_state
 from orbitfix.gen.analysis.limit_cycle import LimitCycle, find_limit_cycle
 from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.compiled import array_function
 from orbitfix.gen.model.definition import Model
 
 NEAR = 1e-2                 # decided when this close (relative to the cycle's size) to an attractor
@@ -44,6 +45,7 @@ MAX_PROBES = 12             # undecided starts followed one by one at the end, a
 PROBES_BETWEEN = 3          # the same, after PROBE_AFTER periods (to find other cycles early)
 PROBE_AFTER = 10.0          # periods
 CYCLE_SAMPLES = 1000        # cycle samples kept for distances
+CLOCK_STEPS = 256           # RK4 steps between looks at the clock, inside one check
 
 CYCLE = "reaches the cycle"
 GROWS = "grows without bound"
@@ -172,8 +174,8 @@ class _Run:
         self.field = model.vector_field()
         states = list(model.state_symbols)
         matrix = sympy.Matrix(model.resolved_equations).jacobian(sympy.Matrix(states))
-        self.jacobian_rows = _vectorised(states, [sum((abs(e) for e in matrix.row(i)), sympy.S.Zero)
-                                                  for i in range(model.dimension)])
+        self.jacobian_rows = array_function(states, [sum((abs(e) for e in matrix.row(i)), sympy.S.Zero)
+                                                     for i in range(model.dimension)])
         self.deadline = time.monotonic() + seconds
         self.seconds = seconds
         every = max(1, cycle.samples.shape[1] // CYCLE_SAMPLES)
@@ -228,18 +230,24 @@ class _Run:
             warnings.simplefilter("ignore", RuntimeWarning)
             while active.size and self.elapsed < until:
                 if time.monotonic() > self.deadline:
-                    self.notes.append(f"the {self.seconds:g} s budget ran out after "
-                                      f"{self.elapsed:.4g} model time units "
-                                      f"({self.elapsed / self.period:.3g} periods)")
+                    note = (f"the {self.seconds:g} s budget ran out after {self.elapsed:.4g} model "
+                            f"time units ({self.elapsed / self.period:.3g} periods)")
+                    if note not in self.notes:
+                        self.notes.append(note)
                     break
                 y = x[:, active]
                 h = self._step(y)
                 self.step = min(self.step, h)
                 per_check = max(1, round(0.5 * self.period / h))
-                for _ in range(per_check):
-                    y = self._rk4(y, h)
+                done = 0
+                while done < per_check:   # the clock is read every CLOCK_STEPS steps
+                    for _ in range(min(CLOCK_STEPS, per_check - done)):
+                        y = self._rk4(y, h)
+                    done += min(CLOCK_STEPS, per_check - done)
+                    if time.monotonic() > self.deadline:
+                        break
                 x[:, active] = y
-                self.elapsed += per_check * h
+                self.elapsed += done * h
                 size = np.sqrt(np.sum(y * y, axis=0))
                 gone = ~np.isfinite(size) | (size > self.escape)
                 near = self._nearest_attractor(y)
@@ -328,12 +336,6 @@ class _Run:
             if float(np.min(np.max(np.abs(ring - x[None, :]), axis=1))) <= NEAR * size:
                 return label
         return None
-
-
-def _vectorised(variables: list, expressions: list):
-    """numpy code for expressions of the states: f(x) with x of shape (n, k) -> shape (m, k)."""
-    f = sympy.lambdify([variables], expressions, modules="numpy")
-    return lambda x: np.array([np.broadcast_to(v, x.shape[1:]) for v in f(x)], dtype=float)
 
 
 def _settles(equilibrium: Equilibrium) -> str:

@@ -21,6 +21,8 @@ import sympy
 from scipy.optimize import root
 from scipy.stats import qmc
 
+from orbitfix.gen.model.angles import TURN, wrap_angles, wrap_difference
+from orbitfix.gen.model.compiled import point_function
 from orbitfix.gen.model.definition import Model
 
 KINDS = ("stable node", "unstable node", "stable focus", "unstable focus", "saddle", "center",
@@ -141,12 +143,10 @@ class EquilibriumFinder:
         n = model.dimension
         states = list(model.state_symbols)
         rates = list(model.resolved_equations)
-        field = sympy.lambdify(states, rates, modules="math", cse=True)
-        entries = list(sympy.Matrix(rates).jacobian(sympy.Matrix(states)))
-        jacobian = sympy.lambdify(states, entries, modules="math", cse=True)
-        self.field = lambda t, x: np.array(field(*np.asarray(x, dtype=float).tolist()), dtype=float)
-        self.jacobian = lambda x: np.array(jacobian(*np.asarray(x, dtype=float).tolist()),
-                                           dtype=float).reshape(n, n)
+        field = point_function(states, rates)
+        jacobian = point_function(states, list(sympy.Matrix(rates).jacobian(sympy.Matrix(states))))
+        self.field = lambda t, x: field(x)
+        self.jacobian = lambda x: jacobian(x).reshape(n, n)
 
     def all(self) -> list[Equilibrium]:
         """Every equilibrium reached from the seeds, each once, in a fixed order."""
@@ -191,7 +191,7 @@ class EquilibriumFinder:
                 point = np.asarray(result.x, dtype=float)
                 if not np.all(np.isfinite(point)):
                     return None
-                point[self.angles] %= 2.0 * math.pi   # judged where it is on the circle
+                point = wrap_angles(point, self.angles)   # judged where it is on the circle
                 free = point[~self.angles]
                 size = max(1.0, float(np.max(np.abs(free))) if free.size else 1.0)
                 rate = max(1.0, float(np.max(np.abs(jacobian(point)))))
@@ -201,7 +201,7 @@ class EquilibriumFinder:
         if not np.all(np.isfinite(left)) or float(np.max(left)) > 1e-9 * size * rate:
             return None
         point[np.abs(point) < 1e-12 * size] = 0.0   # report the origin as 0, not 1e-17 or -0
-        point[self.angles & (np.abs(point - 2.0 * math.pi) < 1e-12)] = 0.0
+        point[self.angles & (np.abs(point - TURN) < 1e-12)] = 0.0
         return point
 
 
@@ -228,9 +228,7 @@ def _seeds(initial: np.ndarray) -> np.ndarray:
 
 def _same_point(a: np.ndarray, b: np.ndarray, angles: np.ndarray | None = None) -> bool:
     size = max(1.0, float(np.max(np.abs(a))), float(np.max(np.abs(b))))
-    difference = a - b
-    if angles is not None and angles.any():
-        difference[angles] = (difference[angles] + math.pi) % (2.0 * math.pi) - math.pi
+    difference = a - b if angles is None else wrap_difference(a - b, angles)
     return float(np.max(np.abs(difference))) <= SAME_POINT_TOLERANCE * size
 
 

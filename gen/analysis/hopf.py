@@ -25,6 +25,7 @@ from dataclasses import dataclass
 import numpy as np
 import sympy
 
+from orbitfix.gen.model.compiled import array_function
 from orbitfix.gen.model.definition import Model
 
 DEGENERATE_TOLERANCE = 1e-9   # |l1| below this fraction of the sizes of its terms counts as zero
@@ -116,11 +117,11 @@ class _Derivatives:
         terms = [sympy.sympify(t).replace(lambda e: isinstance(e, sympy.DiracDelta),
                                           lambda e: sympy.S.Zero) for t in terms]
         self.n = n
-        self._compiled = sympy.lambdify([x], terms, modules="numpy")
+        self._compiled = array_function(x, terms)
 
     def at(self, x0: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(Jacobian (n, n), second derivatives (n, n, n), third derivatives (n, n, n, n))."""
         n = self.n
-        flat = np.array([float(v) for v in self._compiled(x0)], dtype=float)
+        flat = self._compiled(x0)
         return (flat[:n * n].reshape(n, n), flat[n * n:n * n + n ** 3].reshape(n, n, n),
                 flat[n * n + n ** 3:].reshape(n, n, n, n))

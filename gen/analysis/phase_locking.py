@@ -19,10 +19,11 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import sympy
 from scipy.integrate import solve_ivp
 
 from orbitfix.gen.analysis.limit_cycle import LimitCycle
+from orbitfix.gen.model.angles import TURN, part_of_turn, wrap_turns
+from orbitfix.gen.model.compiled import scalar_function
 from orbitfix.gen.model.definition import Model
 
 LOCK_TOLERANCE = 0.01      # cycles: a lag this close to the wanted one counts as locked
@@ -72,11 +73,6 @@ class PhaseLocking:
                 "cycles_to_lock": self.cycles_to_lock, "ok": self.ok, "verdict": self.verdict}
 
 
-def wrap_lag(value: float) -> float:
-    """A lag difference wrapped into [-0.5, 0.5) cycles."""
-    return float((value + 0.5) % 1.0 - 0.5)
-
-
 def analyse_locking(model: Model, cycle: LimitCycle) -> PhaseLocking:
     """Lags on the network's limit cycle and the cycles needed to lock from the initial state."""
     layout = model.network
@@ -105,7 +101,7 @@ def analyse_locking(model: Model, cycle: LimitCycle) -> PhaseLocking:
 def _judged(labels: tuple[str, ...], wanted: tuple[float, ...], lags: tuple[float, ...],
             period: float, locked: bool, to_lock: int | None, note: str) -> PhaseLocking:
     """The verdict from the lags on the cycle and the run from the initial state."""
-    errors = tuple(wrap_lag(m - w) for m, w in zip(lags, wanted, strict=True))
+    errors = tuple(float(wrap_turns(m - w)) for m, w in zip(lags, wanted, strict=True))
     worst = max(abs(e) for e in errors)
     if not locked:
         verdict = f"not phase-locked from the initial state: {note}"
@@ -123,7 +119,7 @@ def _phase_lags(thetas: np.ndarray) -> np.ndarray:
     """Lags in cycles, in [0, 1), from phases (rows: oscillators; columns: instants, averaged
     on the circle): the part of a turn by which each trails oscillator 1."""
     trail = np.exp(1j * (thetas[:1] - thetas)).mean(axis=-1)
-    return np.angle(trail) / (2 * math.pi) % 1.0
+    return part_of_turn(np.angle(trail) / TURN)
 
 
 def _locking_of_phases(model: Model, cycle: LimitCycle, labels: tuple[str, ...],
@@ -155,7 +151,7 @@ def _locking_of_phases(model: Model, cycle: LimitCycle, labels: tuple[str, ...],
                         for k in range(run.y.shape[1])]
             x = run.y[:, -1]
             if len(history) >= STEADY_CYCLES and all(
-                    max(abs(wrap_lag(a - b)) for a, b in zip(row, lags, strict=True))
+                    max(abs(wrap_turns(a - b)) for a, b in zip(row, lags, strict=True))
                     <= STEADY_TOLERANCE for row in history[-STEADY_CYCLES:]):
                 locked = True
                 break
@@ -166,7 +162,7 @@ def _locking_of_phases(model: Model, cycle: LimitCycle, labels: tuple[str, ...],
 
 
 def _tidy_lag(value: float) -> float:
-    lag = float(value % 1.0)
+    lag = float(part_of_turn(value))
     return 0.0 if lag > 1.0 - 1e-12 else lag
 
 
@@ -216,7 +212,7 @@ def _run_to_lock(model: Model, first: list[int], levels: np.ndarray, period: flo
             x, t = run.y[:, -1], float(run.t[-1])
             history = _lags_per_cycle(times, period)
             if len(history) >= STEADY_CYCLES and all(
-                    max(abs(wrap_lag(a - b)) for a, b in zip(lags, cycle_lags, strict=True))
+                    max(abs(wrap_turns(a - b)) for a, b in zip(lags, cycle_lags, strict=True))
                     <= STEADY_TOLERANCE for lags in history[-STEADY_CYCLES:]):
                 return True, _cycles_to_lock(history, wanted), ""
     return False, None, (f"after {MAX_CYCLES} periods the lags still had not settled on the "
@@ -243,7 +239,7 @@ def _cycles_to_lock(history: list[tuple[float, ...]], wanted: tuple[float, ...])
     """The first cycle from which every later cycle has every lag within LOCK_TOLERANCE."""
     locked_from = None
     for k in range(len(history) - 1, -1, -1):
-        worst = max(abs(wrap_lag(a - b)) for a, b in zip(history[k], wanted, strict=True))
+        worst = max(abs(wrap_turns(a - b)) for a, b in zip(history[k], wanted, strict=True))
         if worst > LOCK_TOLERANCE:
             break
         locked_from = k
@@ -270,8 +266,7 @@ def format_locking(locking: PhaseLocking) -> list[str]:
 def _rates_with_deadline(model: Model):
     """The vector field as fast scalar code, raising TimeoutError once RUN_SECONDS have passed
     (every run of the network has a time budget)."""
-    field = sympy.lambdify(list(model.state_symbols), list(model.resolved_equations),
-                           modules="math", cse=True)
+    field = scalar_function(model.state_symbols, model.resolved_equations)
     deadline = time.monotonic() + RUN_SECONDS
 
     def rates(t: float, x: np.ndarray) -> list[float]:

@@ -15,6 +15,7 @@ import numpy as np
 import sympy
 
 from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.compiled import array_function
 from orbitfix.gen.model.expressions import FUNCTIONS, ExpressionError, parse_expression
 
 NAME_PATTERN = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
@@ -175,14 +176,14 @@ class Model:
 
     def vector_field(self) -> Callable[[float, np.ndarray], np.ndarray]:
         """f(t, x) for scipy's solvers, parameters folded in. x : ndarray, shape (n,) or (n, k)."""
-        f = _lambdify(self.state_symbols, self.resolved_equations)
+        f = array_function(self.state_symbols, self.resolved_equations)
         return lambda t, x: f(x)
 
     def jacobian(self) -> Callable[[np.ndarray], np.ndarray]:
         """J(x) = df/dx, shape (n, n), from the symbolic derivative."""
         matrix = sympy.Matrix(self.resolved_equations).jacobian(sympy.Matrix(self.state_symbols))
         rows = [matrix[i, j] for i in range(self.dimension) for j in range(self.dimension)]
-        flat = _lambdify(self.state_symbols, tuple(rows))
+        flat = array_function(self.state_symbols, tuple(rows))
         n = self.dimension
         return lambda x: flat(np.asarray(x, dtype=float)).reshape(n, n)
 
@@ -191,7 +192,7 @@ class Model:
         trace = sum((sympy.diff(eq, s) for eq, s in zip(self.resolved_equations,
                                                         self.state_symbols, strict=True)),
                     sympy.Integer(0))
-        f = _lambdify(self.state_symbols, (trace,))
+        f = array_function(self.state_symbols, (trace,))
         return lambda x: float(f(np.asarray(x, dtype=float))[0])
 
     # -- variants and identity -----------------------------------------------------------------
@@ -341,16 +342,3 @@ def _number(value: float) -> sympy.Expr:
     """Whole numbers stay exact integers, so a parameter of 1 folds away instead of costing a
     multiplication."""
     return sympy.Integer(int(value)) if float(value).is_integer() else sympy.Float(value)
-
-
-def _lambdify(variables: tuple[sympy.Symbol, ...],
-              expressions: tuple[sympy.Expr, ...]) -> Callable[[np.ndarray], np.ndarray]:
-    """Compile expressions to a numpy function of a stacked state array (broadcasts constants)."""
-    f = sympy.lambdify([list(variables)], list(expressions), modules="numpy")
-
-    def evaluate(x: np.ndarray) -> np.ndarray:
-        x = np.asarray(x, dtype=float)
-        values = f(x)
-        return np.array([np.broadcast_to(v, x.shape[1:]) for v in values], dtype=float)
-
-    return evaluate

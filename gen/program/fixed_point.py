@@ -14,10 +14,11 @@ from fractions import Fraction
 import numpy as np
 
 from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.angles import radians_to_turns
 from orbitfix.gen.model.definition import Parameter
 from orbitfix.gen.program.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
 from orbitfix.gen.program.lowering import evaluate_real
-from orbitfix.gen.program.ranges import interval_ranges, planning_box, to_turns
+from orbitfix.gen.program.ranges import interval_ranges, planning_box
 
 
 @dataclass(frozen=True)
@@ -186,7 +187,7 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     samples = np.array(samples, dtype=float)
     initial = np.array(initial, dtype=float)
     for i in angles:  # angle states are planned, and held, in turns
-        samples[i], initial[i] = to_turns(samples[i]), to_turns(initial[i])
+        samples[i], initial[i] = radians_to_turns(samples[i]), radians_to_turns(initial[i])
     nominal = [v for p in runtime for v in (p.value, p.value)]
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
     points = np.vstack([points, np.repeat(np.reshape(nominal, (-1, 1)), points.shape[1], axis=1)])

@@ -4,7 +4,6 @@ operations with real constants (the structure of the integer program, before any
 
 from __future__ import annotations
 
-import math
 from dataclasses import replace
 from fractions import Fraction
 
@@ -12,6 +11,7 @@ import numpy as np
 import sympy
 
 from orbitfix.gen.errors import UnsupportedError
+from orbitfix.gen.model import angles
 from orbitfix.gen.model.definition import Model, Parameter
 from orbitfix.gen.program.integer_program import IntegerProgram, Op
 from orbitfix.gen.timing.integrators import Integrator
@@ -69,7 +69,7 @@ def _terms(step: float, weights: tuple[Fraction, ...], slopes: list[list[int]], 
             for j, (w, k) in enumerate(zip(weights, slopes, strict=False), start=1)]
 
 
-TURN = Fraction(2 * math.pi)  # radians in a turn (as the float nearest 2 pi)
+TURN = Fraction(angles.TURN)  # radians in a turn (as the float nearest 2 pi)
 
 
 class _Builder:
@@ -291,7 +291,7 @@ def evaluate_real(program: IntegerProgram, states: np.ndarray) -> list[np.ndarra
         else:
             values.append(_REAL[op.kind](op, a))
         if op.wraps:
-            values[-1] = np.mod(values[-1] + 0.5, 1.0) - 0.5
+            values[-1] = angles.wrap_turns(values[-1])
     return values
 
 

@@ -70,7 +70,3 @@ def planning_box(samples: np.ndarray, initial: np.ndarray, scale: float,
         low[i], high[i] = -0.5, 0.5
     return low, high
 
-
-def to_turns(radians: np.ndarray) -> np.ndarray:
-    """Angles in radians as turns wrapped into [-1/2, 1/2)."""
-    return np.mod(np.asarray(radians, dtype=float) / (2 * np.pi) + 0.5, 1.0) - 0.5

@@ -25,6 +25,8 @@ from orbitfix.verify.cli.options import CAUTION, add_model_arguments, model_from
 from orbitfix.verify.proofs.certificate import DEFAULT_BAND, DEFAULT_TOLERANCE, certify
 from orbitfix.verify.proofs.drift import NO_ANGLES, DriftTolerances, build_drift_module, run_drift
 from orbitfix.verify.proofs.host_check import check_on_host, read_sources
+from orbitfix.verify.report.certificate import certificate_json, certificate_lines
+from orbitfix.verify.report.drift import drift_json, drift_lines
 from orbitfix.verify.targets.host_build import STRICT_FLAGS
 
 # Verbs defined in modules of their own: each module has register(verbs) adding its parser.
@@ -212,12 +214,12 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
         sources = read_sources(built, args.sources)[0] if args.sources else None
         drift = run_drift(built, hours=args.hours, tolerances=tolerances,
                           host=build_drift_module(built, sources))
-        partial["drift"] = drift.to_json()
+        partial["drift"] = drift_json(drift)
     certificate = None
     if args.certify and report.bit_exact:
         certificate = certify(built, band=args.band, tolerance=args.tolerance_band,
                               box=parse_box(args.box) or None, exclude_radius=args.exclude_radius)
-        partial["certificate"] = certificate.to_json()
+        partial["certificate"] = certificate_json(certificate)
     if args.json:
         print(json.dumps(plain_json(partial), indent=2))
     else:
@@ -240,12 +242,12 @@ def _verify(args: argparse.Namespace, partial: dict) -> int:
             print("result: bit-exact: the C gives the golden model's bits at every compared step")
         if drift is not None:
             print()
-            print("\n".join(drift.describe()))
+            print("\n".join(drift_lines(drift)))
         elif not args.skip_drift:
             print("long-run drift test: not run, since the C is not bit-exact")
         if certificate is not None:
             print()
-            print("\n".join(certificate.describe()))
+            print("\n".join(certificate_lines(certificate)))
         print(CAUTION)
     passed = (report.bit_exact and (drift is None or drift.verdict == "pass")
               and (certificate is None or certificate.proved))

@@ -1,0 +1,16 @@
+"""The parameter sweep: equilibria along one parameter, the Hopf points on the way and the cycle
+born at each (:mod:`.parameter_sweep` runs the steps and holds the result; :mod:`.continuation`
+follows the equilibria, :mod:`.hopf_points` finds the crossings, :mod:`.branch` follows the cycles)."""
+
+from orbitfix.gen.analysis.sweep.branch import BranchPoint
+from orbitfix.gen.analysis.sweep.hopf_points import HopfPoint
+from orbitfix.gen.analysis.sweep.parameter_sweep import (
+    DEFAULT_SAMPLES,
+    DEFAULT_SECONDS,
+    Sweep,
+    SweepSample,
+    sweep,
+)
+
+__all__ = ["DEFAULT_SAMPLES", "DEFAULT_SECONDS", "BranchPoint", "HopfPoint", "Sweep", "SweepSample",
+           "sweep"]

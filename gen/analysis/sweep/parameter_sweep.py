@@ -1,0 +1,221 @@
+"""Parameter sweep: equilibria and their eigenvalues along one parameter, the Hopf points where a
+complex pair crosses the imaginary axis, and the cycle born at each, followed along the parameter.
+
+A rhythm generator is switched on and off, or retuned, by moving a parameter; the sweep says where
+the rhythm starts (the Hopf point and its frequency), whether it starts gently from zero amplitude
+(supercritical) or jumps in with hysteresis (subcritical), and how period, amplitude and the
+cycle's stability change beyond it.
+
+Method:
+
+1. Tracking: at every ``SEARCH_EVERY``-th sampled parameter value (and the last) the equilibria
+   are found from the usual seeds of :func:`gen.equilibria.find_equilibria`; each is then
+   continued forward and backward through every sample (each root seeded by its neighbour's), so
+   every sample lists every equilibrium reached, with its eigenvalues.
+2. Detection: each equilibrium is continued to the next sample; where the number of eigenvalues
+   with positive real part changes, the parameter is bisected (to ``BISECTION_TOLERANCE`` of the
+   sweep's span) with the equilibrium continued at every step. A complex pair at the crossing is a
+   Hopf point, its imaginary part the frequency; a real eigenvalue crossing zero is noted.
+3. Kind: the first Lyapunov coefficient (:mod:`gen.hopf`) at the Hopf point.
+4. Branch: natural continuation of the cycle from the Hopf point into the side where it exists,
+   one :func:`gen.limit_cycle.find_limit_cycle` per sample, each started from the last cycle's
+   point (the first from the small cycle the normal form predicts).
+
+Rooms: continuation of equilibria (``continuation``), detection (``hopf_points``), the branch
+(``branch``); this module holds the results and runs the steps.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from orbitfix.gen.analysis.equilibria import Equilibrium, find_equilibria
+from orbitfix.gen.analysis.sweep.branch import BranchPoint, follow_branch
+from orbitfix.gen.analysis.sweep.continuation import ParameterFamily, continue_across, point_text
+from orbitfix.gen.analysis.sweep.hopf_points import HopfPoint, locate_hopf, same_hopf
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.fan_out import fan_out
+from orbitfix.gen.model.definition import Model
+
+DEFAULT_SAMPLES = 41
+DEFAULT_SECONDS = 60.0         # wall-clock budget of the whole sweep, s
+MAX_SAMPLES = 10_000
+SEARCH_EVERY = 5               # the full seeded search runs at every 5th sample; continuation between
+LEAD_IN = (0.125, 0.25, 0.5)   # first branch points, as fractions of the sample spacing
+
+
+@dataclass(frozen=True, eq=False)
+class SweepSample:
+    """The equilibria found at one parameter value."""
+
+    param_value: float
+    equilibria: tuple[Equilibrium, ...]
+
+
+@dataclass(frozen=True, eq=False)
+class Sweep:
+    """Everything the sweep found."""
+
+    model: Model
+    parameter: str
+    start: float
+    stop: float
+    samples: tuple[SweepSample, ...]
+    hopf: tuple[HopfPoint, ...]
+    branch: tuple[BranchPoint, ...]
+    notes: tuple[str, ...]
+    complete: bool
+
+    def to_json(self) -> dict:
+        """Plain data for ``json.dump`` (non-finite numbers as None)."""
+        return {
+            "model": self.model.name,
+            "parameter": self.parameter,
+            "from": self.start,
+            "to": self.stop,
+            "states": list(self.model.state_names),
+            "complete": self.complete,
+            "hopf": [{
+                "param_value": h.param_value,
+                "equilibrium": _numbers(h.equilibrium),
+                "frequency": h.frequency,
+                "kind": h.kind,
+                "first_lyapunov_coefficient": _number(h.lyapunov.value),
+                "crossing_rate": _number(h.crossing_rate),
+                "unstable_side": h.unstable_side,
+                "cycle_side": h.cycle_side,
+            } for h in self.hopf],
+            "branch": [{
+                "hopf_index": b.hopf_index,
+                "param_value": b.param_value,
+                "found": b.found,
+                "stable": b.stable,
+                "period": _number(b.period),
+                "amplitude": _number(b.amplitude),
+                "max_multiplier": _number(b.max_multiplier),
+                "verdict": b.verdict,
+            } for b in self.branch],
+            "samples": [{
+                "param_value": s.param_value,
+                "equilibria": [{"state": _numbers(e.state),
+                                "eigenvalues": [[_number(v.real), _number(v.imag)]
+                                                for v in e.eigenvalues],
+                                "kind": e.kind} for e in s.equilibria],
+            } for s in self.samples],
+            "notes": list(self.notes),
+        }
+
+
+def sweep(model: Model, parameter: str, start: float, stop: float, *,
+          samples: int = DEFAULT_SAMPLES, workers: int | None = None, follow_cycles: bool = True,
+          seconds: float = DEFAULT_SECONDS, scheduler: object | None = None) -> Sweep:
+    """Sweep ``parameter`` from ``start`` to ``stop`` over ``samples`` evenly spaced values.
+
+    workers : int -- processes for the independent parts (the equilibrium search at each sample,
+        and the branches of different Hopf points); default one per core, 1 runs everything in
+        this process.
+    scheduler : a Dask scheduler address (or client) to run those parts on a cluster instead.
+    follow_cycles : bool -- follow the cycle born at each Hopf point (the slow part).
+    seconds : float, s -- wall-clock budget; when it runs out the sweep stops and says so.
+
+    Raises InputError for an unknown parameter, an empty or non-finite range, or too few samples.
+    """
+    _check_request(model, parameter, start, stop, samples, workers, seconds)
+    deadline = time.monotonic() + seconds
+    values = np.linspace(start, stop, samples)
+    family = ParameterFamily(model, parameter)
+    notes: list[str] = []
+
+    searched = sorted(set(range(0, samples, SEARCH_EVERY)) | {samples - 1})
+    found = fan_out(_equilibria_at, [(model, parameter, float(values[k])) for k in searched],
+                    workers, scheduler)
+    states: list[list[np.ndarray]] = [[] for _ in values]
+    for k, points in zip(searched, found, strict=True):
+        states[k] = points
+    states = continue_across(family, values, states)
+    table = tuple(SweepSample(float(v), tuple(family.equilibrium(s, float(v)) for s in found))
+                  for v, found in zip(values, states, strict=True))
+
+    hopf: list[HopfPoint] = []
+    for k in range(samples - 1):
+        for state in states[k]:
+            try:
+                found = locate_hopf(family, model, parameter, state, float(values[k]),
+                                    float(values[k + 1]), abs(stop - start), notes)
+            except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+                notes.append(f"the eigenvalues of the equilibrium near {point_text(state)} could not "
+                             f"be followed from {parameter} = {values[k]:.6g} ({exc})")
+                continue
+            if found is not None and not any(same_hopf(found, h, abs(stop - start)) for h in hopf):
+                hopf.append(found)
+    hopf.sort(key=lambda h: (h.param_value - start) / (stop - start))
+
+    branch: list[BranchPoint] = []
+    complete = True
+    if follow_cycles and hopf:
+        jobs = []
+        for index, point in enumerate(hopf):
+            sign = 1.0 if point.cycle_side == "above" else -1.0
+            spacing = abs(stop - start) / (samples - 1)
+            ahead = sorted([float(v) for v in values if (v - point.param_value) * sign > 0.5 * spacing]
+                           + [point.param_value + sign * f * spacing for f in LEAD_IN],
+                           key=lambda v: abs(v - point.param_value))
+            ahead = [v for v in ahead if min(start, stop) <= v <= max(start, stop)]
+            jobs.append((model, parameter, index, point, ahead, deadline))
+        for points, note, finished in fan_out(follow_branch, jobs, workers, scheduler):
+            branch.extend(points)
+            notes.extend([note] if note else [])
+            complete = complete and finished
+    if not hopf:
+        notes.append(f"no Hopf point between {parameter} = {start:.6g} and {stop:.6g}: no complex "
+                     "pair of eigenvalues crosses the imaginary axis between neighbouring samples")
+    return Sweep(model=model, parameter=parameter, start=float(start), stop=float(stop),
+                 samples=table, hopf=tuple(hopf), branch=tuple(branch), notes=tuple(notes),
+                 complete=complete)
+
+
+# -- checks and fan-out --------------------------------------------------------------------------
+
+
+def _check_request(model: Model, parameter: str, start: float, stop: float, samples: int,
+                   workers: int, seconds: float) -> None:
+    known = model.parameter_values
+    if parameter not in known:
+        choices = ", ".join(known) or "none"
+        raise InputError(f"model '{model.name}' has no parameter '{parameter}' to sweep "
+                         f"(its parameters are: {choices})")
+    for value, what in ((start, "start"), (stop, "end")):
+        if not math.isfinite(value):
+            raise InputError(f"the sweep's {what} value must be a finite number, got {value}")
+    if start == stop:
+        raise InputError(f"the sweep must cover a range: start and end are both {start:g}; "
+                         "give two different values")
+    if not 3 <= samples <= MAX_SAMPLES:
+        raise InputError(f"the number of samples must be between 3 and {MAX_SAMPLES}, got {samples}")
+    if workers is not None and workers < 1:
+        raise InputError(f"workers must be at least 1, got {workers}")
+    if not (math.isfinite(seconds) and seconds > 0):
+        raise InputError(f"the time budget must be a positive number of seconds, got {seconds}")
+
+
+def _equilibria_at(model: Model, parameter: str, value: float) -> list[np.ndarray]:
+    """The equilibria's states at one parameter value, from the usual seeds."""
+    return [np.array(e.state) for e in find_equilibria(model.with_parameters({parameter: value}))]
+
+
+# -- JSON numbers ----------------------------------------------------------------------------------
+
+
+def _number(value: float | None) -> float | None:
+    if value is None:
+        return None
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def _numbers(values: np.ndarray) -> list[float | None]:
+    return [_number(v) for v in np.asarray(values, dtype=float)]

@@ -1,0 +1,23 @@
+"""The long-run drift proof in compiled C (:mod:`.proof` runs and judges it; :mod:`.harness` the C
+harness and the calls into it, :mod:`.references` the starts and the float step map). Text and
+JSON: ``verify/report/drift.py``."""
+
+from orbitfix.verify.proofs.drift.harness import (
+    build_drift_module,
+    cycle_start,
+    harness_statistics,
+    integer_period,
+)
+from orbitfix.verify.proofs.drift.proof import (
+    NO_ANGLES,
+    DriftReport,
+    DriftRun,
+    DriftTolerances,
+    finite_or_none,
+    run_drift,
+)
+from orbitfix.verify.proofs.drift.references import Start, choose_starts
+
+__all__ = ["NO_ANGLES", "DriftReport", "DriftRun", "DriftTolerances", "Start", "build_drift_module",
+           "choose_starts", "cycle_start", "finite_or_none", "harness_statistics", "integer_period",
+           "run_drift"]

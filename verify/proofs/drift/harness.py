@@ -1,0 +1,125 @@
+"""The drift harness in C (``templates/drift_harness.c.j2``) and the calls into it: one streaming
+run from a start with its statistics kept in C, the exact integer period by Brent's algorithm, and
+the step from which the integer orbit is periodic.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from orbitfix.gen import __version__
+from orbitfix.gen.c.emit import HARNESS_DECLARATIONS, environment, render_host_harness, render_model
+from orbitfix.gen.c.naming import CNames
+from orbitfix.gen.pipeline import Design
+from orbitfix.verify.targets.host_build import HostModule, build_host_module
+
+DRIFT_DECLARATIONS = """\
+void orbitfix_drift_run(const int32_t *start, uint64_t steps, uint64_t settle, uint64_t window,
+                        int32_t section_level, uint64_t *counts,
+                        int32_t *ranges, int32_t *brackets, int32_t *end_state);
+uint64_t orbitfix_drift_period(const int32_t *start, uint64_t budget, uint64_t *seen_at);
+uint64_t orbitfix_drift_cycle_start(const int32_t *start, uint64_t period, uint64_t budget);
+"""
+
+# Slots of the harness's counts array (the enum at the top of drift_harness.c.j2).
+COUNT_FIELDS = ("crossings", "settled_crossings", "first_settled_crossing", "last_crossing",
+                "limit_steps", "limit_first", "limit_settled", "range_steps", "range_first",
+                "range_settled", "period", "period_seen_at")
+RANGE_GROUPS = ("settled_low", "settled_high", "first_low", "first_high", "final_low",
+                "final_high", "return_low", "return_high")
+
+
+@dataclass(frozen=True)
+class HarnessStatistics:
+    """What the C harness returns for one run: counts, ranges and crossing brackets (integers)."""
+
+    counts: dict[str, int]
+    ranges: dict[str, list[int]]
+    first_bracket: tuple[list[int], list[int]]
+    last_bracket: tuple[list[int], list[int]]
+    end_state: list[int]
+    seconds: float
+
+
+def render_drift_harness(design: Design) -> str:
+    """The drift harness C for one design."""
+    model = design.model
+    names = CNames(model.name)
+    bits = design.plan.program.word_bits
+    program = design.plan.program
+    return environment().get_template("drift_harness.c.j2").render(
+        names=names, fields=[names.field(n) for n in program.state_names],
+        count=len(program.state_names),
+        version=__version__, word_type=f"int{bits}_t", word_bits=bits,
+        declarations=DRIFT_DECLARATIONS, limits=design.plan.planned_limits())
+
+
+def build_drift_module(design: Design, sources: dict[str, str] | None = None) -> HostModule:
+    """Firmware, host harness and drift harness compiled into one module (strict flags).
+
+    sources : the firmware files NAME.h and NAME.c (e.g. from ``verify.host_check.read_sources``);
+        generated afresh from the design when not given.
+    """
+    names = CNames(design.model.name)
+    files = sources if sources is not None else render_model(
+        design.model, design.timing, design.integrator, design.plan)
+    return build_host_module(
+        sources={**files, "drift_harness.c": render_drift_harness(design)},
+        harness=render_host_harness(design.model, design.plan.program),
+        header=names.header, declarations=HARNESS_DECLARATIONS + DRIFT_DECLARATIONS)
+
+
+def harness_statistics(host: HostModule, start: tuple[int, ...], steps: int, settle: int,
+                       window: int, section_level: int) -> HarnessStatistics:
+    """One streaming run in C from ``start`` (integer units) with the statistics kept on the way."""
+    n = len(start)
+    ffi = host.ffi
+    begin = np.array(start, dtype=np.int32)
+    counts = np.zeros(len(COUNT_FIELDS), dtype=np.uint64)
+    ranges = np.zeros(len(RANGE_GROUPS) * n, dtype=np.int32)
+    brackets = np.zeros(4 * n, dtype=np.int32)
+    end = np.zeros(n, dtype=np.int32)
+    started = time.perf_counter()
+    host.lib.orbitfix_drift_run(ffi.from_buffer("int32_t[]", begin), steps, settle, window,
+                                section_level,
+                                ffi.from_buffer("uint64_t[]", counts),
+                                ffi.from_buffer("int32_t[]", ranges),
+                                ffi.from_buffer("int32_t[]", brackets),
+                                ffi.from_buffer("int32_t[]", end))
+    seconds = time.perf_counter() - started
+    b = [int(v) for v in brackets]
+    return HarnessStatistics(
+        counts={name: int(v) for name, v in zip(COUNT_FIELDS, counts, strict=True)},
+        ranges={name: [int(v) for v in ranges[i * n:(i + 1) * n]]
+                for i, name in enumerate(RANGE_GROUPS)},
+        first_bracket=(b[:n], b[n:2 * n]), last_bracket=(b[2 * n:3 * n], b[3 * n:]),
+        end_state=[int(v) for v in end], seconds=seconds)
+
+
+def integer_period(host: HostModule, start: tuple[int, ...], budget: int) -> tuple[int | None, int]:
+    """Brent's algorithm in C with the plain step: (exact period or None, step it was seen at)."""
+    ffi = host.ffi
+    seen = np.zeros(1, dtype=np.uint64)
+    begin = np.array(start, dtype=np.int32)
+    period = int(host.lib.orbitfix_drift_period(ffi.from_buffer("int32_t[]", begin), budget,
+                                                ffi.from_buffer("uint64_t[]", seen)))
+    return (period or None), int(seen[0])
+
+
+def cycle_start(host: HostModule, start: tuple[int, ...], period: int, budget: int) -> int | None:
+    """The first step from which the integer orbit is periodic (None if not within budget)."""
+    begin = np.array(start, dtype=np.int32)
+    mu = int(host.lib.orbitfix_drift_cycle_start(host.ffi.from_buffer("int32_t[]", begin), period,
+                                                 budget))
+    return None if mu > budget else mu
+
+
+def crossing_time(before: list[int] | np.ndarray, after: list[int] | np.ndarray, step: int,
+                  level: float) -> float:
+    """The (fractional) step at which state 0 crossed ``level`` between steps step-1 and step."""
+    low, high = float(before[0]), float(after[0])
+    return step - 1 + (level - low) / (high - low)
+

@@ -1,0 +1,364 @@
+"""The long-run drift proof: the compiled C (layer L3) run for hours of loop time from several
+starts, against the float step map (L1) and the continuous cycle (L0).
+
+Every long run happens in C (``templates/drift_harness.c.j2``): the harness calls the firmware's
+traced step and keeps running statistics, so nothing per step is stored or touched by Python. What
+the harness measures, and what this module makes of it:
+
+- amplitude: each state's half peak-to-peak range over the last few cycles of the run;
+- period: upward crossings of state 0 through a section level (the middle of its range on the
+  cycle), with sub-step linear interpolation at the first crossing after settling and at the last;
+- phase drift: the period error accumulated over the whole run, in cycles;
+- return spread: each state interpolated onto the section at every crossing after settling;
+- saturation events: steps where an intermediate sits at the word's limit (visible only when the
+  word saturates) and steps where one lies outside the planner's range (largest signal on the
+  cycle times the margin), which holds for both overflow modes;
+- the integer period: a finite-state orbit always ends up periodic; Brent's algorithm finds that
+  exact period in steps over the run.
+
+Rooms: the C harness and the calls into it (``harness``), the starts and the float step map
+(``references``); this module runs and judges the runs. The text and JSON renderings are in
+``verify/report/drift.py``.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import asdict, dataclass, field, replace
+
+import numpy as np
+
+from orbitfix.gen.errors import InputError, UnsupportedError
+from orbitfix.gen.pipeline import Design
+from orbitfix.verify.proofs.drift.harness import (
+    build_drift_module,
+    crossing_time,
+    cycle_start,
+    harness_statistics,
+)
+from orbitfix.verify.proofs.drift.references import (
+    STEP_MAP_CYCLES,
+    Start,
+    StepMapReference,
+    choose_starts,
+    step_map_reference,
+)
+from orbitfix.verify.targets.host_build import HostModule
+
+NO_ANGLES = ("the long-run drift test does not handle angle states (phases) yet: its section and "
+             "amplitudes assume states that swing rather than turn; run verify with --skip-drift")
+
+LONGEST_RUN = 1 << 62
+FEWEST_CYCLES = 16      # a run shorter than this cannot settle and still measure a period
+WINDOW_CYCLES = 3       # the amplitude windows, in cycles
+
+
+@dataclass(frozen=True)
+class DriftTolerances:
+    """What a long run may deviate by and still pass.
+
+    amplitude : relative error of each state's amplitude (half its peak-to-peak range) at the end
+        of the run, against the continuous cycle (L0) and the float step map (L1). 2 % is below
+        what a drive notices in stroke or force (common practice for rhythm generators).
+    period_ppm : error of the mean period after settling, parts per million, against L0 and L1.
+        1000 ppm (0.1 %) is finer than any gait or pump needs (common practice).
+    phase_drift_cycles : the phase the C may lose or gain over the whole run against the float step
+        map (L1), in cycles. Quantisation should not make the generator skip or add a single beat
+        relative to its float design, so the default is 1 cycle; the comparison is with L1, not L0,
+        because the period tolerance already bounds the discretisation's own detuning (at 1000 ppm
+        a day at 1.5 Hz is 130 cycles), while this one isolates what the integer words add.
+    return_spread : the spread (largest minus least) of each state's return points on the Poincare
+        section after settling, as a fraction of that state's peak-to-peak range on L0. On a
+        locked cycle it is a few LSB; 2 % allows the rounding's jitter and nothing more.
+    """
+
+    amplitude: float = 0.02
+    period_ppm: float = 1000.0
+    phase_drift_cycles: float = 1.0
+    return_spread: float = 0.02
+
+    def __post_init__(self) -> None:
+        for name, value in asdict(self).items():
+            if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
+                raise InputError(f"the drift tolerance '{name}' must be a positive number, "
+                                 f"got {value!r}")
+
+
+@dataclass
+class DriftRun:
+    """The outcome of one long run from one start."""
+
+    start: Start
+    amplitude: list[float]
+    amplitude_first: list[float]
+    amplitude_error: float | None
+    amplitude_error_step_map: float | None
+    period_steps: float | None
+    period_error_ppm: float | None
+    period_error_ppm_step_map: float | None
+    phase_drift_cycles: float | None
+    phase_drift_cycles_continuous: float | None
+    return_spread: list[float] | None
+    crossings: int
+    settled_crossings: int
+    integer_period_steps: int | None
+    integer_period_seen_at: int | None
+    cycle_entered_at_step: int | None
+    saturation_events: dict
+    step_map_returns: bool
+    reasons: list[str]
+    seconds: float
+    against: dict | None = None
+
+    @property
+    def verdict(self) -> str:
+        return "fail" if self.reasons else "pass"
+
+
+@dataclass
+class DriftReport:
+    """All runs of one drift proof, with the references they were held against."""
+
+    model: str
+    hours: float
+    loop_hz: float
+    steps: int
+    settle_steps: int
+    window_steps: int
+    section_level: int
+    planned_limits: list[int]
+    fraction_bits: int
+    state_names: tuple[str, ...]
+    tolerances: DriftTolerances
+    continuous_period_steps: float
+    continuous_amplitude: list[float]
+    step_map: StepMapReference
+    runs: list[DriftRun]
+    notes: list[str] = field(default_factory=list)
+    seconds: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def verdict(self) -> str:
+        return "fail" if any(run.verdict == "fail" for run in self.runs) else "pass"
+
+
+def finite_or_none(value: float) -> float | None:
+    """The value, or None where it is infinite or undefined (JSON has no such numbers)."""
+    return value if math.isfinite(value) else None
+
+
+def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances | None = None,
+              settle_fraction: float = 0.25, equilibrium_offset: float = 1e-3,
+              host: HostModule | None = None) -> DriftReport:
+    """The long-run drift proof: steps = round(hours * 3600 * loop rate) from every start, and,
+    for a model with runtime parameters, from its initial state at every corner of their ranges
+    (judged against the cycle at that corner).
+
+    settle_fraction : the first part of each run that is left out of the period, return-point
+        and after-settling counts (the way onto the cycle from a far start).
+    host : a module from ``build_drift_module`` (built here when not given).
+    """
+    if design.plan.program.angle_states:
+        raise UnsupportedError(NO_ANGLES)
+    if host is None:
+        started = time.perf_counter()
+        host = build_drift_module(design)
+        built_in = time.perf_counter() - started
+    else:
+        built_in = 0.0
+    report = _drift_report(design, hours, tolerances, settle_fraction, equilibrium_offset, host)
+    report.seconds["host_build"] = built_in
+    for corner, cycle in design.corners:
+        where = ", ".join(f"{name} = {value:g}" for name, value in corner.items())
+        at_corner = _drift_report(_at_corner(design, corner, cycle), hours, tolerances,
+                                  settle_fraction, equilibrium_offset, host, only_nominal=True)
+        for run in at_corner.runs:
+            run.start = replace(run.start, name=where,
+                                why=f"the initial state with {where} (a corner of the runtime "
+                                    "ranges), judged against the cycle there")
+            run.against = {"continuous_period_steps": at_corner.continuous_period_steps,
+                           "continuous_amplitude": at_corner.continuous_amplitude,
+                           "step_map_period_steps": at_corner.step_map.period_steps}
+            report.runs.append(run)
+    return report
+
+
+def _at_corner(design: Design, corner: dict[str, float], cycle: object) -> Design:
+    """The design seen from one corner: parameters, cycle, period and initial state there."""
+    model = design.model.with_parameters(corner)
+    plan = design.plan
+    program = plan.program
+    n = program.model_state_count
+    held = []
+    for k, p in enumerate(model.runtime_parameters):
+        bits = program.state_fraction_bits[n + 2 * k]
+        held += [round(p.value * 2**bits)] * 2
+    return replace(design, model=model, analysis=replace(design.analysis, cycle=cycle),
+                   timing=replace(design.timing, steps_per_cycle=cycle.period / design.timing.step),
+                   plan=replace(plan, initial_state=tuple(plan.initial_state[:n]) + tuple(held)))
+
+
+def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | None,
+                  settle_fraction: float, equilibrium_offset: float, host: HostModule,
+                  only_nominal: bool = False) -> DriftReport:
+    """The runs of one design (at one setting of the runtime parameters)."""
+    tolerances = tolerances if tolerances is not None else DriftTolerances()
+    timing, plan = design.timing, design.plan
+    program = plan.program
+    if not (isinstance(hours, int | float) and math.isfinite(hours) and hours > 0):
+        raise InputError(f"--hours must be a positive number, got {hours!r}")
+    if not 0 < settle_fraction < 0.9:
+        raise InputError(f"the settling fraction must lie between 0 and 0.9, got {settle_fraction}")
+    spc = timing.steps_per_cycle
+    steps = round(hours * 3600 * timing.loop_hz)
+    if steps < FEWEST_CYCLES * spc:
+        fewest = FEWEST_CYCLES * spc / (3600 * timing.loop_hz)
+        raise InputError(f"{hours:g} h at {timing.loop_hz:g} Hz is {steps:,} steps, fewer than the "
+                         f"{FEWEST_CYCLES} cycles a drift run needs to settle and measure a "
+                         f"period; give at least {fewest:.3g} hours")
+    if steps > LONGEST_RUN:
+        raise InputError(f"{hours:g} h is more steps than the harness counts; give fewer hours")
+    settle = round(settle_fraction * steps)
+    window = max(1, round(WINDOW_CYCLES * spc))
+    fraction = plan.signal_format.fraction_bits
+    scale = 2.0 ** fraction
+    cycle = design.analysis.cycle
+    low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
+    level = round(float(low[0] + high[0]) / 2 * scale)
+    starts, notes = choose_starts(design, equilibrium_offset)
+    if only_nominal:
+        starts, notes = starts[:1], []
+    seconds: dict[str, float] = {}
+
+    started = time.perf_counter()
+    reference = step_map_reference(design, level / scale, starts, tolerances.amplitude)
+    seconds["step_map_reference"] = time.perf_counter() - started
+
+    continuous_amplitude = [float(v) for v in (high - low) / 2]
+    report = DriftReport(
+        model=design.model.name, hours=float(hours), loop_hz=timing.loop_hz, steps=steps,
+        settle_steps=settle, window_steps=window, section_level=level,
+        planned_limits=plan.planned_limits(), fraction_bits=fraction,
+        state_names=program.state_names[:program.model_state_count],
+        tolerances=tolerances, continuous_period_steps=spc,
+        continuous_amplitude=continuous_amplitude, step_map=reference, runs=[], notes=notes,
+        seconds=seconds)
+    started = time.perf_counter()
+    for start in starts:
+        report.runs.append(_one_run(report, host, start, program.overflow))
+    seconds["runs"] = time.perf_counter() - started
+    return report
+
+
+def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str) -> DriftRun:
+    """One long run in C and its judgement against the references and the tolerances."""
+    tol = report.tolerances
+    scale = 2.0 ** -report.fraction_bits
+    stats = harness_statistics(host, start.state, report.steps, report.settle_steps,
+                               report.window_steps, report.section_level)
+    seconds = stats.seconds
+    names = report.state_names
+    c = stats.counts
+    r = {group: values[:len(names)] for group, values in stats.ranges.items()}
+    amplitude = [(hi - lo) / 2 * scale for lo, hi in zip(r["final_low"], r["final_high"], strict=True)]
+    amplitude_first = [(hi - lo) / 2 * scale
+                       for lo, hi in zip(r["first_low"], r["first_high"], strict=True)]
+    reasons: list[str] = []
+
+    reference_ok = report.step_map.period_steps is not None
+
+    def relative(reference: list[float]) -> list[float]:
+        return [abs(a - b) / b if b > 0 else math.inf for a, b in zip(amplitude, reference, strict=True)]
+
+    versus_l0 = relative(report.continuous_amplitude)
+    versus_l1 = relative(report.step_map.amplitude)
+    if not reference_ok:
+        reasons.append("the float step map (L1) itself does not go round the cycle at this step "
+                       "size (a discretisation failure, before any rounding): raise the loop rate "
+                       "or choose a higher-order integrator")
+    for label, errors in (("the continuous cycle", versus_l0), ("the float step map", versus_l1)):
+        bad = [f"{name} {value:.6g} ({100 * error:.3g} % off)"
+               for name, error, value in zip(names, errors, amplitude, strict=True)
+               if error > tol.amplitude]
+        if bad and (reference_ok or label == "the continuous cycle"):
+            reasons.append(f"amplitude at the end against {label}: {', '.join(bad)} (tolerance "
+                           f"{100 * tol.amplitude:g} %)")
+
+    period = period_ppm = period_ppm_l1 = drift = drift_l0 = None
+    spread = None
+    level = report.section_level
+    if c["settled_crossings"] >= 2:
+        t_first = crossing_time(*stats.first_bracket, c["first_settled_crossing"], level)
+        t_last = crossing_time(*stats.last_bracket, c["last_crossing"], level)
+        period = (t_last - t_first) / (c["settled_crossings"] - 1)
+        period_ppm = 1e6 * (period - report.continuous_period_steps) / report.continuous_period_steps
+        drift_l0 = report.steps * (1 / report.continuous_period_steps - 1 / period)
+        if reference_ok:
+            l1 = report.step_map.period_steps
+            period_ppm_l1 = 1e6 * (period - l1) / l1
+            drift = report.steps * (1 / l1 - 1 / period)
+        for label, ppm in (("the continuous cycle", period_ppm), ("the float step map", period_ppm_l1)):
+            if ppm is not None and abs(ppm) > tol.period_ppm:
+                reasons.append(f"period {period:.6g} steps is {ppm:+.4g} ppm off {label} "
+                               f"(tolerance {tol.period_ppm:g} ppm)")
+        if drift is not None and abs(drift) > tol.phase_drift_cycles:
+            reasons.append(f"phase drifts {drift:+.4g} cycles over the run against the float step "
+                           f"map (tolerance {tol.phase_drift_cycles:g})")
+        ranges = [2 * a for a in report.continuous_amplitude]
+        spread = [(hi - lo) * scale / width if width > 0 else 0.0
+                  for lo, hi, width in zip(r["return_low"], r["return_high"], ranges, strict=True)]
+        for name, value in zip(names, spread, strict=True):
+            if value > tol.return_spread:
+                reasons.append(f"return points of {name} on the Poincare section spread over "
+                               f"{100 * value:.3g} % of its range (tolerance "
+                               f"{100 * tol.return_spread:g} %)")
+    else:
+        reasons.append(f"no rhythm after settling: state {names[0]} crossed the section "
+                       f"{c['settled_crossings']} times in {report.steps - report.settle_steps:,} "
+                       "steps")
+
+    p = c["period"] or None
+    mu = None
+    if p is not None:
+        started = time.perf_counter()
+        mu = cycle_start(host, start.state, p, c["period_seen_at"])
+        seconds += time.perf_counter() - started
+        if p == 1:
+            reasons.append("the integer orbit settled to a fixed point (integer period 1 step)")
+        elif p < report.continuous_period_steps / 2:
+            reasons.append(f"the integer orbit locked into a short cycle of {p} steps, less than half "
+                           f"a period of the continuous cycle ({report.continuous_period_steps:.4g} "
+                           "steps): a spurious cycle")
+
+    if c["limit_settled"]:
+        reasons.append(f"an intermediate sat at the word's limit on {c['limit_settled']:,} steps "
+                       "after settling (saturation on the cycle)")
+    if c["range_settled"]:
+        reasons.append(f"an intermediate left the planned range on {c['range_settled']:,} steps "
+                       "after settling")
+    if any(a > 2 * b for a, b in zip(amplitude, report.continuous_amplitude, strict=True)):
+        reasons.append("the orbit grew to more than twice the cycle's amplitude")
+    returns = report.step_map.reached[start.name]
+    if reasons and reference_ok and not returns:
+        reasons.append(f"the float step map from this start is not on its cycle after "
+                       f"{STEP_MAP_CYCLES} cycles either: the start lies outside or at the edge "
+                       "of the step map's own basin, so the step size shares the blame")
+    events = {
+        "count": c["limit_steps"],
+        "first_step": c["limit_first"] or None,
+        "after_settling": c["limit_settled"],
+        "visible": overflow == "saturate",
+        "outside_planned_range": {"count": c["range_steps"], "first_step": c["range_first"] or None,
+                                  "after_settling": c["range_settled"]},
+    }
+    return DriftRun(
+        start=start, amplitude=amplitude, amplitude_first=amplitude_first,
+        amplitude_error=finite_or_none(max(versus_l0)),
+        amplitude_error_step_map=finite_or_none(max(versus_l1)) if reference_ok else None,
+        period_steps=period, period_error_ppm=period_ppm, period_error_ppm_step_map=period_ppm_l1,
+        phase_drift_cycles=drift, phase_drift_cycles_continuous=drift_l0, return_spread=spread,
+        crossings=c["crossings"], settled_crossings=c["settled_crossings"],
+        integer_period_steps=p, integer_period_seen_at=c["period_seen_at"] or None,
+        cycle_entered_at_step=mu, saturation_events=events, step_map_returns=returns,
+        reasons=reasons, seconds=seconds)

@@ -1,0 +1,134 @@
+"""What the drift runs start from and are held against: the starts (the model's initial state, near
+the equilibrium inside the cycle, near the basin's edge, near saturation) and the float step map
+(layer L1) run from the cycle's point and from every start.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from orbitfix.gen.pipeline import Design
+from orbitfix.gen.program.lowering import evaluate_real
+
+STEP_MAP_CYCLES = 40    # the float step map's reference run, in cycles
+STEP_MAP_MEASURED = 15  # of which the last this many are measured
+
+
+@dataclass(frozen=True)
+class Start:
+    """One initial state of a drift run, in integer units, and why it was chosen."""
+
+    name: str
+    state: tuple[int, ...]
+    why: str
+
+
+@dataclass(frozen=True)
+class StepMapReference:
+    """The float step map (L1) run from the continuous cycle's point: period and amplitudes
+    (``period_steps`` is None when the step map does not go round the cycle at all).
+
+    reached : for each start, whether the float step map from it is on the cycle after
+        STEP_MAP_CYCLES cycles (amplitudes within the amplitude tolerance of the reference).
+    """
+
+    period_steps: float | None
+    amplitude: list[float]
+    reached: dict[str, bool]
+
+
+def choose_starts(design: Design, equilibrium_offset: float = 1e-3) -> tuple[list[Start], list[str]]:
+    """The initial states of the drift runs, and notes on any that had to be left out.
+
+    equilibrium_offset : the distance from the equilibrium, as a fraction of each state's range on
+        the cycle (at least 4 LSB), so that the start can leave an unstable equilibrium at all: a
+        start only a few LSB away sits in the rounding's dead zone, where every increment rounds
+        to nothing (that would be a finding about starting from rest, not about drift).
+    """
+    plan = design.plan
+    program = plan.program
+    fraction = plan.signal_format.fraction_bits
+    scale = 2.0 ** fraction
+    cycle = design.analysis.cycle
+    low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
+    centre, half = (low + high) / 2, (high - low) / 2
+    word_max = program.word_max
+    n = program.model_state_count
+    held = tuple(plan.initial_state[n:])  # runtime parameters stay at their nominal values
+    starts = [Start("nominal", tuple(plan.initial_state), "the model's initial state")]
+    notes: list[str] = []
+
+    inside = [e for e in design.analysis.equilibria
+              if np.all(e.state >= low) and np.all(e.state <= high)]
+    if not inside:
+        notes.append("no equilibrium lies inside the cycle's bounding box, so there is no run "
+                     "from near the equilibrium")
+    else:
+        equilibrium = min(inside, key=lambda e: float(np.max(np.abs(e.state - centre))))
+        if equilibrium.stable:
+            notes.append(f"the equilibrium inside the cycle is a {equilibrium.kind} of the "
+                         "continuous model, so a start near it is not expected to reach the cycle; "
+                         "that run is left out")
+        else:
+            offset = np.maximum(np.round(equilibrium_offset * 2 * half * scale), 4)
+            point = np.round(equilibrium.state * scale) + offset
+            starts.append(Start("near the equilibrium", _fit(point, word_max) + held,
+                                f"the {equilibrium.kind} plus {equilibrium_offset:g} of the "
+                                "cycle's range"))
+
+    corner = centre + 0.95 * plan.margin * half
+    starts.append(Start("near the basin edge", _fit(np.round(corner * scale), word_max) + held,
+                        f"just inside the upper corner of the cycle's bounding box scaled by the "
+                        f"planner's margin of {plan.margin:g} (a stand-in for the basin's edge)"))
+    near = np.array(plan.initial_state, dtype=float)
+    near[0] = word_max - word_max // 64
+    starts.append(Start("near saturation", _fit(near, word_max),
+                        f"{program.state_names[0]} at 63/64 of the word's limit, the other states "
+                        "at their initial values"))
+    return starts, notes
+
+
+def _fit(point: np.ndarray, word_max: int) -> tuple[int, ...]:
+    return tuple(int(min(max(v, -word_max), word_max)) for v in point)
+
+
+def step_map_reference(design: Design, level: float, starts: list[Start],
+                       amplitude_tolerance: float) -> StepMapReference:
+    """Run the float step map (L1) from the cycle's point and from every start, vectorised."""
+    program = design.plan.program
+    n = program.model_state_count
+    scale = 2.0 ** -np.array(program.state_fraction_bits, dtype=float)
+    spc = design.timing.steps_per_cycle
+    total = round(STEP_MAP_CYCLES * spc)
+    measured = round(STEP_MAP_MEASURED * spc)
+    nominal = [v for p in design.model.runtime_parameters for v in (p.value, p.value)]
+    columns = [np.concatenate([np.asarray(design.analysis.cycle.point, dtype=float), nominal])]
+    columns += [np.array(s.state, dtype=float) * scale for s in starts]
+    x = np.stack(columns, axis=1)
+    record = np.empty((measured + 1, x.shape[0], x.shape[1]))
+    with np.errstate(all="ignore"):
+        for k in range(total):
+            if k >= total - measured - 1:
+                record[k - (total - measured - 1)] = x
+            values = evaluate_real(program, x)
+            x = np.stack([values[i] for i in program.next_state])
+        record[-1] = x
+    amplitude = (np.max(record, axis=0) - np.min(record, axis=0))[:n] / 2
+    first = record[:-1, 0, 0]
+    second = record[1:, 0, 0]
+    up = np.flatnonzero((first < level) & (second >= level))
+    reference = amplitude[:, 0]
+    if up.size < 2 or not np.all(np.isfinite(reference)):
+        return StepMapReference(period_steps=None, amplitude=[float("nan")] * len(reference),
+                                reached={s.name: False for s in starts})
+    times = up + (level - first[up]) / (second[up] - first[up])
+    period = float((times[-1] - times[0]) / (up.size - 1))
+    reached = {}
+    for index, start in enumerate(starts, start=1):
+        error = np.abs(amplitude[:, index] - reference) / reference
+        reached[start.name] = bool(np.all(np.isfinite(error)) and np.all(error <= amplitude_tolerance))
+    return StepMapReference(period_steps=period, amplitude=[float(v) for v in reference],
+                            reached=reached)
+

@@ -1,0 +1,120 @@
+"""The long-run drift proof as text and as JSON, both made from the one :class:`DriftReport`."""
+
+from __future__ import annotations
+
+from dataclasses import asdict
+
+from orbitfix.verify.proofs.drift import DriftReport, DriftRun, DriftTolerances, finite_or_none
+
+
+def drift_lines(report: DriftReport) -> list[str]:
+    """The report as readable lines."""
+    names = report.state_names
+    lines = [f"Long-run drift of '{report.model}': {report.steps:,} steps "
+             f"({report.hours:g} h at {report.loop_hz:g} Hz) from {len(report.runs)} starts, in "
+             "compiled C",
+             f"  references: continuous cycle {report.continuous_period_steps:.6f} steps per "
+             "cycle, float step map " + _maybe(report.step_map.period_steps, lambda v: f"{v:.6f}",
+                                               "has no cycle at this step size"),
+             "  amplitudes (continuous / float step map): " + ", ".join(
+                 f"{n} {a:.6g} / {b:.6g}" for n, a, b in
+                 zip(names, report.continuous_amplitude, report.step_map.amplitude, strict=True)),
+             f"  tolerances: amplitude {100 * report.tolerances.amplitude:g} %, period "
+             f"{report.tolerances.period_ppm:g} ppm, phase drift "
+             f"{report.tolerances.phase_drift_cycles:g} cycles over the run, return spread "
+             f"{100 * report.tolerances.return_spread:g} % of the range"]
+    for run in report.runs:
+        lines.append(f"  from {run.start.name} ({run.start.why}): {run.verdict.upper()}")
+        lines.append("    amplitude at the end: " + ", ".join(
+            f"{n} {a:.6g}" for n, a in zip(names, run.amplitude, strict=True))
+            + _maybe(run.amplitude_error, lambda v: f"; worst error {100 * v:.4g} %"))
+        if run.period_steps is not None:
+            lines.append(f"    period {run.period_steps:.6f} steps: {run.period_error_ppm:+.4g} ppm "
+                         "against the continuous cycle" + _maybe(
+                             run.period_error_ppm_step_map,
+                             lambda v: f", {v:+.4g} ppm against the float step map") + _maybe(
+                             run.phase_drift_cycles,
+                             lambda v: f"; phase drift {v:+.4g} cycles over the run"))
+        if run.integer_period_steps is not None:
+            lines.append(f"    the integer orbit repeats exactly every {run.integer_period_steps:,} "
+                         f"steps ({run.integer_period_steps / report.continuous_period_steps:.4g} "
+                         f"continuous periods), from step {run.cycle_entered_at_step:,} on")
+        else:
+            lines.append("    the integer orbit did not repeat within the run")
+        events = run.saturation_events
+        lines.append(f"    word limit reached on {events['count']:,} steps"
+                     + _maybe(events["first_step"], lambda v: f" (first at step {v:,})")
+                     + f"; outside the planned range on "
+                     f"{events['outside_planned_range']['count']:,} steps")
+        lines += [f"    reason: {reason}" for reason in run.reasons]
+    lines += [f"  note: {note}" for note in report.notes]
+    lines.append(f"  verdict: {report.verdict.upper()}")
+    return lines
+
+
+def drift_json(report: DriftReport) -> dict:
+    """The ``drift`` object of ``verify --json``: plain Python types only."""
+    scale = 2.0 ** -report.fraction_bits
+    return {
+        "steps": report.steps,
+        "hours": report.hours,
+        "loop_hz": report.loop_hz,
+        "settle_steps": report.settle_steps,
+        "window_steps": report.window_steps,
+        "section": {"state": report.state_names[0], "level": report.section_level,
+                    "level_real": report.section_level * scale, "direction": "upward"},
+        "planned_limits": report.planned_limits,
+        "tolerances": tolerances_json(report.tolerances),
+        "references": {
+            "continuous": {"period_steps": report.continuous_period_steps,
+                           "amplitude": report.continuous_amplitude},
+            "step_map": {"period_steps": report.step_map.period_steps,
+                         "amplitude": [finite_or_none(v) for v in report.step_map.amplitude]},
+        },
+        "runs": [run_json(run, report.fraction_bits, len(report.state_names)) for run in report.runs],
+        "notes": list(report.notes),
+        "seconds": dict(report.seconds),
+        "verdict": report.verdict,
+    }
+
+
+def run_json(run: DriftRun, fraction_bits: int, model_states: int) -> dict:
+    """One run as plain data."""
+    return {
+        "start": run.start.name,
+        "why": run.start.why,
+        "initial_state": list(run.start.state),
+        "initial_state_real": [v / 2.0 ** fraction_bits
+                               for v in run.start.state[:model_states]],
+        "amplitude": run.amplitude,
+        "amplitude_first_window": run.amplitude_first,
+        "amplitude_error": run.amplitude_error,
+        "amplitude_error_step_map": run.amplitude_error_step_map,
+        "period_steps": run.period_steps,
+        "period_error_ppm": run.period_error_ppm,
+        "period_error_ppm_step_map": run.period_error_ppm_step_map,
+        "phase_drift_cycles": run.phase_drift_cycles,
+        "phase_drift_cycles_continuous": run.phase_drift_cycles_continuous,
+        "return_spread": run.return_spread,
+        "crossings": run.crossings,
+        "settled_crossings": run.settled_crossings,
+        "integer_period_steps": run.integer_period_steps,
+        "integer_period_seen_at_step": run.integer_period_seen_at,
+        "cycle_entered_at_step": run.cycle_entered_at_step,
+        "saturation_events": run.saturation_events,
+        "step_map_returns_from_this_start": run.step_map_returns,
+        "verdict": run.verdict,
+        "reasons": list(run.reasons),
+        "seconds": run.seconds,
+        **({"references": run.against} if run.against else {}),
+    }
+
+
+def tolerances_json(tolerances: DriftTolerances) -> dict:
+    """The tolerances as plain data."""
+    return asdict(tolerances)
+
+
+def _maybe(value: object, text, absent: str = "") -> str:
+    return absent if value is None else text(value)
+
