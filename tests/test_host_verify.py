@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
@@ -47,8 +47,10 @@ def test_trajectory_compares_every_step_against_an_independent_golden_run(vander
     assert outcome.report.steps_compared == 5000
     plan = vanderpol_design.plan
     run = golden.run(plan.program, np.array(plan.initial_state), 5000)
-    files = render_model(vanderpol_design.model, vanderpol_design.timing,
-                         vanderpol_design.integrator, plan)
+    files = {**render_model(vanderpol_design.model, vanderpol_design.timing,
+                            vanderpol_design.integrator, plan),
+             **render_trace(vanderpol_design.model, vanderpol_design.timing,
+                            vanderpol_design.integrator, plan)}
     host = build_host_module(files, render_host_harness(vanderpol_design.model, plan.program),
                              "vanderpol.h")
     _, record = _c_run(host, np.array(plan.initial_state), 5000)
@@ -89,8 +91,8 @@ def test_edit_seen_only_on_the_trajectory_names_its_first_step(vanderpol_design,
     source = files["vanderpol.c"]
     store = re.search(r"    state->y = (v\d+);", source)
     assert store
-    edited = source.replace("static inline void step_body",
-                            "static uint32_t calls = 0u;\n\nstatic inline void step_body", 1)
+    edited = source.replace("void vanderpol_step(",
+                            "static uint32_t calls = 0u;\n\nvoid vanderpol_step(", 1)
     edited = edited.replace(store.group(0),
                             f"    state->y = (++calls == 12345u) ? {store.group(1)} + 1 : {store.group(1)};")
     (tmp_path / "vanderpol.c").write_text(edited)
@@ -142,7 +144,7 @@ def test_c_products_round_like_exact_rationals_at_ties(word: int, rounding: str,
                             overflow=overflow)
     timing = Timing(model_period=1.0, cycle_hz=1.0, loop_hz=100.0, time_scale=1.0, step=1.0,
                     steps_per_cycle=100.0)
-    files = render_model(TIES, timing, EULER, plan)
+    files = {**render_model(TIES, timing, EULER, plan), **render_trace(TIES, timing, EULER, plan)}
     host = build_host_module(files, render_host_harness(TIES, plan.program), "ties.h")
     mul = next(i for i, op in enumerate(plan.program.ops) if op.kind == "mul")
     shift = plan.program.ops[mul].shift  # the product's own format decides the shift

@@ -11,15 +11,15 @@ import numpy as np
 import pytest
 from conftest import compilers
 
-from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.errors import UnsupportedError
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
-from orbitfix.gen.program.fixed_point import sine_error_bound, sine_table, sine_table_bits
 from orbitfix.gen.program.integer_program import IntegerProgram, Op
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.operations import sine_error_bound, sine_table, sine_table_bits
 from orbitfix.gen.timing.integrators import EULER
 from orbitfix.verify.proofs.host_check import check_on_host
 
@@ -129,6 +129,7 @@ def test_phase_c_runs_free_of_undefined_behaviour(tmp_path: Path, phase_designs,
     # out-of-bounds table index aborts the run.
     built = phase_designs[word]
     files = render_model(built.model, built.timing, built.integrator, built.plan)
+    files.update(render_trace(built.model, built.timing, built.integrator, built.plan))
     files["harness.c"] = render_host_harness(built.model, built.plan.program)
     files["driver.c"] = HARNESS_DRIVER
     for name, text in files.items():
@@ -136,7 +137,8 @@ def test_phase_c_runs_free_of_undefined_behaviour(tmp_path: Path, phase_designs,
     for cc in compilers():
         build = subprocess.run([cc, "-std=c99", "-O1", "-fsanitize=undefined",
                                 "-fsanitize=bounds", "-fno-sanitize-recover=all", f"-DWORD={word}",
-                                "phase_chain.c", "harness.c", "driver.c", "-o", "ub"],
+                                "phase_chain.c", "phase_chain_trace.c", "harness.c", "driver.c",
+                                "-o", "ub"],
                                cwd=tmp_path, capture_output=True, text=True, check=False)
         assert build.returncode == 0, build.stderr
         run = subprocess.run([str(tmp_path / "ub")], capture_output=True, text=True, check=False)
