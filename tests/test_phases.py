@@ -27,8 +27,10 @@ from orbitfix.verify.proofs.host_check import check_on_host
 def sine_program(word_bits: int, kind: str) -> IntegerProgram:
     f = word_bits - 2
     bits = sine_table_bits(word_bits, f)
+    quarter_turn = 1 << (word_bits - 2)  # cos(a) = sin(a + a quarter turn) (trigonometric identity)
     ops = (Op("state", state=0, fraction_bits=word_bits),
-           Op(kind, (0,), fraction_bits=f, table=sine_table(bits, f), shift=word_bits - bits))
+           Op(kind, (0,), fraction_bits=f, table=sine_table(bits, f), shift=word_bits - bits,
+              offset=quarter_turn if kind == "cos" else 0))
     return IntegerProgram(name="s", state_names=("a",), ops=ops, next_state=(1,),
                           word_bits=word_bits, product_bits=2 * word_bits,
                           state_fraction_bits=(word_bits,))

@@ -67,14 +67,17 @@ def test_ramp_moves_at_the_rate_limit_and_never_leaves_the_range(hip) -> None:
     program = hip.plan.program
     bits = program.state_fraction_bits[2]
     per_step = 2.0 / 500 * 2**bits
-    state = set_target(hip, np.array(hip.plan.initial_state, dtype=np.int64), 100.0)  # far above max
+    # Far above the high limit of 9: the largest target the setter's word can carry.
+    top = program.word_max / 2**program.state_fraction_bits[3]
+    assert top > 30
+    state = set_target(hip, np.array(hip.plan.initial_state, dtype=np.int64), top)
     omegas = [state[2]]
     for _ in range(800):
         state = golden.step(program, state.reshape(-1, 1))[:, 0]
         omegas.append(state[2])
     steps = np.diff(np.array(omegas, dtype=float))
     assert np.all(np.abs(steps) <= per_step + 1)
-    assert omegas[-1] == round(9.0 * 2**bits)  # held at its high limit, not at 100
+    assert omegas[-1] == round(9.0 * 2**bits)  # held at its high limit, not at the target
     assert np.all(np.array(omegas) <= round(9.0 * 2**bits))
     rising = steps[steps > 0]
     assert rising.size == pytest.approx((9.0 - 2 * math.pi) / 2.0 * 500, abs=2)

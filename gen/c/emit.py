@@ -80,7 +80,7 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
                  plan: FixedPointPlan) -> dict[str, str]:
     """The firmware files ``NAME.h`` and ``NAME.c`` for one planned model."""
     names = CNames(model.name)
-    context = _context(model, timing, integrator, plan)
+    context = _context(model, timing, integrator, plan, traced=False)
     env = environment()
     return {
         names.header: env.get_template("model.h.j2").render(context),
@@ -94,7 +94,7 @@ def render_trace(model: Model, timing: Timing, integrator: Integrator,
     writes every value of the integer program into an array. Host builds add them beside the
     firmware; the firmware never includes them."""
     names = CNames(model.name)
-    context = _context(model, timing, integrator, plan)
+    context = _context(model, timing, integrator, plan, traced=True)
     env = environment()
     return {
         names.trace_header: env.get_template("trace.h.j2").render(context),
@@ -102,12 +102,17 @@ def render_trace(model: Model, timing: Timing, integrator: Integrator,
     }
 
 
-def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPointPlan) -> dict:
+def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPointPlan,
+             traced: bool) -> dict:
+    """The templates' context. The traced step computes every value of the program; the firmware
+    step only those the next state depends on (and so only their constants and helpers)."""
     names = CNames(model.name)
     program = plan.program
-    constants, constant_of = _constants(plan)
-    tables, table_of = _tables(program)
+    kept = set(range(len(program.ops))) if traced else _live_values(program)
+    constants, constant_of = _constants(plan, kept)
+    tables, table_of = _tables(program, kept)
     word_type, wide_type = f"int{program.word_bits}_t", f"int{program.product_bits}_t"
+    ops = [op for i, op in enumerate(program.ops) if i in kept]
     return {
         "names": names,
         "version": __version__,
@@ -119,9 +124,9 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "integrator": integrator,
         "plan": plan,
         "program": program,
-        "helpers": _helpers(program, word_type, wide_type),
-        "needs_aligned": any(kind_of(op.kind).aligns for op in program.ops),
-        "uses_wrap": any(op.wraps for op in program.ops),
+        "helpers": _helpers(program, ops, word_type, wide_type),
+        "needs_aligned": any(kind_of(op.kind).aligns for op in ops),
+        "uses_wrap": any(op.wraps for op in ops),
         "tables": tables,
         "word_type": word_type,
         "wide_type": wide_type,
@@ -138,7 +143,8 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         ],
         "constants": constants,
         "values": [_value_line(i, op, names, program, {**constant_of, **table_of})
-                   for i, op in enumerate(program.ops)],
+                   for i, op in enumerate(program.ops) if i in kept],
+        "value_count": len(program.ops),
         "next_state": [{"field": names.field(n), "value": f"v{i}"}
                        for n, i in zip(program.state_names, program.next_state, strict=True)],
         "safety": SAFETY_NOTE,
@@ -148,11 +154,21 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     }
 
 
-def _helpers(program: IntegerProgram, word_type: str, wide_type: str) -> list[dict]:
+def _live_values(program: IntegerProgram) -> set[int]:
+    """The values the next state depends on; the firmware step computes only these (the traced
+    step computes every value)."""
+    live = set(program.next_state)
+    for index in range(len(program.ops) - 1, -1, -1):
+        if index in live:
+            live.update(program.ops[index].args)
+    return live
+
+
+def _helpers(program: IntegerProgram, ops: list[Op], word_type: str, wide_type: str) -> list[dict]:
     """The C helper functions the step calls, once each: the program's own overflow family
     first, then the angles' wrapping family, each in the registry's order."""
     unsigned = f"uint{program.word_bits}_t"
-    used = {(kind_of(op.kind).c_helper, "turns" if op.wraps else "word") for op in program.ops}
+    used = {(kind_of(op.kind).c_helper, "turns" if op.wraps else "word") for op in ops}
     helpers: dict[str, dict] = {}
     for family, fitter in (("word", "fit_word"), ("turns", "wrap_word")):
         for kind in KINDS.values():
@@ -191,13 +207,13 @@ def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dic
                                                  reals, program.state_fraction_bits, strict=True)]
 
 
-def _tables(program: IntegerProgram) -> tuple[list[dict], dict[int, str]]:
-    """One C array per distinct sine table, in order of first use."""
+def _tables(program: IntegerProgram, kept: set[int]) -> tuple[list[dict], dict[int, str]]:
+    """One C array per distinct sine table of the kept values, in order of first use."""
     tables: list[dict] = []
     by_content: dict[tuple[int, ...], str] = {}
     table_of: dict[int, str] = {}
     for index, op in enumerate(program.ops):
-        if not op.table:
+        if not op.table or index not in kept:
             continue
         if op.table not in by_content:
             name = f"sine_table{len(tables)}"
@@ -211,13 +227,16 @@ def _tables(program: IntegerProgram) -> tuple[list[dict], dict[int, str]]:
     return tables, table_of
 
 
-def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
-    """One C constant per distinct stored value and format, in order of first use."""
+def _constants(plan: FixedPointPlan, kept: set[int]) -> tuple[list[CConstant], dict[int, str]]:
+    """One C constant per distinct stored value and format of the kept values, in order of first
+    use."""
     constants: list[CConstant] = []
     by_key: dict[tuple[int, int], str] = {}
     constant_of: dict[int, str] = {}
     bits = plan.program.word_bits
     for report in plan.constants:
+        if report.index not in kept:
+            continue
         key = (report.stored, report.format.fraction_bits)
         if key not in by_key:
             name = f"k{len(constants)}"
@@ -238,7 +257,7 @@ def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
                  word_bits=program.word_bits, symbol=symbol_of.get(index, ""),
                  field=names.field(program.state_names[op.state]) if op.kind == "state" else "")
     fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
-    return {"name": f"v{index}", "expression": kind_of(op.kind).c_call(op, site),
+    return {"name": f"v{index}", "index": index, "expression": kind_of(op.kind).c_call(op, site),
             "note": comment_text(f"{fmt}, {op.note}")}
 
 

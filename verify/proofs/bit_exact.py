@@ -105,7 +105,7 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
     quarter = count // 4
     spread = rng.integers(low, high, size=(n, count - 3 * quarter), endpoint=True)
     reach = np.maximum(2 * np.asarray(typical, dtype=np.int64), 16).reshape(-1, 1)
-    near_cycle = rng.integers(-reach, reach, size=(n, quarter), endpoint=True)
+    near_cycle = np.clip(rng.integers(-reach, reach, size=(n, quarter), endpoint=True), low, high)
     edges = np.where(rng.random((n, quarter)) < 0.5, low, high) - np.sign(
         rng.random((n, quarter)) - 0.5).astype(np.int64) * rng.integers(0, 1 << 12, (n, quarter))
     edges = np.clip(edges, low, high)
