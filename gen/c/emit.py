@@ -180,7 +180,8 @@ def _helpers(program: IntegerProgram, ops: list[Op], word_type: str, wide_type: 
 
 
 def render_host_harness(model: Model, program: IntegerProgram) -> str:
-    """The verification-only C that drives the firmware functions in bulk from the host."""
+    """The verification-only C that drives the firmware functions in bulk from the host. It
+    includes ``NAME_trace.h``: build it with the files of ``render_trace`` beside the firmware."""
     names = CNames(model.name)
     word_bits = program.word_bits
     return environment().get_template("host_harness.c.j2").render(

@@ -3,8 +3,8 @@
 A straight-line list of typed operations. Every operation produces one value, named by its index.
 The lowering fills in the real-valued structure (kinds, arguments, real constants); the fixed-point
 planner fills in the integer part (stored constants, shifts, fraction bits). The numpy golden
-interpreter (``gen.golden``) runs it and the C emitter (``gen.emit_c``) renders it; neither adds
-an arithmetic decision of its own.
+interpreter (``gen/program/golden.py``) runs it and the C emitter (``gen/c/emit.py``) renders it;
+neither adds an arithmetic decision of its own.
 
 Every value is an integer standing for integer / 2**fraction_bits, each value with its own
 ``fraction_bits``. On two's complement words of ``word_bits`` (16 or 32) with products formed in
