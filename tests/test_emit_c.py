@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 from conftest import compilers
 
-from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.c.naming import CNames, comment_text, identifier
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.pipeline import design
@@ -23,6 +23,7 @@ STRICT = ["-std=c99", "-pedantic", "-Werror", "-Wall", "-Wextra", "-Wconversion"
 
 def write_sources(folder: Path, built) -> dict[str, str]:
     files = render_model(built.model, built.timing, built.integrator, built.plan)
+    files.update(render_trace(built.model, built.timing, built.integrator, built.plan))
     files["harness.c"] = render_host_harness(built.model, built.plan.program)
     for name, text in files.items():
         (folder / name).write_text(text)
@@ -34,7 +35,7 @@ def write_sources(folder: Path, built) -> dict[str, str]:
 def test_compiles_warning_free_under_strict_flags(tmp_path: Path, vanderpol_design, cc: str,
                                                   level: str) -> None:
     write_sources(tmp_path, vanderpol_design)
-    for source in ("vanderpol.c", "harness.c"):
+    for source in ("vanderpol.c", "vanderpol_trace.c", "harness.c"):
         done = subprocess.run([cc, *STRICT, level, "-c", source], cwd=tmp_path,
                               capture_output=True, text=True, check=False)
         assert done.returncode == 0 and done.stderr == "", done.stderr
@@ -56,7 +57,7 @@ def test_no_floating_point_and_no_heap(tmp_path: Path, vanderpol_design) -> None
 UBSAN_DRIVER = r"""
 #include <stdint.h>
 #include <stdio.h>
-#include "vanderpol.h"
+#include "vanderpol_trace.h"
 
 typedef WORD word_t;
 
@@ -101,14 +102,14 @@ def test_every_semantics_compiles_clean_and_runs_free_of_undefined_behaviour(
     write_sources(tmp_path, built)
     (tmp_path / "driver.c").write_text(UBSAN_DRIVER)
     for cc in compilers():
-        for source in ("vanderpol.c", "harness.c"):
+        for source in ("vanderpol.c", "vanderpol_trace.c", "harness.c"):
             done = subprocess.run([cc, *STRICT, "-O2", "-c", source], cwd=tmp_path,
                                   capture_output=True, text=True, check=False)
             assert done.returncode == 0 and done.stderr == "", (cc, done.stderr)
         build = subprocess.run([cc, "-std=c99", "-O1", "-fsanitize=undefined",
                                 "-fno-sanitize-recover=all", f"-DWORD=int{word}_t",
                                 f"-DLOW=INT{word}_MIN", f"-DHIGH=INT{word}_MAX",
-                                "vanderpol.c", "driver.c", "-o", "ub"],
+                                "vanderpol.c", "vanderpol_trace.c", "driver.c", "-o", "ub"],
                                cwd=tmp_path, capture_output=True, text=True, check=False)
         assert build.returncode == 0, build.stderr
         run = subprocess.run([str(tmp_path / "ub")], capture_output=True, text=True, check=False)
@@ -142,7 +143,7 @@ def test_user_text_and_names_cannot_break_the_c(tmp_path: Path) -> None:
     built = design(model)
     write_sources(tmp_path, built)
     assert "*/ early" not in (tmp_path / "double.c").read_text()
-    for source in ("double.c", "harness.c"):
+    for source in ("double.c", "double_trace.c", "harness.c"):
         done = subprocess.run(["gcc", *STRICT, "-Wtrigraphs", "-c", source], cwd=tmp_path,
                               capture_output=True, text=True, check=False)
         assert done.returncode == 0 and done.stderr == "", done.stderr

@@ -11,15 +11,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import plan_fixed_point
+from orbitfix.gen.program.integer_program import IntegerProgram, Op
 from orbitfix.gen.program.lowering import lower_step
 from orbitfix.gen.timing.integrators import EULER
 from orbitfix.gen.timing.step_size import Timing
-from orbitfix.verify.proofs.bit_exact import _c_run
+from orbitfix.verify.proofs.bit_exact import Mismatch, _c_run, prove_bit_exact, state_units
 from orbitfix.verify.proofs.host_check import check_on_host
 from orbitfix.verify.targets.host_build import build_host_module
 
@@ -47,8 +48,10 @@ def test_trajectory_compares_every_step_against_an_independent_golden_run(vander
     assert outcome.report.steps_compared == 5000
     plan = vanderpol_design.plan
     run = golden.run(plan.program, np.array(plan.initial_state), 5000)
-    files = render_model(vanderpol_design.model, vanderpol_design.timing,
-                         vanderpol_design.integrator, plan)
+    files = {**render_model(vanderpol_design.model, vanderpol_design.timing,
+                            vanderpol_design.integrator, plan),
+             **render_trace(vanderpol_design.model, vanderpol_design.timing,
+                            vanderpol_design.integrator, plan)}
     host = build_host_module(files, render_host_harness(vanderpol_design.model, plan.program),
                              "vanderpol.h")
     _, record = _c_run(host, np.array(plan.initial_state), 5000)
@@ -89,8 +92,8 @@ def test_edit_seen_only_on_the_trajectory_names_its_first_step(vanderpol_design,
     source = files["vanderpol.c"]
     store = re.search(r"    state->y = (v\d+);", source)
     assert store
-    edited = source.replace("static inline void step_body",
-                            "static uint32_t calls = 0u;\n\nstatic inline void step_body", 1)
+    edited = source.replace("void vanderpol_step(",
+                            "static uint32_t calls = 0u;\n\nvoid vanderpol_step(", 1)
     edited = edited.replace(store.group(0),
                             f"    state->y = (++calls == 12345u) ? {store.group(1)} + 1 : {store.group(1)};")
     (tmp_path / "vanderpol.c").write_text(edited)
@@ -100,6 +103,98 @@ def test_edit_seen_only_on_the_trajectory_names_its_first_step(vanderpol_design,
     assert mismatch.step == 12345 - 10  # ten calls went to the random states first
     assert mismatch.operation is None  # every intermediate agrees; the store was edited
     assert mismatch.got[1] == mismatch.expected[1] + 1
+
+
+def verification_host(built, edit_trace=None):
+    """Firmware and trace files of a design built for the host, the trace file edited first."""
+    files = {**render_model(built.model, built.timing, built.integrator, built.plan),
+             **render_trace(built.model, built.timing, built.integrator, built.plan)}
+    name = f"{built.model.name}_trace.c"
+    if edit_trace is not None:
+        edited = edit_trace(files[name])
+        assert edited != files[name]
+        files[name] = edited
+    return build_host_module(files, render_host_harness(built.model, built.plan.program),
+                             f"{built.model.name}.h")
+
+
+def prove(built, host, states: int = 5000, steps: int = 200):
+    plan = built.plan
+    return prove_bit_exact(plan.program, host, np.array(plan.initial_state),
+                           np.full(len(plan.initial_state), 1 << 20), states=states, steps=steps)
+
+
+def test_fault_in_the_traced_step_is_caught_and_names_the_operation(vanderpol_design) -> None:
+    # Seeded fault: one constant of the verification-only trace file is off by one, while the
+    # firmware is untouched. The firmware step alone would pass; the value-by-value comparison
+    # of the traced step with golden must not.
+    def edit(text: str) -> str:
+        found = re.search(r"static const int32_t k1 = INT32_C\((\d+)\);", text)
+        assert found
+        return text.replace(found.group(0),
+                            f"static const int32_t k1 = INT32_C({int(found.group(1)) + 1});")
+
+    report = prove(vanderpol_design, verification_host(vanderpol_design, edit))
+    mismatch = report.first_mismatch
+    assert mismatch is not None and mismatch.part == "traced step"
+    assert mismatch.operation is not None and mismatch.operation["kind"] == "scale"
+    want = golden.evaluate(vanderpol_design.plan.program,
+                           np.array(mismatch.state_before).reshape(-1, 1))
+    assert mismatch.operation["expected"] == int(want[mismatch.operation["index"]][0])
+    assert mismatch.operation["got"] != mismatch.operation["expected"]
+    assert "traced step" in mismatch.describe()
+
+
+def test_traced_step_storing_another_state_than_the_firmware_is_caught(vanderpol_design) -> None:
+    # Seeded fault: the trace file computes every value right but stores y one unit off; the
+    # proof checks the traced step's next state against the firmware step's.
+    def edit(text: str) -> str:
+        store = re.search(r"    state->y = (v\d+);", text)
+        assert store
+        return text.replace(store.group(0), f"    state->y = {store.group(1)} - 1;")
+
+    report = prove(vanderpol_design, verification_host(vanderpol_design, edit))
+    mismatch = report.first_mismatch
+    assert mismatch is not None and mismatch.part == "traced step"
+    assert mismatch.operation is None
+    assert mismatch.got[1] == mismatch.expected[1] - 1
+    assert mismatch.got[0] == mismatch.expected[0]
+
+
+def test_untouched_trace_and_firmware_pass_every_comparison(vanderpol_design) -> None:
+    report = prove(vanderpol_design, verification_host(vanderpol_design), states=20_000)
+    assert report.bit_exact and report.states_compared == 20_000
+
+
+def test_a_firmware_fault_is_still_named_by_operation_with_the_trace_outside(vanderpol_design,
+                                                                           tmp_path) -> None:
+    # The firmware holds no trace: the mismatch is located with a traced copy of the firmware's
+    # own step, so the edited multiplication is named although the trace file is correct.
+    files = write_firmware(tmp_path, vanderpol_design)
+    product = re.search(r"mul_word\(v0, v0, (\d+)u\)", files["vanderpol.c"])
+    assert product
+    (tmp_path / "vanderpol.c").write_text(files["vanderpol.c"].replace(
+        product.group(0), f"mul_word(v0, v0, {int(product.group(1)) - 1}u)", 1))
+    outcome = check_on_host(vanderpol_design, tmp_path, states=5000, steps=100)
+    mismatch = outcome.report.first_mismatch
+    assert mismatch is not None and mismatch.part == "random states"
+    assert mismatch.operation is not None and mismatch.operation["kind"] == "mul"
+
+
+def test_mismatch_reads_each_state_in_its_own_format() -> None:
+    # Q format (common practice): a state of f fraction bits stands for integer / 2**f; an angle
+    # held in turns stands for integer / 2**word turns, 2 pi radians to the turn. Each state has
+    # its own format: here an angle, a plain state and a runtime parameter with its target.
+    program = IntegerProgram(
+        name="spin", state_names=("theta", "r", "omega", "omega_target"),
+        ops=tuple(Op("state", state=i, fraction_bits=f) for i, f in enumerate((32, 28, 26, 26))),
+        next_state=(0, 1, 2, 3), state_fraction_bits=(32, 28, 26, 26), model_states=2,
+        angle_states=(0,))
+    assert state_units(program) == (2 * math.pi / 2**32, 2.0**-28, 2.0**-26, 2.0**-26)
+    before = [1 << 30, 3 << 27, 6 << 26, -(9 << 26)]
+    mismatch = Mismatch(part="random states", step=0, state_before=before, expected=before,
+                        got=before, operation=None, units=state_units(program))
+    assert mismatch.to_json()["state_before_real"] == [math.pi / 2, 1.5, 6.0, -9.0]
 
 
 def test_notes_say_when_sources_came_from_another_program(vanderpol_design, tmp_path) -> None:
@@ -142,7 +237,7 @@ def test_c_products_round_like_exact_rationals_at_ties(word: int, rounding: str,
                             overflow=overflow)
     timing = Timing(model_period=1.0, cycle_hz=1.0, loop_hz=100.0, time_scale=1.0, step=1.0,
                     steps_per_cycle=100.0)
-    files = render_model(TIES, timing, EULER, plan)
+    files = {**render_model(TIES, timing, EULER, plan), **render_trace(TIES, timing, EULER, plan)}
     host = build_host_module(files, render_host_harness(TIES, plan.program), "ties.h")
     mul = next(i for i, op in enumerate(plan.program.ops) if op.kind == "mul")
     shift = plan.program.ops[mul].shift  # the product's own format decides the shift

@@ -11,15 +11,15 @@ import numpy as np
 import pytest
 from conftest import compilers
 
-from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.errors import UnsupportedError
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
-from orbitfix.gen.program.fixed_point import sine_error_bound, sine_table, sine_table_bits
 from orbitfix.gen.program.integer_program import IntegerProgram, Op
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.operations import sine_error_bound, sine_table, sine_table_bits
 from orbitfix.gen.timing.integrators import EULER
 from orbitfix.verify.proofs.host_check import check_on_host
 
@@ -27,8 +27,10 @@ from orbitfix.verify.proofs.host_check import check_on_host
 def sine_program(word_bits: int, kind: str) -> IntegerProgram:
     f = word_bits - 2
     bits = sine_table_bits(word_bits, f)
+    quarter_turn = 1 << (word_bits - 2)  # cos(a) = sin(a + a quarter turn) (trigonometric identity)
     ops = (Op("state", state=0, fraction_bits=word_bits),
-           Op(kind, (0,), fraction_bits=f, table=sine_table(bits, f), shift=word_bits - bits))
+           Op(kind, (0,), fraction_bits=f, table=sine_table(bits, f), shift=word_bits - bits,
+              offset=quarter_turn if kind == "cos" else 0))
     return IntegerProgram(name="s", state_names=("a",), ops=ops, next_state=(1,),
                           word_bits=word_bits, product_bits=2 * word_bits,
                           state_fraction_bits=(word_bits,))
@@ -129,6 +131,7 @@ def test_phase_c_runs_free_of_undefined_behaviour(tmp_path: Path, phase_designs,
     # out-of-bounds table index aborts the run.
     built = phase_designs[word]
     files = render_model(built.model, built.timing, built.integrator, built.plan)
+    files.update(render_trace(built.model, built.timing, built.integrator, built.plan))
     files["harness.c"] = render_host_harness(built.model, built.plan.program)
     files["driver.c"] = HARNESS_DRIVER
     for name, text in files.items():
@@ -136,7 +139,8 @@ def test_phase_c_runs_free_of_undefined_behaviour(tmp_path: Path, phase_designs,
     for cc in compilers():
         build = subprocess.run([cc, "-std=c99", "-O1", "-fsanitize=undefined",
                                 "-fsanitize=bounds", "-fno-sanitize-recover=all", f"-DWORD={word}",
-                                "phase_chain.c", "harness.c", "driver.c", "-o", "ub"],
+                                "phase_chain.c", "phase_chain_trace.c", "harness.c", "driver.c",
+                                "-o", "ub"],
                                cwd=tmp_path, capture_output=True, text=True, check=False)
         assert build.returncode == 0, build.stderr
         run = subprocess.run([str(tmp_path / "ub")], capture_output=True, text=True, check=False)

@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 
 from orbitfix.gen.program import golden
-from orbitfix.gen.program.fixed_point import quantise
 from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.program.quantisation import quantise
 
 
 def half_up(value: Fraction) -> int:

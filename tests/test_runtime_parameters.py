@@ -5,6 +5,8 @@ corner, and bit-exact in C."""
 from __future__ import annotations
 
 import math
+import re
+import subprocess
 from pathlib import Path
 
 import numpy as np
@@ -67,14 +69,17 @@ def test_ramp_moves_at_the_rate_limit_and_never_leaves_the_range(hip) -> None:
     program = hip.plan.program
     bits = program.state_fraction_bits[2]
     per_step = 2.0 / 500 * 2**bits
-    state = set_target(hip, np.array(hip.plan.initial_state, dtype=np.int64), 100.0)  # far above max
+    # Far above the high limit of 9: the largest target the setter's word can carry.
+    top = program.word_max / 2**program.state_fraction_bits[3]
+    assert top > 30
+    state = set_target(hip, np.array(hip.plan.initial_state, dtype=np.int64), top)
     omegas = [state[2]]
     for _ in range(800):
         state = golden.step(program, state.reshape(-1, 1))[:, 0]
         omegas.append(state[2])
     steps = np.diff(np.array(omegas, dtype=float))
     assert np.all(np.abs(steps) <= per_step + 1)
-    assert omegas[-1] == round(9.0 * 2**bits)  # held at its high limit, not at 100
+    assert omegas[-1] == round(9.0 * 2**bits)  # held at its high limit, not at the target
     assert np.all(np.array(omegas) <= round(9.0 * 2**bits))
     rising = steps[steps > 0]
     assert rising.size == pytest.approx((9.0 - 2 * math.pi) / 2.0 * 500, abs=2)
@@ -136,6 +141,44 @@ def test_broken_runtime_declarations_are_refused(tmp_path: Path, entry: str, wor
     path.write_text(text)
     with pytest.raises(InputError, match=words):
         load_model(str(path))
+
+
+def test_mismatch_reads_every_state_in_its_own_format(hip, tmp_path) -> None:
+    # Seeded fault: the firmware's first constant is off by one. The mismatch's real reading of
+    # the state before it uses each state's own Q format (common practice: integer / 2**f), not
+    # state 0's: omega and its target have fewer fraction bits than x and y here.
+    from orbitfix.gen.c.emit import render_model
+
+    files = render_model(hip.model, hip.timing, hip.integrator, hip.plan)
+    found = re.search(r"static const int32_t k0 = INT32_C\((-?\d+)\);", files["hip.c"])
+    assert found
+    files["hip.c"] = files["hip.c"].replace(
+        found.group(0), f"static const int32_t k0 = INT32_C({int(found.group(1)) + 1});")
+    for name, text in files.items():
+        (tmp_path / name).write_text(text)
+    outcome = check_on_host(hip, tmp_path, states=5000, steps=100)
+    mismatch = outcome.report.first_mismatch
+    assert mismatch is not None
+    bits = hip.plan.program.state_fraction_bits
+    assert bits[2] != bits[0]
+    shown = mismatch.to_json()["state_before_real"]
+    assert shown == [v / 2**f for v, f in zip(mismatch.state_before, bits, strict=True)]
+
+
+def test_firmware_holds_only_init_step_and_setters(hip, tmp_path) -> None:
+    # The shipped pair carries no trace path: the object defines exactly init, step and the
+    # setter (read with nm, the toolchain's symbol lister), and the text never names a trace.
+    from orbitfix.gen.c.emit import render_model
+
+    files = render_model(hip.model, hip.timing, hip.integrator, hip.plan)
+    for name, text in files.items():
+        assert "trace" not in text.lower(), name
+        (tmp_path / name).write_text(text)
+    subprocess.run(["gcc", "-std=c99", "-O2", "-c", "hip.c"], cwd=tmp_path, check=True)
+    listed = subprocess.run(["nm", "-g", "--defined-only", "hip.o"], cwd=tmp_path, check=True,
+                            capture_output=True, text=True).stdout
+    assert {line.split()[-1] for line in listed.splitlines()} == {"hip_init", "hip_step",
+                                                                 "hip_set_omega"}
 
 
 def test_header_declares_the_setter(hip) -> None:

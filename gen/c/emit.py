@@ -1,5 +1,10 @@
 """The C back end: renders a planned integer program through the jinja2 templates in
-``templates/``. It decides names and layout, never arithmetic: every value comes from the program.
+``templates/``. It decides names and layout, never arithmetic: every value comes from the program,
+and every operation's C form from its kind (``gen/program/operations.py``).
+
+Two pairs of files: the firmware ``NAME.h``/``NAME.c`` (init, step and setters, nothing else) and
+the verification-only ``NAME_trace.h``/``NAME_trace.c`` (the same step, also writing every
+intermediate value), which host builds add and firmware never ships.
 """
 
 from __future__ import annotations
@@ -15,6 +20,7 @@ from orbitfix.gen.c.naming import CNames, comment_text
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.program.operations import KINDS, CSite, kind_of
 from orbitfix.gen.timing.integrators import Integrator
 from orbitfix.gen.timing.step_size import Timing
 
@@ -36,6 +42,7 @@ void orbitfix_harness_init(int32_t *out);
 void orbitfix_harness_step_each(const int32_t *in, int32_t *out, size_t count);
 void orbitfix_harness_run(int32_t *state_io, size_t steps, int32_t *record);
 void orbitfix_harness_trace(const int32_t *in, int32_t *out, int32_t *trace);
+void orbitfix_harness_trace_each(const int32_t *in, int32_t *out, int32_t *trace, size_t count);
 size_t orbitfix_harness_state_count(void);
 size_t orbitfix_harness_trace_length(void);
 """
@@ -73,10 +80,40 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
                  plan: FixedPointPlan) -> dict[str, str]:
     """The firmware files ``NAME.h`` and ``NAME.c`` for one planned model."""
     names = CNames(model.name)
+    context = _context(model, timing, integrator, plan, traced=False)
+    env = environment()
+    return {
+        names.header: env.get_template("model.h.j2").render(context),
+        names.source: env.get_template("model.c.j2").render(context),
+    }
+
+
+def render_trace(model: Model, timing: Timing, integrator: Integrator,
+                 plan: FixedPointPlan) -> dict[str, str]:
+    """The verification-only files ``NAME_trace.h`` and ``NAME_trace.c``: the traced step, which
+    writes every value of the integer program into an array. Host builds add them beside the
+    firmware; the firmware never includes them."""
+    names = CNames(model.name)
+    context = _context(model, timing, integrator, plan, traced=True)
+    env = environment()
+    return {
+        names.trace_header: env.get_template("trace.h.j2").render(context),
+        names.trace_source: env.get_template("trace.c.j2").render(context),
+    }
+
+
+def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPointPlan,
+             traced: bool) -> dict:
+    """The templates' context. The traced step computes every value of the program; the firmware
+    step only those the next state depends on (and so only their constants and helpers)."""
+    names = CNames(model.name)
     program = plan.program
-    constants, constant_of = _constants(plan)
-    tables, table_of = _tables(program)
-    context = {
+    kept = set(range(len(program.ops))) if traced else _live_values(program)
+    constants, constant_of = _constants(plan, kept)
+    tables, table_of = _tables(program, kept)
+    word_type, wide_type = f"int{program.word_bits}_t", f"int{program.product_bits}_t"
+    ops = [op for i, op in enumerate(program.ops) if i in kept]
+    return {
         "names": names,
         "version": __version__,
         "model": model,
@@ -87,12 +124,12 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
         "integrator": integrator,
         "plan": plan,
         "program": program,
-        "program_kinds": {op.kind for op in program.ops if not op.wraps},
-        "wrap_kinds": {op.kind for op in program.ops if op.wraps},
-        "uses_wrap": any(op.wraps for op in program.ops),
+        "helpers": _helpers(program, ops, word_type, wide_type),
+        "needs_aligned": any(kind_of(op.kind).aligns for op in ops),
+        "uses_wrap": any(op.wraps for op in ops),
         "tables": tables,
-        "word_type": f"int{program.word_bits}_t",
-        "wide_type": f"int{program.product_bits}_t",
+        "word_type": word_type,
+        "wide_type": wide_type,
         "word_bits": program.word_bits,
         "states": _state_fields(model, plan, names),
         "setters": [
@@ -105,9 +142,9 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
                             program.state_fraction_bits[program.model_state_count::2], strict=True)
         ],
         "constants": constants,
-        "values": [_value_line(i, op, names, program.state_names, {**constant_of, **table_of},
-                               program.word_bits)
-                   for i, op in enumerate(program.ops)],
+        "values": [_value_line(i, op, names, program, {**constant_of, **table_of})
+                   for i, op in enumerate(program.ops) if i in kept],
+        "value_count": len(program.ops),
         "next_state": [{"field": names.field(n), "value": f"v{i}"}
                        for n, i in zip(program.state_names, program.next_state, strict=True)],
         "safety": SAFETY_NOTE,
@@ -115,15 +152,36 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
         "overflow_words": OVERFLOW_WORDS[program.overflow].format(bits=program.word_bits),
         "comment": comment_text,
     }
-    env = environment()
-    return {
-        names.header: env.get_template("model.h.j2").render(context),
-        names.source: env.get_template("model.c.j2").render(context),
-    }
+
+
+def _live_values(program: IntegerProgram) -> set[int]:
+    """The values the next state depends on; the firmware step computes only these (the traced
+    step computes every value)."""
+    live = set(program.next_state)
+    for index in range(len(program.ops) - 1, -1, -1):
+        if index in live:
+            live.update(program.ops[index].args)
+    return live
+
+
+def _helpers(program: IntegerProgram, ops: list[Op], word_type: str, wide_type: str) -> list[dict]:
+    """The C helper functions the step calls, once each: the program's own overflow family
+    first, then the angles' wrapping family, each in the registry's order."""
+    unsigned = f"uint{program.word_bits}_t"
+    used = {(kind_of(op.kind).c_helper, "turns" if op.wraps else "word") for op in ops}
+    helpers: dict[str, dict] = {}
+    for family, fitter in (("word", "fit_word"), ("turns", "wrap_word")):
+        for kind in KINDS.values():
+            helper = kind.c_helper
+            if helper is not None and (helper, family) in used:
+                helpers.setdefault(helper.function(family),
+                                   helper.render(family, fitter, word_type, wide_type, unsigned))
+    return list(helpers.values())
 
 
 def render_host_harness(model: Model, program: IntegerProgram) -> str:
-    """The verification-only C that drives the firmware functions in bulk from the host."""
+    """The verification-only C that drives the firmware functions in bulk from the host. It
+    includes ``NAME_trace.h``: build it with the files of ``render_trace`` beside the firmware."""
     names = CNames(model.name)
     word_bits = program.word_bits
     return environment().get_template("host_harness.c.j2").render(
@@ -150,13 +208,13 @@ def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dic
                                                  reals, program.state_fraction_bits, strict=True)]
 
 
-def _tables(program: IntegerProgram) -> tuple[list[dict], dict[int, str]]:
-    """One C array per distinct sine table, in order of first use."""
+def _tables(program: IntegerProgram, kept: set[int]) -> tuple[list[dict], dict[int, str]]:
+    """One C array per distinct sine table of the kept values, in order of first use."""
     tables: list[dict] = []
     by_content: dict[tuple[int, ...], str] = {}
     table_of: dict[int, str] = {}
     for index, op in enumerate(program.ops):
-        if op.kind not in ("sin", "cos"):
+        if not op.table or index not in kept:
             continue
         if op.table not in by_content:
             name = f"sine_table{len(tables)}"
@@ -170,13 +228,16 @@ def _tables(program: IntegerProgram) -> tuple[list[dict], dict[int, str]]:
     return tables, table_of
 
 
-def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
-    """One C constant per distinct stored value and format, in order of first use."""
+def _constants(plan: FixedPointPlan, kept: set[int]) -> tuple[list[CConstant], dict[int, str]]:
+    """One C constant per distinct stored value and format of the kept values, in order of first
+    use."""
     constants: list[CConstant] = []
     by_key: dict[tuple[int, int], str] = {}
     constant_of: dict[int, str] = {}
     bits = plan.program.word_bits
     for report in plan.constants:
+        if report.index not in kept:
+            continue
         key = (report.stored, report.format.fraction_bits)
         if key not in by_key:
             name = f"k{len(constants)}"
@@ -191,31 +252,13 @@ def _constants(plan: FixedPointPlan) -> tuple[list[CConstant], dict[int, str]]:
     return constants, constant_of
 
 
-def _value_line(index: int, op: Op, names: CNames, program_states: tuple[str, ...],
-                constant_of: dict[int, str], word_bits: int) -> dict:
-    a = [f"v{i}" for i in op.args]
-    kind = op.kind
-    family = "turns" if op.wraps else "word"
-    if kind == "state":
-        expression = f"state->{names.field(program_states[op.state])}"
-    elif kind == "const":
-        expression = constant_of[index]
-    elif kind in ("add", "sub", "min", "max"):
-        expression = (f"{kind}_{family}({a[0]}, {op.align[0]}u, {a[1]}, {op.align[1]}u, "
-                      f"{op.shift}u)")
-    elif kind in ("neg", "abs"):
-        expression = f"{kind}_{family}({a[0]}, {op.shift}u)"
-    elif kind == "mul":
-        expression = f"mul_{family}({a[0]}, {a[1]}, {op.shift}u)"
-    elif kind == "scale":
-        expression = f"mul_{family}({a[0]}, {constant_of[index]}, {op.shift}u)"
-    elif kind in ("sin", "cos"):
-        quarter = f"UINT{word_bits}_C({1 << (word_bits - 2)})" if kind == "cos" else "0u"
-        expression = f"sine_lookup({a[0]}, {constant_of[index]}, {op.shift}u, {quarter})"
-    else:
-        raise ValueError(f"no C form for {kind!r}")
-    fmt = f"Q{word_bits - op.fraction_bits}.{op.fraction_bits}"
-    return {"name": f"v{index}", "expression": expression,
+def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
+                symbol_of: dict[int, str]) -> dict:
+    site = CSite(args=tuple(f"v{i}" for i in op.args), family="turns" if op.wraps else "word",
+                 word_bits=program.word_bits, symbol=symbol_of.get(index, ""),
+                 field=names.field(program.state_names[op.state]) if op.kind == "state" else "")
+    fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
+    return {"name": f"v{index}", "index": index, "expression": kind_of(op.kind).c_call(op, site),
             "note": comment_text(f"{fmt}, {op.note}")}
 
 

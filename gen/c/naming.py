@@ -48,6 +48,19 @@ class CNames:
         return f"{self.macro_prefix}_H_INCLUDED"
 
     @property
+    def trace_header(self) -> str:
+        """The verification-only pair that holds the traced step (never shipped)."""
+        return f"{self.prefix}_trace.h"
+
+    @property
+    def trace_source(self) -> str:
+        return f"{self.prefix}_trace.c"
+
+    @property
+    def trace_guard(self) -> str:
+        return f"{self.macro_prefix}_TRACE_H_INCLUDED"
+
+    @property
     def state_type(self) -> str:
         return f"{self.prefix}_state_t"
 

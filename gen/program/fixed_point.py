@@ -18,6 +18,8 @@ from orbitfix.gen.model.angles import radians_to_turns
 from orbitfix.gen.model.definition import Parameter
 from orbitfix.gen.program.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
 from orbitfix.gen.program.lowering import evaluate_real
+from orbitfix.gen.program.operations import constant_fraction_bits, kind_of
+from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.program.ranges import interval_ranges, planning_box
 
 
@@ -148,11 +150,6 @@ class FixedPointPlan:
         }
 
 
-def quantise(real: float, fraction_bits: int) -> int:
-    """round(real * 2**fraction_bits), exact, ties to even: the one rule for rounding constants."""
-    return round(Fraction(real) * (1 << fraction_bits))
-
-
 def integer_bits_for(peak: float) -> int:
     """Integer bits, sign included, that hold magnitudes up to ``peak`` (at least 1)."""
     if peak <= 0:
@@ -257,122 +254,66 @@ def _check_choice(what: str, value: object, choices: tuple) -> None:
 
 def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float],
           w: int) -> tuple[list, list[ConstantReport]]:
-    """Give every value its format and every operation its alignments and shift (words of w
-    bits)."""
+    """Give every value its format and every operation its integer fields (words of w bits), by
+    each kind's format rule (``gen/program/operations.py``)."""
     ops = program.ops
+    kinds = [kind_of(op.kind) for op in ops]
+    for op, kind in zip(ops, kinds, strict=True):
+        if kind.constant_role:  # refuses a constant too large for the word, naming it
+            constant_fraction_bits(op.real, w, op.note)
     forced = {value: state_formats[i] for i, value in enumerate(program.next_state)}
-    forced.update({i: state_formats[op.state] for i, op in enumerate(ops) if op.kind == "state"})
     forced.update({i: w for i, op in enumerate(ops) if op.wraps})  # angles: a word is one turn
-    forced.update({i: w - 2 for i, op in enumerate(ops) if op.kind in ("sin", "cos")})
-    constant_formats = {i: _constant_format(op.real, w, op.note) for i, op in enumerate(ops)
-                        if op.kind in ("const", "scale")}
+    for i, (op, kind) in enumerate(zip(ops, kinds, strict=True)):
+        dictated = kind.forced_bits(op, w, state_formats)
+        if dictated is not None:
+            forced[i] = dictated
     bits: list[int] = []
-    for index, op in enumerate(ops):
-        natural = w - integer_bits_for(bounds[index])
-        f_args = [bits[i] for i in op.args]
+    for index, (op, kind) in enumerate(zip(ops, kinds, strict=True)):
         if index in forced:
-            f = forced[index]
-        elif op.kind == "const":
-            f = min(constant_formats[index].fraction_bits, natural)
-        elif op.kind in ("add", "sub", "min", "max"):
-            f = min(natural, max(f_args))
-        elif op.kind == "mul":
-            f = min(natural, f_args[0] + f_args[1])
-        elif op.kind == "scale":
-            f = min(natural, f_args[0] + constant_formats[index].fraction_bits)
-        else:  # neg, abs: the operand's own format holds the result (the word's edge saturates)
-            f = f_args[0]
-        bits.append(f)
-    while _limit_alignment(ops, bits, forced, w) | _cap_to_operands(ops, bits, constant_formats):
+            bits.append(forced[index])
+        else:
+            natural = w - integer_bits_for(bounds[index])
+            bits.append(kind.first_bits(op, [bits[i] for i in op.args], natural, w))
+    while _limit_alignment(ops, kinds, bits, forced, w) | _settle(ops, kinds, bits, w):
         pass
     filled: list = []
     constants: list[ConstantReport] = []
-    for index, op in enumerate(ops):
+    for index, (op, kind) in enumerate(zip(ops, kinds, strict=True)):
         f = bits[index]
-        f_args = [bits[i] for i in op.args]
-        if op.kind == "const":
-            fmt = QFormat(w, f)
-            stored = quantise(op.real, f)
-            if abs(stored) > (1 << (w - 1)) - 1:
-                raise InputError(f"the constant {op.real:.6g} ({op.note}) does not fit {fmt.name}")
-            op = replace(op, constant=stored)
-            constants.append(ConstantReport(index, op.note, op.real, stored, fmt, "added"))
-        elif op.kind == "scale":
-            own = constant_formats[index]
-            stored = quantise(op.real, own.fraction_bits)
-            op = replace(op, constant=stored, shift=f_args[0] + own.fraction_bits - f)
-            constants.append(ConstantReport(index, op.note, op.real, stored, own, "multiplier"))
-        elif op.kind == "mul":
-            op = replace(op, shift=f_args[0] + f_args[1] - f)
-        elif op.kind in ("add", "sub", "min", "max"):
-            top = max(*f_args, f)
-            op = replace(op, align=tuple(top - g for g in f_args), shift=top - f)
-        elif op.kind in ("neg", "abs"):
-            op = replace(op, shift=f_args[0] - f)
-        elif op.kind in ("sin", "cos"):
-            index_bits = sine_table_bits(w, f)
-            op = replace(op, table=sine_table(index_bits, f), shift=w - index_bits)
-        filled.append(replace(op, fraction_bits=f))
+        op = replace(kind.fill(op, f, [bits[i] for i in op.args], w), fraction_bits=f)
+        if kind.constant_role:
+            constants.append(ConstantReport(index, op.note, op.real, op.constant,
+                                            QFormat(w, kind.constant_bits(op, f, w)),
+                                            kind.constant_role))
+        filled.append(op)
     return filled, constants
 
 
-def sine_table_bits(word_bits: int, fraction_bits: int) -> int:
-    """Index bits of the sine table: the fewest for which linear interpolation's error,
-    (2 pi / 2**bits)**2 / 8 at most (the second derivative of sin is at most 1), stays below one
-    step of the result's format; at most 12 (4097 entries)."""
-    lsb = 2.0 ** -fraction_bits
-    bits = 4
-    while bits < min(12, word_bits - 2) and (2 * math.pi / 2**bits) ** 2 / 8 > lsb:
-        bits += 1
-    return bits
-
-
-def sine_table(index_bits: int, fraction_bits: int) -> tuple[int, ...]:
-    """sin over one turn at 2**index_bits + 1 points (the last repeats the first), each rounded
-    once in the result's format."""
-    count = 1 << index_bits
-    return tuple(quantise(math.sin(2 * math.pi * k / count), fraction_bits)
-                 for k in range(count + 1))
-
-
-def sine_error_bound(word_bits: int, fraction_bits: int) -> float:
-    """The stated largest error of the sine table with interpolation: the interpolation's own
-    error plus half a step for rounding each entry and one step for rounding the product."""
-    bits = sine_table_bits(word_bits, fraction_bits)
-    return (2 * math.pi / 2**bits) ** 2 / 8 + 1.5 * 2.0 ** -fraction_bits
-
-
-def _cap_to_operands(ops: tuple, bits: list[int], constant_formats: dict) -> bool:
-    """No result is finer than its exact value: a product has at most the sum of its factors'
-    fraction bits, a negation or absolute value its operand's. Returns True if anything changed."""
+def _settle(ops: tuple, kinds: list, bits: list[int], w: int) -> bool:
+    """Each kind's settling rule (no result finer than its exact value: a product has at most
+    the sum of its factors' fraction bits, a negation or absolute value its operand's). Returns
+    True if anything changed."""
     changed = False
-    for index, op in enumerate(ops):
-        f_args = [bits[i] for i in op.args]
-        if op.kind == "mul":
-            cap = f_args[0] + f_args[1]
-        elif op.kind == "scale":
-            cap = f_args[0] + constant_formats[index].fraction_bits
-        elif op.kind in ("neg", "abs"):
-            cap = f_args[0]
-        else:
-            continue
-        if bits[index] > cap or (op.kind in ("neg", "abs") and bits[index] != cap):
-            bits[index] = cap
+    for index, (op, kind) in enumerate(zip(ops, kinds, strict=True)):
+        settled = kind.settle_bits(op, bits[index], [bits[i] for i in op.args], w)
+        if settled != bits[index]:
+            bits[index] = settled
             changed = True
     return changed
 
 
-def _limit_alignment(ops: tuple, bits: list[int], forced: set[int], w: int) -> bool:
-    """Keep every aligned operand within 2 * w - 3 bits of the wide type: no operand of a sum may
-    be shifted left by more than w - 2. Where that would happen, the finer value (or result)
-    is given fewer fraction bits, which never makes it overflow. Returns True if anything
-    changed."""
+def _limit_alignment(ops: tuple, kinds: list, bits: list[int], forced: dict[int, int],
+                     w: int) -> bool:
+    """Keep every aligned operand within 2 * w - 3 bits of the wide type: no operand of a kind
+    that aligns may be shifted left by more than w - 2. Where that would happen, the finer value
+    (or result) is given fewer fraction bits, which never makes it overflow. Returns True if
+    anything changed."""
     changed_any = False
     changed = True
     while changed:
         changed = False
-        for index, op in enumerate(ops):
-            if op.kind not in ("add", "sub", "min", "max"):
+        for index, (op, kind) in enumerate(zip(ops, kinds, strict=True)):
+            if not kind.aligns:
                 continue
             coarse = min(bits[i] for i in op.args)
             ceiling = coarse + w - 2
@@ -391,22 +332,6 @@ def _limit_alignment(ops: tuple, bits: list[int], forced: set[int], w: int) -> b
                 changed = True
         changed_any |= changed
     return changed_any
-def _constant_format(real: float, word_bits: int, note: str) -> QFormat:
-    """The format with the most fraction bits that still holds a multiplier in one word.
-
-    The shift after the product may not exceed 2 * word_bits - 2, so the widened product is
-    never shifted by its full width.
-    """
-    limit = (1 << (word_bits - 1)) - 1
-    if real == 0:
-        return QFormat(word_bits, word_bits - 1)
-    bits = min(2 * word_bits - 2, word_bits - 1 - math.floor(math.log2(abs(real))))
-    while bits >= 0 and abs(quantise(real, bits)) > limit:
-        bits -= 1
-    if bits < 0:
-        raise InputError(f"the multiplier {real:.6g} ({note}) is too large for a "
-                         f"{word_bits}-bit word; rescale the model")
-    return QFormat(word_bits, bits)
 
 
 def _state_integer(value: float, fmt: QFormat, name: str) -> int:

@@ -1,8 +1,11 @@
 """The golden interpreter (layer L2): runs the integer program in numpy, vectorised over a batch
 of states, and gives the bits that the C must reproduce exactly.
 
-The arithmetic rules live here once for the Python side; the C side renders the same rules from
-``templates/fixed_point.c.j2``. Both are tested against exact rational arithmetic.
+Rounding and overflow live here once for the Python side (``round_shift``, ``fit_word``); the C
+side renders the same rules from ``templates/fixed_point.c.j2``. What each operation computes
+before them is its kind's golden rule (``gen/program/operations.py``). Values are held in the
+integer type of the program's product width, like the C's. Both back ends are tested against
+exact rational arithmetic.
 """
 
 from __future__ import annotations
@@ -10,10 +13,20 @@ from __future__ import annotations
 import numpy as np
 
 from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.program.operations import kind_of
+
+
+def wide_type(product_bits: int) -> type[np.signedinteger]:
+    """The numpy integer type of a program's product width (the C's ``int<product_bits>_t``)."""
+    try:
+        return {32: np.int32, 64: np.int64}[product_bits]
+    except KeyError:
+        raise ValueError(f"no numpy integer type for {product_bits}-bit products") from None
 
 
 def round_shift(product: np.ndarray, shift: int, rounding: str) -> np.ndarray:
-    """Divide by 2**shift with the program's rounding rule, in place (int64 in, int64 out).
+    """Divide by 2**shift with the program's rounding rule, in place (the array's own integer
+    type in and out).
 
     truncate: floor(product / 2**shift);
     half-up: floor(product / 2**shift + 1/2), ties toward plus infinity;
@@ -21,17 +34,18 @@ def round_shift(product: np.ndarray, shift: int, rounding: str) -> np.ndarray:
     """
     if shift == 0:
         return product
+    number = product.dtype.type
     if rounding == "truncate":
-        product >>= np.int64(shift)
+        product >>= number(shift)
         return product
     if rounding == "half-up":
-        product += np.int64(1 << (shift - 1))
-        product >>= np.int64(shift)
+        product += number(1 << (shift - 1))
+        product >>= number(shift)
         return product
     if rounding == "half-even":
-        remainder = product & np.int64((1 << shift) - 1)
-        product >>= np.int64(shift)
-        half = np.int64(1 << (shift - 1))
+        remainder = product & number((1 << shift) - 1)
+        product >>= number(shift)
+        half = number(1 << (shift - 1))
         product += (remainder > half) | ((remainder == half) & ((product & 1) == 1))
         return product
     raise ValueError(f"unknown rounding {rounding!r}")
@@ -44,68 +58,56 @@ def fit_word(values: np.ndarray, word_bits: int, overflow: str) -> np.ndarray:
     if overflow == "saturate":
         return np.clip(values, low, high, out=values)
     if overflow == "wrap":
-        values -= np.int64(low)
-        values &= np.int64((1 << word_bits) - 1)
-        values += np.int64(low)
+        number = values.dtype.type
+        values -= number(low)
+        values &= number((1 << word_bits) - 1)
+        values += number(low)
         return values
     raise ValueError(f"unknown overflow mode {overflow!r}")
 
 
+class _Machine:
+    """The program's integer semantics, offered to each kind's golden rule."""
+
+    def __init__(self, program: IntegerProgram, states: np.ndarray) -> None:
+        self.wide = wide_type(program.product_bits)
+        self.word_bits = program.word_bits
+        self.rounding = program.rounding
+        self.overflow = program.overflow
+        self.batch = states.shape[1:]
+        self.states = states
+
+    def state(self, index: int) -> np.ndarray:
+        return self.states[index]
+
+    def round_shift(self, exact: np.ndarray, shift: int) -> np.ndarray:
+        return round_shift(exact, shift, self.rounding)
+
+    def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray:
+        return fit_word(exact, self.word_bits, "wrap" if wraps else self.overflow)
+
+
 def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
-    """Every value of one step. ``states`` : int ndarray, shape (n_states, batch)."""
+    """Every value of one step, in the integer type of the program's product width.
+
+    states : int ndarray, shape (n_states, batch), each a word of the program.
+    """
     if not program.is_planned:
         raise ValueError("the program has no fixed-point plan yet")
-    bits, overflow = program.word_bits, program.overflow
-
-    def fit(v: np.ndarray, wraps: bool = False) -> np.ndarray:
-        return fit_word(v, bits, "wrap" if wraps else overflow)
-
+    states = np.asarray(states)
+    if states.size and (states.min() < program.word_min or states.max() > program.word_max):
+        raise ValueError(f"a state is outside the {program.word_bits}-bit word")
+    machine = _Machine(program, states.astype(wide_type(program.product_bits), copy=False))
     values: list[np.ndarray] = []
-    batch = np.shape(states)[1:]
-    rounding = program.rounding
-
-    def aligned(op_args: list[np.ndarray], align: tuple[int, ...]) -> list[np.ndarray]:
-        return [v * np.int64(1 << k) if k else v for v, k in zip(op_args, align, strict=True)]
-
     for op in program.ops:
-        a = [values[i] for i in op.args]
-        kind = op.kind
-        if kind == "state":
-            v = np.asarray(states[op.state], dtype=np.int64)
-        elif kind == "const":
-            v = np.full(batch, op.constant, dtype=np.int64)
-        elif kind == "mul":
-            v = fit(round_shift(np.multiply(a[0], a[1]), op.shift, rounding), op.wraps)
-        elif kind == "scale":
-            v = fit(round_shift(a[0] * np.int64(op.constant), op.shift, rounding), op.wraps)
-        elif kind in ("neg", "abs"):
-            exact = -a[0] if kind == "neg" else np.abs(a[0])
-            v = fit(round_shift(exact, op.shift, rounding), op.wraps)
-        elif kind in ("add", "sub", "min", "max"):
-            x, y = aligned(a, op.align)
-            exact = {"add": np.add, "sub": np.subtract, "min": np.minimum,
-                     "max": np.maximum}[kind](x, y)
-            v = fit(round_shift(exact, op.shift, rounding), op.wraps)
-        elif kind in ("sin", "cos"):
-            phase = a[0] & np.int64((1 << bits) - 1)  # the angle as an unsigned word
-            if kind == "cos":
-                phase = (phase + np.int64(1 << (bits - 2))) & np.int64((1 << bits) - 1)
-            table = np.asarray(op.table, dtype=np.int64)
-            index = phase >> np.int64(op.shift)
-            within = phase & np.int64((1 << op.shift) - 1)
-            low = table[index]
-            step = round_shift((table[index + 1] - low) * within, op.shift, rounding)
-            v = fit(low + step)
-        else:
-            raise ValueError(f"no golden rule for {kind!r}")
-        values.append(v)
+        values.append(kind_of(op.kind).golden(op, [values[i] for i in op.args], machine))
     return values
 
 
 def step(program: IntegerProgram, states: np.ndarray) -> np.ndarray:
     """One step from each state of the batch. Returns int64 ndarray, shape (n_states, batch)."""
     values = evaluate(program, states)
-    return np.stack([values[i] for i in program.next_state])
+    return np.stack([values[i] for i in program.next_state]).astype(np.int64, copy=False)
 
 
 def run(program: IntegerProgram, initial: np.ndarray, steps: int) -> np.ndarray:

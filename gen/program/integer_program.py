@@ -3,37 +3,29 @@
 A straight-line list of typed operations. Every operation produces one value, named by its index.
 The lowering fills in the real-valued structure (kinds, arguments, real constants); the fixed-point
 planner fills in the integer part (stored constants, shifts, fraction bits). The numpy golden
-interpreter (``gen.golden``) runs it and the C emitter (``gen.emit_c``) renders it; neither adds
-an arithmetic decision of its own.
+interpreter (``gen/program/golden.py``) runs it and the C emitter (``gen/c/emit.py``) renders it;
+neither adds an arithmetic decision of its own.
 
 Every value is an integer standing for integer / 2**fraction_bits, each value with its own
-``fraction_bits``. Semantics of each kind, on two's complement words of ``word_bits`` (16 or 32)
-with products formed in ``product_bits`` (twice the word):
+``fraction_bits``. On two's complement words of ``word_bits`` (16 or 32) with products formed in
+``product_bits`` (twice the word), an operation
 
-1. form the exact wide result from the arguments, each first multiplied by 2**align[i] (for
-   ``add``, ``sub``, ``min`` and ``max``; this brings them to one scale and never overflows the
+1. forms the exact wide result from its arguments (for ``add``, ``sub``, ``min`` and ``max``,
+   each first multiplied by 2**align[i], which brings them to one scale and never overflows the
    wide type, since no alignment exceeds word_bits - 2);
-2. divide it by 2**shift with the program's ``rounding``: ``truncate`` (toward minus infinity),
+2. divides it by 2**shift with the program's ``rounding``: ``truncate`` (toward minus infinity),
    ``half-up`` (nearest, ties toward plus infinity) or ``half-even`` (nearest, ties to even);
-3. bring it into the word: clamp (``overflow`` = ``saturate``) or reduce modulo 2**word_bits
+3. brings it into the word: clamp (``overflow`` = ``saturate``) or reduce modulo 2**word_bits
    (``wrap``).
 
-- ``state``: the state variable ``state`` at the start of the step;
-- ``const``: the stored integer ``constant``, in the value's own format;
-- ``add``, ``sub``: sum or difference of the aligned arguments;
-- ``min``, ``max``: the smaller or larger aligned argument;
-- ``neg``, ``abs``: negation or absolute value;
-- ``mul``: the product of two values;
-- ``scale``: the product of a value and the stored integer ``constant``;
-- ``sin``, ``cos``: of an angle held in turns (see below), from ``table``: with p the argument
-  read as an unsigned word (plus a quarter turn, 2**(word_bits - 2), for ``cos``, modulo
-  2**word_bits), i = p >> shift and r = p mod 2**shift, the result is
-  table[i] + round_shift((table[i + 1] - table[i]) * r, shift): linear interpolation.
+What each kind does (``state``, ``const``, ``add``, ``sub``, ``neg``, ``abs``, ``min``, ``max``,
+``mul``, ``scale``, ``sin``, ``cos``) is defined once, in ``gen/program/operations.py``.
 
 Angles (phases) are held in turns: an angle value has fraction_bits = word_bits, so the word
 covers exactly one turn and wrapping modulo 2**word_bits is wrapping modulo a full turn. An
 operation with ``wraps`` set brings its result into the word by wrapping, whatever the program's
-``overflow`` (that is how angles add up without ever losing precision).
+``overflow`` (that is how angles add up without ever losing precision). ``sin`` and ``cos`` read
+an angle through a table, after adding the operation's ``offset`` (a quarter turn for ``cos``).
 """
 
 from __future__ import annotations
@@ -42,9 +34,8 @@ import hashlib
 import json
 from dataclasses import dataclass, field
 
-KINDS = ("state", "const", "add", "sub", "neg", "abs", "min", "max", "mul", "scale", "sin", "cos")
-ARITY = {"state": 0, "const": 0, "add": 2, "sub": 2, "neg": 1, "abs": 1, "min": 2, "max": 2,
-         "mul": 2, "scale": 1, "sin": 1, "cos": 1}
+from orbitfix.gen.program.operations import kind_of
+
 WORD_SIZES = (16, 32)
 ROUNDINGS = ("truncate", "half-up", "half-even")
 OVERFLOWS = ("saturate", "wrap")
@@ -65,16 +56,16 @@ class Op:
     align: tuple[int, ...] = ()
     wraps: bool = False
     table: tuple[int, ...] = ()
+    offset: int | None = None
 
     def __post_init__(self) -> None:
-        if self.kind not in KINDS:
-            raise ValueError(f"unknown operation kind {self.kind!r}")
-        if len(self.args) != ARITY[self.kind]:
-            raise ValueError(f"{self.kind} takes {ARITY[self.kind]} arguments, got {self.args}")
+        arity = kind_of(self.kind).arity
+        if len(self.args) != arity:
+            raise ValueError(f"{self.kind} takes {arity} arguments, got {self.args}")
 
     def to_json(self) -> dict:
         data: dict = {"kind": self.kind, "args": list(self.args)}
-        for key in ("state", "real", "constant", "shift", "fraction_bits"):
+        for key in ("state", "real", "constant", "shift", "fraction_bits", "offset"):
             value = getattr(self, key)
             if value is not None:
                 data[key] = value
@@ -142,7 +133,7 @@ class IntegerProgram:
 
     def constants(self) -> list[tuple[int, Op]]:
         """The operations that carry a stored constant, with their value index."""
-        return [(i, op) for i, op in enumerate(self.ops) if op.kind in ("const", "scale")]
+        return [(i, op) for i, op in enumerate(self.ops) if kind_of(op.kind).constant_role]
 
     def to_json(self) -> dict:
         return {

@@ -14,6 +14,7 @@ from orbitfix.gen.errors import UnsupportedError
 from orbitfix.gen.model import angles
 from orbitfix.gen.model.definition import Model, Parameter
 from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.program.operations import kind_of
 from orbitfix.gen.timing.integrators import Integrator
 
 
@@ -283,27 +284,6 @@ def evaluate_real(program: IntegerProgram, states: np.ndarray) -> list[np.ndarra
     integrator's step map at layer L1. ``states`` : ndarray, shape (n_states, batch)."""
     values: list[np.ndarray] = []
     for op in program.ops:
-        a = [values[i] for i in op.args]
-        if op.kind == "state":
-            values.append(np.asarray(states[op.state], dtype=float))
-        elif op.kind == "const":
-            values.append(np.full(np.shape(states[0]), op.real))
-        else:
-            values.append(_REAL[op.kind](op, a))
-        if op.wraps:
-            values[-1] = angles.wrap_turns(values[-1])
+        value = kind_of(op.kind).real(op, [values[i] for i in op.args], states)
+        values.append(angles.wrap_turns(value) if op.wraps else value)
     return values
-
-
-_REAL = {
-    "add": lambda op, a: a[0] + a[1],
-    "sub": lambda op, a: a[0] - a[1],
-    "neg": lambda op, a: -a[0],
-    "abs": lambda op, a: np.abs(a[0]),
-    "min": lambda op, a: np.minimum(a[0], a[1]),
-    "max": lambda op, a: np.maximum(a[0], a[1]),
-    "mul": lambda op, a: a[0] * a[1],
-    "scale": lambda op, a: a[0] * op.real,
-    "sin": lambda op, a: np.sin(2 * np.pi * a[0]),
-    "cos": lambda op, a: np.cos(2 * np.pi * a[0]),
-}

@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.program.operations import kind_of
 
 
 def interval_ranges(program: IntegerProgram, low: np.ndarray,
@@ -18,40 +19,7 @@ def interval_ranges(program: IntegerProgram, low: np.ndarray,
     """Bounds (lo, hi) of every value of one step from any state with low <= x <= high."""
     bounds: list[tuple[float, float]] = []
     for op in program.ops:
-        a = [bounds[i] for i in op.args]
-        kind = op.kind
-        if kind == "state":
-            bounds.append((float(low[op.state]), float(high[op.state])))
-        elif kind == "const":
-            bounds.append((op.real, op.real))
-        elif kind == "add":
-            bounds.append((a[0][0] + a[1][0], a[0][1] + a[1][1]))
-        elif kind == "sub":
-            bounds.append((a[0][0] - a[1][1], a[0][1] - a[1][0]))
-        elif kind == "neg":
-            bounds.append((-a[0][1], -a[0][0]))
-        elif kind == "abs":
-            lo, hi = a[0]
-            bounds.append((0.0 if lo <= 0 <= hi else min(abs(lo), abs(hi)), max(abs(lo), abs(hi))))
-        elif kind == "min":
-            bounds.append((min(a[0][0], a[1][0]), min(a[0][1], a[1][1])))
-        elif kind == "max":
-            bounds.append((max(a[0][0], a[1][0]), max(a[0][1], a[1][1])))
-        elif kind == "mul":
-            if op.args[0] == op.args[1]:  # a square is never negative
-                lo, hi = a[0]
-                top = max(lo * lo, hi * hi)
-                bounds.append((0.0 if lo <= 0 <= hi else min(lo * lo, hi * hi), top))
-            else:
-                corners = [x * y for x in a[0] for y in a[1]]
-                bounds.append((min(corners), max(corners)))
-        elif kind == "scale":
-            corners = [a[0][0] * op.real, a[0][1] * op.real]
-            bounds.append((min(corners), max(corners)))
-        elif kind in ("sin", "cos"):
-            bounds.append((-1.0, 1.0))
-        else:
-            raise ValueError(f"no interval rule for {kind!r}")
+        bounds.append(kind_of(op.kind).interval(op, [bounds[i] for i in op.args], (low, high)))
         if op.wraps:  # an angle in turns, wrapped into half a turn either way
             bounds[-1] = (-0.5, 0.5)
     return bounds

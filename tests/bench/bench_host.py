@@ -17,7 +17,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
@@ -35,6 +35,7 @@ def main() -> None:
     built = design(load_model("vanderpol"))
     design_seconds = time.perf_counter() - started
     files = render_model(built.model, built.timing, built.integrator, built.plan)
+    files.update(render_trace(built.model, built.timing, built.integrator, built.plan))
     started = time.perf_counter()
     harness = render_host_harness(built.model, built.plan.program)
     host = build_host_module(files, harness, "vanderpol.h")

@@ -10,12 +10,13 @@ from pathlib import Path
 
 import numpy as np
 
-from orbitfix.gen.c.emit import render_host_harness, render_model
+from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.c.naming import CNames
-from orbitfix.gen.errors import InputError
+from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.program.quantisation import quantise
 from orbitfix.verify.proofs.bit_exact import BitExactReport, prove_bit_exact
-from orbitfix.verify.targets.host_build import build_host_module
+from orbitfix.verify.targets.host_build import HostModule, build_host_module
 
 PROGRAM_MARK = re.compile(r"integer program ([0-9a-f]{16})")
 
@@ -70,15 +71,58 @@ def check_on_host(design: Design, sources_folder: Path | None = None, states: in
         sources, notes = read_sources(design, sources_folder)
         origin = str(sources_folder)
     started = time.perf_counter()
+    # The traced step is verification-only: it is always rendered afresh from the design, and
+    # the proof checks it against golden and the firmware's own step against it.
+    traced = render_trace(design.model, design.timing, design.integrator, design.plan)
     harness = render_host_harness(design.model, design.plan.program)
-    host = build_host_module(sources, harness, names.header)
+    host = build_host_module({**sources, **traced}, harness, names.header)
     build_seconds = time.perf_counter() - started
     plan = design.plan
     # The states come first in the program, so value i is state i: its sure bound over the
     # planning box, in its own integer units, is the size of a typical state.
-    typical = [max(abs(low), abs(high)) * 2.0 ** bits for (low, high), bits in
+    typical = [quantise(max(abs(low), abs(high)), bits) for (low, high), bits in
                zip(plan.sure_bounds, plan.program.state_fraction_bits, strict=False)]
     report = prove_bit_exact(plan.program, host, np.array(plan.initial_state, dtype=np.int64),
-                             np.array(typical).astype(np.int64), states=states, steps=steps)
+                             np.array(typical), states=states, steps=steps,
+                             shipped_trace=lambda: _shipped_trace(design, sources, traced, harness))
     return HostCheck(sources=origin, report=report, build_seconds=build_seconds,
                      build_reused=host.reused, notes=notes)
+
+
+STEP_VALUE = re.compile(r"^\s*const\s+int(?:16|32)_t\s+v(\d+)\s*=", re.M)
+
+
+def traced_copy(source: str, names: CNames, word_bits: int, length: int) -> str | None:
+    """The firmware source with a traced copy of its own step appended: the same body, then every
+    value written into the trace. It locates a mismatch in the firmware's own code (the rendered
+    trace file follows the program, not the firmware). None if the step is not in the form the
+    generator writes (it was edited beyond recognition)."""
+    opening = f"void {names.step}({names.state_type} *state)\n{{\n"
+    start = source.find(opening)
+    end = source.find("\n}\n", start)
+    if start < 0 or end < 0:
+        return None
+    body = source[start + len(opening):end + 1]
+    if sorted(int(v) for v in STEP_VALUE.findall(body)) != list(range(length)):
+        return None
+    stores = "".join(f"    trace[{i}] = v{i};\n" for i in range(length))
+    return (f"{source}\n#include \"{names.trace_header}\"\n\n"
+            f"void {names.step_traced}({names.state_type} *state, int{word_bits}_t "
+            f"trace[{names.macro('trace_length')}])\n{{\n{body}{stores}}}\n")
+
+
+def _shipped_trace(design: Design, sources: dict[str, str], traced: dict[str, str],
+                   harness: str) -> HostModule | None:
+    """A module whose traced step is the firmware's own step with a trace (see ``traced_copy``);
+    None if the firmware's step cannot be copied or the copy does not build."""
+    names = CNames(design.model.name)
+    program = design.plan.program
+    copy = traced_copy(sources[names.source], names, program.word_bits, len(program.ops))
+    if copy is None:
+        return None
+    try:
+        return build_host_module({**sources, names.source: copy,
+                                  names.trace_header: traced[names.trace_header]},
+                                 harness, names.header)
+    except OrbitfixError:
+        return None

@@ -11,7 +11,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from orbitfix.gen import __version__
-from orbitfix.gen.c.emit import HARNESS_DECLARATIONS, environment, render_host_harness, render_model
+from orbitfix.gen.c.emit import (
+    HARNESS_DECLARATIONS,
+    environment,
+    render_host_harness,
+    render_model,
+    render_trace,
+)
 from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.pipeline import Design
 from orbitfix.verify.targets.host_build import HostModule, build_host_module
@@ -66,8 +72,9 @@ def build_drift_module(design: Design, sources: dict[str, str] | None = None) ->
     names = CNames(design.model.name)
     files = sources if sources is not None else render_model(
         design.model, design.timing, design.integrator, design.plan)
+    traced = render_trace(design.model, design.timing, design.integrator, design.plan)
     return build_host_module(
-        sources={**files, "drift_harness.c": render_drift_harness(design)},
+        sources={**files, **traced, "drift_harness.c": render_drift_harness(design)},
         harness=render_host_harness(design.model, design.plan.program),
         header=names.header, declarations=HARNESS_DECLARATIONS + DRIFT_DECLARATIONS)
 

@@ -1,0 +1,589 @@
+"""The operation kinds of the integer program, each defined once.
+
+Every reading of the program asks an operation's kind what it means: the real reading (layer L1,
+``lowering.evaluate_real``), the interval rule (``ranges.interval_ranges``), the format rule
+(``fixed_point``), the golden rule (``golden``) and the C form (``c.emit`` with the helpers of
+``templates/fixed_point.c.j2``). A kind is one subclass of ``OperationKind`` registered here, and
+``tests/test_operations.py`` checks every registered kind against exact rational arithmetic,
+its own interval rule and the compiled C.
+
+Rounding and overflow are not a kind's business: the golden interpreter writes them once
+(``golden.round_shift``, ``golden.fit_word``) and the C once (``round_shift``, ``fit_word`` and
+``wrap_word`` in the helpers template); a kind only says what exact result they apply to.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from dataclasses import dataclass, replace
+from fractions import Fraction
+from typing import TYPE_CHECKING, Protocol
+
+import numpy as np
+
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.program.quantisation import quantise
+
+if TYPE_CHECKING:
+    from orbitfix.gen.program.integer_program import Op
+
+Bounds = tuple[float, float]
+
+
+class Machine(Protocol):
+    """What the golden interpreter offers a kind's golden rule (see ``golden.evaluate``)."""
+
+    wide: type[np.signedinteger]  # the numpy type of the program's product width
+    word_bits: int
+    batch: tuple[int, ...]
+
+    def state(self, index: int) -> np.ndarray: ...
+
+    def round_shift(self, exact: np.ndarray, shift: int) -> np.ndarray: ...
+
+    def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray: ...
+
+
+@dataclass(frozen=True)
+class CHelper:
+    """A ``static inline`` C function that computes one kind of value.
+
+    ``parameters``, ``prelude`` and ``exact`` are C text in which ``{word}``, ``{wide}`` and
+    ``{unsigned}`` stand for the word type, the product type and the unsigned word type. Unless
+    the helper is ``whole``, the template adds a last parameter ``unsigned int shift`` and returns
+    the family's overflow rule of ``round_shift(exact, shift)``, so the helper's name gets the
+    family (``add_word``, ``add_turns``); a ``whole`` helper returns ``exact`` as it stands and
+    is the same for every family.
+    """
+
+    name: str
+    parameters: str
+    exact: str
+    prelude: tuple[str, ...] = ()
+    whole: bool = False
+    comment: str = ""
+
+    def function(self, family: str) -> str:
+        return self.name if self.whole else f"{self.name}_{family}"
+
+    def render(self, family: str, fitter: str, word: str, wide: str, unsigned: str) -> dict:
+        def fill(text: str) -> str:
+            return text.format(word=word, wide=wide, unsigned=unsigned)
+
+        return {"function": self.function(family), "parameters": fill(self.parameters),
+                "prelude": [fill(line) for line in self.prelude], "exact": fill(self.exact),
+                "whole": self.whole, "fitter": fitter, "comment": self.comment}
+
+
+@dataclass(frozen=True)
+class CSite:
+    """What the C form of one operation may refer to.
+
+    args -- the C names of its arguments' values; family -- ``word`` (the program's overflow
+    rule) or ``turns`` (an angle: it wraps); field -- the state struct field a ``state`` reads;
+    symbol -- the C name of the operation's stored constant or table.
+    """
+
+    args: tuple[str, ...]
+    family: str
+    word_bits: int
+    field: str = ""
+    symbol: str = ""
+
+
+class OperationKind:
+    """What one kind of operation means, in every reading of the integer program.
+
+    A new kind is a subclass decorated with ``@register``. It provides:
+
+    1. ``name`` and ``arity``: its name in the program (and the program's JSON) and how many
+       earlier values it reads; and its meaning in one line as the class docstring.
+    2. ``real(op, args, states)``: the real reading (layer L1): the exact real operation on
+       float64 arrays, with the operation's real constant and no rounding.
+    3. ``interval(op, args, box)``: sure bounds of the real result from sure bounds of the
+       arguments (interval arithmetic); they must enclose every real result.
+    4. The format rule, which the planner runs for every value: ``forced_bits`` (a format the
+       kind dictates, or None), ``first_bits`` (the result's fraction bits from the arguments'
+       and from ``natural``, the most that hold the value's sure bound), ``settle_bits`` (the
+       correction the planner repeats until nothing changes: no result finer than its exact
+       value), ``aligns`` (the arguments are brought to one scale before they meet), and
+       ``fill`` (the integer fields of the planned operation: shift, alignments, constant,
+       table, offset). A kind that stores a constant names its ``constant_role`` and the
+       constant's format in ``constant_bits``, and quantises it with ``quantise``.
+    5. The golden rule: ``exact(op, args, machine)``, the exact result in the program's product
+       width as a fresh array (the interpreter rounds it in place), to which the interpreter
+       applies the one rounding by ``op.shift`` and the one overflow rule; a kind that rounds
+       elsewhere overrides ``golden`` and still uses ``machine.round_shift`` and
+       ``machine.fit``, never rules of its own.
+    6. The C form: ``c_helper`` (the helper function, see ``CHelper``; None if the value needs
+       none) and ``c_call(op, site)``, the C expression of the value.
+    """
+
+    name = ""
+    arity = 0
+    aligns = False
+    constant_role: str | None = None  # "added" or "multiplier" for a kind with a stored constant
+    c_helper: CHelper | None = None
+
+    def real(self, op: Op, args: list[np.ndarray], states: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    def interval(self, op: Op, args: list[Bounds], box: tuple[np.ndarray, np.ndarray]) -> Bounds:
+        raise NotImplementedError
+
+    def forced_bits(self, op: Op, word_bits: int, state_formats: list[int]) -> int | None:
+        return None
+
+    def first_bits(self, op: Op, f_args: list[int], natural: int, word_bits: int) -> int:
+        raise NotImplementedError(f"{self.name} always has a forced format")
+
+    def settle_bits(self, op: Op, bits: int, f_args: list[int], word_bits: int) -> int:
+        return bits
+
+    def constant_bits(self, op: Op, bits: int, word_bits: int) -> int:
+        raise NotImplementedError(f"{self.name} stores no constant")
+
+    def fill(self, op: Op, bits: int, f_args: list[int], word_bits: int) -> Op:
+        return op
+
+    def exact(self, op: Op, args: list[np.ndarray], machine: Machine) -> np.ndarray:
+        raise NotImplementedError
+
+    def golden(self, op: Op, args: list[np.ndarray], machine: Machine) -> np.ndarray:
+        return machine.fit(machine.round_shift(self.exact(op, args, machine), op.shift), op.wraps)
+
+    def c_call(self, op: Op, site: CSite) -> str:
+        raise NotImplementedError
+
+
+KINDS: dict[str, OperationKind] = {}
+
+
+def register(cls: type[OperationKind]) -> type[OperationKind]:
+    """Add a kind to the registry (a class decorator)."""
+    if not cls.name or cls.name in KINDS:
+        raise ValueError(f"operation kind {cls.name!r} has no name or is registered twice")
+    KINDS[cls.name] = cls()
+    return cls
+
+
+def kind_of(name: str) -> OperationKind:
+    """The registered kind called ``name``."""
+    try:
+        return KINDS[name]
+    except KeyError:
+        raise ValueError(f"unknown operation kind {name!r} (known: {', '.join(KINDS)})") from None
+
+
+# --- loads and constants ---------------------------------------------------------------------
+
+
+@register
+class State(OperationKind):
+    """The state variable ``op.state`` at the start of the step."""
+
+    name = "state"
+
+    def real(self, op, args, states):
+        return np.asarray(states[op.state], dtype=float)
+
+    def interval(self, op, args, box):
+        return float(box[0][op.state]), float(box[1][op.state])
+
+    def forced_bits(self, op, word_bits, state_formats):
+        return state_formats[op.state]
+
+    def golden(self, op, args, machine):
+        return machine.state(op.state)
+
+    def c_call(self, op, site):
+        return f"state->{site.field}"
+
+
+@register
+class Const(OperationKind):
+    """The stored integer ``op.constant``, in the value's own format."""
+
+    name = "const"
+    constant_role = "added"
+
+    def real(self, op, args, states):
+        return np.full(np.shape(states[0]), op.real)
+
+    def interval(self, op, args, box):
+        return op.real, op.real
+
+    def first_bits(self, op, f_args, natural, word_bits):
+        return min(constant_fraction_bits(op.real, word_bits, op.note), natural)
+
+    def constant_bits(self, op, bits, word_bits):
+        return bits
+
+    def fill(self, op, bits, f_args, word_bits):
+        stored = quantise(op.real, bits)
+        if abs(stored) > (1 << (word_bits - 1)) - 1:
+            raise InputError(f"the constant {op.real:.6g} ({op.note}) does not fit "
+                             f"Q{word_bits - bits}.{bits}")
+        return replace(op, constant=stored)
+
+    def golden(self, op, args, machine):
+        return np.full(machine.batch, op.constant, dtype=machine.wide)
+
+    def c_call(self, op, site):
+        return site.symbol
+
+
+# --- sums, extremes and sign -----------------------------------------------------------------
+
+_ALIGNED_PARAMETERS = "{word} a, unsigned int ka, {word} b, unsigned int kb"
+_ALIGNED_PRELUDE = ("const {wide} x = aligned(a, ka);", "const {wide} y = aligned(b, kb);")
+
+
+class Aligned(OperationKind):
+    """Two arguments, each first multiplied by 2**op.align[i] (exact in the product width, since
+    no alignment exceeds word_bits - 2), then combined exactly."""
+
+    arity = 2
+    aligns = True
+
+    def combine(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    def first_bits(self, op, f_args, natural, word_bits):
+        return min(natural, max(f_args))
+
+    def fill(self, op, bits, f_args, word_bits):
+        top = max(*f_args, bits)
+        return replace(op, align=tuple(top - g for g in f_args), shift=top - bits)
+
+    def exact(self, op, args, machine):
+        x, y = (v * machine.wide(1 << k) if k else v
+                for v, k in zip(args, op.align, strict=True))
+        return self.combine(x, y)
+
+    def c_call(self, op, site):
+        (a, b), (ka, kb) = site.args, op.align
+        return f"{self.c_helper.function(site.family)}({a}, {ka}u, {b}, {kb}u, {op.shift}u)"
+
+
+@register
+class Add(Aligned):
+    """The sum of the aligned arguments."""
+
+    name = "add"
+    c_helper = CHelper("add", _ALIGNED_PARAMETERS, "aligned(a, ka) + aligned(b, kb)")
+
+    def real(self, op, args, states):
+        return args[0] + args[1]
+
+    def interval(self, op, args, box):
+        return args[0][0] + args[1][0], args[0][1] + args[1][1]
+
+    def combine(self, x, y):
+        return np.add(x, y)
+
+
+@register
+class Sub(Aligned):
+    """The first aligned argument less the second."""
+
+    name = "sub"
+    c_helper = CHelper("sub", _ALIGNED_PARAMETERS, "aligned(a, ka) - aligned(b, kb)")
+
+    def real(self, op, args, states):
+        return args[0] - args[1]
+
+    def interval(self, op, args, box):
+        return args[0][0] - args[1][1], args[0][1] - args[1][0]
+
+    def combine(self, x, y):
+        return np.subtract(x, y)
+
+
+@register
+class Min(Aligned):
+    """The smaller aligned argument."""
+
+    name = "min"
+    c_helper = CHelper("min", _ALIGNED_PARAMETERS, "x < y ? x : y", _ALIGNED_PRELUDE)
+
+    def real(self, op, args, states):
+        return np.minimum(args[0], args[1])
+
+    def interval(self, op, args, box):
+        return min(args[0][0], args[1][0]), min(args[0][1], args[1][1])
+
+    def combine(self, x, y):
+        return np.minimum(x, y)
+
+
+@register
+class Max(Aligned):
+    """The larger aligned argument."""
+
+    name = "max"
+    c_helper = CHelper("max", _ALIGNED_PARAMETERS, "x > y ? x : y", _ALIGNED_PRELUDE)
+
+    def real(self, op, args, states):
+        return np.maximum(args[0], args[1])
+
+    def interval(self, op, args, box):
+        return max(args[0][0], args[1][0]), max(args[0][1], args[1][1])
+
+    def combine(self, x, y):
+        return np.maximum(x, y)
+
+
+class Unary(OperationKind):
+    """One argument; the result keeps the argument's format (the word's edge saturates)."""
+
+    arity = 1
+
+    def first_bits(self, op, f_args, natural, word_bits):
+        return f_args[0]
+
+    def settle_bits(self, op, bits, f_args, word_bits):
+        return f_args[0]
+
+    def fill(self, op, bits, f_args, word_bits):
+        return replace(op, shift=f_args[0] - bits)
+
+    def c_call(self, op, site):
+        return f"{self.c_helper.function(site.family)}({site.args[0]}, {op.shift}u)"
+
+
+@register
+class Neg(Unary):
+    """The negated argument."""
+
+    name = "neg"
+    c_helper = CHelper("neg", "{word} a", "-({wide})a")
+
+    def real(self, op, args, states):
+        return -args[0]
+
+    def interval(self, op, args, box):
+        return -args[0][1], -args[0][0]
+
+    def exact(self, op, args, machine):
+        return np.negative(args[0])
+
+
+@register
+class Abs(Unary):
+    """The argument's absolute value."""
+
+    name = "abs"
+    c_helper = CHelper("abs", "{word} a", "a < 0 ? -({wide})a : ({wide})a")
+
+    def real(self, op, args, states):
+        return np.abs(args[0])
+
+    def interval(self, op, args, box):
+        lo, hi = args[0]
+        return (0.0 if lo <= 0 <= hi else min(abs(lo), abs(hi))), max(abs(lo), abs(hi))
+
+    def exact(self, op, args, machine):
+        return np.abs(args[0])
+
+
+# --- products --------------------------------------------------------------------------------
+
+_PRODUCT = CHelper("mul", "{word} a, {word} b", "({wide})a * ({wide})b")
+
+
+@register
+class Mul(OperationKind):
+    """The product of two values, formed in the product width."""
+
+    name = "mul"
+    arity = 2
+    c_helper = _PRODUCT
+
+    def real(self, op, args, states):
+        return args[0] * args[1]
+
+    def interval(self, op, args, box):
+        if op.args[0] == op.args[1]:  # a square is never negative
+            lo, hi = args[0]
+            return (0.0 if lo <= 0 <= hi else min(lo * lo, hi * hi)), max(lo * lo, hi * hi)
+        corners = [x * y for x in args[0] for y in args[1]]
+        return min(corners), max(corners)
+
+    def first_bits(self, op, f_args, natural, word_bits):
+        return min(natural, f_args[0] + f_args[1])
+
+    def settle_bits(self, op, bits, f_args, word_bits):
+        return min(bits, f_args[0] + f_args[1])
+
+    def fill(self, op, bits, f_args, word_bits):
+        return replace(op, shift=f_args[0] + f_args[1] - bits)
+
+    def exact(self, op, args, machine):
+        return np.multiply(args[0], args[1])
+
+    def c_call(self, op, site):
+        a, b = site.args
+        return f"{self.c_helper.function(site.family)}({a}, {b}, {op.shift}u)"
+
+
+@register
+class Scale(OperationKind):
+    """The product of a value and the stored integer ``op.constant`` (in its own format)."""
+
+    name = "scale"
+    arity = 1
+    constant_role = "multiplier"
+    c_helper = _PRODUCT
+
+    def real(self, op, args, states):
+        return args[0] * op.real
+
+    def interval(self, op, args, box):
+        corners = [args[0][0] * op.real, args[0][1] * op.real]
+        return min(corners), max(corners)
+
+    def first_bits(self, op, f_args, natural, word_bits):
+        return min(natural, f_args[0] + constant_fraction_bits(op.real, word_bits, op.note))
+
+    def settle_bits(self, op, bits, f_args, word_bits):
+        return min(bits, f_args[0] + constant_fraction_bits(op.real, word_bits, op.note))
+
+    def constant_bits(self, op, bits, word_bits):
+        return constant_fraction_bits(op.real, word_bits, op.note)
+
+    def fill(self, op, bits, f_args, word_bits):
+        own = constant_fraction_bits(op.real, word_bits, op.note)
+        return replace(op, constant=quantise(op.real, own), shift=f_args[0] + own - bits)
+
+    def exact(self, op, args, machine):
+        return args[0] * machine.wide(op.constant)
+
+    def c_call(self, op, site):
+        return f"{self.c_helper.function(site.family)}({site.args[0]}, {site.symbol}, {op.shift}u)"
+
+
+# --- sine and cosine of an angle in turns ----------------------------------------------------
+
+_SINE_LOOKUP = CHelper(
+    "sine_lookup", "{word} angle, const {word} *table, unsigned int shift, {unsigned} offset",
+    "fit_word(low + round_shift(rise * ({wide})within, shift))",
+    prelude=("const {unsigned} phase = ({unsigned})(({unsigned})angle + offset);",
+             "const {unsigned} index = ({unsigned})(phase >> shift);",
+             "const {unsigned} within = ({unsigned})(phase & ((({unsigned})1 << shift) - 1u));",
+             "const {wide} low = table[index];",
+             "const {wide} rise = ({wide})table[index + 1u] - low;"),
+    whole=True,
+    comment="sin of an angle in turns (a word is one turn) plus offset, from a table of "
+            "2^(word - shift) + 1 entries with linear interpolation. The phase is read as an "
+            "unsigned word, so it wraps for free.")
+
+
+class TableSine(OperationKind):
+    """sin(2 pi (angle + turn_offset)) of an angle held in turns, from ``op.table``: with p the
+    angle read as an unsigned word plus ``op.offset`` (modulo 2**word_bits), i = p >> shift and
+    r = p mod 2**shift, the result is table[i] + round_shift((table[i + 1] - table[i]) * r,
+    shift): linear interpolation. The offset is ``turn_offset`` quantised to the word."""
+
+    arity = 1
+    turn_offset = Fraction(0)
+    function = staticmethod(np.sin)
+    c_helper = _SINE_LOOKUP
+
+    def real(self, op, args, states):
+        return self.function(2 * np.pi * args[0])
+
+    def interval(self, op, args, box):
+        return -1.0, 1.0
+
+    def forced_bits(self, op, word_bits, state_formats):
+        return word_bits - 2
+
+    def fill(self, op, bits, f_args, word_bits):
+        index_bits = sine_table_bits(word_bits, bits)
+        return replace(op, table=sine_table(index_bits, bits), shift=word_bits - index_bits,
+                       offset=quantise(self.turn_offset, word_bits) % (1 << word_bits))
+
+    def golden(self, op, args, machine):
+        wide, bits = machine.wide, machine.word_bits
+        phase = (args[0] + wide(op.offset)) & wide((1 << bits) - 1)  # an unsigned word
+        table = np.asarray(op.table, dtype=wide)
+        index = phase >> wide(op.shift)
+        within = phase & wide((1 << op.shift) - 1)
+        low = table[index]
+        return machine.fit(low + machine.round_shift((table[index + 1] - low) * within, op.shift),
+                           False)
+
+    def c_call(self, op, site):
+        offset = f"UINT{site.word_bits}_C({op.offset})" if op.offset else "0u"
+        return f"sine_lookup({site.args[0]}, {site.symbol}, {op.shift}u, {offset})"
+
+
+@register
+class Sin(TableSine):
+    """sin of an angle in turns."""
+
+    name = "sin"
+
+
+@register
+class Cos(TableSine):
+    """cos of an angle in turns: the sine a quarter turn on."""
+
+    name = "cos"
+    turn_offset = Fraction(1, 4)
+    function = staticmethod(np.cos)
+
+
+# --- format rules shared by several kinds ----------------------------------------------------
+
+
+def constant_fraction_bits(real: float, word_bits: int, note: str = "") -> int:
+    """The most fraction bits with which a constant still fits one word.
+
+    The shift after a product may not exceed 2 * word_bits - 2, so the widened product is never
+    shifted by its full width.
+    """
+    bits = _constant_fraction_bits(real, word_bits)
+    if bits < 0:
+        raise InputError(f"the multiplier {real:.6g} ({note}) is too large for a "
+                         f"{word_bits}-bit word; rescale the model")
+    return bits
+
+
+@functools.lru_cache(maxsize=4096)
+def _constant_fraction_bits(real: float, word_bits: int) -> int:
+    limit = (1 << (word_bits - 1)) - 1
+    if real == 0:
+        return word_bits - 1
+    bits = min(2 * word_bits - 2, word_bits - 1 - math.floor(math.log2(abs(real))))
+    while bits >= 0 and abs(quantise(real, bits)) > limit:
+        bits -= 1
+    return bits
+
+
+def sine_table_bits(word_bits: int, fraction_bits: int) -> int:
+    """Index bits of the sine table: the fewest for which linear interpolation's error,
+    (2 pi / 2**bits)**2 / 8 at most (the second derivative of sin is at most 1), stays below one
+    step of the result's format; at most 12 (4097 entries)."""
+    lsb = 2.0 ** -fraction_bits
+    bits = 4
+    while bits < min(12, word_bits - 2) and (2 * math.pi / 2**bits) ** 2 / 8 > lsb:
+        bits += 1
+    return bits
+
+
+def sine_table(index_bits: int, fraction_bits: int) -> tuple[int, ...]:
+    """sin over one turn at 2**index_bits + 1 points (the last repeats the first), each rounded
+    once in the result's format."""
+    count = 1 << index_bits
+    return tuple(quantise(math.sin(2 * math.pi * k / count), fraction_bits)
+                 for k in range(count + 1))
+
+
+def sine_error_bound(word_bits: int, fraction_bits: int) -> float:
+    """The stated largest error of the sine table with interpolation: the interpolation's own
+    error plus half a step for rounding each entry and one step for rounding the product."""
+    bits = sine_table_bits(word_bits, fraction_bits)
+    return (2 * math.pi / 2**bits) ** 2 / 8 + 1.5 * 2.0 ** -fraction_bits
