@@ -61,16 +61,36 @@ def design(model: Model, analysis: Analysis | None = None) -> Design:
     if not analysis.ok:
         raise NoStableCycleError(analysis)
     timing = plan_timing(model, analysis.cycle.period)
-    program = lower_step(model, integrator, timing.step)
-    request = model.fixed_point
     corners = corner_cycles(model)
     samples = np.hstack([analysis.cycle.samples, *(cycle.samples for _, cycle in corners)])
-    plan = plan_fixed_point(program, samples, model.initial_state,
+    plan = plan_step(model, integrator, timing.step, samples)
+    return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan,
+                  corners=corners)
+
+
+def plan_step(model: Model, integrator: Integrator, step: float,
+              samples: np.ndarray) -> FixedPointPlan:
+    """The one lower-then-plan path: the step of ``model`` at ``step`` (model time units) lowered
+    to an integer program and planned from ``samples`` (shape (n_states, k), the model's states
+    only) with the model's fixed-point request and its runtime parameters' ranges."""
+    request = model.fixed_point
+    program = lower_step(model, integrator, step)
+    return plan_fixed_point(program, samples, model.initial_state,
                             margin=request.margin, fraction_bits=request.fraction_bits,
                             word_bits=request.word_bits, rounding=request.rounding,
                             overflow=request.overflow, runtime=model.runtime_parameters)
-    return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan,
-                  corners=corners)
+
+
+def program_states(model: Model, samples: np.ndarray) -> np.ndarray:
+    """Samples of the model's states, shape (n, k), extended with the rows the program also
+    carries: each runtime parameter's current value and target, both held at the model's value.
+    Shape (n + 2 * runtime parameters, k): what a run of the program starts from."""
+    samples = np.asarray(samples, dtype=float)
+    held = [v for p in model.runtime_parameters for v in (p.value, p.value)]
+    if not held:
+        return samples
+    rows = np.repeat(np.reshape(np.asarray(held, dtype=float), (-1, 1)), samples.shape[1], axis=1)
+    return np.vstack([samples, rows])
 
 
 def corner_cycles(model: Model) -> tuple[tuple[dict[str, float], LimitCycle], ...]:

@@ -5,9 +5,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass, replace
 
+import numpy as np
+
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
-from orbitfix.gen.pipeline import Design, design
+from orbitfix.gen.pipeline import Design, design, program_states
 from orbitfix.gen.program.integer_program import WORD_SIZES
 from orbitfix.gen.study.discrete_cycle import (
     CycleTolerance,
@@ -105,7 +107,8 @@ def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -
                                           else op for i, op in enumerate(program.ops)))
     cycle = built.analysis.cycle
     loose = CycleTolerance(frequency_ppm=1e9, amplitude=1e9)
-    exact, quantised = (float_cycle(p, cycle.samples, built.timing.steps_per_cycle,
+    starts = program_states(built.model, cycle.samples)
+    exact, quantised = (float_cycle(p, starts, built.timing.steps_per_cycle,
                                     cycle.state_min, cycle.state_max, tolerance=loose)
                         for p in (program, rounded))
     ranked = sorted(built.plan.constants, key=lambda c: -abs(c.error / c.real) if c.real else 0.0)
@@ -130,7 +133,8 @@ def _counts(built: Design) -> tuple[int, int]:
 def _cycle_of(built: Design, tolerance: CycleTolerance, integer: bool) -> SteppedCycle:
     cycle = built.analysis.cycle
     measure = integer_cycle if integer else float_cycle
-    return measure(built.plan.program, cycle.samples, built.timing.steps_per_cycle,
+    return measure(built.plan.program, program_states(built.model, cycle.samples),
+                   built.timing.steps_per_cycle,
                    cycle.state_min, cycle.state_max, tolerance=tolerance)
 
 
@@ -144,8 +148,10 @@ def study_integrators(base: Design, tolerance: CycleTolerance | None = None) -> 
         floats = _cycle_of(built, tolerance, integer=False)
         ints = _cycle_of(built, tolerance, integer=True)
         cycle = built.analysis.cycle
+        corners = [c.samples for _, c in built.corners]
         lowest = lowest_loop_rate(built.model, integrator, cycle.period, cycle.samples,
-                                  cycle.state_min, cycle.state_max, tolerance)
+                                  cycle.state_min, cycle.state_max, tolerance,
+                                  plan_samples=np.hstack([cycle.samples, *corners]))
         needed = None if lowest else needed_loop_rate(built.timing.loop_hz, ints, integrator,
                                                       tolerance)
         studies.append(IntegratorStudy(name, operations, products, floats, ints, lowest, needed))
