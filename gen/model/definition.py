@@ -14,11 +14,12 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import sympy
 
+from orbitfix.gen.c.naming import check_names
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model import limits
 from orbitfix.gen.model.expressions import FUNCTIONS, ExpressionError, parse_expression
 
-NAME_PATTERN = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+NAME_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_]*", re.ASCII)
 RESERVED = set(FUNCTIONS) | {"t", "time"}
 
 
@@ -318,13 +319,14 @@ def _check_runtime(model: Model) -> None:
 
 
 def _check_names(model: Model) -> None:
-    if not NAME_PATTERN.match(model.name):
-        raise InputError(f"model name '{model.name}' must start with a letter and hold only "
+    if not isinstance(model.name, str) or not NAME_PATTERN.fullmatch(model.name):
+        raise InputError(f"model name {model.name!r} must start with a letter and hold only "
                          "letters, digits and underscores")
     seen: set[str] = set()
     for name in [s.name for s in model.states] + [p.name for p in model.parameters]:
-        if not NAME_PATTERN.match(name) or keyword.iskeyword(name) or name in RESERVED:
-            raise InputError(f"model '{model.name}': '{name}' cannot be a state or parameter "
+        if (not isinstance(name, str) or not NAME_PATTERN.fullmatch(name)
+                or keyword.iskeyword(name) or name in RESERVED):
+            raise InputError(f"model '{model.name}': {name!r} cannot be a state or parameter "
                              "name (use letters, digits and underscores, start with a letter, "
                              f"and avoid {', '.join(sorted(RESERVED))} and Python keywords)")
         if name in seen:
@@ -332,6 +334,8 @@ def _check_names(model: Model) -> None:
         seen.add(name)
     if not model.states:
         raise InputError(f"model '{model.name}' has no states")
+    check_names(model.name, model.state_names, [p.name for p in model.parameters],
+                [p.name for p in model.parameters if p.runtime])
 
 
 def _where(model: Model) -> str:
