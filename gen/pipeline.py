@@ -14,6 +14,7 @@ from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan, plan_fixed_point
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.plan_checks import refuse_vanished_constants
 from orbitfix.gen.timing.integrators import Integrator, get_integrator
 from orbitfix.gen.timing.step_size import Timing, plan_timing
 
@@ -72,13 +73,16 @@ def plan_step(model: Model, integrator: Integrator, step: float,
               samples: np.ndarray) -> FixedPointPlan:
     """The one lower-then-plan path: the step of ``model`` at ``step`` (model time units) lowered
     to an integer program and planned from ``samples`` (shape (n_states, k), the model's states
-    only) with the model's fixed-point request and its runtime parameters' ranges."""
+    only) with the model's fixed-point request and its runtime parameters' ranges. A plan with a
+    step constant that rounds to zero is refused (gen/program/plan_checks.py)."""
     request = model.fixed_point
     program = lower_step(model, integrator, step)
-    return plan_fixed_point(program, samples, model.initial_state,
+    plan = plan_fixed_point(program, samples, model.initial_state,
                             margin=request.margin, fraction_bits=request.fraction_bits,
                             word_bits=request.word_bits, rounding=request.rounding,
                             overflow=request.overflow, runtime=model.runtime_parameters)
+    refuse_vanished_constants(plan, model.name, model.rhythm.loop_hz / model.rhythm.cycle_hz)
+    return plan
 
 
 def program_states(model: Model, samples: np.ndarray) -> np.ndarray:

@@ -21,9 +21,12 @@ from orbitfix.gen.pipeline import plan_step, program_states
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import evaluate_real
+from orbitfix.gen.timing import work_size
 from orbitfix.gen.timing.integrators import Integrator
 
 START_POINTS = 24
+STUDY_ADVICE = ("lower loop_hz (or raise cycle_hz) so a cycle takes fewer steps, or study the "
+                "model at a lower loop rate")
 
 
 @dataclass(frozen=True)
@@ -153,6 +156,8 @@ def float_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_step
         return np.stack([values[i] for i in program.next_state])
 
     steps = math.ceil(cycles * wanted_period_steps)
+    work_size.refuse_beyond_machine(stepped_cycle_work(program, wanted_period_steps, cycles,
+                                                       START_POINTS, integer=False), STUDY_ADVICE)
     return measure(step, start_points(samples), steps, wanted_period_steps, cycle_min, cycle_max,
                    tolerance or CycleTolerance())
 
@@ -176,8 +181,32 @@ def integer_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_st
         return out
 
     steps = math.ceil(cycles * wanted_period_steps)
+    work_size.refuse_beyond_machine(stepped_cycle_work(program, wanted_period_steps, cycles,
+                                                       points, integer=True), STUDY_ADVICE)
     return measure(step, start / scale, steps, wanted_period_steps, cycle_min, cycle_max,
                    tolerance or CycleTolerance())
+
+
+def stepped_cycle_work(program: IntegerProgram, wanted_period_steps: float, cycles: float,
+                       points: int, integer: bool) -> work_size.Work:
+    """The size of one :func:`float_cycle` or :func:`integer_cycle` run, before it starts."""
+    steps = math.ceil(cycles * wanted_period_steps)
+    run = work_size.golden_run if integer else work_size.float_run
+    layer = "integer program" if integer else "float step map"
+    return run(f"stepping the {layer} {steps:,} steps ({cycles:g} cycles) from {points} starts",
+               len(program.ops), steps, points, recorded_rows=steps, states=1)
+
+
+def lowest_loop_rate_work(program: IntegerProgram, steps_per_cycle: float, cycle_hz: float,
+                          loop_hz: float, precision: float = 0.02) -> work_size.Work:
+    """The size of :func:`lowest_loop_rate`'s bisection: at most this many integer runs of 3
+    cycles from 8 starts, none at more steps per cycle than the model's own loop rate."""
+    span = math.log(max(loop_hz / (4.0 * cycle_hz), 1.0 + precision)) / math.log1p(precision)
+    trials = 2 + math.ceil(math.log2(max(span, 1.0)))
+    one = stepped_cycle_work(program, steps_per_cycle, 3.0, 8, integer=True)
+    return work_size.Work(f"the search for the lowest loop rate ({trials} runs of "
+                          f"{math.ceil(3 * steps_per_cycle):,} steps)", one.seconds * trials,
+                          one.bytes)
 
 
 def lowest_loop_rate(model: Model, integrator: Integrator, period: float, samples: np.ndarray,
@@ -197,6 +226,14 @@ def lowest_loop_rate(model: Model, integrator: Integrator, period: float, sample
     cycle_hz = model.rhythm.cycle_hz
     plan_samples = samples if plan_samples is None else plan_samples
     starts = program_states(model, samples)
+    try:
+        program = plan_step(model, integrator, period * cycle_hz / model.rhythm.loop_hz,
+                            plan_samples).program
+    except InputError:
+        return None
+    work_size.refuse_beyond_machine(
+        lowest_loop_rate_work(program, model.rhythm.loop_hz / cycle_hz, cycle_hz,
+                              model.rhythm.loop_hz, precision), STUDY_ADVICE)
 
     def keeps(loop_hz: float) -> bool:
         steps_per_cycle = loop_hz / cycle_hz
