@@ -77,7 +77,7 @@ STEPS_PER_CYCLE = Limit(4, 1e6, what="steps per cycle (loop_hz / cycle_hz)")
 # The fixed-point range margin: every format holds its value's bound times this (2 = one bit).
 MARGIN = Limit(1, 1024, what="the range margin")
 # How fast a runtime parameter may move, in its units per second.
-RATE = Limit(1e-9, 1e9, what="a runtime parameter's rate")
+RATE = Limit(1e-9, 1e9, unit="units per second", what="a runtime parameter's rate (positive)")
 # Fraction bits the user may ask for (the plan checks them against the word size too).
 FRACTION_BITS = Limit(1, 63, what="fraction_bits")
 # Networks: how many oscillators a network file may build, and the size of a lag or coupling.
