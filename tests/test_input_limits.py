@@ -162,3 +162,21 @@ def test_limits_accept_their_range_and_nothing_else(limit, inside, outside) -> N
     assert all(limit.accepts(v) for v in inside)
     assert not any(limit.accepts(v) for v in outside)
     assert not limit.accepts(True)
+
+
+@pytest.mark.parametrize(("model", "old", "new", "words"), [
+    ("phase_chain", "count = 8", "count = 1000000000", "count"),
+    ("phase_chain", "waves = 1.0", "waves = inf", "waves"),
+    ("vanderpol_pair", "coupling = [[0, 0.4], [0.4, 0]]", "coupling = [[0, 1e308], [0.4, 0]]",
+     "coupling strength"),
+])
+def test_network_files_refuse_absurd_sizes_and_numbers(tmp_path: Path, capsys, model: str, old: str,
+                                                       new: str, words: str) -> None:
+    from orbitfix.gen.model.model_file import MODELS_FOLDER
+
+    text = (MODELS_FOLDER / f"{model}.toml").read_text()
+    assert old in text
+    path = tmp_path / f"{model}.toml"
+    path.write_text(text.replace(old, new))
+    err = refused(["check", str(path)], capsys)
+    assert f"{path}:" in err and words in err and "accepted" in err

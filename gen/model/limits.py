@@ -62,7 +62,7 @@ class Limit:
 # Every user-given magnitude of the equations: parameter values, runtime ranges, literals.
 PARAMETER = Limit(1e-6, 1e6, signed=True, zero=True, what="a parameter value")
 # Initial values of the states.
-INITIAL = Limit(1e-9, 1e6, signed=True, zero=True, what="an initial value")
+INITIAL = Limit(1e-12, 1e6, signed=True, zero=True, what="an initial value")
 # A number written inside an equation.
 LITERAL = Limit(1e-9, 1e9, signed=True, zero=True, what="a number in an equation")
 # Integer powers x**n: each is lowered to repeated products.

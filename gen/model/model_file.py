@@ -374,6 +374,14 @@ class _Reader:
             raise self.error(self.line_of("network", "coupling") or self.line_of("network"),
                              "a network of single oscillators needs coupling, a square matrix "
                              "(a list of rows)", "coupling = [[0, 0.5], [0.5, 0]]")
+        if len(coupling) > limits.OSCILLATORS.high:
+            raise self.error(self.line_of("network", "coupling"), f"a coupling matrix of "
+                             f"{len(coupling)} rows is more oscillators than a network may have",
+                             limits.OSCILLATORS.accepted())
+        for row in coupling:
+            for value in row:
+                self.number(value, "network", "coupling", "every coupling strength",
+                            limits.COUPLING)
         base = load_model(oscillator)
         coupled = spec.get("coupled_state")
         if not isinstance(coupled, str) or coupled not in base.state_names:
