@@ -28,6 +28,7 @@ from orbitfix.gen.model.networks import (
 )
 
 MODELS_FOLDER = Path(__file__).parent / "library"
+SHOWN_LINE = 160  # an offending line longer than this is shown shortened in messages
 
 TOP_KEYS = {"name", "description", "states", "parameters", "equations", "rhythm", "fixed_point"}
 STATE_KEYS = {"initial", "meaning", "angle"}
@@ -126,7 +127,9 @@ class _Reader:
 
     def error(self, line: int | None, problem: str, accepted: str) -> ModelFileError:
         where = f"{self.path}:{line}" if line else str(self.path)
-        shown = f"\n    {self.lines[line - 1].strip()}" if line and line <= len(self.lines) else ""
+        text = self.lines[line - 1].strip() if line and line <= len(self.lines) else ""
+        text = text if len(text) <= SHOWN_LINE else text[:SHOWN_LINE - 20] + " ... " + text[-15:]
+        shown = f"\n    {text}" if text else ""
         return ModelFileError(f"{where}: {problem}{shown}\n  accepted: {accepted}")
 
     def line_of(self, section: str | None, key: str | None = None) -> int | None:
