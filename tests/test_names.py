@@ -65,6 +65,9 @@ def refused(tmp_path: Path, capsys: pytest.CaptureFixture, name: str = "pump", s
     ("EDOM", "<errno.h>"),
     ("PRId32", "<inttypes.h>"),
     ("x__y", "double underscore"),
+    ("M_PI", "<math.h>"),
+    ("BIG_ENDIAN", "<endian.h>"),
+    ("HAVE_UNISTD_H", "pyconfig.h"),
     ("orbitfix_x", "orbitfix"),
     ("mu_target", "target of the runtime parameter 'mu'"),
 ])

@@ -53,6 +53,10 @@ LIBRARY_PATTERNS = (
     (re.compile(r"(PRI|SCN)[a-zA-Z0-9]+", re.ASCII), "the form of the <inttypes.h> macros"),
     (re.compile(r"(SIG|SIG_|LC_|FE_|FLT_|DBL_|LDBL_|Py|PY)[A-Z_].*", re.ASCII),
      "the form of macros of <signal.h>, <locale.h>, <fenv.h>, <float.h> or Python.h"),
+    (re.compile(r"M_[A-Z0-9_]+|(HAVE|SIZEOF|WITH|ALIGNOF|DOUBLE_IS)_[A-Z0-9_]+|"
+                r"(BIG|LITTLE|PDP)_ENDIAN|BYTE_ORDER", re.ASCII),
+     "the form of macros that <math.h>, <endian.h> or Python's pyconfig.h define in the host "
+     "build (M_PI, HAVE_UNISTD_H, SIZEOF_INT, BIG_ENDIAN; from memory)"),
     (re.compile(r".*__.*", re.ASCII), "a double underscore is reserved in C++"),
     (re.compile(r"orbitfix.*", re.ASCII | re.IGNORECASE),
      "the prefix orbitfix is the generator's own (harness functions, build modules)"),
