@@ -280,7 +280,16 @@ class _Reader:
             raise self.error(line, f"{exc.problem}: '{exc.offending}' (column {exc.column + 1} "
                              f"of the expression)", ACCEPTED) from None
         except InputError as exc:
-            raise self.error(None, str(exc), LAYOUT_HINT) from None
+            raise self.located(exc) from None
+
+    def located(self, exc: InputError) -> ModelFileError:
+        """A model's own complaint, placed at the line of the section and key it names (as
+        '[rhythm] loop_hz'), with what it accepts, or else the file's layout."""
+        message = str(exc)
+        problem, _, accepted = message.partition("; accepted: ")
+        place = re.search(r"\[(\w+)\] '?(\w+)", problem)
+        line = self.line_of(place.group(1), place.group(2)) if place else None
+        return self.error(line, problem, accepted or LAYOUT_HINT)
 
     def rhythm(self, data: dict) -> Rhythm:
         rhythm = self.table(data, "rhythm")
