@@ -52,6 +52,8 @@ class Work:
                 and self.bytes <= MEMORY_BYTES)
 
     def describe(self) -> str:
+        if not math.isfinite(self.seconds):
+            return f"more time than can be counted and {_size(self.bytes)} of memory"
         return f"about {_duration(self.seconds)} and {_size(self.bytes)} of memory"
 
 
