@@ -14,6 +14,7 @@ from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan, plan_fixed_point
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.plan_checks import refuse_vanished_constants
 from orbitfix.gen.timing.integrators import Integrator, get_integrator
 from orbitfix.gen.timing.step_size import Timing, plan_timing
 
@@ -61,16 +62,39 @@ def design(model: Model, analysis: Analysis | None = None) -> Design:
     if not analysis.ok:
         raise NoStableCycleError(analysis)
     timing = plan_timing(model, analysis.cycle.period)
-    program = lower_step(model, integrator, timing.step)
-    request = model.fixed_point
     corners = corner_cycles(model)
     samples = np.hstack([analysis.cycle.samples, *(cycle.samples for _, cycle in corners)])
+    plan = plan_step(model, integrator, timing.step, samples)
+    return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan,
+                  corners=corners)
+
+
+def plan_step(model: Model, integrator: Integrator, step: float,
+              samples: np.ndarray) -> FixedPointPlan:
+    """The one lower-then-plan path: the step of ``model`` at ``step`` (model time units) lowered
+    to an integer program and planned from ``samples`` (shape (n_states, k), the model's states
+    only) with the model's fixed-point request and its runtime parameters' ranges. A plan with a
+    step constant that rounds to zero is refused (gen/program/plan_checks.py)."""
+    request = model.fixed_point
+    program = lower_step(model, integrator, step)
     plan = plan_fixed_point(program, samples, model.initial_state,
                             margin=request.margin, fraction_bits=request.fraction_bits,
                             word_bits=request.word_bits, rounding=request.rounding,
                             overflow=request.overflow, runtime=model.runtime_parameters)
-    return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan,
-                  corners=corners)
+    refuse_vanished_constants(plan, model.name, model.rhythm.loop_hz / model.rhythm.cycle_hz)
+    return plan
+
+
+def program_states(model: Model, samples: np.ndarray) -> np.ndarray:
+    """Samples of the model's states, shape (n, k), extended with the rows the program also
+    carries: each runtime parameter's current value and target, both held at the model's value.
+    Shape (n + 2 * runtime parameters, k): what a run of the program starts from."""
+    samples = np.asarray(samples, dtype=float)
+    held = [v for p in model.runtime_parameters for v in (p.value, p.value)]
+    if not held:
+        return samples
+    rows = np.repeat(np.reshape(np.asarray(held, dtype=float), (-1, 1)), samples.shape[1], axis=1)
+    return np.vstack([samples, rows])
 
 
 def corner_cycles(model: Model) -> tuple[tuple[dict[str, float], LimitCycle], ...]:

@@ -13,6 +13,7 @@ from conftest import compilers
 
 from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.c.naming import CNames, comment_text, identifier
+from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.pipeline import design
 
@@ -135,22 +136,27 @@ def test_every_constant_comment_shows_real_value_and_error(vanderpol_design) -> 
 
 
 def test_user_text_and_names_cannot_break_the_c(tmp_path: Path) -> None:
-    model = define_model("double", {"int": 0.5, "y": 0.0},
-                         {"int": "y", "y": "(1 - int^2) * y - int"},
+    # C keywords as names are refused when the model is read (tests/test_names.py)
+    with pytest.raises(InputError, match="C keyword"):
+        define_model("double", {"int": 0.5, "y": 0.0}, {"int": "y", "y": "-int"},
+                     cycle_hz=1, loop_hz=100)
+    model = define_model("doubled", {"integral": 0.5, "y": 0.0},
+                         {"integral": "y", "y": "(1 - integral^2) * y - integral"},
                          cycle_hz=1, loop_hz=100,
                          description="ends a comment */ early ??/ and \u00e9 too")
     model = model.with_parameters({})
     built = design(model)
     write_sources(tmp_path, built)
-    assert "*/ early" not in (tmp_path / "double.c").read_text()
-    for source in ("double.c", "double_trace.c", "harness.c"):
+    assert "*/ early" not in (tmp_path / "doubled.c").read_text()
+    for source in ("doubled.c", "doubled_trace.c", "harness.c"):
         done = subprocess.run(["gcc", *STRICT, "-Wtrigraphs", "-c", source], cwd=tmp_path,
                               capture_output=True, text=True, check=False)
         assert done.returncode == 0 and done.stderr == "", done.stderr
 
 
 def test_naming_policy() -> None:
-    assert identifier("int") == "int_"
+    with pytest.raises(InputError, match="C keyword"):  # refused, never escaped (tests/test_names.py)
+        identifier("int")
     assert identifier("x") == "x"
     assert comment_text("a */ b /* c ??/\nd") == "a * / b / * c ? ?/ d"
     names = CNames("Fin_Drive")

@@ -202,3 +202,46 @@ def test_drift_runs_at_every_corner_against_the_cycle_there(hip) -> None:
         assert run.verdict == "pass", run.reasons
         assert run.period_steps == pytest.approx(500 * 2 * math.pi / omega, rel=1e-6)
     assert report.verdict == "pass"
+
+
+def test_stepped_cycle_studies_carry_the_runtime_states(hip) -> None:
+    # The studies run the whole program, runtime parameter and target included, held at the
+    # model's value: the Hopf cycle (radius sqrt(mu) = 1, period 2 pi / omega) is kept.
+    from orbitfix.gen.pipeline import program_states
+    from orbitfix.gen.study.discrete_cycle import float_cycle, integer_cycle
+    from orbitfix.gen.study.plan_study import coefficient_effect
+
+    cycle = hip.analysis.cycle
+    starts = program_states(hip.model, cycle.samples)
+    assert starts.shape == (4, cycle.samples.shape[1])
+    assert np.all(starts[2:] == hip.model.parameter_values["omega"])
+    for measure in (float_cycle, integer_cycle):
+        stepped = measure(hip.plan.program, starts, hip.timing.steps_per_cycle, cycle.state_min,
+                          cycle.state_max, cycles=3)
+        assert stepped.kept, stepped.verdict
+    with pytest.raises(ValueError, match="program_states"):
+        float_cycle(hip.plan.program, cycle.samples, hip.timing.steps_per_cycle, cycle.state_min,
+                    cycle.state_max)
+    assert coefficient_effect(hip).warning is None
+
+
+@pytest.mark.slow
+def test_plan_verb_works_on_a_model_with_a_runtime_parameter(tmp_path: Path, capsys) -> None:
+    # The README's runtime omega put into the built-in hopf model (issue: `plan` ended in an
+    # internal error because the studies planned the program a second way, without runtime=).
+    from orbitfix.gen.model.model_file import MODELS_FOLDER
+
+    text = (MODELS_FOLDER / "hopf.toml").read_text()
+    lines = [("omega = { value = 6.2832, runtime = true, min = 3.0, max = 9.0, rate = 2.0 }"
+              if line.startswith("omega =") else line) for line in text.splitlines()]
+    path = tmp_path / "hopf_runtime.toml"
+    path.write_text("\n".join(lines) + "\n")
+    assert main(["plan", str(path), "--json"]) == 0
+    captured = capsys.readouterr()
+    assert "Traceback" not in captured.err
+    import json
+
+    result = json.loads(captured.out)
+    assert [s["integrator"] for s in result["integrators"]] == ["euler", "symplectic-euler", "heun", "rk4"]
+    rk4 = result["integrators"][-1]
+    assert rk4["integer_map"]["kept"] and rk4["lowest_loop_hz"] is not None

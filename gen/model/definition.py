@@ -14,11 +14,13 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import sympy
 
+from orbitfix.gen.c.naming import check_names
 from orbitfix.gen.errors import InputError
+from orbitfix.gen.model import limits
 from orbitfix.gen.model.compiled import array_function
 from orbitfix.gen.model.expressions import FUNCTIONS, ExpressionError, parse_expression
 
-NAME_PATTERN = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+NAME_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_]*", re.ASCII)
 RESERVED = set(FUNCTIONS) | {"t", "time"}
 
 
@@ -97,6 +99,7 @@ class Model:
 
     def __post_init__(self) -> None:
         _check_names(self)
+        _check_numbers(self)
         if len(self.equation_text) != len(self.states):
             raise InputError(f"model '{self.name}': {len(self.states)} states but "
                              f"{len(self.equation_text)} equations; give one equation per state")
@@ -200,11 +203,13 @@ class Model:
     def with_parameters(self, overrides: Mapping[str, float]) -> Model:
         """A copy with some parameter values replaced; unknown names are an input error."""
         known = self.parameter_values
-        for name in overrides:
+        for name, value in overrides.items():
             if name not in known:
                 choices = ", ".join(known) or "none"
                 raise InputError(f"model '{self.name}' has no parameter '{name}' "
                                  f"(its parameters are: {choices})")
+            limits.check(value, limits.PARAMETER,
+                         f"model '{self.name}', parameter '{name}' (given as an override, --set)")
         parameters = tuple(replace(p, value=float(overrides.get(p.name, p.value)))
                            for p in self.parameters)
         for p in parameters:
@@ -297,6 +302,9 @@ def _parameter(name: str, value: float, runtime: Mapping[str, float] | None) -> 
 
 def _check_runtime(model: Model) -> None:
     for p in model.runtime_parameters:
+        for value, key in ((p.low, "min"), (p.high, "max")):
+            if value is not None:
+                limits.check(value, limits.PARAMETER, f"{_where(model)}, {key} of '{p.name}'")
         finite = all(v is not None and math.isfinite(v) for v in (p.low, p.high))
         if not finite or not p.low < p.high:
             raise InputError(f"model '{model.name}': runtime parameter '{p.name}' needs finite "
@@ -307,16 +315,19 @@ def _check_runtime(model: Model) -> None:
         if p.rate is not None and not (math.isfinite(p.rate) and p.rate > 0):
             raise InputError(f"model '{model.name}': the rate of '{p.name}' must be a positive "
                              f"number of units per second, got {p.rate}")
+        if p.rate is not None:
+            limits.check(p.rate, limits.RATE, f"{_where(model)}, rate of '{p.name}'")
 
 
 def _check_names(model: Model) -> None:
-    if not NAME_PATTERN.match(model.name):
-        raise InputError(f"model name '{model.name}' must start with a letter and hold only "
+    if not isinstance(model.name, str) or not NAME_PATTERN.fullmatch(model.name):
+        raise InputError(f"model name {model.name!r} must start with a letter and hold only "
                          "letters, digits and underscores")
     seen: set[str] = set()
     for name in [s.name for s in model.states] + [p.name for p in model.parameters]:
-        if not NAME_PATTERN.match(name) or keyword.iskeyword(name) or name in RESERVED:
-            raise InputError(f"model '{model.name}': '{name}' cannot be a state or parameter "
+        if (not isinstance(name, str) or not NAME_PATTERN.fullmatch(name)
+                or keyword.iskeyword(name) or name in RESERVED):
+            raise InputError(f"model '{model.name}': {name!r} cannot be a state or parameter "
                              "name (use letters, digits and underscores, start with a letter, "
                              f"and avoid {', '.join(sorted(RESERVED))} and Python keywords)")
         if name in seen:
@@ -324,18 +335,37 @@ def _check_names(model: Model) -> None:
         seen.add(name)
     if not model.states:
         raise InputError(f"model '{model.name}' has no states")
-    for value, what in ((model.rhythm.cycle_hz, "cycle_hz"), (model.rhythm.loop_hz, "loop_hz")):
-        if not (math.isfinite(value) and value > 0):
-            raise InputError(f"model '{model.name}': {what} must be a positive number of Hz, "
-                             f"got {value}")
+    check_names(model.name, model.state_names, [p.name for p in model.parameters],
+                [p.name for p in model.parameters if p.runtime])
+
+
+def _where(model: Model) -> str:
+    """The model and where it came from, for messages."""
+    source = "" if model.source in ("python", "") else f" ({model.source})"
+    return f"model '{model.name}'{source}"
+
+
+def _check_numbers(model: Model) -> None:
+    """Every number of the model inside its accepted range (gen/model/limits.py)."""
+    where = _where(model)
+    for value, limit, key in ((model.rhythm.cycle_hz, limits.CYCLE_HZ, "cycle_hz"),
+                              (model.rhythm.loop_hz, limits.LOOP_HZ, "loop_hz")):
+        limits.check(value, limit, f"{where}, [rhythm] {key}")
     if model.rhythm.loop_hz < 4 * model.rhythm.cycle_hz:
-        raise InputError(f"model '{model.name}': the loop rate ({model.rhythm.loop_hz} Hz) must "
-                         f"be at least 4 times the cycle frequency ({model.rhythm.cycle_hz} Hz) "
+        raise InputError(f"{where}: the loop rate ({model.rhythm.loop_hz:g} Hz) must "
+                         f"be at least 4 times the cycle frequency ({model.rhythm.cycle_hz:g} Hz) "
                          "to step the cycle at all")
-    for item in list(model.states) + list(model.parameters):
-        value = item.initial if isinstance(item, State) else item.value
-        if not math.isfinite(value):
-            raise InputError(f"model '{model.name}': '{item.name}' must be a finite number")
+    limits.check(model.rhythm.loop_hz / model.rhythm.cycle_hz, limits.STEPS_PER_CYCLE,
+                 f"{where}, [rhythm] loop_hz / cycle_hz")
+    for s in model.states:
+        limits.check(s.initial, limits.INITIAL, f"{where}, [states] initial value of '{s.name}'")
+    for p in model.parameters:
+        limits.check(p.value, limits.PARAMETER, f"{where}, [parameters] '{p.name}'")
+    request = model.fixed_point
+    limits.check(request.margin, limits.MARGIN, f"{where}, [fixed_point] margin")
+    if request.fraction_bits is not None:
+        limits.check(request.fraction_bits, limits.FRACTION_BITS,
+                     f"{where}, [fixed_point] fraction_bits")
 
 
 def _number(value: float) -> sympy.Expr:

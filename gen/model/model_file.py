@@ -12,6 +12,7 @@ from pathlib import Path
 from typing import Any
 
 from orbitfix.gen.errors import InputError
+from orbitfix.gen.model import limits
 from orbitfix.gen.model.definition import FixedPointRequest, Model, Parameter, Rhythm, State
 from orbitfix.gen.model.expressions import ACCEPTED, ExpressionError
 from orbitfix.gen.model.networks import (
@@ -27,6 +28,7 @@ from orbitfix.gen.model.networks import (
 )
 
 MODELS_FOLDER = Path(__file__).parent / "library"
+SHOWN_LINE = 160  # an offending line longer than this is shown shortened in messages
 
 TOP_KEYS = {"name", "description", "states", "parameters", "equations", "rhythm", "fixed_point"}
 STATE_KEYS = {"initial", "meaning", "angle"}
@@ -125,7 +127,9 @@ class _Reader:
 
     def error(self, line: int | None, problem: str, accepted: str) -> ModelFileError:
         where = f"{self.path}:{line}" if line else str(self.path)
-        shown = f"\n    {self.lines[line - 1].strip()}" if line and line <= len(self.lines) else ""
+        text = self.lines[line - 1].strip() if line and line <= len(self.lines) else ""
+        text = text if len(text) <= SHOWN_LINE else text[:SHOWN_LINE - 20] + " ... " + text[-15:]
+        shown = f"\n    {text}" if text else ""
         return ModelFileError(f"{where}: {problem}{shown}\n  accepted: {accepted}")
 
     def line_of(self, section: str | None, key: str | None = None) -> int | None:
@@ -156,10 +160,17 @@ class _Reader:
                              LAYOUT_HINT)
         return value
 
-    def number(self, value: Any, section: str, key: str, what: str) -> float:
+    def number(self, value: Any, section: str, key: str, what: str,
+               limit: limits.Limit | None = None) -> float:
+        """A number of the file, inside ``limit``'s range when one is given (gen/model/limits.py)."""
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise self.error(self.line_of(section, key), f"{what} must be a number, got {value!r}",
                              "an integer or decimal number, e.g. 0.5")
+        if limit is not None:
+            complaint = limits.problem(value, limit)
+            if complaint:
+                raise self.error(self.line_of(section, key), f"{what}: {complaint}",
+                                 limit.accepted())
         return float(value)
 
     def check_keys(self, table: dict, allowed: set[str], section: str | None,
@@ -184,7 +195,9 @@ class _Reader:
                 value, meaning = entry[value_key], entry.get("meaning", "")
             else:
                 value, meaning = entry, ""
-            result.append((name, self.number(value, section, name, f"'{name}'"), str(meaning)))
+            limit = limits.INITIAL if value_key == "initial" else limits.PARAMETER
+            result.append((name, self.number(value, section, name, f"'{name}'", limit),
+                           str(meaning)))
         return result
 
     def parameter(self, data: dict, name: str, value: float, meaning: str) -> Parameter:
@@ -200,11 +213,11 @@ class _Reader:
             raise self.error(self.line_of("parameters", name),
                              f"the runtime parameter '{name}' needs runtime = true, min and max",
                              RUNTIME_HINT.format(name=name))
-        low = self.number(entry["min"], "parameters", name, f"min of '{name}'")
-        high = self.number(entry["max"], "parameters", name, f"max of '{name}'")
+        low = self.number(entry["min"], "parameters", name, f"min of '{name}'", limits.PARAMETER)
+        high = self.number(entry["max"], "parameters", name, f"max of '{name}'", limits.PARAMETER)
         rate = entry.get("rate")
         if rate is not None:
-            rate = self.number(rate, "parameters", name, f"rate of '{name}'")
+            rate = self.number(rate, "parameters", name, f"rate of '{name}'", limits.RATE)
         return Parameter(name, value, meaning, runtime=True, low=low, high=high, rate=rate)
 
     def angle_flag(self, data: dict, name: str) -> bool:
@@ -267,7 +280,16 @@ class _Reader:
             raise self.error(line, f"{exc.problem}: '{exc.offending}' (column {exc.column + 1} "
                              f"of the expression)", ACCEPTED) from None
         except InputError as exc:
-            raise self.error(None, str(exc), LAYOUT_HINT) from None
+            raise self.located(exc) from None
+
+    def located(self, exc: InputError) -> ModelFileError:
+        """A model's own complaint, placed at the line of the section and key it names (as
+        '[rhythm] loop_hz'), with what it accepts, or else the file's layout."""
+        message = str(exc)
+        problem, _, accepted = message.partition("; accepted: ")
+        place = re.search(r"\[(\w+)\] '?(\w+)", problem)
+        line = self.line_of(place.group(1), place.group(2)) if place else None
+        return self.error(line, problem, accepted or LAYOUT_HINT)
 
     def rhythm(self, data: dict) -> Rhythm:
         rhythm = self.table(data, "rhythm")
@@ -277,8 +299,10 @@ class _Reader:
                 raise self.error(self.line_of("rhythm"), f"[rhythm] needs '{key}'",
                                  "cycle_hz = 1.5 (cycle frequency) and loop_hz = 1000 "
                                  "(control-loop rate)")
-        return Rhythm(self.number(rhythm["cycle_hz"], "rhythm", "cycle_hz", "cycle_hz"),
-                      self.number(rhythm["loop_hz"], "rhythm", "loop_hz", "loop_hz"))
+        return Rhythm(self.number(rhythm["cycle_hz"], "rhythm", "cycle_hz", "cycle_hz",
+                                  limits.CYCLE_HZ),
+                      self.number(rhythm["loop_hz"], "rhythm", "loop_hz", "loop_hz",
+                                  limits.LOOP_HZ))
 
     def build_network(self, data: dict) -> Model:
         """A network file: N coupled oscillators described by pattern or lags (gen/networks.py)."""
@@ -317,11 +341,12 @@ class _Reader:
             labels = labels if labels is not None else LIMBS
         elif pattern == "chain":
             count = spec.get("count", 8)
-            if isinstance(count, bool) or not isinstance(count, int) or count < 2:
+            if (isinstance(count, bool) or not isinstance(count, int)
+                    or not limits.OSCILLATORS.accepts(count)):
                 raise self.error(self.line_of("network", "count"),
-                                 f"count must be a whole number of oscillators, at least 2, got "
-                                 f"{count!r}", "count = 8")
-            waves = self.number(spec.get("waves", 1.0), "network", "waves", "waves")
+                                 f"count must be a whole number of oscillators, got {count!r}",
+                                 f"count = 8 ({limits.OSCILLATORS.accepted()})")
+            waves = self.number(spec.get("waves", 1.0), "network", "waves", "waves", limits.LAG)
             lags = chain_lags(count, waves)
         elif pattern is None:
             lags = spec.get("lags")
@@ -329,7 +354,11 @@ class _Reader:
                 raise self.error(self.line_of("network", "lags") or self.line_of("network"),
                                  "a network without a pattern needs lags, a list of at least two "
                                  "numbers of cycles", "lags = [0, 0.5, 0.5, 0]")
-            lags = [self.number(v, "network", "lags", "every lag") for v in lags]
+            if len(lags) > limits.OSCILLATORS.high:
+                raise self.error(self.line_of("network", "lags"), f"{len(lags)} lags is more "
+                                 "oscillators than a network may have",
+                                 limits.OSCILLATORS.accepted())
+            lags = [self.number(v, "network", "lags", "every lag", limits.LAG) for v in lags]
             pattern = "custom"
         else:
             raise self.error(self.line_of("network", "pattern"), f"unknown pattern {pattern!r}",
@@ -357,6 +386,14 @@ class _Reader:
             raise self.error(self.line_of("network", "coupling") or self.line_of("network"),
                              "a network of single oscillators needs coupling, a square matrix "
                              "(a list of rows)", "coupling = [[0, 0.5], [0.5, 0]]")
+        if len(coupling) > limits.OSCILLATORS.high:
+            raise self.error(self.line_of("network", "coupling"), f"a coupling matrix of "
+                             f"{len(coupling)} rows is more oscillators than a network may have",
+                             limits.OSCILLATORS.accepted())
+        for row in coupling:
+            for value in row:
+                self.number(value, "network", "coupling", "every coupling strength",
+                            limits.COUPLING)
         base = load_model(oscillator)
         coupled = spec.get("coupled_state")
         if not isinstance(coupled, str) or coupled not in base.state_names:
@@ -368,7 +405,7 @@ class _Reader:
             if not isinstance(lags, list):
                 raise self.error(self.line_of("network", "lags"), "lags must be a list of numbers "
                                  "of cycles, one per oscillator", "lags = [0, 0]")
-            lags = [self.number(v, "network", "lags", "every lag") for v in lags]
+            lags = [self.number(v, "network", "lags", "every lag", limits.LAG) for v in lags]
         labels = spec.get("labels")
         parameters, request, rhythm = self.network_common(data, labels, len(coupling),
                                                           "labels = [\"left\", \"right\"]")
@@ -402,10 +439,13 @@ class _Reader:
 
     def fixed_point_request(self, fixed: dict) -> FixedPointRequest:
         bits = fixed.get("fraction_bits")
-        if bits is not None and (isinstance(bits, bool) or not isinstance(bits, int)):
+        if bits is not None and (isinstance(bits, bool) or not isinstance(bits, int)
+                                 or not limits.FRACTION_BITS.accepts(bits)):
             raise self.error(self.line_of("fixed_point", "fraction_bits"),
-                             "fraction_bits must be a whole number", "fraction_bits = 24")
-        margin = self.number(fixed.get("margin", 2.0), "fixed_point", "margin", "margin")
+                             "fraction_bits must be a whole number of bits",
+                             f"fraction_bits = 24 ({limits.FRACTION_BITS.accepted()})")
+        margin = self.number(fixed.get("margin", 2.0), "fixed_point", "margin", "margin",
+                             limits.MARGIN)
         integrator = fixed.get("integrator", "rk4")
         if not isinstance(integrator, str):
             raise self.error(self.line_of("fixed_point", "integrator"),

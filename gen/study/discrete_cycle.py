@@ -16,14 +16,17 @@ from dataclasses import dataclass
 import numpy as np
 
 from orbitfix.gen.errors import InputError, UnsupportedError
-from orbitfix.gen.model.definition import FixedPointRequest, Model
+from orbitfix.gen.model.definition import Model
+from orbitfix.gen.pipeline import plan_step, program_states
 from orbitfix.gen.program import golden
-from orbitfix.gen.program.fixed_point import plan_fixed_point
 from orbitfix.gen.program.integer_program import IntegerProgram
-from orbitfix.gen.program.lowering import evaluate_real, lower_step
+from orbitfix.gen.program.lowering import evaluate_real
+from orbitfix.gen.timing import work_size
 from orbitfix.gen.timing.integrators import Integrator
 
 START_POINTS = 24
+STUDY_ADVICE = ("lower loop_hz (or raise cycle_hz) so a cycle takes fewer steps, or study the "
+                "model at a lower loop rate")
 
 
 @dataclass(frozen=True)
@@ -69,21 +72,24 @@ def measure(step: Callable[[np.ndarray], np.ndarray], start: np.ndarray, steps: 
             wanted_period_steps: float, cycle_min: np.ndarray, cycle_max: np.ndarray,
             tolerance: CycleTolerance) -> SteppedCycle:
     """Run ``step`` (a map on arrays of shape (n_states, batch)) from ``start`` and compare the
-    cycle it settles on with the continuous one (given in the same units as the states)."""
+    cycle it settles on with the continuous one (given in the same units as the states). Only the
+    model's own states (the first ``len(cycle_min)`` rows) are compared; rows after them (runtime
+    parameters and their targets) are carried along."""
     level = 0.5 * (cycle_min[0] + cycle_max[0])
     half_range = 0.5 * (np.asarray(cycle_max) - np.asarray(cycle_min))
+    tracked = len(half_range)
     state = np.array(start)
     first = np.empty((steps + 1, state.shape[1]))
     first[0] = state[0]
     tail = max(2, math.ceil(wanted_period_steps * 1.5))
-    low = np.full(state.shape, np.inf)
-    high = np.full(state.shape, -np.inf)
+    low = np.full((tracked, state.shape[1]), np.inf)
+    high = np.full((tracked, state.shape[1]), -np.inf)
     for k in range(steps):
         state = step(state)
         first[k + 1] = state[0]
         if k >= steps - tail:
-            low = np.minimum(low, state)
-            high = np.maximum(high, state)
+            low = np.minimum(low, state[:tracked])
+            high = np.maximum(high, state[:tracked])
         if not np.all(np.isfinite(state)):
             return SteppedCycle(False, "the stepped map grows without bound", None, None, None, None)
     amplitude = np.mean(0.5 * (high - low), axis=1)
@@ -126,17 +132,32 @@ def start_points(samples: np.ndarray, count: int = START_POINTS) -> np.ndarray:
     return samples[:, index]
 
 
+def _program_samples(program: IntegerProgram, samples: np.ndarray) -> np.ndarray:
+    """The samples as the program's whole state: a program with runtime parameters carries more
+    rows than the model has states (see :func:`orbitfix.gen.pipeline.program_states`)."""
+    samples = np.asarray(samples, dtype=float)
+    if samples.shape[0] != len(program.state_names):
+        raise ValueError(f"the samples have {samples.shape[0]} rows but the program steps "
+                         f"{len(program.state_names)} states ({', '.join(program.state_names)}); "
+                         "extend them with pipeline.program_states")
+    return samples
+
+
 def float_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_steps: float,
                 cycle_min: np.ndarray, cycle_max: np.ndarray, cycles: float = 6.0,
                 tolerance: CycleTolerance | None = None) -> SteppedCycle:
-    """The float step map's cycle (layer L1) against the continuous one (L0)."""
+    """The float step map's cycle (layer L1) against the continuous one (L0). ``samples`` hold
+    every state the program steps (see :func:`orbitfix.gen.pipeline.program_states`)."""
     _refuse_angles(program)
+    samples = _program_samples(program, samples)
 
     def step(x: np.ndarray) -> np.ndarray:
         values = evaluate_real(program, x)
         return np.stack([values[i] for i in program.next_state])
 
     steps = math.ceil(cycles * wanted_period_steps)
+    work_size.refuse_beyond_machine(stepped_cycle_work(program, wanted_period_steps, cycles,
+                                                       START_POINTS, integer=False), STUDY_ADVICE)
     return measure(step, start_points(samples), steps, wanted_period_steps, cycle_min, cycle_max,
                    tolerance or CycleTolerance())
 
@@ -144,8 +165,10 @@ def float_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_step
 def integer_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_steps: float,
                   cycle_min: np.ndarray, cycle_max: np.ndarray, cycles: float = 6.0,
                   tolerance: CycleTolerance | None = None, points: int = START_POINTS) -> SteppedCycle:
-    """The integer program's cycle (layer L2) against the continuous one (L0), in real units."""
+    """The integer program's cycle (layer L2) against the continuous one (L0), in real units.
+    ``samples`` hold every state the program steps, as for :func:`float_cycle`."""
     _refuse_angles(program)
+    samples = _program_samples(program, samples)
     scale = 2.0 ** np.array(program.state_fraction_bits, dtype=float).reshape(-1, 1)
     start = np.round(start_points(samples, points) * scale).astype(np.int64)
     word_max = program.word_max
@@ -158,32 +181,67 @@ def integer_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_st
         return out
 
     steps = math.ceil(cycles * wanted_period_steps)
+    work_size.refuse_beyond_machine(stepped_cycle_work(program, wanted_period_steps, cycles,
+                                                       points, integer=True), STUDY_ADVICE)
     return measure(step, start / scale, steps, wanted_period_steps, cycle_min, cycle_max,
                    tolerance or CycleTolerance())
 
 
+def stepped_cycle_work(program: IntegerProgram, wanted_period_steps: float, cycles: float,
+                       points: int, integer: bool) -> work_size.Work:
+    """The size of one :func:`float_cycle` or :func:`integer_cycle` run, before it starts."""
+    steps = math.ceil(cycles * wanted_period_steps)
+    run = work_size.golden_run if integer else work_size.float_run
+    layer = "integer program" if integer else "float step map"
+    return run(f"stepping the {layer} {steps:,} steps ({cycles:g} cycles) from {points} starts",
+               len(program.ops), steps, points, recorded_rows=steps, states=1)
+
+
+def lowest_loop_rate_work(program: IntegerProgram, steps_per_cycle: float, cycle_hz: float,
+                          loop_hz: float, precision: float = 0.02) -> work_size.Work:
+    """The size of :func:`lowest_loop_rate`'s bisection: at most this many integer runs of 3
+    cycles from 8 starts, none at more steps per cycle than the model's own loop rate."""
+    span = math.log(max(loop_hz / (4.0 * cycle_hz), 1.0 + precision)) / math.log1p(precision)
+    trials = 2 + math.ceil(math.log2(max(span, 1.0)))
+    one = stepped_cycle_work(program, steps_per_cycle, 3.0, 8, integer=True)
+    return work_size.Work(f"the search for the lowest loop rate ({trials} runs of "
+                          f"{math.ceil(3 * steps_per_cycle):,} steps)", one.seconds * trials,
+                          one.bytes)
+
+
 def lowest_loop_rate(model: Model, integrator: Integrator, period: float, samples: np.ndarray,
                      cycle_min: np.ndarray, cycle_max: np.ndarray,
-                     tolerance: CycleTolerance | None = None, precision: float = 0.02) -> float | None:
+                     tolerance: CycleTolerance | None = None, precision: float = 0.02,
+                     plan_samples: np.ndarray | None = None) -> float | None:
     """The lowest loop rate (Hz) at which the integer program still keeps the cycle within
     tolerance, by bisection on a log scale between 4 times the cycle frequency and the model's
     loop rate, to within ``precision`` (relative) above the true limit. None if the model's own
-    loop rate does not keep it (see :func:`needed_loop_rate`)."""
+    loop rate does not keep it (see :func:`needed_loop_rate`).
+
+    samples : ndarray, shape (n, k) -- the model's states on the cycle (the runs start there).
+    plan_samples : ndarray, shape (n, m) -- the states the plan must hold (for a model with
+        runtime parameters, the cycles at the corners of their ranges too); default ``samples``.
+    """
     tolerance = tolerance or CycleTolerance()
-    request: FixedPointRequest = model.fixed_point
     cycle_hz = model.rhythm.cycle_hz
+    plan_samples = samples if plan_samples is None else plan_samples
+    starts = program_states(model, samples)
+    try:
+        program = plan_step(model, integrator, period * cycle_hz / model.rhythm.loop_hz,
+                            plan_samples).program
+    except InputError:
+        return None
+    work_size.refuse_beyond_machine(
+        lowest_loop_rate_work(program, model.rhythm.loop_hz / cycle_hz, cycle_hz,
+                              model.rhythm.loop_hz, precision), STUDY_ADVICE)
 
     def keeps(loop_hz: float) -> bool:
         steps_per_cycle = loop_hz / cycle_hz
-        program = lower_step(model, integrator, period * cycle_hz / loop_hz)
         try:
-            plan = plan_fixed_point(program, samples, model.initial_state, margin=request.margin,
-                                    fraction_bits=request.fraction_bits,
-                                    word_bits=request.word_bits, rounding=request.rounding,
-                                    overflow=request.overflow)
+            plan = plan_step(model, integrator, period * cycle_hz / loop_hz, plan_samples)
         except InputError:
             return False
-        return integer_cycle(plan.program, samples, steps_per_cycle, cycle_min, cycle_max,
+        return integer_cycle(plan.program, starts, steps_per_cycle, cycle_min, cycle_max,
                              cycles=3.0, tolerance=tolerance, points=8).kept
 
     low, high = 4.0 * cycle_hz, model.rhythm.loop_hz

@@ -5,19 +5,26 @@ from __future__ import annotations
 
 from dataclasses import dataclass, replace
 
+import numpy as np
+
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
-from orbitfix.gen.pipeline import Design, design
+from orbitfix.gen.pipeline import Design, design, program_states
 from orbitfix.gen.program.integer_program import WORD_SIZES
 from orbitfix.gen.study.discrete_cycle import (
+    START_POINTS,
+    STUDY_ADVICE,
     CycleTolerance,
     SteppedCycle,
     float_cycle,
     integer_cycle,
     lowest_loop_rate,
+    lowest_loop_rate_work,
     needed_loop_rate,
+    stepped_cycle_work,
 )
-from orbitfix.gen.timing.integrators import INTEGRATORS
+from orbitfix.gen.timing import work_size
+from orbitfix.gen.timing.integrators import INTEGRATORS, Integrator
 
 
 @dataclass(frozen=True)
@@ -97,15 +104,20 @@ class CoefficientEffect:
 
 
 def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -> CoefficientEffect:
-    """Measure the cycle shift caused by quantising the constants, and warn past the tolerance."""
+    """Measure the cycle shift caused by quantising the constants, and warn past the tolerance.
+
+    The first of the plan studies, so it sizes them all (:func:`study_work`) before it starts:
+    no study runs for minutes only for a later one to be refused."""
     tolerance = tolerance or CycleTolerance()
+    work_size.refuse_beyond_machine(study_work(built), STUDY_ADVICE)
     program = built.plan.program
     represented = {c.index: c.represents for c in built.plan.constants}
     rounded = replace(program, ops=tuple(replace(op, real=represented[i]) if i in represented
                                           else op for i, op in enumerate(program.ops)))
     cycle = built.analysis.cycle
     loose = CycleTolerance(frequency_ppm=1e9, amplitude=1e9)
-    exact, quantised = (float_cycle(p, cycle.samples, built.timing.steps_per_cycle,
+    starts = program_states(built.model, cycle.samples)
+    exact, quantised = (float_cycle(p, starts, built.timing.steps_per_cycle,
                                     cycle.state_min, cycle.state_max, tolerance=loose)
                         for p in (program, rounded))
     ranked = sorted(built.plan.constants, key=lambda c: -abs(c.error / c.real) if c.real else 0.0)
@@ -130,13 +142,42 @@ def _counts(built: Design) -> tuple[int, int]:
 def _cycle_of(built: Design, tolerance: CycleTolerance, integer: bool) -> SteppedCycle:
     cycle = built.analysis.cycle
     measure = integer_cycle if integer else float_cycle
-    return measure(built.plan.program, cycle.samples, built.timing.steps_per_cycle,
+    return measure(built.plan.program, program_states(built.model, cycle.samples),
+                   built.timing.steps_per_cycle,
                    cycle.state_min, cycle.state_max, tolerance=tolerance)
+
+
+def _scaled_work(base: Design, integrator: Integrator, work: work_size.Work) -> work_size.Work:
+    """``work`` measured on the base design's program, scaled to another integrator's: the
+    program grows with the number of stages (the lowering is cheap, the planning of each
+    integrator's corners is not, so the size is estimated before any of it)."""
+    ratio = max(1, integrator.stages) / max(1, base.integrator.stages)
+    return work_size.Work(work.what, work.seconds * ratio, work.bytes)
+
+
+def study_work(base: Design, search: bool = False, workers: int = 1) -> work_size.Work:
+    """The size of the plan studies of ``base`` (:func:`coefficient_effect`,
+    :func:`study_integrators` and, with ``search``, :func:`search`), before any of them starts."""
+    program, spc = base.plan.program, base.timing.steps_per_cycle
+    timing = base.timing
+    floats = stepped_cycle_work(program, spc, 6.0, START_POINTS, integer=False)
+    ints = stepped_cycle_work(program, spc, 6.0, START_POINTS, integer=True)
+    lowest = lowest_loop_rate_work(program, spc, timing.cycle_hz, timing.loop_hz)
+    seconds = 2 * floats.seconds
+    for integrator in INTEGRATORS.values():
+        for part in (floats, ints, lowest):
+            seconds += _scaled_work(base, integrator, part).seconds
+    if search:
+        per_word = sum(_scaled_work(base, i, ints).seconds for i in INTEGRATORS.values())
+        seconds += len(WORD_SIZES) * per_word / max(1, workers)
+    return work_size.Work(f"the plan studies at {spc:,.0f} steps per cycle", seconds,
+                          max(floats.bytes, ints.bytes, lowest.bytes))
 
 
 def study_integrators(base: Design, tolerance: CycleTolerance | None = None) -> list[IntegratorStudy]:
     """Every registered integrator at the base design's loop rate and number format."""
     tolerance = tolerance or CycleTolerance()
+    work_size.refuse_beyond_machine(study_work(base), STUDY_ADVICE)
     studies = []
     for name, integrator in INTEGRATORS.items():
         built = design(base.model.with_fixed_point(integrator=name), analysis=base.analysis)
@@ -144,8 +185,10 @@ def study_integrators(base: Design, tolerance: CycleTolerance | None = None) -> 
         floats = _cycle_of(built, tolerance, integer=False)
         ints = _cycle_of(built, tolerance, integer=True)
         cycle = built.analysis.cycle
+        corners = [c.samples for _, c in built.corners]
         lowest = lowest_loop_rate(built.model, integrator, cycle.period, cycle.samples,
-                                  cycle.state_min, cycle.state_max, tolerance)
+                                  cycle.state_min, cycle.state_max, tolerance,
+                                  plan_samples=np.hstack([cycle.samples, *corners]))
         needed = None if lowest else needed_loop_rate(built.timing.loop_hz, ints, integrator,
                                                       tolerance)
         studies.append(IntegratorStudy(name, operations, products, floats, ints, lowest, needed))
@@ -170,6 +213,12 @@ def search(base: Design, tolerance: CycleTolerance | None = None, workers: int |
     ``scheduler``), and pick the cheapest that keeps the cycle within tolerance at the model's
     loop rate."""
     tolerance = tolerance or CycleTolerance()
+    ints = stepped_cycle_work(base.plan.program, base.timing.steps_per_cycle, 6.0, START_POINTS,
+                              integer=True)
+    per_word = sum(_scaled_work(base, i, ints).seconds for i in INTEGRATORS.values())
+    work_size.refuse_beyond_machine(
+        work_size.Work("the search over word sizes and integrators",
+                       len(WORD_SIZES) * per_word, ints.bytes), STUDY_ADVICE)
     jobs = [(base, w, name, tolerance) for w in WORD_SIZES for name in INTEGRATORS]
     candidates = fan_out(_try, jobs, workers, scheduler)
     candidates.sort(key=lambda c: c.cost)

@@ -15,6 +15,7 @@ from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.quantisation import quantise
+from orbitfix.gen.timing.work_size import bit_exact_work, refuse_beyond_machine
 from orbitfix.verify.proofs.bit_exact import BitExactReport, prove_bit_exact
 from orbitfix.verify.targets.host_build import HostModule, build_host_module
 
@@ -63,6 +64,9 @@ def read_sources(design: Design, folder: Path) -> tuple[dict[str, str], list[str
 def check_on_host(design: Design, sources_folder: Path | None = None, states: int = 1_000_000,
                   steps: int = 1_000_000) -> HostCheck:
     """Build the C on the host and run both parts of the bit-exact proof."""
+    program = design.plan.program
+    refuse_beyond_machine(bit_exact_work(len(program.ops), len(program.state_names), states, steps),
+                          "give fewer --states or --steps")
     names = CNames(design.model.name)
     if sources_folder is None:
         sources = render_model(design.model, design.timing, design.integrator, design.plan)

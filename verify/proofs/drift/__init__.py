@@ -13,11 +13,12 @@ from orbitfix.verify.proofs.drift.proof import (
     DriftReport,
     DriftRun,
     DriftTolerances,
+    drift_size,
     finite_or_none,
     run_drift,
 )
 from orbitfix.verify.proofs.drift.references import Start, choose_starts
 
 __all__ = ["NO_ANGLES", "DriftReport", "DriftRun", "DriftTolerances", "Start", "build_drift_module",
-           "choose_starts", "cycle_start", "finite_or_none", "harness_statistics", "integer_period",
-           "run_drift"]
+           "choose_starts", "cycle_start", "drift_size", "finite_or_none", "harness_statistics",
+           "integer_period", "run_drift"]

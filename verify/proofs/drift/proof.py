@@ -31,6 +31,7 @@ import numpy as np
 
 from orbitfix.gen.errors import InputError, UnsupportedError
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.timing.work_size import Work, drift_work, refuse_beyond_machine
 from orbitfix.verify.proofs.drift.harness import (
     build_drift_module,
     crossing_time,
@@ -39,6 +40,7 @@ from orbitfix.verify.proofs.drift.harness import (
 )
 from orbitfix.verify.proofs.drift.references import (
     STEP_MAP_CYCLES,
+    STEP_MAP_MEASURED,
     Start,
     StepMapReference,
     choose_starts,
@@ -161,6 +163,7 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     """
     if design.plan.program.angle_states:
         raise UnsupportedError(NO_ANGLES)
+    refuse_beyond_machine(drift_size(design, hours), "give fewer --hours or a lower loop_hz")
     if host is None:
         started = time.perf_counter()
         host = build_drift_module(design)
@@ -182,6 +185,22 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
                            "step_map_period_steps": at_corner.step_map.period_steps}
             report.runs.append(run)
     return report
+
+
+def drift_size(design: Design, hours: float) -> Work:
+    """The size of :func:`run_drift` before it starts (at most four starts, and one run per
+    corner of the runtime ranges)."""
+    program, timing = design.plan.program, design.timing
+
+    def one(runs: int) -> Work:
+        return drift_work(len(program.ops), len(program.state_names), timing.steps_per_cycle,
+                          timing.loop_hz, hours, runs, STEP_MAP_CYCLES, STEP_MAP_MEASURED,
+                          reference_columns=runs + 1)
+
+    total = one(4)
+    for _ in design.corners:
+        total = total + one(1)
+    return replace(total, what=f"the drift proof ({hours:g} h at {timing.loop_hz:g} Hz)")
 
 
 def _at_corner(design: Design, corner: dict[str, float], cycle: object) -> Design:
