@@ -85,13 +85,13 @@ class CoefficientEffect:
     """How much rounding the constants alone moves the stepped cycle: the float step map with the
     constants' real values against the same map with the values the stored integers stand for."""
 
-    frequency_shift_ppm: float | None
+    period_shift_ppm: float | None
     amplitude_shift: float | None
     worst_constants: tuple[str, ...]
     warning: str | None
 
     def to_json(self) -> dict:
-        return {"frequency_shift_ppm": self.frequency_shift_ppm,
+        return {"period_shift_ppm": self.period_shift_ppm,
                 "amplitude_shift": self.amplitude_shift,
                 "worst_constants": list(self.worst_constants), "warning": self.warning}
 
@@ -104,7 +104,7 @@ def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -
     rounded = replace(program, ops=tuple(replace(op, real=represented[i]) if i in represented
                                           else op for i, op in enumerate(program.ops)))
     cycle = built.analysis.cycle
-    loose = CycleTolerance(frequency_ppm=1e9, amplitude=1e9)
+    loose = CycleTolerance(period_ppm=1e9, amplitude=1e9)
     exact, quantised = (float_cycle(p, cycle.samples, built.timing.steps_per_cycle,
                                     cycle.state_min, cycle.state_max, tolerance=loose)
                         for p in (program, rounded))
@@ -112,14 +112,14 @@ def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -
     worst = tuple(f"{c.note} ({c.error / c.real:+.2e})" for c in ranked[:3] if c.real and c.error)
     if exact.period_steps is None or quantised.period_steps is None:
         return CoefficientEffect(None, None, worst, "the float step map keeps no cycle to compare")
-    frequency = (exact.period_steps / quantised.period_steps - 1) * 1e6
+    period = (quantised.period_steps / exact.period_steps - 1) * 1e6  # positive: runs slow
     amplitude = max(abs(q / e - 1) for q, e in zip(quantised.amplitude, exact.amplitude, strict=True))
     warning = None
-    if abs(frequency) > tolerance.frequency_ppm or amplitude > tolerance.amplitude:
-        warning = (f"rounding the constants alone moves the cycle by {frequency:+.1f} ppm in "
-                   f"frequency and {100 * amplitude:.3f} % in amplitude, past the tolerance; the "
+    if abs(period) > tolerance.period_ppm or amplitude > tolerance.amplitude:
+        warning = (f"rounding the constants alone moves the cycle by {period:+.1f} ppm in "
+                   f"period and {100 * amplitude:.3f} % in amplitude, past the tolerance; the "
                    f"largest relative errors: {', '.join(worst)}")
-    return CoefficientEffect(frequency, amplitude, worst, warning)
+    return CoefficientEffect(period, amplitude, worst, warning)
 
 
 def _counts(built: Design) -> tuple[int, int]:
@@ -188,10 +188,10 @@ def _binding(best: Candidate | None, cheaper: Candidate | None, tolerance: Cycle
     if cheaper is not None:
         reason = cheaper.problem or (cheaper.cycle.verdict if cheaper.cycle else "")
         why_not = f"; the next cheaper ({cheaper.word_bits}-bit {cheaper.integrator}) fails: {reason}"
-    frequency = abs(best.cycle.frequency_error_ppm or 0.0) / tolerance.frequency_ppm
+    period = abs(best.cycle.period_error_ppm or 0.0) / tolerance.period_ppm
     amplitude = (best.cycle.amplitude_error or 0.0) / tolerance.amplitude
-    if frequency >= amplitude:
-        return (f"frequency: {abs(best.cycle.frequency_error_ppm or 0):.1f} ppm of the "
-                f"{tolerance.frequency_ppm:g} ppm allowed{why_not}")
+    if period >= amplitude:
+        return (f"period: {abs(best.cycle.period_error_ppm or 0):.1f} ppm of the "
+                f"{tolerance.period_ppm:g} ppm allowed{why_not}")
     return (f"amplitude: {100 * (best.cycle.amplitude_error or 0):.3f} % of the "
             f"{100 * tolerance.amplitude:g} % allowed{why_not}")
