@@ -12,6 +12,7 @@ ours; 130 interrupted.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import sys
 import traceback
 from typing import Any, NoReturn
@@ -47,12 +48,15 @@ def main(argv: list[str] | None = None) -> int:
         return exc.code if isinstance(exc.code, int) else 0
     partial: dict[str, Any] = {}
     from orbitfix.gen.progress import reporting
-    from orbitfix.verify.report.progress_bar import terminal_bar
+    from orbitfix.verify.report.progress_bar import ClearingStream, terminal_bar
 
     bar = terminal_bar(getattr(args, "json", False))
     try:
         with reporting(bar):
-            return args.handler(args, partial)
+            if bar is None:
+                return args.handler(args, partial)
+            with contextlib.redirect_stdout(ClearingStream(sys.stdout, bar)):
+                return args.handler(args, partial)
     except OrbitfixError as exc:
         if bar is not None:
             bar.close()

@@ -76,6 +76,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
                          "NAME.h and NAME.c into")
     from orbitfix.gen.errors import UnsupportedError
     from orbitfix.gen.pipeline import design
+    from orbitfix.gen.progress import tell
     from orbitfix.gen.safety import CAUTION
     from orbitfix.verify.proofs.certificate import certify
     from orbitfix.verify.proofs.drift import NO_ANGLES, DriftTolerances, build_drift_module, run_drift
@@ -94,17 +95,20 @@ def run(args: argparse.Namespace, partial: dict) -> int:
                                  period_ppm=args.max_period_error,
                                  phase_drift_cycles=args.max_phase_drift,
                                  return_spread=args.max_return_spread / 100)
+    tell("building the C on the host and comparing it with the golden model", 0, 1)
     outcome = check_on_host(built, args.sources, states=args.states, steps=args.steps)
     bit_exact = outcome.report.bit_exact
     partial.update(host_fields(outcome))
     drift = None
     if not args.skip_drift and bit_exact:
         sources = read_sources(built, args.sources)[0] if args.sources else None
+        tell(f"long-run drift test: {args.hours:g} h of loop time from several starts", 0, 1)
         drift = run_drift(built, hours=args.hours, tolerances=tolerances,
                           host=build_drift_module(built, sources))
         partial["drift"] = drift.to_json()
     certificate = None
     if args.certify and bit_exact:
+        tell("lattice certificate: following every lattice state of the box", 0, 1)
         certificate = certify(built, band=args.band, tolerance=args.tolerance_band, box=box,
                               exclude_radius=args.exclude_radius)
         partial["certificate"] = certificate.to_json()

@@ -15,6 +15,7 @@ import numpy as np
 
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.progress import tell
 from orbitfix.verify.targets.host_build import HostModule
 
 SEED = 20261202
@@ -105,6 +106,7 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
     batch = random_states(program, states, typical, rng)
     got = _c_step_each(host, batch)
     for first in range(0, states, CHUNK):
+        tell("comparing random states, C against golden", first, states)
         want = golden.step(program, batch[:, first:first + CHUNK])
         bad = np.flatnonzero(np.any(got[:, first:first + CHUNK] != want, axis=0))
         if bad.size:
@@ -159,6 +161,7 @@ def _trajectory(program: IntegerProgram, host: HostModule, initial: np.ndarray, 
     state = initial
     done = 0
     while done < steps:
+        tell("comparing the trajectory, C against golden", done, steps)
         count = min(block, steps - done)
         end_state, record = _c_run(host, state, count)
         before = np.vstack([state.reshape(1, -1), record[:-1]])  # the state before each step

@@ -11,6 +11,8 @@ def to_tolerance(value: float, tolerance: float) -> str:
     is ``'1.2346 ± 1e-04'``."""
     if not (math.isfinite(value) and math.isfinite(tolerance) and tolerance > 0):
         return f"{value:.6g}"
+    if abs(value) <= tolerance:  # zero lies within what is known
+        return f"0 ± {tolerance:.0e}"
     decimals = max(0, -math.floor(math.log10(tolerance)))
     text = f"{round(value, decimals):.{decimals}f}"
     if "." in text:

@@ -8,14 +8,12 @@ import sys
 import time
 from typing import TextIO
 
-from orbitfix.gen.progress import Progress
-
 WIDTH = 24
 EVERY = 0.1  # seconds between redraws
 
 
 class ProgressBar:
-    """A :data:`orbitfix.gen.progress.Progress` listener that redraws one line in place."""
+    """An :data:`orbitfix.gen.progress.Progress` listener that redraws one line in place."""
 
     def __init__(self, stream: TextIO) -> None:
         self.stream = stream
@@ -40,6 +38,22 @@ class ProgressBar:
         if self.shown:
             self.stream.write("\r\x1b[K")
             self.stream.flush()
+            self.shown = False
+
+
+class ClearingStream:
+    """Standard output that clears the bar before anything is written to it, so a report never
+    lands in the middle of the bar's line."""
+
+    def __init__(self, stream: TextIO, bar: ProgressBar) -> None:
+        self.stream, self.bar = stream, bar
+
+    def write(self, text: str) -> int:
+        self.bar.close()
+        return self.stream.write(text)
+
+    def __getattr__(self, name: str) -> object:
+        return getattr(self.stream, name)
 
 
 def bar_line(what: str, done: int, total: int, elapsed: float) -> str:
@@ -61,7 +75,7 @@ def _duration(seconds: float) -> str:
 
 
 def terminal_bar(json_output: bool, stdout: TextIO | None = None,
-                 stderr: TextIO | None = None) -> Progress | None:
+                 stderr: TextIO | None = None) -> ProgressBar | None:
     """A bar when output goes to a terminal and is not JSON, else None (no progress shown)."""
     stdout = stdout or sys.stdout
     stderr = stderr or sys.stderr
