@@ -111,6 +111,7 @@ def test_gen_refuses_a_model_with_no_cycle_and_shows_the_analysis(capsys, tmp_pa
     assert not (tmp_path / "vanderpol.c").exists()
 
 
+@pytest.mark.slow
 def test_verify_json_contract_and_sources(capsys, tmp_path: Path) -> None:
     code, out, _ = run(capsys, "verify", "vanderpol", "--json", "--states", "5000",
                        "--steps", "5000", "--set", "mu=2", "--hours", "0.01")
@@ -153,6 +154,7 @@ def test_verify_of_edited_sources_exits_1_naming_the_step(capsys, tmp_path: Path
     assert "drift" not in data  # no drift run on C that is not bit-exact
 
 
+@pytest.mark.slow
 def test_verify_fails_when_the_drift_test_fails(capsys) -> None:
     # 16-bit words with 4 fraction bits: the orbit collapses (see tests/test_drift.py).
     code, out, _ = run(capsys, "verify", "vanderpol", "--word", "16", "--fraction-bits", "4",
@@ -169,6 +171,7 @@ def test_console_entry_point_runs_as_a_module() -> None:
     assert "Traceback" not in done.stderr
 
 
+@pytest.mark.slow
 def test_plan_json_has_signals_constants_and_integrators(capsys) -> None:
     code, out, _ = run(capsys, "plan", "vanderpol", "--json", "--max-period-error", "100")
     assert code == 0
@@ -200,6 +203,7 @@ def test_models_with_angle_states_generate_and_verify_but_say_drift_is_not_built
     assert code == 0 and "bit-exact" in out
 
 
+@pytest.mark.slow
 def test_verify_certify_json_contract_and_exit_codes(capsys) -> None:
     argv = ["verify", "vanderpol", "--word", "16", "--fraction-bits", "8", "--certify",
             "--skip-drift", "--states", "1000", "--steps", "1000", "--json"]
