@@ -381,3 +381,23 @@ def test_pytest_m_slow_selects_the_marked_tests() -> None:
     assert "test_verify_json_contract_and_sources" in done.stdout
     assert selected and all("verify" in line or "plan" in line for line in selected)
     assert "test_check_json_contract" not in done.stdout
+
+
+def test_verify_text_names_the_first_mismatch_and_its_operation(capsys, tmp_path: Path) -> None:
+    # a seeded fault: one product's shift made one smaller in the C (see test_command_line.py)
+    import re
+
+    assert main(["gen", "vanderpol", "-o", str(tmp_path)]) == 0
+    source = tmp_path / "vanderpol.c"
+    text = source.read_text()
+    product = re.search(r"mul_word\(v0, v0, (\d+)u\)", text)
+    assert product
+    source.write_text(text.replace(product.group(0),
+                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u)", 1))
+    capsys.readouterr()
+    code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path), "--states", "500",
+                       "--steps", "500", "--skip-drift")
+    assert code == 1
+    assert "first mismatch at random state number " in out
+    assert "they part at operation" in out and "(mul:" in out
+    assert "result: NOT bit-exact" in out and CAUTION in out

@@ -46,22 +46,6 @@ class Mismatch:
             "operation": self.operation,
         }
 
-    def describe(self) -> str:
-        where = (f"step {self.step} of the trajectory" if self.part == "trajectory"
-                 else f"random state number {self.step}")
-        lines = [f"first mismatch at {where}",
-                 f"  state before: {self.state_before}",
-                 f"  expected:     {self.expected}",
-                 f"  got:          {self.got}"]
-        if self.operation is None:
-            lines.append("  every intermediate value agrees; the difference is in how the C stores "
-                         "the next state")
-        else:
-            op = self.operation
-            lines.append(f"  they part at operation {op['index']} ({op['kind']}: {op['note']}): "
-                         f"expected {op['expected']}, got {op['got']}")
-        return "\n".join(lines)
-
 
 @dataclass
 class BitExactReport:

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from orbitfix.verify.proofs.bit_exact import Mismatch
 from orbitfix.verify.proofs.host_check import HostCheck
 from orbitfix.verify.targets.host_build import STRICT_FLAGS
 
@@ -38,10 +39,28 @@ def host_lines(outcome: HostCheck) -> list[str]:
         lines.append(f"trajectory from the initial state: {report.steps_compared:,} steps compared"
                      + _seconds(report.seconds.get("trajectory")))
     if report.first_mismatch:
-        lines.append(report.first_mismatch.describe())
+        lines += mismatch_lines(report.first_mismatch)
         lines.append("result: NOT bit-exact: the C does not give the golden model's bits")
     else:
         lines.append("result: bit-exact: the C gives the golden model's bits at every compared step")
+    return lines
+
+
+def mismatch_lines(mismatch: Mismatch) -> list[str]:
+    """Where C and golden first disagree: the state before, both results, the operation they part at."""
+    where = (f"step {mismatch.step} of the trajectory" if mismatch.part == "trajectory"
+             else f"random state number {mismatch.step}")
+    lines = [f"first mismatch at {where}",
+             f"  state before: {mismatch.state_before}",
+             f"  expected:     {mismatch.expected}",
+             f"  got:          {mismatch.got}"]
+    if mismatch.operation is None:
+        lines.append("  every intermediate value agrees; the difference is in how the C stores "
+                     "the next state")
+    else:
+        op = mismatch.operation
+        lines.append(f"  they part at operation {op['index']} ({op['kind']}: {op['note']}): "
+                     f"expected {op['expected']}, got {op['got']}")
     return lines
 
 
