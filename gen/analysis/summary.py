@@ -43,7 +43,7 @@ class Analysis:
             for key, value in self.network.to_json().items()}
         return {
             "model": self.model.name,
-            "params": {name: _number(value) for name, value in self.model.parameter_values.items()},
+            "params": {name: plain_number(value) for name, value in self.model.parameter_values.items()},
             "states": list(self.model.state_names),
             "ok": self.ok,
             "equilibria": [_equilibrium_json(e) for e in self.equilibria],
@@ -51,18 +51,18 @@ class Analysis:
                 "found": bool(cycle.found),
                 "stable": bool(cycle.stable),
                 "isolated": bool(cycle.isolated),
-                "period": _number(cycle.period),
+                "period": plain_number(cycle.period),
                 "state_min": _numbers(cycle.state_min),
                 "state_max": _numbers(cycle.state_max),
                 "turns": None if cycle.turns is None else [int(k) for k in cycle.turns],
                 "floquet": _complex_pairs(cycle.multipliers),
                 "trivial_index": cycle.trivial_index,
                 "floquet_log": _numbers(cycle.floquet_log),
-                "stability_margin": _number(cycle.stability_margin),
+                "stability_margin": plain_number(cycle.stability_margin),
                 "verdict": cycle.verdict,
                 "outcome": cycle.outcome,
                 "point": _numbers(cycle.point),
-                "closing_error": _number(cycle.closing_error),
+                "closing_error": plain_number(cycle.closing_error),
                 "method": cycle.method or None,
                 "settled_at": (None if cycle.settled_at is None
                                else _equilibrium_json(cycle.settled_at)),
@@ -79,17 +79,14 @@ def analyse(model: Model) -> Analysis:
                     network=network)
 
 
-_number = plain_number
-
-
 def _numbers(values: np.ndarray | None) -> list[float | None] | None:
-    return None if values is None else [_number(v) for v in np.asarray(values, dtype=float)]
+    return None if values is None else [plain_number(v) for v in np.asarray(values, dtype=float)]
 
 
 def _complex_pairs(values: np.ndarray | None) -> list[list[float | None]] | None:
     if values is None:
         return None
-    return [[_number(v.real), _number(v.imag)] for v in np.asarray(values, dtype=complex)]
+    return [[plain_number(v.real), plain_number(v.imag)] for v in np.asarray(values, dtype=complex)]
 
 
 def _equilibrium_json(equilibrium: Equilibrium) -> dict:
