@@ -9,6 +9,7 @@ from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
 from orbitfix.gen.pipeline import Design, design
 from orbitfix.gen.program.integer_program import WORD_SIZES
+from orbitfix.gen.progress import tell
 from orbitfix.gen.study.discrete_cycle import (
     CycleTolerance,
     SteppedCycle,
@@ -138,7 +139,8 @@ def study_integrators(base: Design, tolerance: CycleTolerance | None = None) -> 
     """Every registered integrator at the base design's loop rate and number format."""
     tolerance = tolerance or CycleTolerance()
     studies = []
-    for name, integrator in INTEGRATORS.items():
+    for done, (name, integrator) in enumerate(INTEGRATORS.items()):
+        tell(f"studying the integrators at the loop rate ({name})", done, len(INTEGRATORS))
         built = design(base.model.with_fixed_point(integrator=name), analysis=base.analysis)
         operations, products = _counts(built)
         floats = _cycle_of(built, tolerance, integer=False)
