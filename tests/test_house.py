@@ -43,11 +43,13 @@ def test_nothing_imports_the_folders_by_their_bare_names() -> None:
     assert not offenders, offenders
 
 
-def test_every_package_folder_is_installed() -> None:
-    # A sub-package missing from pyproject's list would be left out of the wheel.
+def test_every_folder_is_installed() -> None:
+    # A folder missing from pyproject's list would be left out of the wheel, code or data alike.
     project = tomllib.loads((ROOT / "pyproject.toml").read_text("utf-8"))
     listed = set(project["tool"]["setuptools"]["packages"])
-    for top in ("gen", "verify"):
-        for init in (ROOT / top).rglob("__init__.py"):
-            package = ".".join(("orbitfix", *init.parent.relative_to(ROOT).parts))
+    for top in ("gen", "verify", "templates", "boards"):
+        for folder in [ROOT / top, *(ROOT / top).rglob("*")]:
+            if not folder.is_dir() or folder.name == "__pycache__" or not any(folder.iterdir()):
+                continue
+            package = ".".join(("orbitfix", *folder.relative_to(ROOT).parts))
             assert package in listed, f"{package} is not in pyproject.toml's packages"
