@@ -200,7 +200,8 @@ def test_gen_json_lists_the_files_with_their_fingerprints(capsys, tmp_path: Path
         assert entry["sha256"] == hashlib.sha256(Path(entry["path"]).read_bytes()).hexdigest()
     assert data["formats"]["states"] and data["formats"]["constants"]
     header = (tmp_path / "fw" / "vanderpol.h").read_text()
-    assert f"integer program {data['program_fingerprint']}" in header  # the banner names the same one
+    assert f"integer program {data['program_fingerprint']}" in header  # the banner names the same
+    assert f"(fingerprint {data['model_fingerprint']})" in header
     assert data["caution"] == CAUTION
 
 

@@ -18,6 +18,7 @@ def design_json(built: Design) -> dict:
         "step_size": built.timing.step,
         "timing": built.timing.to_json(),
         "formats": built.plan.formats_json(),
+        "model_fingerprint": built.model.fingerprint(),
         "program_fingerprint": built.plan.program.fingerprint(),
         "warnings": list(built.plan.warnings),
     }
