@@ -402,3 +402,15 @@ def test_verify_text_names_the_first_mismatch_and_its_operation(capsys, tmp_path
     assert "first mismatch at random state number " in out
     assert "they part at operation" in out and "(mul:" in out
     assert "result: NOT bit-exact" in out and CAUTION in out
+
+
+def test_verify_refuses_random_states_beyond_the_machine_before_building(capsys, monkeypatch) -> None:
+    import orbitfix.verify.proofs.host_check as host_check
+
+    def no_build(*args, **kwargs):
+        raise AssertionError("the host build started before the size was checked")
+
+    monkeypatch.setattr(host_check, "check_on_host", no_build)
+    code, out, err = run(capsys, "verify", "vanderpol", "--states", "1_000_000_000_000", "--skip-drift")
+    assert code == 2 and out == ""
+    assert "GiB" in err and "--states" in err and "Traceback" not in err

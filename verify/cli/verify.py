@@ -78,6 +78,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.progress import tell
     from orbitfix.gen.safety import CAUTION
+    from orbitfix.verify.proofs.bit_exact import check_random_states_fit
     from orbitfix.verify.proofs.certificate import certify
     from orbitfix.verify.proofs.drift import NO_ANGLES, DriftTolerances, build_drift_module, run_drift
     from orbitfix.verify.proofs.host_check import check_on_host, read_sources
@@ -91,6 +92,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     partial.update(design_json(built))
     if built.plan.program.angle_states and not args.skip_drift:
         raise UnsupportedError(NO_ANGLES)
+    check_random_states_fit(len(built.plan.program.state_names), args.states)
     tolerances = DriftTolerances(amplitude=args.max_amplitude_error / 100,
                                  period_ppm=args.max_period_error,
                                  phase_drift_cycles=args.max_phase_drift,

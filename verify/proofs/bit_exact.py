@@ -8,11 +8,13 @@ integer program where the two part.
 
 from __future__ import annotations
 
+import os
 import time
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from orbitfix.gen.errors import InputError
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.progress import tell
@@ -61,6 +63,24 @@ class BitExactReport:
         return self.first_mismatch is None
 
 
+# int64 copies alive at once while the random states are drawn, stacked, stepped in C and compared
+COPIES = 5
+
+
+def check_random_states_fit(state_count: int, count: int) -> None:
+    """Refuse, before any work, a number of random states whose arrays would not fit in half of this
+    machine's memory (InputError naming the size it would need)."""
+    needed = COPIES * 8 * state_count * count
+    try:
+        memory = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    except (AttributeError, ValueError, OSError):
+        return  # the size of memory is unknown here: let the allocation decide
+    if needed > memory // 2:
+        raise InputError(f"comparing {count:,} random states of {state_count} states each would need "
+                         f"about {needed / 2**30:,.1f} GiB; this machine has {memory / 2**30:.1f} GiB: "
+                         "give a smaller --states")
+
+
 def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
                   rng: np.random.Generator) -> np.ndarray:
     """States spread over the word's whole range, the cycle's neighbourhood, the edges of
@@ -84,6 +104,7 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
                     segment: int = 64, block: int = 1 << 18, seed: int = SEED) -> BitExactReport:
     """Compare C and golden on ``states`` random states and a ``steps``-step trajectory."""
     report = BitExactReport()
+    check_random_states_fit(len(program.state_names), states)
     _check_shape(program, host)
     started = time.perf_counter()
     rng = np.random.default_rng(seed)
