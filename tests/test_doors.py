@@ -414,3 +414,14 @@ def test_verify_refuses_random_states_beyond_the_machine_before_building(capsys,
     code, out, err = run(capsys, "verify", "vanderpol", "--states", "1_000_000_000_000", "--skip-drift")
     assert code == 2 and out == ""
     assert "GiB" in err and "--states" in err and "Traceback" not in err
+
+
+def test_verify_refuses_more_drift_steps_than_its_counter_holds(capsys, monkeypatch) -> None:
+    import orbitfix.gen.pipeline as pipeline
+
+    def no_design(*args, **kwargs):
+        raise AssertionError("the design started before --hours was checked")
+
+    monkeypatch.setattr(pipeline, "design", no_design)
+    code, _, err = run(capsys, "verify", "vanderpol", "--hours", "1e20")
+    assert code == 2 and "--hours" in err and "2^63" in err

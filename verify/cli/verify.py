@@ -11,6 +11,7 @@ import argparse
 from pathlib import Path
 from typing import Any
 
+from orbitfix.gen.errors import InputError
 from orbitfix.verify.cli.options import (
     NOT_NEGATIVE,
     POSITIVE,
@@ -26,6 +27,7 @@ from orbitfix.verify.cli.options import (
 # starts without loading it; tests/test_doors.py checks they agree.
 DEFAULT_BAND = 0.03
 DEFAULT_TOLERANCE = 0.08
+MAX_DRIFT_STEPS = 2**63  # the drift harness counts steps in uint64_t; refuse well before it wraps
 
 
 def register(verbs: Any) -> None:
@@ -70,8 +72,6 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     """Run the proofs in order; each later one only on C that is bit-exact."""
     box = parse_box(args.box) or None  # checked before any work
     if args.sources is not None and not args.sources.is_dir():
-        from orbitfix.gen.errors import InputError
-
         raise InputError(f"--sources '{args.sources}' is not a folder: give the folder gen wrote "
                          "NAME.h and NAME.c into")
     from orbitfix.gen.errors import UnsupportedError
@@ -88,6 +88,11 @@ def run(args: argparse.Namespace, partial: dict) -> int:
 
     model = model_from_args(args)
     partial["model"] = model.name
+    drift_steps = args.hours * 3600 * model.rhythm.loop_hz
+    if not args.skip_drift and drift_steps >= MAX_DRIFT_STEPS:
+        raise InputError(f"--hours {args.hours:g} at the model's {model.rhythm.loop_hz:g} Hz loop is "
+                         f"{drift_steps:.3g} steps, beyond the drift run's step counter (below 2^63): "
+                         "give fewer hours")
     built = design(model)
     partial.update(design_json(built))
     if built.plan.program.angle_states and not args.skip_drift:
