@@ -6,8 +6,11 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed-stamp
 DEMO_DIR := build/demo
+# Where the tool keeps its host builds unless ORBITFIX_CACHE says otherwise (see cache_root() in
+# verify/targets/host_build.py; tests/test_doors.py checks the two agree).
+HOST_CACHE := $(or $(XDG_CACHE_HOME),$(HOME)/.cache)/orbitfix/host
 
-.PHONY: demo test lint bench clean
+.PHONY: demo test test-fast lint bench bench-quick clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -24,8 +27,24 @@ test: $(STAMP)
 	$(BIN)/ruff check .
 	$(BIN)/python -m pytest
 
+# The tests without the long runs marked @pytest.mark.slow (CI runs them all, with `make test`).
+test-fast: $(STAMP)
+	$(BIN)/python -m pytest -m "not slow"
+
+lint: $(STAMP)
+	$(BIN)/ruff check .
+
+# Full-size figures, for people to read and quote.
 bench: $(STAMP)
-	for f in tests/bench/bench_*.py; do $(BIN)/python $$f || exit 1; done
+	for f in tests/bench/bench_*.py; do echo "== $$f"; $(BIN)/python $$f || exit 1; done
+
+# Every benchmark once at a tiny size: a benchmark that no longer runs fails here (CI runs this).
+bench-quick: $(STAMP)
+	for f in tests/bench/bench_*.py; do echo "== $$f --quick"; $(BIN)/python $$f --quick || exit 1; done
 
 clean:
-	rm -rf $(VENV) build .pytest_cache .ruff_cache
+	rm -rf $(VENV) build dist .pytest_cache .ruff_cache orbitfix.egg-info
+	@echo "host-build cache: $(HOST_CACHE) (removed)"
+	rm -rf "$(HOST_CACHE)"
+	@if [ -n "$$ORBITFIX_CACHE" ]; then echo "ORBITFIX_CACHE is set: host builds also go to" \
+	    "$$ORBITFIX_CACHE, which make clean leaves alone (remove it yourself if it is only for orbitfix)"; fi

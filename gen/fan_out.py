@@ -9,10 +9,11 @@ from __future__ import annotations
 
 import os
 from collections.abc import Callable, Sequence
-from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures import ProcessPoolExecutor, as_completed
 from typing import Any
 
 from orbitfix.gen.errors import InputError, ToolchainError
+from orbitfix.gen.progress import tell
 
 
 def fan_out(function: Callable[..., Any], jobs: Sequence[tuple], workers: int | None = None,
@@ -22,13 +23,21 @@ def fan_out(function: Callable[..., Any], jobs: Sequence[tuple], workers: int | 
     such as ``tcp://10.0.0.5:8786``, or a ``distributed.Client``/``LocalCluster`` object)."""
     if not jobs:
         return []
+    what = f"running {len(jobs)} independent jobs ({function.__name__.strip('_').replace('_', ' ')})"
     if scheduler is not None:
         return _on_cluster(function, jobs, scheduler)
     count = min(workers or os.cpu_count() or 1, os.cpu_count() or 1, len(jobs))
     if count <= 1:
-        return [function(*job) for job in jobs]
+        results = []
+        for done, job in enumerate(jobs):
+            tell(what, done, len(jobs))
+            results.append(function(*job))
+        return results
     with ProcessPoolExecutor(max_workers=count) as pool:
         futures = [pool.submit(function, *job) for job in jobs]
+        tell(what, 0, len(jobs))
+        for done, _ in enumerate(as_completed(futures), start=1):
+            tell(what, done, len(jobs))
         return [future.result() for future in futures]
 
 

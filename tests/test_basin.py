@@ -106,7 +106,7 @@ def test_basin_command_json_and_exit_codes(capsys, tmp_path):
                     '[parameters]\nmu = { value = 1.0 }\n[equations]\n'
                     'x = "(mu - x^2 - y^2)*x - y"\ny = "x + (mu - x^2 - y^2)*y"\n'
                     '[rhythm]\ncycle_hz = 1.0\nloop_hz = 100\n')
-    code = main(["basin", str(path), "--box", "x=-2:2", "--box", "y=-2:2", "--grid", "6", "--json"])
+    code = main(["basin", str(path), "--box", "x=-2:2", "--box", "y=-2:2", "--samples", "6", "--json"])
     data = json.loads(capsys.readouterr().out)
     assert code == 0
     # every start but the origin reaches r = 1 (r' = r (1 - r^2)); a 6 x 6 grid misses the origin

@@ -38,7 +38,7 @@ def test_symplectic_euler_period_is_2pi_over_its_rotation_angle(h: float) -> Non
     # 2 pi / acos(1 - h^2/2).
     program = lower_step(HARMONIC, INTEGRATORS["symplectic-euler"], h)
     measured = float_cycle(program, CIRCLE, 2 * math.pi / h, LOW, HIGH, cycles=8,
-                           tolerance=CycleTolerance(frequency_ppm=1e6, amplitude=1.0))
+                           tolerance=CycleTolerance(period_ppm=1e6, amplitude=1.0))
     assert measured.period_steps == pytest.approx(2 * math.pi / math.acos(1 - h * h / 2), rel=2e-5)
 
 
@@ -51,8 +51,8 @@ def test_rk4_period_follows_the_phase_of_its_stability_polynomial() -> None:
     program = lower_step(HARMONIC, INTEGRATORS["rk4"], h)
     measured = float_cycle(program, CIRCLE, 2 * math.pi / h, LOW, HIGH, cycles=8)
     assert measured.period_steps == pytest.approx(2 * math.pi / cmath.phase(r), rel=2e-5)
-    expected_ppm = (cmath.phase(r) / h - 1) * 1e6
-    assert measured.frequency_error_ppm == pytest.approx(expected_ppm, abs=30)
+    expected_ppm = (h / cmath.phase(r) - 1) * 1e6  # period error: positive runs slow
+    assert measured.period_error_ppm == pytest.approx(expected_ppm, abs=30)
 
 
 def test_integer_map_matches_the_float_map_closely_in_32_bits(vanderpol_design) -> None:
@@ -61,7 +61,7 @@ def test_integer_map_matches_the_float_map_closely_in_32_bits(vanderpol_design) 
             cycle.state_max)
     floats, ints = float_cycle(*args, cycles=3), integer_cycle(*args, cycles=3)
     assert floats.kept and ints.kept
-    assert ints.frequency_error_ppm == pytest.approx(floats.frequency_error_ppm, abs=1.0)
+    assert ints.period_error_ppm == pytest.approx(floats.period_error_ppm, abs=1.0)
 
 
 def test_lowest_loop_rate_is_where_the_cycle_stops_being_kept(vanderpol_design) -> None:
@@ -89,7 +89,7 @@ def _with_loop(model, loop_hz: float):
 
 def test_needed_rate_scales_with_the_integrators_order() -> None:
     cycle = SteppedCycle(False, "", 100.0, 4000.0, (1.0,), 0.0)
-    tolerance = CycleTolerance(frequency_ppm=1000.0)
+    tolerance = CycleTolerance(period_ppm=1000.0)
     assert needed_loop_rate(100.0, cycle, INTEGRATORS["euler"], tolerance) == pytest.approx(400.0)
     assert needed_loop_rate(100.0, cycle, INTEGRATORS["heun"], tolerance) == pytest.approx(200.0)
 
@@ -101,22 +101,22 @@ def test_search_picks_the_cheapest_candidate_that_keeps_the_cycle(vanderpol_desi
     assert costs == sorted(costs)
     cheaper = [c for c in found.candidates if c.cost < found.best.cost]
     assert cheaper and not any(c.kept for c in cheaper)
-    assert found.binding.startswith(("frequency", "amplitude"))
+    assert found.binding.startswith(("period", "amplitude"))
 
 
 def test_constant_rounding_shifts_frequency_by_the_step_weights_error(vanderpol_design) -> None:
     # Rounding the final weights h*b_i by a common relative error e rescales time by (1 + e), so
-    # the frequency moves by e to first order (direct calculation); the stage weights enter at
-    # higher order only.
+    # the frequency moves by e and the period by -e to first order (direct calculation); the stage
+    # weights enter at higher order only.
     built = design(vanderpol_design.model.with_fixed_point(word_bits=16),
                    analysis=vanderpol_design.analysis)
     finals = [c for c in built.plan.constants if c.note.startswith("h*1/6") or
               c.note.startswith("h*1/3")]
     errors = {round(c.error / c.real, 12) for c in finals}
     assert len(errors) == 1  # h/6 and h/3 share their mantissa, so their rounding too
-    expected_ppm = errors.pop() * 1e6
+    expected_ppm = -errors.pop() * 1e6  # the period moves the other way (positive: runs slow)
     effect = coefficient_effect(built)
-    assert effect.frequency_shift_ppm == pytest.approx(expected_ppm, rel=0.05, abs=0.2)
+    assert effect.period_shift_ppm == pytest.approx(expected_ppm, rel=0.05, abs=0.2)
     assert effect.warning is None
-    strict = coefficient_effect(built, CycleTolerance(frequency_ppm=abs(expected_ppm) / 10))
+    strict = coefficient_effect(built, CycleTolerance(period_ppm=abs(expected_ppm) / 10))
     assert strict.warning is not None and "past the tolerance" in strict.warning

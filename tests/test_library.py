@@ -175,12 +175,18 @@ def test_models_verb_lists_every_builtin(capsys) -> None:
 
 def test_models_verb_json(capsys) -> None:
     assert main(["models", "--json"]) == 0
-    entries = json.loads(capsys.readouterr().out)
+    data = json.loads(capsys.readouterr().out)
+    assert next(iter(data)) == "ok" and data["ok"] is True
+    entries = data["models"]
     assert [e["name"] for e in entries] == builtin_names()
     hopf = next(e for e in entries if e["name"] == "hopf")
     assert hopf["states"] == ["x", "y"] and set(hopf["params"]) == {"mu", "omega", "gamma"}
-    assert all(set(e) == {"name", "states", "params", "description"} and e["description"]
+    assert all(set(e) == {"name", "states", "params", "description", "network"} and e["description"]
                for e in entries)
+    for entry in entries:  # the list is read from the files; the built model must agree with it
+        model = load_model(entry["name"])
+        assert entry["states"] in (None, list(model.state_names))
+        assert (entry["states"] is None) == (entry["network"] is not None)
 
 
 # -- sin and cos: analysed exactly, refused by the fixed-point lowering with a clear message --------

@@ -12,11 +12,12 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from orbitfix.gen.analysis.summary import analyse, format_report
+from orbitfix.gen.analysis.summary import analyse
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.model.networks import GAITS, build_network, chain_lags
 from orbitfix.verify.cli.main import main
+from orbitfix.verify.report.analysis import format_report
 
 
 @functools.cache

@@ -33,6 +33,7 @@ from orbitfix.gen.analysis.limit_cycle import LimitCycle, find_limit_cycle
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.compiled import array_function
 from orbitfix.gen.model.definition import Model
+from orbitfix.gen.progress import tell
 
 NEAR = 1e-2                 # decided when this close (relative to the cycle's size) to an attractor
 ESCAPE = 1e3                # grows without bound past this many times the box's and cycle's size
@@ -229,6 +230,7 @@ class _Run:
         with warnings.catch_warnings(), np.errstate(all="ignore"):
             warnings.simplefilter("ignore", RuntimeWarning)
             while active.size and self.elapsed < until:
+                tell("following the starts", round(1000 * self.elapsed / until), 1000)
                 if time.monotonic() > self.deadline:
                     note = (f"the {self.seconds:g} s budget ran out after {self.elapsed:.4g} model "
                             f"time units ({self.elapsed / self.period:.3g} periods)")

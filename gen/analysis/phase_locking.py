@@ -13,7 +13,6 @@ lag_i = (theta_1 - theta_i) / 2 pi modulo 1, the part of a turn by which i trail
 
 from __future__ import annotations
 
-import math
 import time
 import warnings
 from dataclasses import dataclass
@@ -244,23 +243,6 @@ def _cycles_to_lock(history: list[tuple[float, ...]], wanted: tuple[float, ...])
             break
         locked_from = k
     return locked_from if locked_from is not None else None
-
-
-def format_locking(locking: PhaseLocking) -> list[str]:
-    """Report lines: one per oscillator with measured and wanted lags, then the verdict."""
-    lines = ["Network phase locking (lags in cycles after oscillator 1)"]
-    width = max(len(label) for label in locking.labels)
-    for i, label in enumerate(locking.labels):
-        measured = "-" if locking.lags is None else f"{locking.lags[i]:.6f}"
-        error = "" if locking.lag_errors is None else f"  error {locking.lag_errors[i]:+.2e}"
-        lines.append(f"  {i + 1}. {label:<{width}}  lag {measured}  wanted {locking.wanted_lags[i]:.6f}"
-                     f"{error}")
-    if locking.common_period is not None and math.isfinite(locking.common_period):
-        lines.append(f"  common period: {locking.common_period:.8g} model time units")
-    if locking.cycles_to_lock is not None:
-        lines.append(f"  cycles to lock from the initial state: {locking.cycles_to_lock}")
-    lines.append(f"  verdict: {locking.verdict}")
-    return lines
 
 
 def _rates_with_deadline(model: Model):

@@ -21,6 +21,7 @@ from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import IntegerProgram, Op
 from orbitfix.gen.program.operations import KINDS, CSite, kind_of
+from orbitfix.gen.safety import SAFETY_NOTE
 from orbitfix.gen.timing.integrators import Integrator
 from orbitfix.gen.timing.step_size import Timing
 
@@ -30,11 +31,6 @@ def templates_folder() -> Path:
     package = importlib.import_module("orbitfix.templates")
     return Path(next(iter(package.__path__)))
 
-SAFETY_NOTE = (
-    "This code can move an actuator. Clamp its outputs to the machine's limits, bench-test with "
-    "the load disconnected, keep an independent hardware stop, and follow local codes and the "
-    "machine's own safety standard. orbitfix claims no certification."
-)
 
 # The harness's functions, declared once: in the harness C and in the verifier's cffi definitions.
 HARNESS_DECLARATIONS = """\

@@ -33,11 +33,12 @@ STUDY_ADVICE = ("lower loop_hz (or raise cycle_hz) so a cycle takes fewer steps,
 class CycleTolerance:
     """How far a stepped cycle may stray from the continuous one and still count as kept.
 
-    frequency_ppm : float -- largest frequency error, parts per million (1000 ppm = 0.1 %).
+    period_ppm : float -- largest period error, parts per million (1000 ppm = 0.1 %); the error is
+        positive when the stepped orbit runs slow (its period is longer than the wanted one).
     amplitude : float -- largest relative error of any state's half range (0.02 = 2 %).
     """
 
-    frequency_ppm: float = 1000.0
+    period_ppm: float = 1000.0
     amplitude: float = 0.02
 
 
@@ -48,13 +49,13 @@ class SteppedCycle:
     kept: bool
     verdict: str
     period_steps: float | None
-    frequency_error_ppm: float | None
+    period_error_ppm: float | None
     amplitude: tuple[float, ...] | None
     amplitude_error: float | None
 
     def to_json(self) -> dict:
         return {"kept": self.kept, "verdict": self.verdict, "period_steps": self.period_steps,
-                "frequency_error_ppm": self.frequency_error_ppm,
+                "period_error_ppm": self.period_error_ppm,
                 "amplitude": list(self.amplitude) if self.amplitude else None,
                 "amplitude_error": self.amplitude_error}
 
@@ -102,10 +103,10 @@ def measure(step: Callable[[np.ndarray], np.ndarray], start: np.ndarray, steps: 
         return SteppedCycle(False, verdict, None, None, tuple(float(a) for a in amplitude),
                             amplitude_error)
     period = float(np.mean(crossings))
-    error_ppm = (wanted_period_steps / period - 1) * 1e6
-    kept = abs(error_ppm) <= tolerance.frequency_ppm and amplitude_error <= tolerance.amplitude
+    error_ppm = (period / wanted_period_steps - 1) * 1e6  # positive: runs slow
+    kept = abs(error_ppm) <= tolerance.period_ppm and amplitude_error <= tolerance.amplitude
     verdict = ("keeps the cycle within tolerance" if kept else
-               f"keeps a cycle, but off by {error_ppm:+.0f} ppm in frequency and "
+               f"keeps a cycle, but off by {error_ppm:+.0f} ppm in period and "
                f"{100 * amplitude_error:.2f} % in amplitude")
     return SteppedCycle(kept, verdict, period, error_ppm, tuple(float(a) for a in amplitude),
                         amplitude_error)
@@ -260,11 +261,11 @@ def lowest_loop_rate(model: Model, integrator: Integrator, period: float, sample
 
 def needed_loop_rate(loop_hz: float, cycle: SteppedCycle, integrator: Integrator,
                      tolerance: CycleTolerance) -> float | None:
-    """A first-order estimate of the loop rate at which a cycle that misses its frequency
+    """A first-order estimate of the loop rate at which a cycle that misses its period
     tolerance would meet it: the error of an order-p integrator scales as h**p."""
-    if cycle.frequency_error_ppm is None:
+    if cycle.period_error_ppm is None:
         return None
-    ratio = abs(cycle.frequency_error_ppm) / tolerance.frequency_ppm
+    ratio = abs(cycle.period_error_ppm) / tolerance.period_ppm
     if ratio <= 1:
         return loop_hz
     return loop_hz * ratio ** (1.0 / integrator.order)

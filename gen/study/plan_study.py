@@ -11,6 +11,7 @@ from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
 from orbitfix.gen.pipeline import Design, design, program_states
 from orbitfix.gen.program.integer_program import WORD_SIZES
+from orbitfix.gen.progress import tell
 from orbitfix.gen.study.discrete_cycle import (
     START_POINTS,
     STUDY_ADVICE,
@@ -92,13 +93,13 @@ class CoefficientEffect:
     """How much rounding the constants alone moves the stepped cycle: the float step map with the
     constants' real values against the same map with the values the stored integers stand for."""
 
-    frequency_shift_ppm: float | None
+    period_shift_ppm: float | None
     amplitude_shift: float | None
     worst_constants: tuple[str, ...]
     warning: str | None
 
     def to_json(self) -> dict:
-        return {"frequency_shift_ppm": self.frequency_shift_ppm,
+        return {"period_shift_ppm": self.period_shift_ppm,
                 "amplitude_shift": self.amplitude_shift,
                 "worst_constants": list(self.worst_constants), "warning": self.warning}
 
@@ -115,7 +116,7 @@ def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -
     rounded = replace(program, ops=tuple(replace(op, real=represented[i]) if i in represented
                                           else op for i, op in enumerate(program.ops)))
     cycle = built.analysis.cycle
-    loose = CycleTolerance(frequency_ppm=1e9, amplitude=1e9)
+    loose = CycleTolerance(period_ppm=1e9, amplitude=1e9)
     starts = program_states(built.model, cycle.samples)
     exact, quantised = (float_cycle(p, starts, built.timing.steps_per_cycle,
                                     cycle.state_min, cycle.state_max, tolerance=loose)
@@ -124,14 +125,14 @@ def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -
     worst = tuple(f"{c.note} ({c.error / c.real:+.2e})" for c in ranked[:3] if c.real and c.error)
     if exact.period_steps is None or quantised.period_steps is None:
         return CoefficientEffect(None, None, worst, "the float step map keeps no cycle to compare")
-    frequency = (exact.period_steps / quantised.period_steps - 1) * 1e6
+    period = (quantised.period_steps / exact.period_steps - 1) * 1e6  # positive: runs slow
     amplitude = max(abs(q / e - 1) for q, e in zip(quantised.amplitude, exact.amplitude, strict=True))
     warning = None
-    if abs(frequency) > tolerance.frequency_ppm or amplitude > tolerance.amplitude:
-        warning = (f"rounding the constants alone moves the cycle by {frequency:+.1f} ppm in "
-                   f"frequency and {100 * amplitude:.3f} % in amplitude, past the tolerance; the "
+    if abs(period) > tolerance.period_ppm or amplitude > tolerance.amplitude:
+        warning = (f"rounding the constants alone moves the cycle by {period:+.1f} ppm in "
+                   f"period and {100 * amplitude:.3f} % in amplitude, past the tolerance; the "
                    f"largest relative errors: {', '.join(worst)}")
-    return CoefficientEffect(frequency, amplitude, worst, warning)
+    return CoefficientEffect(period, amplitude, worst, warning)
 
 
 def _counts(built: Design) -> tuple[int, int]:
@@ -179,7 +180,8 @@ def study_integrators(base: Design, tolerance: CycleTolerance | None = None) -> 
     tolerance = tolerance or CycleTolerance()
     work_size.refuse_beyond_machine(study_work(base), STUDY_ADVICE)
     studies = []
-    for name, integrator in INTEGRATORS.items():
+    for done, (name, integrator) in enumerate(INTEGRATORS.items()):
+        tell(f"studying the integrators at the loop rate ({name})", done, len(INTEGRATORS))
         built = design(base.model.with_fixed_point(integrator=name), analysis=base.analysis)
         operations, products = _counts(built)
         floats = _cycle_of(built, tolerance, integer=False)
@@ -237,10 +239,10 @@ def _binding(best: Candidate | None, cheaper: Candidate | None, tolerance: Cycle
     if cheaper is not None:
         reason = cheaper.problem or (cheaper.cycle.verdict if cheaper.cycle else "")
         why_not = f"; the next cheaper ({cheaper.word_bits}-bit {cheaper.integrator}) fails: {reason}"
-    frequency = abs(best.cycle.frequency_error_ppm or 0.0) / tolerance.frequency_ppm
+    period = abs(best.cycle.period_error_ppm or 0.0) / tolerance.period_ppm
     amplitude = (best.cycle.amplitude_error or 0.0) / tolerance.amplitude
-    if frequency >= amplitude:
-        return (f"frequency: {abs(best.cycle.frequency_error_ppm or 0):.1f} ppm of the "
-                f"{tolerance.frequency_ppm:g} ppm allowed{why_not}")
+    if period >= amplitude:
+        return (f"period: {abs(best.cycle.period_error_ppm or 0):.1f} ppm of the "
+                f"{tolerance.period_ppm:g} ppm allowed{why_not}")
     return (f"amplitude: {100 * (best.cycle.amplitude_error or 0):.3f} % of the "
             f"{100 * tolerance.amplitude:g} % allowed{why_not}")

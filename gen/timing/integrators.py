@@ -17,10 +17,12 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass
 from fractions import Fraction
-
-import numpy as np
+from typing import TYPE_CHECKING
 
 from orbitfix.gen.errors import InputError
+
+if TYPE_CHECKING:
+    import numpy as np
 
 
 @dataclass(frozen=True)
@@ -42,6 +44,8 @@ class Integrator:
 
     def step(self, f: Callable[[np.ndarray], np.ndarray], x: np.ndarray, h: float) -> np.ndarray:
         """One float64 step of the autonomous system x' = f(x) (layer L1)."""
+        import numpy as np  # here, not at the top: the command line lists integrators without numpy
+
         if self.sweep:
             x = np.array(x, dtype=float, copy=True)
             for i in range(x.shape[0]):

@@ -1,6 +1,7 @@
 """Time the continuous-model analysis of the built-in Van der Pol model at mu = 1 and mu = 10.
 
-Run as ``python tests/bench/bench_analysis.py``; prints the median of a few runs for each case.
+Run as ``python tests/bench/bench_analysis.py [--quick]``; prints the median of a few runs for each
+case (--quick: one run at mu = 1).
 """
 
 from __future__ import annotations
@@ -12,10 +13,12 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
+from quick_mode import pick
+
 from orbitfix.gen.analysis.summary import analyse
 from orbitfix.gen.model.model_file import load_model
 
-RUNS = 5
+RUNS = pick(5, 1)
 
 
 def median_seconds(mu: float) -> tuple[float, str]:
@@ -31,7 +34,7 @@ def median_seconds(mu: float) -> tuple[float, str]:
 
 def main() -> None:
     print(f"analyse(vanderpol), median of {RUNS} runs")
-    for mu in (1.0, 10.0):
+    for mu in pick((1.0, 10.0), (1.0,)):
         seconds, verdict = median_seconds(mu)
         print(f"  mu = {mu:<4g}  {seconds * 1000:8.1f} ms   {verdict[:72]}")
 

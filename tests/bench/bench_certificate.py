@@ -2,7 +2,8 @@
 default Q format, the default box and bands), with the states it stepped, each phase's share, the
 peak memory, and a coarser format beside it. Prints figures; asserts nothing.
 
-Run: python tests/bench/bench_certificate.py
+Run: python tests/bench/bench_certificate.py [--quick]   (--quick: the coarse 8-fraction-bit
+format only)
 """
 
 from __future__ import annotations
@@ -12,6 +13,8 @@ import sys
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+
+from quick_mode import quick
 
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
@@ -37,7 +40,8 @@ def main() -> None:
     print(f"lattice certificate, 16-bit Van der Pol at 1 kHz, exclusion radius {EXCLUDE_RADIUS}")
     print(f"{'formats':>14}  {'states':>12}  {'time':>10}  {'rate':>8}")
     run(8)
-    run(None)
+    if not quick():
+        run(None)
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20
     print(f"peak memory of the run: {peak:.2f} GiB")
 

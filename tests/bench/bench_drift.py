@@ -2,7 +2,8 @@
 24-hour-equivalent run from every start, and the time of integer-period detection (Brent's
 algorithm with the plain step). Prints figures; asserts nothing.
 
-Run: python tests/bench/bench_drift.py [hours]   (default 24)
+Run: python tests/bench/bench_drift.py [hours] [--quick]   (default 24; --quick: 32-bit words only,
+0.01 h and 100,000 steps)
 """
 
 from __future__ import annotations
@@ -14,6 +15,8 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+
+from quick_mode import arguments, pick
 
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
@@ -27,9 +30,10 @@ from orbitfix.verify.proofs.drift import (
 
 
 def main() -> None:
-    hours = float(sys.argv[1]) if len(sys.argv) > 1 else 24.0
+    given = arguments()
+    hours = float(given[0]) if given else pick(24.0, 0.01)
     os.environ.setdefault("ORBITFIX_CACHE", tempfile.mkdtemp(prefix="orbitfix-bench-"))
-    for word in (32, 16):
+    for word in pick((32, 16), (32,)):
         model = load_model("vanderpol").with_fixed_point(word_bits=word)
         built = design(model)
         started = time.perf_counter()
@@ -37,8 +41,8 @@ def main() -> None:
         build = time.perf_counter() - started
         starts, _ = choose_starts(built)
         nominal = starts[0].state
-        steps = 10_000_000
-        stats = harness_statistics(host, nominal, steps, steps // 4, 2000, 0, 1 << 20)
+        steps = pick(10_000_000, 100_000)
+        stats = harness_statistics(host, nominal, steps, steps // 4, 2000, 0)
         rate = steps / stats.seconds
         started = time.perf_counter()
         period, seen_at = integer_period(host, nominal, budget=1 << 40)

@@ -1,7 +1,7 @@
 """Benchmark of the host side: compiled C steps per second, golden-verified steps per second,
 and the whole bit-exact proof, measured side by side in one run. Prints figures; asserts nothing.
 
-Run: python tests/bench/bench_host.py
+Run: python tests/bench/bench_host.py [--quick]   (--quick: 10,000 steps and states, one run)
 """
 
 from __future__ import annotations
@@ -17,12 +17,17 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
+from quick_mode import pick
+
 from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
 from orbitfix.verify.proofs.bit_exact import _c_run, prove_bit_exact
 from orbitfix.verify.targets.host_build import build_host_module
+
+SIZE = pick(1_000_000, 10_000)
+RUNS = pick(3, 1)
 
 
 def best(seconds: list[float]) -> float:
@@ -43,23 +48,23 @@ def main() -> None:
     program = built.plan.program
     initial = np.array(built.plan.initial_state, dtype=np.int64)
 
-    steps = 2_000_000
+    steps = 2 * SIZE
     c_times = []
-    for _ in range(3):
+    for _ in range(RUNS):
         t = time.perf_counter()
         _c_run(host, initial, steps)
         c_times.append(time.perf_counter() - t)
-    batch = np.repeat(initial.reshape(-1, 1), 1_000_000, axis=1)
+    batch = np.repeat(initial.reshape(-1, 1), SIZE, axis=1)
     golden_times = []
-    for _ in range(3):
+    for _ in range(RUNS):
         t = time.perf_counter()
         golden.step(program, batch)
         golden_times.append(time.perf_counter() - t)
     proof_times = []
     typical = np.array([1 << 27, 1 << 27])
-    for _ in range(3):
+    for _ in range(RUNS):
         t = time.perf_counter()
-        report = prove_bit_exact(program, host, initial, typical)
+        report = prove_bit_exact(program, host, initial, typical, states=SIZE, steps=SIZE)
         proof_times.append(time.perf_counter() - t)
         assert report.bit_exact
     print("host side, Van der Pol mu=1, rk4, 32-bit words "
@@ -67,8 +72,8 @@ def main() -> None:
     print(f"  design (analysis, timing, plan):       {design_seconds:8.3f} s")
     print(f"  host build (strict flags + cffi):      {build_seconds:8.3f} s")
     print(f"  compiled C, incl. recording states:   {steps / best(c_times) / 1e6:8.2f} M steps/s")
-    print(f"  golden interpreter, batch of 1e6:     {1e6 / best(golden_times) / 1e6:8.2f} M steps/s")
-    print(f"  bit-exact proof (1e6 states + 1e6 trajectory steps): {best(proof_times):.3f} s")
+    print(f"  golden interpreter, batch of {SIZE:.0e}:   {SIZE / best(golden_times) / 1e6:8.2f} M steps/s")
+    print(f"  bit-exact proof ({SIZE:.0e} states + {SIZE:.0e} trajectory steps): {best(proof_times):.3f} s")
     print(f"    of which random states {report.seconds['random_states']:.3f} s, "
           f"trajectory {report.seconds['trajectory']:.3f} s")
 

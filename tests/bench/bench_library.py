@@ -1,7 +1,8 @@
 """Time the check (the whole continuous-model analysis) of every built-in model, networks included.
 
-Run as ``python tests/bench/bench_library.py``; prints the median of a few runs per model, with the
-number of states, the verdict and the number of angle states (phases, modulo 2 pi).
+Run as ``python tests/bench/bench_library.py [--quick]`` (--quick: one run of two small models);
+prints the median of a few runs per model, with the number of states, the verdict and the number
+of angle states (phases, modulo 2 pi).
 """
 
 from __future__ import annotations
@@ -13,10 +14,12 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
+from quick_mode import pick
+
 from orbitfix.gen.analysis.summary import analyse
 from orbitfix.gen.model.model_file import builtin_names, load_model
 
-RUNS = 3
+RUNS = pick(3, 1)
 
 
 def median_seconds(name: str) -> tuple[float, int, str]:
@@ -37,7 +40,7 @@ def median_seconds(name: str) -> tuple[float, int, str]:
 
 def main() -> None:
     print(f"analyse(model) for each built-in model, median of {RUNS} runs")
-    names = builtin_names()
+    names = pick(builtin_names(), ["hopf", "vanderpol"])
     width = max(len(n) for n in names)
     for name in names:
         seconds, states, outcome = median_seconds(name)

@@ -3,7 +3,8 @@ point, the cycle followed through every sample beyond it) and FitzHugh-Nagumo in
 (two Hopf points), each with one and with two worker processes; and a 20 x 20 basin sample of
 the built-in Van der Pol model.
 
-Run as ``python tests/bench/bench_sweep.py``; prints the median of a few runs for each case.
+Run as ``python tests/bench/bench_sweep.py [--quick]``; prints the median of a few runs for each case
+(--quick: one run of each at 5 samples, one worker, and a 4 x 4 basin).
 """
 
 from __future__ import annotations
@@ -15,12 +16,16 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
+from quick_mode import pick
+
 from orbitfix.gen.analysis.basin import box_starts, sample_basin
 from orbitfix.gen.analysis.sweep import sweep
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.model.model_file import load_model
 
-RUNS = 3
+RUNS = pick(3, 1)
+SAMPLES = pick(41, 5)
+GRID = pick(20, 4)
 
 
 def normal_form():
@@ -39,7 +44,7 @@ def timed(model, parameter: str, start: float, stop: float, workers: int) -> tup
     times, summary = [], ""
     for _ in range(RUNS):
         began = time.perf_counter()
-        result = sweep(model, parameter, start, stop, workers=workers)
+        result = sweep(model, parameter, start, stop, samples=SAMPLES, workers=workers)
         times.append(time.perf_counter() - began)
         found = sum(1 for b in result.branch if b.found)
         summary = (f"{len(result.hopf)} Hopf point(s), {found} of {len(result.branch)} branch "
@@ -48,11 +53,11 @@ def timed(model, parameter: str, start: float, stop: float, workers: int) -> tup
 
 
 def main() -> None:
-    print(f"sweep, 41 samples, median of {RUNS} runs")
+    print(f"sweep, {SAMPLES} samples, median of {RUNS} runs")
     cases = [("normal form, mu -1..1", normal_form(), "mu", -1.0, 1.0),
              ("FitzHugh-Nagumo, I 0..1.6", fitzhugh_nagumo(), "I", 0.0, 1.6)]
     for label, model, parameter, start, stop in cases:
-        for workers in (1, 2):
+        for workers in pick((1, 2), (1,)):
             seconds, summary = timed(model, parameter, start, stop, workers)
             print(f"  {label:<28} workers {workers}  {seconds:6.2f} s   {summary}")
     model = load_model("vanderpol")
@@ -60,9 +65,9 @@ def main() -> None:
     times, share = [], 0.0
     for _ in range(RUNS):
         began = time.perf_counter()
-        share = sample_basin(model, box_starts(model, box, grid=20), box).fraction_on_cycle
+        share = sample_basin(model, box_starts(model, box, grid=GRID), box).fraction_on_cycle
         times.append(time.perf_counter() - began)
-    print(f"basin, vanderpol, 20 x 20 grid in x, y from -3 to 3: {statistics.median(times):6.2f} s "
+    print(f"basin, vanderpol, {GRID} x {GRID} grid in x, y from -3 to 3: {statistics.median(times):6.2f} s "
           f"(median of {RUNS}), {100 * share:.1f} % reach the cycle")
 
 

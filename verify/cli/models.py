@@ -1,45 +1,59 @@
 """The ``models`` verb: list the built-in models, one line each, or as JSON.
 
 A user picking a rhythm generator wants to see what ships with the tool before writing a model file.
+The list is read from the model files' own text (name, description, declared states and
+parameters), without building the models: that keeps this verb as quick as ``--help``.
 """
 
 from __future__ import annotations
 
 import argparse
-import json
+import tomllib
+from pathlib import Path
 from typing import Any
-
-from orbitfix.gen.model.model_file import builtin_names, load_model
-from orbitfix.verify.cli.options import plain_json
 
 
 def register(verbs: Any) -> None:
-    """Add the ``models`` sub-command to the command line's verb parsers."""
+    """Add the ``models`` verb to the command line."""
     parser = verbs.add_parser("models", help="list the built-in models (name, states, what each is for)")
     parser.add_argument("--json", action="store_true",
-                        help="print a JSON list of {name, states, params, description}")
-    parser.set_defaults(handler=_models)
+                        help="print one JSON object: ok, then models, a list of {name, description, "
+                             "states, params, network}")
+    parser.set_defaults(handler=run)
+
+
+def library_folder() -> Path:
+    """The folder of the built-in model files (package data of ``orbitfix.gen.model``)."""
+    import orbitfix.gen.model
+
+    return Path(next(iter(orbitfix.gen.model.__path__))) / "library"
 
 
 def model_list() -> list[dict]:
-    """One plain-data entry per built-in model: name, state names, parameter values, description."""
+    """One plain-data entry per built-in model, from its file: name, description, the declared state
+    names (None for a network, whose states are built from its oscillators), parameter values, and
+    the network's description (None for a single oscillator)."""
     entries = []
-    for name in builtin_names():
-        model = load_model(name)
-        entries.append({"name": name, "states": list(model.state_names),
-                        "params": model.parameter_values, "description": model.description})
+    for path in sorted(library_folder().glob("*.toml")):
+        with path.open("rb") as handle:
+            data = tomllib.load(handle)
+        params = {name: (value.get("value") if isinstance(value, dict) else value)
+                  for name, value in data.get("parameters", {}).items()}
+        network = data.get("network")
+        entries.append({"name": path.stem, "description": data.get("description", ""),
+                        "states": list(data["states"]) if "states" in data else None,
+                        "params": params,
+                        "network": None if network is None else {
+                            key: network[key] for key in ("oscillator", "pattern", "count", "labels")
+                            if key in network}})
     return entries
 
 
-def _models(args: argparse.Namespace, partial: dict) -> int:
+def run(args: argparse.Namespace, partial: dict) -> int:
+    """List the models; exit 0."""
+    from orbitfix.verify.report.json_output import json_text
+    from orbitfix.verify.report.models import format_models
+
     entries = model_list()
-    if args.json:
-        print(json.dumps(plain_json(entries), indent=2))
-        return 0
-    width = max(len(e["name"]) for e in entries)
-    print(f"{len(entries)} built-in models (use the name wherever a model file is accepted):")
-    for entry in entries:
-        count = len(entry["states"])
-        states = ", ".join(entry["states"]) if count <= 4 else f"{count} states"
-        print(f"  {entry['name']:<{width}}  [{states}]  {entry['description']}")
+    print(json_text(True, {"models": entries}) if args.json else format_models(entries))
     return 0

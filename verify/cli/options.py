@@ -1,64 +1,139 @@
-"""What every verb of the command line shares: the model argument, --set, and plain JSON."""
+"""What the verbs of the command line share: the model argument and --set, the one group of
+fixed-point options, the cycle tolerances, the fan-out options, and argument types that refuse a
+bad value while the command line is read (exit 2, before any work starts).
+
+Only light modules are imported here, so that every verb (and ``--help``) starts quickly.
+"""
 
 from __future__ import annotations
 
 import argparse
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from orbitfix.gen.c.emit import SAFETY_NOTE
 from orbitfix.gen.errors import InputError
-from orbitfix.gen.model.definition import Model
-from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.program.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
+from orbitfix.gen.timing.integrators import INTEGRATORS
 
-CAUTION = "Caution: " + SAFETY_NOTE
+if TYPE_CHECKING:
+    from orbitfix.gen.model.definition import Model
+
+PERIOD_SIGN = ("positive when the integer orbit runs slow (its period is longer than the "
+               "continuous cycle's)")
 
 
-def add_model_arguments(parser: argparse.ArgumentParser, json_flag: bool = True) -> None:
-    """The model argument, --set NAME=VALUE, and (optionally) --json."""
-    parser.add_argument("model", help="a model file (.toml) or a built-in model name")
+def whole(low: int) -> Any:
+    """An argument type: a whole number of at least ``low`` (underscores allowed: 1_000_000)."""
+    def parse(text: str) -> int:
+        try:
+            value = int(text.replace("_", ""))
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+        if value < low:
+            raise argparse.ArgumentTypeError(f"{value} is too small: give at least {low}")
+        return value
+    parse.__name__ = "whole number"
+    return parse
+
+
+def number(low: float | None = None, *, above: bool = False) -> Any:
+    """An argument type: a finite number, at least ``low`` (or above it, with ``above``)."""
+    def parse(text: str) -> float:
+        try:
+            value = float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
+        if not math.isfinite(value):
+            raise argparse.ArgumentTypeError(f"'{text}' is not finite: give a finite number")
+        if low is not None and (value <= low if above else value < low):
+            wanted = ("a positive number" if above and low == 0 else
+                      f"a number above {low:g}" if above else f"a number of at least {low:g}")
+            raise argparse.ArgumentTypeError(f"{text} is out of range: give {wanted}")
+        return value
+    parse.__name__ = "number"
+    return parse
+
+
+POSITIVE = number(0.0, above=True)
+NOT_NEGATIVE = number(0.0)
+
+
+def add_model_arguments(parser: argparse.ArgumentParser, json_help: str = "print one JSON object "
+                        "(its first key, ok, is the verdict) instead of the text report") -> None:
+    """The model argument, --set NAME=VALUE, and --json."""
+    parser.add_argument("model", help="a model file (.toml) or a built-in model name "
+                                      "(orbitfix models lists them)")
     parser.add_argument("--set", action="append", default=[], metavar="NAME=VALUE",
                         help="override a model parameter (repeatable)")
-    if json_flag:
-        parser.add_argument("--json", action="store_true", help="print one JSON object")
+    parser.add_argument("--json", action="store_true", help=json_help)
+
+
+def add_fixed_point_options(parser: argparse.ArgumentParser) -> None:
+    """The one group of fixed-point options: integrator, Q format, word, rounding, overflow."""
+    group = parser.add_argument_group("fixed point (default: the model file's, else as noted)")
+    group.add_argument("--integrator", choices=sorted(INTEGRATORS),
+                       help="integrator of the step function (default rk4)")
+    group.add_argument("--fraction-bits", type=whole(0), metavar="N",
+                       help="fraction bits of the states' Q format (default: chosen from the "
+                            "cycle's range)")
+    group.add_argument("--word", dest="word_bits", type=int, choices=WORD_SIZES,
+                       help="word size in bits; products use twice as many (default 32)")
+    group.add_argument("--rounding", choices=ROUNDINGS,
+                       help="rounding after every shift (default half-up)")
+    group.add_argument("--overflow", choices=OVERFLOWS,
+                       help="what a result outside the word does (default saturate)")
+
+
+def add_cycle_tolerances(parser: argparse.ArgumentParser, against: str) -> Any:
+    """--max-period-error and --max-amplitude-error, one meaning and one sign on every verb."""
+    group = parser.add_argument_group(f"how far the stepped cycle may stray from {against}")
+    group.add_argument("--max-period-error", type=POSITIVE, default=1000.0, metavar="PPM",
+                       help=f"period error allowed, parts per million; errors are printed "
+                            f"{PERIOD_SIGN} (default 1000 ppm)")
+    group.add_argument("--max-amplitude-error", type=POSITIVE, default=2.0, metavar="PERCENT",
+                       help="amplitude error allowed, percent of each state's half range on the "
+                            "cycle (default 2 %%)")
+    return group
+
+
+def add_fan_out_options(parser: argparse.ArgumentParser, what: str) -> None:
+    """--workers and --scheduler: where the independent parts of ``what`` run."""
+    parser.add_argument("--workers", type=whole(1), default=None, metavar="N",
+                        help=f"local processes for {what} (default: one per core; 1 runs all in "
+                             "this process)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help=f"run {what} on the Dask cluster whose scheduler is at ADDRESS "
+                             "(e.g. tcp://10.0.0.5:8786) instead of local processes")
 
 
 def model_from_args(args: argparse.Namespace) -> Model:
     """Load the model named on the command line, with --set and the fixed-point options applied."""
-    model = load_model(args.model)
-    overrides = {}
-    for item in args.set:
-        name, sep, value = item.partition("=")
-        if not sep or not name.strip():
-            raise InputError(f"--set '{item}': write NAME=VALUE, e.g. --set mu=2.5")
-        try:
-            number = float(value)
-        except ValueError:
-            raise InputError(f"--set '{item}': '{value}' is not a number") from None
-        if not math.isfinite(number):
-            raise InputError(f"--set '{item}': the value must be finite")
-        overrides[name.strip()] = number
-    model = model.with_parameters(overrides)
+    from orbitfix.gen.model.model_file import load_model
+
+    overrides = parse_settings(args.set)
+    model = load_model(args.model).with_parameters(overrides)
     changes: dict[str, Any] = {}
-    if getattr(args, "integrator", None):
-        changes["integrator"] = args.integrator
-    for option in ("fraction_bits", "word_bits", "rounding", "overflow"):
+    for option in ("integrator", "fraction_bits", "word_bits", "rounding", "overflow"):
         if getattr(args, option, None) is not None:
             changes[option] = getattr(args, option)
     return model.with_fixed_point(**changes) if changes else model
 
 
-def plain_json(value: Any) -> Any:
-    """JSON-safe copy: numpy scalars to Python, non-finite floats to strings."""
-    if isinstance(value, dict):
-        return {str(k): plain_json(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [plain_json(v) for v in value]
-    if hasattr(value, "item") and not isinstance(value, str):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return str(value)
-    return value
+def parse_settings(items: list[str]) -> dict[str, float]:
+    """--set items to {name: value}; a malformed item or a non-finite value is an input error."""
+    overrides = {}
+    for item in items:
+        name, sep, value = item.partition("=")
+        if not sep or not name.strip():
+            raise InputError(f"--set '{item}': write NAME=VALUE, e.g. --set mu=2.5")
+        try:
+            figure = float(value)
+        except ValueError:
+            raise InputError(f"--set '{item}': '{value}' is not a number") from None
+        if not math.isfinite(figure):
+            raise InputError(f"--set '{item}': the value must be finite")
+        overrides[name.strip()] = figure
+    return overrides
 
 
 def parse_box(items: list[str]) -> dict[str, tuple[float, float]]:
@@ -73,6 +148,8 @@ def parse_box(items: list[str]) -> dict[str, tuple[float, float]]:
             low, high = float(low_text), float(high_text)
         except ValueError:
             raise InputError(f"--box '{item}': '{low_text}' and '{high_text}' must be numbers") from None
+        if not (math.isfinite(low) and math.isfinite(high) and low < high):
+            raise InputError(f"--box '{item}': give finite numbers with LOW below HIGH")
         if name.strip() in box:
             raise InputError(f"--box gives the state '{name.strip()}' twice")
         box[name.strip()] = (low, high)

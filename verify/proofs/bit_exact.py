@@ -11,14 +11,17 @@ of the integer program where the two part.
 from __future__ import annotations
 
 import math
+import os
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from orbitfix.gen.errors import InputError
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.progress import tell
 from orbitfix.verify.targets.host_build import HostModule
 
 SEED = 20261202
@@ -50,27 +53,6 @@ class Mismatch:
             "operation": self.operation,
         }
 
-    def describe(self) -> str:
-        where = {"trajectory": f"step {self.step} of the trajectory",
-                 "traced step": f"random state number {self.step}, in the traced step "
-                                "(the verification-only file)"}.get(
-            self.part, f"random state number {self.step}")
-        lines = [f"first mismatch at {where}",
-                 f"  state before: {self.state_before}",
-                 f"  expected:     {self.expected}",
-                 f"  got:          {self.got}"]
-        if self.operation is None and self.part == "traced step":
-            lines.append("  every intermediate value agrees with golden; the traced step stores a "
-                         "different next state from the firmware step")
-        elif self.operation is None:
-            lines.append("  every intermediate value agrees; the difference is in how the C stores "
-                         "the next state")
-        else:
-            op = self.operation
-            lines.append(f"  they part at operation {op['index']} ({op['kind']}: {op['note']}): "
-                         f"expected {op['expected']}, got {op['got']}")
-        return "\n".join(lines)
-
 
 def state_units(program: IntegerProgram) -> tuple[float, ...]:
     """The real value of one integer unit of each state, in the model's own units: 2**-f for a
@@ -93,6 +75,24 @@ class BitExactReport:
     @property
     def bit_exact(self) -> bool:
         return self.first_mismatch is None
+
+
+# int64 copies alive at once while the random states are drawn, stacked, stepped in C and compared
+COPIES = 5
+
+
+def check_random_states_fit(state_count: int, count: int) -> None:
+    """Refuse, before any work, a number of random states whose arrays would not fit in half of this
+    machine's memory (InputError naming the size it would need)."""
+    needed = COPIES * 8 * state_count * count
+    try:
+        memory = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    except (AttributeError, ValueError, OSError):
+        return  # the size of memory is unknown here: let the allocation decide
+    if needed > memory // 2:
+        raise InputError(f"comparing {count:,} random states of {state_count} states each would need "
+                         f"about {needed / 2**30:,.1f} GiB; this machine has {memory / 2**30:.1f} GiB: "
+                         "give a smaller --states")
 
 
 def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
@@ -124,6 +124,7 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
         is the firmware's; None (or a None from it) locates with ``host``'s traced step.
     """
     report = BitExactReport()
+    check_random_states_fit(len(program.state_names), states)
     _check_shape(program, host)
     started = time.perf_counter()
     rng = np.random.default_rng(seed)
@@ -132,6 +133,7 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
     locator = _Locator(host, shipped_trace)
     chunk = min(CHUNK, max(1024, TRACE_BUDGET // len(program.ops)))
     for first in range(0, states, chunk):
+        tell("comparing random states, C against golden", first, states)
         part = batch[:, first:first + chunk]
         values = golden.evaluate(program, part)
         want = np.stack([values[i] for i in program.next_state])
@@ -251,6 +253,7 @@ def _trajectory(program: IntegerProgram, host: HostModule, initial: np.ndarray, 
     state = initial
     done = 0
     while done < steps:
+        tell("comparing the trajectory, C against golden", done, steps)
         count = min(block, steps - done)
         end_state, record = _c_run(host, state, count)
         before = np.vstack([state.reshape(1, -1), record[:-1]])  # the state before each step

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 from dataclasses import asdict
 
-from orbitfix.verify.proofs.drift import DriftReport, DriftRun, DriftTolerances, finite_or_none
+from orbitfix.gen.plain_data import plain_number
+from orbitfix.verify.proofs.drift import DriftReport, DriftRun, DriftTolerances
 
 
 def drift_lines(report: DriftReport) -> list[str]:
@@ -69,7 +70,7 @@ def drift_json(report: DriftReport) -> dict:
             "continuous": {"period_steps": report.continuous_period_steps,
                            "amplitude": report.continuous_amplitude},
             "step_map": {"period_steps": report.step_map.period_steps,
-                         "amplitude": [finite_or_none(v) for v in report.step_map.amplitude]},
+                         "amplitude": [plain_number(v) for v in report.step_map.amplitude]},
         },
         "runs": [run_json(run, report.fraction_bits, len(report.state_names)) for run in report.runs],
         "notes": list(report.notes),

@@ -40,6 +40,7 @@ from orbitfix.gen.analysis.sweep.hopf_points import HopfPoint, locate_hopf, same
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
 from orbitfix.gen.model.definition import Model
+from orbitfix.gen.plain_data import plain_number
 
 DEFAULT_SAMPLES = 41
 DEFAULT_SECONDS = 60.0         # wall-clock budget of the whole sweep, s
@@ -84,8 +85,8 @@ class Sweep:
                 "equilibrium": _numbers(h.equilibrium),
                 "frequency": h.frequency,
                 "kind": h.kind,
-                "first_lyapunov_coefficient": _number(h.lyapunov.value),
-                "crossing_rate": _number(h.crossing_rate),
+                "first_lyapunov_coefficient": plain_number(h.lyapunov.value),
+                "crossing_rate": plain_number(h.crossing_rate),
                 "unstable_side": h.unstable_side,
                 "cycle_side": h.cycle_side,
             } for h in self.hopf],
@@ -94,15 +95,15 @@ class Sweep:
                 "param_value": b.param_value,
                 "found": b.found,
                 "stable": b.stable,
-                "period": _number(b.period),
-                "amplitude": _number(b.amplitude),
-                "max_multiplier": _number(b.max_multiplier),
+                "period": plain_number(b.period),
+                "amplitude": plain_number(b.amplitude),
+                "max_multiplier": plain_number(b.max_multiplier),
                 "verdict": b.verdict,
             } for b in self.branch],
             "samples": [{
                 "param_value": s.param_value,
                 "equilibria": [{"state": _numbers(e.state),
-                                "eigenvalues": [[_number(v.real), _number(v.imag)]
+                                "eigenvalues": [[plain_number(v.real), plain_number(v.imag)]
                                                 for v in e.eigenvalues],
                                 "kind": e.kind} for e in s.equilibria],
             } for s in self.samples],
@@ -210,12 +211,5 @@ def _equilibria_at(model: Model, parameter: str, value: float) -> list[np.ndarra
 # -- JSON numbers ----------------------------------------------------------------------------------
 
 
-def _number(value: float | None) -> float | None:
-    if value is None:
-        return None
-    value = float(value)
-    return value if math.isfinite(value) else None
-
-
 def _numbers(values: np.ndarray) -> list[float | None]:
-    return [_number(v) for v in np.asarray(values, dtype=float)]
+    return [plain_number(v) for v in np.asarray(values, dtype=float)]

@@ -14,11 +14,10 @@ from orbitfix.verify.proofs.drift.proof import (
     DriftRun,
     DriftTolerances,
     drift_size,
-    finite_or_none,
     run_drift,
 )
 from orbitfix.verify.proofs.drift.references import Start, choose_starts
 
 __all__ = ["NO_ANGLES", "DriftReport", "DriftRun", "DriftTolerances", "Start", "build_drift_module",
-           "choose_starts", "cycle_start", "drift_size", "finite_or_none", "harness_statistics",
+           "choose_starts", "cycle_start", "drift_size", "harness_statistics",
            "integer_period", "run_drift"]

@@ -31,6 +31,7 @@ import numpy as np
 
 from orbitfix.gen.errors import InputError, UnsupportedError
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.plain_data import plain_number
 from orbitfix.gen.timing.work_size import Work, drift_work, refuse_beyond_machine
 from orbitfix.verify.proofs.drift.harness import (
     build_drift_module,
@@ -143,11 +144,6 @@ class DriftReport:
     @property
     def verdict(self) -> str:
         return "fail" if any(run.verdict == "fail" for run in self.runs) else "pass"
-
-
-def finite_or_none(value: float) -> float | None:
-    """The value, or None where it is infinite or undefined (JSON has no such numbers)."""
-    return value if math.isfinite(value) else None
 
 
 def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances | None = None,
@@ -373,8 +369,8 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     }
     return DriftRun(
         start=start, amplitude=amplitude, amplitude_first=amplitude_first,
-        amplitude_error=finite_or_none(max(versus_l0)),
-        amplitude_error_step_map=finite_or_none(max(versus_l1)) if reference_ok else None,
+        amplitude_error=plain_number(max(versus_l0)),
+        amplitude_error_step_map=plain_number(max(versus_l1)) if reference_ok else None,
         period_steps=period, period_error_ppm=period_ppm, period_error_ppm_step_map=period_ppm_l1,
         phase_drift_cycles=drift, phase_drift_cycles_continuous=drift_l0, return_spread=spread,
         crossings=c["crossings"], settled_crossings=c["settled_crossings"],

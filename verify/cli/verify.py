@@ -1,0 +1,138 @@
+"""The ``verify`` verb: prove on the host that the C gives the golden model's bits, then (unless
+left out) that long-run drift keeps the orbit, and (with --certify) the lattice certificate.
+
+Exit codes: 0 every proof passed; 1 one failed (not bit-exact, drift out of tolerance, no
+certificate); 2 bad input.
+"""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+from typing import Any
+
+from orbitfix.gen.errors import InputError
+from orbitfix.verify.cli.options import (
+    NOT_NEGATIVE,
+    POSITIVE,
+    add_cycle_tolerances,
+    add_fixed_point_options,
+    add_model_arguments,
+    model_from_args,
+    parse_box,
+    whole,
+)
+
+# The certificate's defaults, here rather than imported from the proof, so that the command line
+# starts without loading it; tests/test_doors.py checks they agree.
+DEFAULT_BAND = 0.03
+DEFAULT_TOLERANCE = 0.08
+MAX_DRIFT_STEPS = 2**63  # the drift harness counts steps in uint64_t; refuse well before it wraps
+
+
+def register(verbs: Any) -> None:
+    """Add the ``verify`` verb to the command line."""
+    parser = verbs.add_parser("verify", help="prove the C bit-exact against the golden model, and "
+                                             "its long-run drift within tolerance")
+    add_model_arguments(parser)
+    add_fixed_point_options(parser)
+    parser.add_argument("--sources", type=Path, metavar="DIR",
+                        help="verify NAME.h and NAME.c already in DIR instead of generating them")
+    parser.add_argument("--states", type=whole(1), default=1_000_000, metavar="N",
+                        help="random states to compare one step from (default 1000000)")
+    parser.add_argument("--steps", type=whole(1), default=1_000_000, metavar="N",
+                        help="trajectory steps to compare (default 1000000)")
+    drift = add_cycle_tolerances(parser, "the continuous cycle and the float step map over the "
+                                         "long-run drift test")
+    drift.add_argument("--hours", type=POSITIVE, default=24.0, metavar="H",
+                       help="length of the drift test in hours of loop time (default 24)")
+    drift.add_argument("--skip-drift", action="store_true", help="leave out the long-run drift test")
+    drift.add_argument("--max-phase-drift", type=POSITIVE, default=1.0, metavar="CYCLES",
+                       help="phase drift allowed against the float step map over the run (default 1)")
+    drift.add_argument("--max-return-spread", type=POSITIVE, default=2.0, metavar="PERCENT",
+                       help="spread of return points on the section allowed, percent of each "
+                            "state's range (default 2 %%)")
+    proof = parser.add_argument_group("lattice certificate (16-bit words, two states)")
+    proof.add_argument("--certify", action="store_true",
+                       help="prove over every lattice state of the box that the orbit enters the "
+                            "band round the cycle and never leaves the tolerance band")
+    proof.add_argument("--band", type=POSITIVE, default=DEFAULT_BAND, metavar="WIDTH",
+                       help=f"inner band's half width, in units of each state's half range on the "
+                            f"cycle (default {DEFAULT_BAND:g})")
+    proof.add_argument("--tolerance-band", type=POSITIVE, default=DEFAULT_TOLERANCE, metavar="WIDTH",
+                       help=f"the band the orbit must never leave (default {DEFAULT_TOLERANCE:g})")
+    proof.add_argument("--box", action="append", default=[], metavar="NAME=LOW:HIGH",
+                       help="the starts to prove for (default: the cycle's box times 1.5)")
+    proof.add_argument("--exclude-radius", type=NOT_NEGATIVE, default=0.0, metavar="R",
+                       help="leave out states this close to an equilibrium (normalised units)")
+    parser.set_defaults(handler=run)
+
+
+def run(args: argparse.Namespace, partial: dict) -> int:
+    """Run the proofs in order; each later one only on C that is bit-exact."""
+    box = parse_box(args.box) or None  # checked before any work
+    if args.sources is not None and not args.sources.is_dir():
+        raise InputError(f"--sources '{args.sources}' is not a folder: give the folder gen wrote "
+                         "NAME.h and NAME.c into")
+    from orbitfix.gen.errors import UnsupportedError
+    from orbitfix.gen.pipeline import design
+    from orbitfix.gen.progress import tell
+    from orbitfix.gen.safety import CAUTION
+    from orbitfix.verify.proofs.bit_exact import check_random_states_fit
+    from orbitfix.verify.proofs.certificate import certify
+    from orbitfix.verify.proofs.drift import NO_ANGLES, DriftTolerances, build_drift_module, run_drift
+    from orbitfix.verify.proofs.host_check import check_on_host, read_sources
+    from orbitfix.verify.report.certificate import certificate_json, certificate_lines
+    from orbitfix.verify.report.design import design_json, design_lines
+    from orbitfix.verify.report.drift import drift_json, drift_lines
+    from orbitfix.verify.report.host import host_fields, host_lines
+    from orbitfix.verify.report.json_output import json_text
+
+    model = model_from_args(args)
+    partial["model"] = model.name
+    drift_steps = args.hours * 3600 * model.rhythm.loop_hz
+    if not args.skip_drift and drift_steps >= MAX_DRIFT_STEPS:
+        raise InputError(f"--hours {args.hours:g} at the model's {model.rhythm.loop_hz:g} Hz loop is "
+                         f"{drift_steps:.3g} steps, beyond the drift run's step counter (below 2^63): "
+                         "give fewer hours")
+    built = design(model)
+    partial.update(design_json(built))
+    if built.plan.program.angle_states and not args.skip_drift:
+        raise UnsupportedError(NO_ANGLES)
+    check_random_states_fit(len(built.plan.program.state_names), args.states)
+    tolerances = DriftTolerances(amplitude=args.max_amplitude_error / 100,
+                                 period_ppm=args.max_period_error,
+                                 phase_drift_cycles=args.max_phase_drift,
+                                 return_spread=args.max_return_spread / 100)
+    tell("building the C on the host and comparing it with the golden model", 0, 1)
+    outcome = check_on_host(built, args.sources, states=args.states, steps=args.steps)
+    bit_exact = outcome.report.bit_exact
+    partial.update(host_fields(outcome))
+    drift = None
+    if not args.skip_drift and bit_exact:
+        sources = read_sources(built, args.sources)[0] if args.sources else None
+        tell(f"long-run drift test: {args.hours:g} h of loop time from several starts", 0, 1)
+        drift = run_drift(built, hours=args.hours, tolerances=tolerances,
+                          host=build_drift_module(built, sources))
+        partial["drift"] = drift_json(drift)
+    certificate = None
+    if args.certify and bit_exact:
+        tell("lattice certificate: following every lattice state of the box", 0, 1)
+        certificate = certify(built, band=args.band, tolerance=args.tolerance_band, box=box,
+                              exclude_radius=args.exclude_radius)
+        partial["certificate"] = certificate_json(certificate)
+    passed = (bit_exact and (drift is None or drift.verdict == "pass")
+              and (certificate is None or certificate.proved))
+    if args.json:
+        print(json_text(passed, {**partial, "caution": CAUTION}))
+        return 0 if passed else 1
+    lines = design_lines(built) + host_lines(outcome)
+    if drift is not None:
+        lines += ["", *drift_lines(drift)]
+    elif not args.skip_drift:
+        lines.append("long-run drift test: not run, since the C is not bit-exact")
+    if certificate is not None:
+        lines += ["", *certificate_lines(certificate)]
+    print("\n".join(lines))
+    print(CAUTION)
+    return 0 if passed else 1

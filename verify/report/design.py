@@ -1,0 +1,136 @@
+"""A design (timing, integrator, fixed-point plan) and the plan's studies as text and as data:
+what ``gen``, ``verify`` and ``plan`` print about the plan they use."""
+
+from __future__ import annotations
+
+from orbitfix.gen.pipeline import Design
+from orbitfix.gen.study.discrete_cycle import CycleTolerance
+from orbitfix.gen.study.plan_study import CoefficientEffect, SearchResult
+from orbitfix.gen.timing.integrators import INTEGRATORS
+
+
+def design_json(built: Design) -> dict:
+    """The design as plain data: model, parameters, integrator, timing, formats, fingerprint."""
+    return {
+        "model": built.model.name,
+        "params": built.model.parameter_values,
+        "integrator": built.integrator.name,
+        "step_size": built.timing.step,
+        "timing": built.timing.to_json(),
+        "formats": built.plan.formats_json(),
+        "model_fingerprint": built.model.fingerprint(),
+        "program_fingerprint": built.plan.program.fingerprint(),
+        "warnings": list(built.plan.warnings),
+    }
+
+
+def design_lines(built: Design) -> list[str]:
+    """Two lines (plus warnings): the timing, and the integer arithmetic of the plan."""
+    t, plan = built.timing, built.plan
+    lines = [
+        f"model {built.model.name}: cycle period {t.model_period:.6g} model time units; "
+        f"{t.cycle_hz:g} Hz at a {t.loop_hz:g} Hz loop gives a step of {t.step:.6g} "
+        f"({t.steps_per_cycle:.1f} steps per cycle)",
+        f"integrator {built.integrator.name}; states {plan.signal_format.name}, each "
+        f"intermediate in its own format; {plan.program.word_bits}-bit words, "
+        f"{plan.program.product_bits}-bit products, rounding "
+        f"{plan.program.rounding}, overflow {plan.program.overflow}; largest state "
+        f"{plan.largest_signal:.4g} on the cycle, {plan.headroom_bits:.2f} bits of headroom",
+    ]
+    lines += [f"  warning: {w}" for w in plan.warnings]
+    return lines
+
+
+def plan_json(built: Design) -> dict:
+    """The plan's tables as data: every value's range and format, the constants, the warnings."""
+    plan = built.plan
+    return {"integrator": built.integrator.name, "step_size": built.timing.step,
+            "formats": plan.formats_json(), "signals": plan.signal_table(),
+            "warnings": list(plan.warnings)}
+
+
+def plan_lines(built: Design) -> list[str]:
+    """The plan's tables for people: every value's range, sure bound and format; every constant."""
+    plan, timing = built.plan, built.timing
+    program = plan.program
+    lines = [
+        f"fixed-point plan for {built.model.name}: {built.integrator.name}, step "
+        f"{timing.step:.6g} model time units ({timing.loop_hz:g} Hz loop, {timing.cycle_hz:g} Hz "
+        "cycle)",
+        f"states {plan.signal_format.name}, each intermediate in its own format: "
+        f"{program.word_bits}-bit words, {program.product_bits}-bit products, rounding "
+        f"{program.rounding}, overflow {program.overflow}",
+        "formats hold each value's sure bound over the planning box ("
+        + ", ".join(f"{n} in [{lo:.4g}, {hi:.4g}]" for n, (lo, hi) in
+                    zip(program.state_names, plan.box, strict=True))
+        + f") times a margin of {plan.margin:g}",
+        "",
+        f"  {'value':>5}  {'kind':<6} {'range on the cycle':>24}  {'sure bound':>10}  "
+        f"{'format':<7} {'headroom':>9}  what it is",
+    ]
+    for row in plan.signal_table():
+        bound = max(abs(row["sure_min"]), abs(row["sure_max"]))
+        lines.append(f"  v{row['value']:<4}  {row['kind']:<6} {row['min']:>11.5g} .. "
+                     f"{row['max']:<10.5g}  {bound:>10.4g}  {row['format']:<7} "
+                     f"{row['headroom_bits']:>5.2f} bit  {row['note']}")
+    lines.append(f"  quantisation step of the states: {plan.signal_format.step:.3g}")
+    lines += ["", f"  {'constant':<10} {'format':<8} {'stored':>12}  {'stands for':>22}  "
+                  f"{'relative error':>14}  first use"]
+    for c in plan.constants:
+        relative = c.error / c.real if c.real else 0.0
+        lines.append(f"  v{c.index:<9} {c.format.name:<8} {c.stored:>12}  {c.real:>22.15g}  "
+                     f"{relative:>14.2e}  {c.note}")
+    lines += [f"  warning: {w}" for w in plan.warnings]
+    return lines
+
+
+def coefficient_line(effect: CoefficientEffect) -> str:
+    """What rounding the constants alone does to the cycle, in one line."""
+    if effect.warning:
+        return f"  warning: {effect.warning}"
+    if effect.period_shift_ppm is None:
+        return "  rounding of the constants: not measured (no cycle in the float step map)"
+    return (f"  rounding the constants moves the cycle's period by {effect.period_shift_ppm:+.3g} ppm "
+            f"and its amplitude by {100 * (effect.amplitude_shift or 0):.2g} % (within tolerance)")
+
+
+def integrator_lines(built: Design, studies: list, tolerance: CycleTolerance) -> list[str]:
+    """One row per integrator: its cost, the float and integer maps' errors, the lowest loop rate."""
+    lines = [
+        f"integrators at {built.timing.loop_hz:g} Hz, against the continuous cycle (tolerance "
+        f"{tolerance.period_ppm:g} ppm in period, positive when the stepped orbit runs slow; "
+        f"{100 * tolerance.amplitude:g} % in amplitude):",
+        f"  {'integrator':<17} {'ops':>4} {'products':>8}  {'float map':>12}  {'integer map':>12}"
+        f"  {'amplitude':>9}  lowest loop rate that keeps the cycle",
+    ]
+    for s in studies:
+        floats, ints = s.float_cycle, s.integer_cycle
+        f_ppm = f"{floats.period_error_ppm:+.1f} ppm" if floats.period_error_ppm is not None else "-"
+        i_ppm = f"{ints.period_error_ppm:+.1f} ppm" if ints.period_error_ppm is not None else "-"
+        amp = f"{100 * ints.amplitude_error:.3f} %" if ints.amplitude_error is not None else "-"
+        if s.lowest_loop_hz is not None:
+            rate = f"{s.lowest_loop_hz:.4g} Hz"
+        elif s.needed_loop_hz is not None:
+            rate = (f"not kept at this rate; about {s.needed_loop_hz:.4g} Hz needed (estimate "
+                    f"from its order {INTEGRATORS[s.integrator].order})")
+        else:
+            rate = f"not kept: {ints.verdict}"
+        lines.append(f"  {s.integrator:<17} {s.operations:>4} {s.products:>8}  {f_ppm:>12}  "
+                     f"{i_ppm:>12}  {amp:>9}  {rate}")
+    return lines
+
+
+def search_lines(found: SearchResult) -> list[str]:
+    """The search's candidates, cheapest first, the chosen one marked, and what binds it."""
+    lines = ["search (cheapest first: word size, then products, then operations):"]
+    for c in found.candidates:
+        mark = "<- chosen" if c is found.best else ""
+        outcome = "keeps the cycle" if c.kept else (c.problem or (c.cycle.verdict if c.cycle else ""))
+        lines.append(f"  {c.word_bits:>2}-bit {c.integrator:<17} {c.signal_format:<7} "
+                     f"{c.products:>3} products  {outcome} {mark}".rstrip())
+    if found.best is None:
+        lines.append("  no word size and integrator keeps the cycle within tolerance at this loop "
+                     "rate: raise the loop rate or loosen the tolerances")
+    else:
+        lines.append(f"  binding tolerance: {found.binding}")
+    return lines
