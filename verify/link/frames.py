@@ -20,6 +20,7 @@ class Frame:
     kind: int
     seq: int
     body: bytes
+    damaged_before: int = 0  # damaged frames the reader threw away just before this one
 
 
 class FrameError(ValueError):
@@ -64,6 +65,7 @@ class FrameReader:
         self.corrupt = 0
         self.bytes_seen = 0
         self.last_error = ""
+        self._damaged = 0
 
     def feed(self, data: bytes) -> list[Frame]:
         self.bytes_seen += len(data)
@@ -78,13 +80,18 @@ class FrameReader:
             if not chunk:
                 continue  # an empty frame is only a delimiter used as a wake-up: harmless
             try:
-                frames.append(decode_frame(chunk))
+                frame = decode_frame(chunk)
             except FrameError as exc:
                 self.corrupt += 1
+                self._damaged += 1
                 self.last_error = str(exc)
+                continue
+            frames.append(Frame(frame.kind, frame.seq, frame.body, self._damaged))
+            self._damaged = 0
         if len(self._pending) > 4 * (MAX_BODY + 8):  # no delimiter for far too long
             self._pending.clear()
             self.corrupt += 1
+            self._damaged += 1
             self.last_error = "no frame delimiter for longer than any frame"
         return frames
 
