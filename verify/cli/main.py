@@ -20,7 +20,7 @@ from orbitfix.gen.errors import InputError, OrbitfixError, UnsupportedError
 from orbitfix.gen.pipeline import Design, NoStableCycleError, design
 from orbitfix.gen.program.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from orbitfix.gen.timing.integrators import INTEGRATORS
-from orbitfix.verify.cli import basin, models, plan, sweep
+from orbitfix.verify.cli import basin, board, boards, models, plan, sweep
 from orbitfix.verify.cli.options import CAUTION, add_model_arguments, model_from_args, parse_box, plain_json
 from orbitfix.verify.proofs.certificate import DEFAULT_BAND, DEFAULT_TOLERANCE, certify
 from orbitfix.verify.proofs.drift import NO_ANGLES, DriftTolerances, build_drift_module, run_drift
@@ -28,7 +28,7 @@ from orbitfix.verify.proofs.host_check import check_on_host, read_sources
 from orbitfix.verify.targets.host_build import STRICT_FLAGS
 
 # Verbs defined in modules of their own: each module has register(verbs) adding its parser.
-VERB_MODULES: tuple = (models, plan, sweep, basin)
+VERB_MODULES: tuple = (models, plan, sweep, basin, boards, board)
 
 
 def main(argv: list[str] | None = None) -> int:

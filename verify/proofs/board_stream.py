@@ -59,6 +59,7 @@ class BoardStreamReport:
     throughput: dict = field(default_factory=dict)
     faults: dict | None = None
     seconds: dict[str, float] = field(default_factory=dict)
+    samples: dict[int, tuple[int, ...]] | None = None  # the received states, by step
 
     @property
     def bit_exact(self) -> bool:
@@ -189,6 +190,7 @@ def stream_on_board(built: Design, profile: BoardProfile, steps: int = 100_000, 
             report.faults = {**(report.faults or {}), "injected": dict(wire.injected)}
     if stream is not None:
         report.failure = report.failure or stream.failure
+        report.samples = stream.samples
         report.missing_states = len(stream.missing_steps())
         report.conflicts = len(stream.conflicts)
         compare_started = time.perf_counter()
