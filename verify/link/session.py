@@ -217,18 +217,21 @@ class BoardSession:
     # -- streaming --------------------------------------------------------------------------
 
     def stream(self, steps: int, every: int = 1, start: tuple[int, ...] | None = None,
-               rounds: int = 4) -> StreamResult:
+               rounds: int = 4, reset: bool = True) -> StreamResult:
         """Run ``steps`` steps from ``start`` (None: the model's initial state) and collect the
         state after every ``every``-th step. Lost batches are asked for again, up to ``rounds``
         times, by resetting the board to the last state received before them. A link that fails
-        ends the run; the result keeps what arrived and says why."""
+        ends the run; the result keeps what arrived and says why.
+
+        ``reset=False`` runs from the board's present state, which the caller then asserts is
+        ``start`` (say, after SET); it is still used to ask again for lost batches."""
         if not 1 <= every <= 0xFFFF or steps < 1 or steps > 0xFFFFFFFF:
             raise ValueError("steps must be 1..2^32-1 and every 1..65535")
         result = StreamResult(steps=steps, every=every, start=start)
         started = time.monotonic()
         bytes_before = self.reader.bytes_seen
         try:
-            self._segment(result, start, 0, steps, resend=False)
+            self._segment(result, start, 0, steps, resend=False, reset=reset)
             for _ in range(rounds):
                 ranges = _ranges(result.missing_steps(), every, self._batch())
                 if not ranges:
@@ -249,9 +252,10 @@ class BoardSession:
         return self.hello.batch if self.hello else 1
 
     def _segment(self, result: StreamResult, state: tuple[int, ...] | None, first_step: int,
-                 steps: int, resend: bool) -> None:
+                 steps: int, resend: bool, reset: bool = True) -> None:
         """RESET to ``state`` (the board's state after ``first_step`` steps), RUN, collect."""
-        self.reset(state)
+        if reset:
+            self.reset(state)
         seq = self._send(msg.RUN, msg.run_body(steps, result.every, first_step))
         word_bits, count = self._word_bits(), self.hello.state_count if self.hello else 0
         silent_since = time.monotonic()

@@ -138,7 +138,7 @@ def firmware_folder(built: Design, profile: BoardProfile) -> Path:
     """Where this design's firmware for this board is built (a cache keyed by what goes in)."""
     key = hashlib.sha256(f"{built.plan.program.fingerprint()}|{built.model.fingerprint()}|"
                          f"{profile.name}|{profile.source}".encode()).hexdigest()[:16]
-    return cache_root().parent / "boards" / f"{profile.name}-{key}"
+    return cache_root() / "boards" / f"{profile.name}-{key}"
 
 
 def build_for_board(built: Design, profile: BoardProfile) -> FirmwareImage:
