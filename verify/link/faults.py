@@ -7,7 +7,7 @@ Written on the command line as ``--faults`` with comma-separated NAME=VALUE item
 
     flip, drop, dup   chance per byte (both directions) of a flipped bit, a lost byte, a doubled byte
     repeat, swap      chance per frame from the board of being sent twice, or after the next one
-    delay             chance per read of a pause of ``pause`` seconds (default 0.05)
+    delay             chance per read of the line falling silent for ``pause`` seconds (default 0.05)
     cut               the link breaks after this many bytes from the board
     seed              the random generator's seed (default 1), so a failure can be replayed
 """
@@ -82,6 +82,7 @@ class FaultyLink:
         self._partial = bytearray()    # bytes of a frame not yet complete (frame-level faults)
         self._held: bytes | None = None  # a frame kept back to arrive after the next one
         self._broken = False
+        self._quiet_until = 0.0
 
     # pyserial's attributes that the session uses
     @property
@@ -94,7 +95,7 @@ class FaultyLink:
 
     @property
     def in_waiting(self) -> int:
-        if self._broken:
+        if self._broken or time.monotonic() < self._quiet_until:
             return 0
         return len(self._ready) + self.port.in_waiting
 
@@ -124,10 +125,13 @@ class FaultyLink:
             self._received += len(data)
             if data and self.spec.delay and self._rng.random() < self.spec.delay:
                 self.injected["delay"] += 1
-                time.sleep(self.spec.pause)
+                self._quiet_until = time.monotonic() + self.spec.pause
             self._ready += self._frames(self._bytes(data), flush=not data)
             if self._broken and not self._ready:
                 raise serial.SerialException("the link is cut (injected fault)")
+        if time.monotonic() < self._quiet_until:  # the line is silent: reads time out empty
+            time.sleep(self.port.timeout or 0.0)
+            return b""
         out = bytes(self._ready[:size])
         del self._ready[:size]
         return out

@@ -84,6 +84,7 @@ class BoardSession:
         self._recent: deque[int] = deque(maxlen=64)
         self._missing: set[int] = set()
         self._corrupt_seen = 0
+        self._active: StreamResult | None = None
         try:
             self.port.timeout = POLL_SECONDS
         except (AttributeError, ValueError):
@@ -145,13 +146,6 @@ class BoardSession:
             self._missing.discard((seq + k) % 256)
         return True
 
-    def _drain(self) -> None:
-        """Throw away whatever is still arriving (late frames of an abandoned exchange)."""
-        quiet_until = time.monotonic() + 2 * POLL_SECONDS
-        while time.monotonic() < quiet_until:
-            if self._poll():
-                quiet_until = time.monotonic() + 2 * POLL_SECONDS
-
     # -- requests ---------------------------------------------------------------------------
 
     def request(self, kind: int, body: bytes, reply: int) -> Frame:
@@ -175,6 +169,8 @@ class BoardSession:
                             break
                     elif frame.kind == reply and (reply != msg.OK or frame.body[1:2] == bytes([seq])):
                         return frame
+                    elif frame.kind == msg.STATES and self._active is not None:
+                        self._take_states(frame, self._active, resend=False)  # late, still good
             if not answered:
                 self.counts.timeouts += 1
             self.reader.discard()
@@ -230,9 +226,15 @@ class BoardSession:
         result = StreamResult(steps=steps, every=every, start=start)
         started = time.monotonic()
         bytes_before = self.reader.bytes_seen
+        self._active = result
         try:
             self._segment(result, start, 0, steps, resend=False, reset=reset)
             for _ in range(rounds):
+                if not result.missing_steps():
+                    break
+                # a barrier: the board answers HELLO only after everything it sent before, so
+                # every late batch is in before the missing ones are listed
+                self.request(msg.HELLO, b"", msg.HELLO_REPLY)
                 ranges = _ranges(result.missing_steps(), every, self._batch())
                 if not ranges:
                     break
@@ -244,6 +246,8 @@ class BoardSession:
                     self._segment(result, state, max(before, 0), last - max(before, 0), resend=True)
         except LinkError as exc:
             result.failure = str(exc)
+        finally:
+            self._active = None
         result.seconds = time.monotonic() - started
         result.bytes_received = self.reader.bytes_seen - bytes_before
         return result
@@ -257,7 +261,6 @@ class BoardSession:
         if reset:
             self.reset(state)
         seq = self._send(msg.RUN, msg.run_body(steps, result.every, first_step))
-        word_bits, count = self._word_bits(), self.hello.state_count if self.hello else 0
         silent_since = time.monotonic()
         while True:
             frames = self._poll()
@@ -265,20 +268,7 @@ class BoardSession:
                 silent_since = time.monotonic()
             for frame in frames:
                 if frame.kind == msg.STATES:
-                    try:
-                        batch = msg.parse_states(frame.body, count, word_bits)
-                    except msg.MessageError:
-                        self.counts.malformed += 1
-                        continue
-                    if resend:
-                        self.counts.resent += 1
-                    for k, values in enumerate(batch.states):
-                        step = batch.first_step + k * result.every
-                        known = result.samples.get(step)
-                        if known is None:
-                            result.samples[step] = values
-                        elif known != values:
-                            result.conflicts.append(step)
+                    self._take_states(frame, result, resend)
                 elif frame.kind == msg.DONE:
                     try:
                         done = msg.parse_done(frame.body)
@@ -296,6 +286,23 @@ class BoardSession:
                 self.counts.timeouts += 1
                 self.reader.discard()
                 return
+
+    def _take_states(self, frame: Frame, result: StreamResult, resend: bool) -> None:
+        count = self.hello.state_count if self.hello else 0
+        try:
+            batch = msg.parse_states(frame.body, count, self._word_bits())
+        except msg.MessageError:
+            self.counts.malformed += 1
+            return
+        if resend:
+            self.counts.resent += 1
+        for k, values in enumerate(batch.states):
+            step = batch.first_step + k * result.every
+            known = result.samples.get(step)
+            if known is None:
+                result.samples[step] = values
+            elif known != values:
+                result.conflicts.append(step)
 
 
 def _ranges(missing: list[int], every: int, batch: int) -> list[tuple[int, int]]:
