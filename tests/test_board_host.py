@@ -159,6 +159,10 @@ def test_board_verb_fails_with_exit_1_on_a_cut_link(capsys) -> None:
     out = capsys.readouterr().out
     assert code == 1
     assert "link failed" in out and "NOT complete" in out
+    saved = Path(out.split("saved in ")[1].split()[0])
+    record = json.loads(saved.read_text())
+    assert record["ok"] is False and record["link_failure"]
+    assert len(record["received_states"]) == record["states_compared"] > 0
 
 
 @pytest.mark.parametrize("argv", [

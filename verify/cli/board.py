@@ -17,6 +17,7 @@ from orbitfix.verify.cli.options import CAUTION, add_model_arguments, model_from
 from orbitfix.verify.link.faults import parse_faults
 from orbitfix.verify.proofs.board_stream import BoardStreamReport, stream_on_board
 from orbitfix.verify.targets.board_profiles import load_profile
+from orbitfix.verify.targets.host_build import cache_root
 
 
 def register(verbs: Any) -> None:
@@ -39,7 +40,8 @@ def register(verbs: Any) -> None:
     parser.add_argument("--timeout", type=float, default=5.0, metavar="SECONDS",
                         help="silence after which a stream or a request counts as lost (default 5)")
     parser.add_argument("--save", type=Path, metavar="FILE",
-                        help="also write the report and every received state to FILE (JSON)")
+                        help="also write the report and every received state to FILE (JSON); "
+                             "a run that cannot finish is saved in the cache folder anyway")
     parser.add_argument("--integrator", choices=sorted(INTEGRATORS),
                         help="integrator of the step function (default: the model's, else rk4)")
     parser.add_argument("--fraction-bits", type=int, metavar="N",
@@ -86,11 +88,18 @@ def _board(args: argparse.Namespace, partial: dict) -> int:
     partial.update(result)
     if args.save:
         _save(args.save, result, report)
+    elif report.failure and report.samples:
+        # a run that could not finish keeps what it received, so nothing already compared is lost
+        path = cache_root() / "board-runs" / f"{built.model.name}-{profile.name}-unfinished.json"
+        _save(path, result, report)
+        result["saved"] = partial["saved"] = str(path)
     if args.json:
         print(json.dumps(plain_json(result), indent=2))
     else:
         for line in describe(report):
             print(line)
+        if result.get("saved"):
+            print(f"the states received so far are saved in {result['saved']}")
         print(CAUTION)
     return 0 if report.ok else 1
 
