@@ -171,6 +171,7 @@ def test_board_verb_fails_with_exit_1_on_a_cut_link(capsys) -> None:
     ["board", "vanderpol", "--board", "host", "--steps", "0"],
     ["board", "no-such-model", "--board", "host"],
     ["board", "vanderpol", "--board", "host", "--timeout", "0"],
+    ["board", "vanderpol", "--board", "host", "--port", "/dev/no-such-port"],
 ])
 def test_board_verb_refuses_bad_input_with_exit_2(capsys, argv) -> None:
     try:

@@ -4,6 +4,7 @@ nothing hangs, intact states are still compared, and the wrong firmware is refus
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import time
 from pathlib import Path
 
@@ -190,3 +191,12 @@ def test_the_board_answers_a_malformed_request_with_an_error(host, image16) -> N
         while not frames and time.monotonic() < deadline:
             frames = session.reader.feed(session.port.read(64))
         assert frames[0].kind == msg.ERROR and msg.parse_error(frames[0].body).code == 1
+
+
+def test_a_board_that_dies_at_start_is_a_link_failure_not_a_hang(host, vdp16, image16) -> None:
+    dead = dataclasses.replace(host, start=("true",))  # the process ends at once
+    started = time.monotonic()
+    report = stream_on_board(vdp16, dead, steps=1000, image=image16, **QUICK)
+    assert not report.ok and "did not answer" in report.failure
+    assert report.states_compared == 0
+    assert time.monotonic() - started < 10

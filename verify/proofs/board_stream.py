@@ -167,7 +167,9 @@ def stream_on_board(built: Design, profile: BoardProfile, steps: int = 100_000, 
         try:
             link = serial.serial_for_url(url, baudrate=profile.baud, timeout=0.02)
         except (serial.SerialException, ValueError, OSError) as exc:
-            raise InputError(f"cannot open the board's link {url!r}: {exc}") from None
+            if port is not None:
+                raise InputError(f"--port: cannot open {url!r}: {exc}") from None
+            raise LinkError(f"cannot open the link to the board just started: {exc}") from None
         stack.callback(link.close)
         wire = FaultyLink(link, faults) if faults else link
         session = BoardSession(wire, reply_timeout=reply_timeout, silence_timeout=silence_timeout)

@@ -39,11 +39,11 @@ def running(profile: BoardProfile, image: FirmwareImage | None, port: str | None
         os.close(master)
         os.close(slave)
         raise ToolchainError(f"cannot start {command[0]}: {exc}") from None
-    os.close(master)
     try:
-        yield os.ttyname(slave)
+        yield os.ttyname(slave)  # the master stays open here too, so the pty outlives a crash
     finally:
         os.close(slave)
+        os.close(master)
         process.terminate()
         try:
             process.wait(timeout=2)
