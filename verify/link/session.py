@@ -148,14 +148,16 @@ class BoardSession:
 
     # -- requests ---------------------------------------------------------------------------
 
-    def request(self, kind: int, body: bytes, reply: int) -> Frame:
-        """Send a request and wait for its reply frame of type ``reply``; retries on silence or
-        on an ERROR saying the board saw a damaged frame."""
+    def request(self, kind: int, body: bytes, reply: int, timeout: float | None = None) -> Frame:
+        """Send a request and wait for its reply frame of type ``reply`` (up to ``timeout``,
+        default the reply timeout); retries on silence or on an ERROR saying the board saw a
+        damaged frame."""
+        wait = self.reply_timeout if timeout is None else timeout
         for attempt in range(self.retries + 1):
             if attempt:
                 self.counts.retries += 1
             seq = self._send(kind, body)
-            deadline = time.monotonic() + self.reply_timeout
+            deadline = time.monotonic() + wait
             answered = False
             while not answered and time.monotonic() < deadline:
                 for frame in self._poll():
@@ -175,7 +177,7 @@ class BoardSession:
                 self.counts.timeouts += 1
             self.reader.discard()
         raise LinkError(f"the board did not answer request type 0x{kind:02x} after "
-                          f"{self.retries + 1} tries ({self.reply_timeout:g} s each)")
+                          f"{self.retries + 1} tries ({wait:g} s each)")
 
     def say_hello(self) -> msg.Hello:
         try:
@@ -196,7 +198,9 @@ class BoardSession:
         self.request(msg.SET, msg.set_body(index, value, self._word_bits()), msg.OK)
 
     def cost(self, steps: int = 1000) -> msg.CostReply:
-        frame = self.request(msg.COST, msg.cost_body(steps), msg.COST_REPLY)
+        # the board is busy stepping before it answers: allow it the silence timeout
+        frame = self.request(msg.COST, msg.cost_body(steps), msg.COST_REPLY,
+                             timeout=max(self.reply_timeout, self.silence_timeout))
         return msg.parse_cost(frame.body)
 
     def bye(self) -> None:
