@@ -81,8 +81,10 @@ def test_each_fault_is_detected_counted_and_recovered(host, vdp16, image16, spec
     # lost batches were asked for again, and in the end every state was compared, bit-exact
     assert report.ok and report.bit_exact, report.to_json()
     assert report.steps_compared == STEPS and report.missing_states == 0
-    if counter in ("corrupt", "timeouts"):
+    if counter == "corrupt":
         assert report.frames["resent"] > 0
+    if counter == "timeouts":  # a silence in a stream is made good by resending, in a request by a retry
+        assert report.frames["resent"] + report.frames["retries"] > 0
     assert time.monotonic() - started < 60
 
 
