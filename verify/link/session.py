@@ -153,11 +153,14 @@ class BoardSession:
         default the reply timeout); retries on silence or on an ERROR saying the board saw a
         damaged frame."""
         wait = self.reply_timeout if timeout is None else timeout
+        waited = 0.0
         for attempt in range(self.retries + 1):
             if attempt:
                 self.counts.retries += 1
             seq = self._send(kind, body)
-            deadline = time.monotonic() + wait
+            patience = wait * 2**attempt  # back off: a slow or stalled line gets longer each time
+            waited += patience
+            deadline = time.monotonic() + patience
             answered = False
             while not answered and time.monotonic() < deadline:
                 for frame in self._poll():
@@ -177,7 +180,7 @@ class BoardSession:
                 self.counts.timeouts += 1
             self.reader.discard()
         raise LinkError(f"the board did not answer request type 0x{kind:02x} after "
-                          f"{self.retries + 1} tries ({wait:g} s each)")
+                          f"{self.retries + 1} tries ({waited:g} s in all)")
 
     def say_hello(self) -> msg.Hello:
         try:
