@@ -165,9 +165,8 @@ class BoardSession:
             while not answered and time.monotonic() < deadline:
                 for frame in self._poll():
                     if frame.kind == msg.ERROR:
-                        self.counts.board_errors += 1
-                        error = msg.parse_error(frame.body)
-                        if error.code == 1 or error.request_seq == seq:
+                        error = self._board_error(frame)
+                        if error is not None and (error.code == 1 or error.request_seq == seq):
                             if error.code not in (1, 5):
                                 raise LinkError(f"the board refused the request: {error.describe()}")
                             answered = True  # damaged on the way: send it again
@@ -204,7 +203,10 @@ class BoardSession:
         # the board is busy stepping before it answers: allow it the silence timeout
         frame = self.request(msg.COST, msg.cost_body(steps), msg.COST_REPLY,
                              timeout=max(self.reply_timeout, self.silence_timeout))
-        return msg.parse_cost(frame.body)
+        try:
+            return msg.parse_cost(frame.body)
+        except msg.MessageError as exc:
+            raise LinkError(f"the board's COST reply is malformed: {exc}") from None
 
     def bye(self) -> None:
         try:
@@ -285,14 +287,21 @@ class BoardSession:
                     if done.request_seq == seq:
                         return
                 elif frame.kind == msg.ERROR:
-                    self.counts.board_errors += 1
-                    error = msg.parse_error(frame.body)
-                    if error.code == 1 or error.request_seq == seq:
+                    error = self._board_error(frame)
+                    if error is not None and (error.code == 1 or error.request_seq == seq):
                         return  # the RUN itself arrived damaged; the lost range is asked again
             if time.monotonic() - silent_since > self.silence_timeout:
                 self.counts.timeouts += 1
                 self.reader.discard()
                 return
+
+    def _board_error(self, frame: Frame) -> msg.BoardError | None:
+        self.counts.board_errors += 1
+        try:
+            return msg.parse_error(frame.body)
+        except msg.MessageError:
+            self.counts.malformed += 1
+            return None
 
     def _take_states(self, frame: Frame, result: StreamResult, resend: bool) -> None:
         count = self.hello.state_count if self.hello else 0
