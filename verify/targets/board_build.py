@@ -70,10 +70,12 @@ def _sizes(profile: BoardProfile, image: Path) -> dict[str, int]:
 
 def _stack(folder: Path) -> int | None:
     """The deepest frame of each compiled file, summed: main calls into the harness, the harness
-    into the step, so no call chain needs more (no recursion, and the reports are static)."""
+    into the step, so no call chain needs more (no recursion, and the reports are static). The
+    traced step is left out: only verification tools call it, never the firmware."""
     total, found = 0, False
     for report in folder.glob("*.su"):
-        frames = [int(m.group(1)) for m in re.finditer(r"\t(\d+)\t\w+", report.read_text())]
+        frames = [int(m.group(2)) for m in re.finditer(r":(\w+)\t(\d+)\t\w+", report.read_text())
+                  if not m.group(1).endswith("_step_traced")]
         if frames:
             total += max(frames)
             found = True
