@@ -51,6 +51,14 @@ def test_a_hundred_thousand_steps_are_bit_exact_on_the_host_board(host, model, w
           f"{report.throughput['samples_per_second']:,.0f} states/s")
 
 
+def test_the_generated_header_names_its_integer_program(tmp_path: Path) -> None:
+    # The harness reports this define in HELLO; it must be the program's own fingerprint.
+    built = design(load_model("vanderpol"))
+    write_firmware_sources(built, tmp_path)
+    header = (tmp_path / "vanderpol.h").read_text()
+    assert f'#define VANDERPOL_PROGRAM_FINGERPRINT "{built.plan.program.fingerprint()}"' in header
+
+
 def test_every_kth_state_is_compared_across_the_gaps(host) -> None:
     built = design(load_model("vanderpol"))
     report = stream_on_board(built, host, steps=10_007, every=10)

@@ -40,7 +40,8 @@ def _boards(args: argparse.Namespace, partial: dict) -> int:
         print(json.dumps(plain_json(entries), indent=2))
         return 0
     width = max((len(e["name"]) for e in entries), default=4)
-    print(f"{len(entries)} board profiles (use the name with 'orbitfix board MODEL --board NAME'):")
+    count = f"{len(entries)} board profile" + ("" if len(entries) == 1 else "s")
+    print(f"{count} (use the name with 'orbitfix board MODEL --board NAME'):")
     for e in entries:
         tools = "tools installed" if e["tools_installed"] else f"missing {', '.join(e['missing_tools'])}"
         print(f"  {e['name']:<{width}}  {e['cpu']:<11} {e['kind']:<8} int {e['int_bits']} bits, "
