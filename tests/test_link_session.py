@@ -202,3 +202,31 @@ def test_a_board_that_dies_at_start_is_a_link_failure_not_a_hang(host, vdp16, im
     assert not report.ok and "did not answer" in report.failure
     assert report.states_compared == 0
     assert time.monotonic() - started < 10
+
+
+class DamageFirstWrites:
+    """A port whose first ``count`` writes arrive at the board with one bit flipped."""
+
+    def __init__(self, port, count: int) -> None:
+        self.port, self.count = port, count
+
+    def write(self, data: bytes) -> int:
+        if self.count > 0:
+            self.count -= 1
+            data = bytes([data[0] ^ 0x20, *data[1:]])
+        return self.port.write(data)
+
+    def __getattr__(self, name):
+        return getattr(self.port, name)
+
+
+def test_a_request_damaged_on_the_way_to_the_board_is_sent_again(host, image16) -> None:
+    with running(host, image16) as url:
+        port = serial.serial_for_url(url, timeout=0.02)
+        session = BoardSession(DamageFirstWrites(port, 2), **QUICK)
+        hello = session.say_hello()
+        session.bye()
+        port.close()
+    assert hello.word_bits == 16
+    # the board saw two damaged frames and said so; the host sent the request twice more
+    assert session.counts.board_errors == 2 and session.counts.retries == 2
