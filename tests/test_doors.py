@@ -30,7 +30,7 @@ from orbitfix.verify.report.numbers import to_tolerance
 from orbitfix.verify.report.progress_bar import ProgressBar, bar_line, terminal_bar
 
 ROOT = Path(__file__).resolve().parents[1]
-VERBS = ("check", "gen", "verify", "plan", "sweep", "basin", "models")
+VERBS = ("check", "gen", "verify", "plan", "sweep", "basin", "models", "boards", "board")
 
 
 def run(capsys: pytest.CaptureFixture, *argv: str) -> tuple[int, str, str]:

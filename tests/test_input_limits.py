@@ -58,7 +58,7 @@ def refused(argv: list[str], capsys: pytest.CaptureFixture) -> str:
     return err
 
 
-@pytest.mark.parametrize("value", ["1e308", "-1e308", "inf", "nan", "1e-300", "1e7"])
+@pytest.mark.parametrize("value", ["1e308", "-1e308", "inf", "nan", "1e7"])
 def test_set_refuses_absurd_parameters(value: str, capsys) -> None:
     err = refused(["check", "vanderpol", "--set", f"mu={value}"], capsys)
     assert "mu" in err
@@ -154,7 +154,7 @@ def test_python_built_models_meet_the_same_limits() -> None:
 
 
 @pytest.mark.parametrize(("limit", "inside", "outside"), [
-    (limits.PARAMETER, [0.0, 1e-6, -1e6, 3.5], [1e308, float("inf"), float("nan"), 1e-7, 10**400]),
+    (limits.PARAMETER, [0.0, 1e-6, -1e6, 3.5], [1e308, float("inf"), float("nan"), 1e7, 10**400]),
     (limits.CYCLE_HZ, [1e-4, 1e5], [0.0, -1.0, 1e-300, 2e5]),
     (limits.STEPS_PER_CYCLE, [4, 1e6], [3.9, 1e7]),
 ])

@@ -52,6 +52,8 @@ class Limit:
     def accepted(self) -> str:
         """What is accepted, in words."""
         unit = f" {self.unit}" if self.unit else ""
+        if self.signed and self.low == 0:
+            return f"a finite number of magnitude up to {self.high:g}{unit}"
         if self.signed:
             text = f"a finite number of magnitude {self.low:g} to {self.high:g}{unit}"
         else:
@@ -59,8 +61,10 @@ class Limit:
         return text + (", or 0" if self.zero else "")
 
 
-# Every user-given magnitude of the equations: parameter values, runtime ranges, literals.
-PARAMETER = Limit(1e-6, 1e6, signed=True, zero=True, what="a parameter value")
+# Every user-given magnitude of the equations: parameter values, runtime ranges, literals. No
+# smallest magnitude: a sweep bisects through zero, and a constant too small for its format is
+# refused by the plan (it would quantise to zero), where the format is known.
+PARAMETER = Limit(0.0, 1e6, signed=True, zero=True, what="a parameter value")
 # Initial values of the states.
 INITIAL = Limit(1e-12, 1e6, signed=True, zero=True, what="an initial value")
 # A number written inside an equation.

@@ -34,8 +34,6 @@ import hashlib
 import json
 from dataclasses import dataclass, field
 
-from orbitfix.gen.program.operations import kind_of
-
 WORD_SIZES = (16, 32)
 ROUNDINGS = ("truncate", "half-up", "half-even")
 OVERFLOWS = ("saturate", "wrap")
@@ -59,6 +57,8 @@ class Op:
     offset: int | None = None
 
     def __post_init__(self) -> None:
+        from orbitfix.gen.program.operations import kind_of  # numpy: not needed to read options
+
         arity = kind_of(self.kind).arity
         if len(self.args) != arity:
             raise ValueError(f"{self.kind} takes {arity} arguments, got {self.args}")
@@ -133,6 +133,8 @@ class IntegerProgram:
 
     def constants(self) -> list[tuple[int, Op]]:
         """The operations that carry a stored constant, with their value index."""
+        from orbitfix.gen.program.operations import kind_of
+
         return [(i, op) for i, op in enumerate(self.ops) if kind_of(op.kind).constant_role]
 
     def to_json(self) -> dict:

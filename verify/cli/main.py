@@ -19,9 +19,9 @@ from typing import Any, NoReturn
 
 from orbitfix.gen import __version__
 from orbitfix.gen.errors import OrbitfixError
-from orbitfix.verify.cli import basin, check, gen, models, plan, sweep, verify
+from orbitfix.verify.cli import basin, board, boards, check, gen, models, plan, sweep, verify
 
-VERBS: tuple = (check, gen, verify, plan, sweep, basin, models)
+VERBS: tuple = (check, gen, verify, plan, sweep, basin, models, boards, board)
 
 
 class UsageError(Exception):

@@ -3,7 +3,7 @@ born at each (:mod:`.parameter_sweep` runs the steps and holds the result; :mod:
 follows the equilibria, :mod:`.hopf_points` finds the crossings, :mod:`.branch` follows the cycles)."""
 
 from orbitfix.gen.analysis.sweep.branch import BranchPoint
-from orbitfix.gen.analysis.sweep.hopf_points import HopfPoint
+from orbitfix.gen.analysis.sweep.hopf_points import BISECTION_TOLERANCE, HopfPoint
 from orbitfix.gen.analysis.sweep.parameter_sweep import (
     DEFAULT_SAMPLES,
     DEFAULT_SECONDS,
@@ -12,5 +12,5 @@ from orbitfix.gen.analysis.sweep.parameter_sweep import (
     sweep,
 )
 
-__all__ = ["DEFAULT_SAMPLES", "DEFAULT_SECONDS", "BranchPoint", "HopfPoint", "Sweep", "SweepSample",
-           "sweep"]
+__all__ = ["BISECTION_TOLERANCE", "DEFAULT_SAMPLES", "DEFAULT_SECONDS", "BranchPoint", "HopfPoint",
+           "Sweep", "SweepSample", "sweep"]

@@ -1,0 +1,52 @@
+"""Starting a built image and handing back a URL that pyserial's ``serial_for_url`` opens.
+
+The host board runs as a process whose standard input and output are the master side of a
+pseudo-terminal; the URL is the slave side's path. Emulators (a socket) are added beside it.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import subprocess
+import tty
+from collections.abc import Iterator
+
+from orbitfix.gen.errors import InputError, ToolchainError
+from orbitfix.verify.targets.board_build import FirmwareImage
+from orbitfix.verify.targets.board_profiles import BoardProfile
+
+
+@contextlib.contextmanager
+def running(profile: BoardProfile, image: FirmwareImage | None, port: str | None = None) -> Iterator[str]:
+    """Yield a URL for the running board; stop it on leaving. ``port`` names a board that is
+    already running (a real board the user flashed), which is then only connected to."""
+    if port is not None:
+        yield port
+        return
+    if profile.link_kind != "pty":
+        raise InputError(f"board {profile.name!r} needs --port URL (its {profile.link_kind} link "
+                         "is not started by this version)")
+    if image is None:
+        raise InputError(f"board {profile.name!r}: no image to run")
+    master, slave = os.openpty()
+    tty.setraw(slave)  # no echo, no line editing: bytes pass unchanged both ways
+    command = [part.replace("{image}", str(image.path)) for part in profile.start]
+    try:
+        process = subprocess.Popen(command, stdin=master, stdout=master, stderr=subprocess.DEVNULL,
+                                   close_fds=True)
+    except OSError as exc:
+        os.close(master)
+        os.close(slave)
+        raise ToolchainError(f"cannot start {command[0]}: {exc}") from None
+    try:
+        yield os.ttyname(slave)  # the master stays open here too, so the pty outlives a crash
+    finally:
+        os.close(slave)
+        os.close(master)
+        process.terminate()
+        try:
+            process.wait(timeout=2)
+        except subprocess.TimeoutExpired:
+            process.kill()
+            process.wait()
