@@ -1,0 +1,55 @@
+/* Arm CMSDK APB UART (UART0 of the MPS2 boards): polled transmit, interrupt receive (IRQ 0). */
+#include <stdint.h>
+
+#include "cortex_m.h"
+
+#define UART_BASE 0x40004000u
+#define UART_DATA REG32(UART_BASE + 0x00u)
+#define UART_STATE REG32(UART_BASE + 0x04u)
+#define UART_CTRL REG32(UART_BASE + 0x08u)
+#define UART_INTSTATUS REG32(UART_BASE + 0x0Cu)
+#define UART_BAUDDIV REG32(UART_BASE + 0x10u)
+
+#define STATE_TX_FULL 0x1u
+#define STATE_RX_FULL 0x2u
+#define CTRL_TX_ENABLE 0x1u
+#define CTRL_RX_ENABLE 0x2u
+#define CTRL_RX_INTERRUPT 0x8u
+#define INT_RX 0x2u
+#define UART_IRQ 0u
+#define UART_CLOCK_HZ 25000000u
+
+void uart_start(uint32_t baud)
+{
+    uint32_t divider = UART_CLOCK_HZ / baud;
+    UART_BAUDDIV = divider < 16u ? 16u : divider;
+    UART_CTRL = CTRL_TX_ENABLE | CTRL_RX_ENABLE | CTRL_RX_INTERRUPT;
+    nvic_enable(UART_IRQ);
+}
+
+void uart_send(uint8_t byte)
+{
+    while (UART_STATE & STATE_TX_FULL) {
+    }
+    UART_DATA = byte;
+}
+
+void uart_receive_interrupt(int enabled)
+{
+    if (enabled) {
+        UART_CTRL |= CTRL_RX_INTERRUPT;
+    } else {
+        UART_CTRL &= ~CTRL_RX_INTERRUPT;
+    }
+}
+
+void uart_interrupt(void)
+{
+    UART_INTSTATUS = INT_RX;
+    while (UART_STATE & STATE_RX_FULL) {
+        if (!rx_queue_put((uint8_t)UART_DATA)) {
+            uart_receive_interrupt(0);
+            break;
+        }
+    }
+}
