@@ -3,6 +3,8 @@
  *   'E' n b1..bn   send the n bytes back
  *   'C'            cost of a counted loop of 1000 and of 2000 turns (two uint32, little-endian)
  *   'Q' c          end the run with exit code c
+ * Built with -DECHO_REPORT_ONLY it prints the two loop costs as text and ends at once (for a
+ * simulator whose UART only sends).
  */
 #include <stdint.h>
 
@@ -14,9 +16,13 @@ static const uint8_t hello[] = "orbitfix echo " BOARD_NAME "\n";
  * the count does not depend on the compiler. */
 static void counted_loop(uint16_t turns)
 {
-#if defined(__arm__)
+#if defined(__arm__) && defined(__thumb2__)
     uint32_t count = turns;
     __asm__ volatile ("1: subs %0, %0, #1\n\tbne 1b" : "+l"(count) : : "cc");
+#elif defined(__arm__)
+    /* Thumb-1 inline assembly is read in the older divided syntax: SUB here sets the flags. */
+    uint32_t count = turns;
+    __asm__ volatile ("1: sub %0, #1\n\tbne 1b" : "+l"(count) : : "cc");
 #elif defined(__AVR__)
     uint16_t count = turns;
     __asm__ volatile ("1: sbiw %0, 1\n\tbrne 1b" : "+w"(count) : : "cc");
@@ -44,10 +50,28 @@ static void put_u32(uint32_t value)
     board_write(bytes, 4u);
 }
 
+static void put_decimal(uint32_t value)
+{
+    uint8_t digits[11];
+    unsigned int at = sizeof digits;
+    digits[--at] = ' ';
+    do {
+        digits[--at] = (uint8_t)('0' + value % 10u);
+        value /= 10u;
+    } while (value != 0u);
+    board_write(&digits[at], sizeof digits - at);
+}
+
 int main(void)
 {
     board_init();
     board_write(hello, sizeof hello - 1u);
+#if defined(ECHO_REPORT_ONLY)
+    put_decimal(loop_cost(1000u));
+    put_decimal(loop_cost(2000u));
+    board_write((const uint8_t *)"\n", 1u);
+    board_finish(0);
+#endif
     for (;;) {
         int command = board_read_byte();
         if (command == 'E') {

@@ -55,10 +55,14 @@ def cross_build(profile: BoardProfile, sources: list[Path], include_dirs: list[P
     call_graph = _writes_call_graph(profile.cc)
     includes = [f"-I{path}" for path in (*profile.include, *include_dirs)]
     macro_flags = [f'-DBOARD_NAME="{profile.name}"', f"-DBOARD_BAUD={profile.baud}u"]
-    macro_flags += [f"-D{name}={value}" for name, value in (defines or {}).items()]
+    defines = defines or {}
+    macro_flags += [f"-D{name}={value}" for name, value in defines.items()]
+    # a define given here replaces the profile's own setting of the same macro
+    profile_flags = [flag for flag in profile.flags
+                     if not (flag.startswith("-D") and flag[2:].split("=", 1)[0] in defines)]
     # -ffp-contract=off: float code (the benchmark's twin, any float a user compares) keeps one
     # rounding per operation instead of fused multiply-adds, so its bits match the host's.
-    compile_flags = [*STRICT_FLAGS, optimisation, "-ffp-contract=off", *profile.flags, *macro_flags,
+    compile_flags = [*STRICT_FLAGS, optimisation, "-ffp-contract=off", *profile_flags, *macro_flags,
                      *includes, "-fstack-usage"]
     if call_graph:
         compile_flags.append("-fcallgraph-info=su")
@@ -74,7 +78,7 @@ def cross_build(profile: BoardProfile, sources: list[Path], include_dirs: list[P
         _run([profile.cc, *compile_flags, "-c", str(source), "-o", str(target)], source.name, profile)
         objects.append(target)
     image = folder / f"{profile.name}.elf"
-    link = [profile.cc, *STRICT_FLAGS, optimisation, *profile.flags, *profile.link_flags]
+    link = [profile.cc, *STRICT_FLAGS, optimisation, *profile_flags, *profile.link_flags]
     if profile.linker_script is not None:
         link += [f"-L{profile.linker_script.parent}", f"-T{profile.linker_script}"]
     link += [*map(str, objects), "-o", str(image), f"-Wl,-Map={folder / (profile.name + '.map')}"]
