@@ -50,6 +50,7 @@ static void put_u32(uint32_t value)
     board_write(bytes, 4u);
 }
 
+#if defined(ECHO_REPORT_ONLY)
 static void put_decimal(uint32_t value)
 {
     uint8_t digits[11];
@@ -61,6 +62,7 @@ static void put_decimal(uint32_t value)
     } while (value != 0u);
     board_write(&digits[at], sizeof digits - at);
 }
+#endif
 
 int main(void)
 {
