@@ -43,11 +43,12 @@ static uint32_t cost_overhead;
 ISR(USART_RX_vect)
 {
     uint8_t head = rx_head;
+    if ((uint8_t)(head - rx_tail) >= RX_QUEUE_SIZE) {
+        UCSR0B = (uint8_t)(UCSR0B & ~(1u << RXCIE0)); /* full: hold further bytes in the UART */
+        return;
+    }
     rx_queue[head % RX_QUEUE_SIZE] = UDR0;
     rx_head = (uint8_t)(head + 1u);
-    if ((uint8_t)(rx_head - rx_tail) >= RX_QUEUE_SIZE) {
-        UCSR0B = (uint8_t)(UCSR0B & ~(1u << RXCIE0)); /* full: hold further bytes in the UART */
-    }
 }
 
 ISR(TIMER1_OVF_vect)

@@ -35,12 +35,16 @@ static volatile uint32_t systick_wraps;
 static uint64_t cost_start_ticks;
 static uint32_t cost_overhead;
 
-int rx_queue_put(uint8_t byte)
+int rx_queue_room(void)
+{
+    return (rx_head - rx_tail) < RX_QUEUE_SIZE;
+}
+
+void rx_queue_put(uint8_t byte)
 {
     uint32_t head = rx_head;
     rx_queue[head % RX_QUEUE_SIZE] = byte;
     rx_head = head + 1u;
-    return (head + 1u - rx_tail) < RX_QUEUE_SIZE;
 }
 
 void systick_interrupt(void)

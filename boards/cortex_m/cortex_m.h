@@ -17,11 +17,17 @@
 #define SYST_CVR REG32(0xE000E018u)
 #define NVIC_ISER0 REG32(0xE000E100u)
 #define NVIC_ISER(n) REG32(0xE000E100u + 4u * (uint32_t)(n))
+#define NVIC_ICER(n) REG32(0xE000E180u + 4u * (uint32_t)(n))
 #define SCB_CPACR REG32(0xE000ED88u)
 
 static inline void nvic_enable(unsigned int irq)
 {
     NVIC_ISER(irq / 32u) = 1u << (irq % 32u);
+}
+
+static inline void nvic_disable(unsigned int irq)
+{
+    NVIC_ICER(irq / 32u) = 1u << (irq % 32u);
 }
 
 static inline void interrupts_off(void) { __asm__ volatile ("cpsid i" ::: "memory"); }
@@ -37,9 +43,11 @@ void uart_receive_interrupt(int enabled);
 /* The UART's interrupt handler (every external interrupt vector points here). */
 void uart_interrupt(void);
 
-/* Called by the driver's interrupt handler with each received byte; returns 0 when the queue is
- * now full (the driver then stops its receive interrupt). */
-int rx_queue_put(uint8_t byte);
+/* The receive queue, filled by the driver's interrupt handler: it reads a byte from the UART
+ * only while there is room, and otherwise stops its receive interrupt and leaves the byte in the
+ * UART (a pended interrupt can still run once after that, so it must check again). */
+int rx_queue_room(void);
+void rx_queue_put(uint8_t byte);
 
 /* SysTick-based cost counter (systick_cost in board_cortex_m.c). */
 void systick_interrupt(void);

@@ -34,22 +34,29 @@ void uart_send(uint8_t byte)
     UART_DATA = byte;
 }
 
+/* The interrupt line follows the RX flag alone (QEMU's model; CTRL's enable only gates setting the
+ * flag), so the pause is done at the NVIC: the flag stays set and re-enabling brings the handler
+ * back. */
 void uart_receive_interrupt(int enabled)
 {
     if (enabled) {
-        UART_CTRL |= CTRL_RX_INTERRUPT;
+        nvic_enable(UART_IRQ);
     } else {
-        UART_CTRL &= ~CTRL_RX_INTERRUPT;
+        nvic_disable(UART_IRQ);
     }
 }
 
+/* The RX interrupt flag is cleared only after its byte is taken: a byte left in the UART while the
+ * queue is full keeps its flag, so turning the interrupt back on brings the handler back. */
 void uart_interrupt(void)
 {
-    UART_INTSTATUS = INT_RX;
     while (UART_STATE & STATE_RX_FULL) {
-        if (!rx_queue_put((uint8_t)UART_DATA)) {
+        if (!rx_queue_room()) {
             uart_receive_interrupt(0);
-            break;
+            return;
         }
+        rx_queue_put((uint8_t)UART_DATA);
+        UART_INTSTATUS = INT_RX;
     }
+    UART_INTSTATUS = INT_RX;
 }

@@ -72,10 +72,11 @@ void uart_receive_interrupt(int enabled)
 void uart_interrupt(void)
 {
     while (UART_EVENTS_RXDRDY != 0u) {
-        UART_EVENTS_RXDRDY = 0u;
-        if (!rx_queue_put((uint8_t)UART_RXD)) {
+        if (!rx_queue_room()) {
             uart_receive_interrupt(0);
             break;
         }
+        UART_EVENTS_RXDRDY = 0u;
+        rx_queue_put((uint8_t)UART_RXD);
     }
 }

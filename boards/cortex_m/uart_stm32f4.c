@@ -56,9 +56,10 @@ void uart_interrupt(void)
 {
     /* Reading SR then DR also clears an overrun; the lost byte is the protocol's to notice. */
     while (USART_SR & (SR_RXNE | SR_ORE)) {
-        if (!rx_queue_put((uint8_t)USART_DR)) {
+        if (!rx_queue_room()) {
             uart_receive_interrupt(0);
             break;
         }
+        rx_queue_put((uint8_t)USART_DR);
     }
 }

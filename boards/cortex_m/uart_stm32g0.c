@@ -61,9 +61,10 @@ void uart_interrupt(void)
         USART_ICR = ICR_ORECF; /* an overrun lost a byte: the protocol notices, reception goes on */
     }
     while (USART_ISR & ISR_RXNE) {
-        if (!rx_queue_put((uint8_t)USART_RDR)) {
+        if (!rx_queue_room()) {
             uart_receive_interrupt(0);
             break;
         }
+        rx_queue_put((uint8_t)USART_RDR);
     }
 }

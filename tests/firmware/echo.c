@@ -1,6 +1,9 @@
 /* Test firmware for the board glue alone (no protocol): announces itself, then serves three
  * one-byte commands from the host.
+ *   'H'            send the announcement again (bytes sent at start can be lost on some
+ *                  emulators, so a host asks)
  *   'E' n b1..bn   send the n bytes back
+ *   'P'            pause (a busy loop of about a million instructions) while bytes pile up
  *   'C'            cost of a counted loop of 1000 and of 2000 turns (two uint32, little-endian)
  *   'Q' c          end the run with exit code c
  * Built with -DECHO_REPORT_ONLY it prints the two loop costs as text and ends at once (for a
@@ -76,11 +79,17 @@ int main(void)
 #endif
     for (;;) {
         int command = board_read_byte();
-        if (command == 'E') {
+        if (command == 'H') {
+            board_write(hello, sizeof hello - 1u);
+        } else if (command == 'E') {
             int count = board_read_byte();
             for (int i = 0; i < count; ++i) {
                 uint8_t byte = (uint8_t)board_read_byte();
                 board_write(&byte, 1u);
+            }
+        } else if (command == 'P') {
+            for (unsigned int i = 0; i < 8u; ++i) {
+                counted_loop(60000u);
             }
         } else if (command == 'C') {
             put_u32(loop_cost(1000u));

@@ -153,7 +153,7 @@ def _worst_stack(folder: Path, frames: dict[str, int], cpu: str) -> int | None:
 
     def deepest(name: str, path: tuple[str, ...]) -> int:
         if name in path:
-            raise _Recursive(name)
+            raise _RecursionError(name)
         return own.get(name, 0) + max((deepest(c, (*path, name)) for c in calls.get(name, ())), default=0)
 
     try:
@@ -163,11 +163,11 @@ def _worst_stack(folder: Path, frames: dict[str, int], cpu: str) -> int | None:
         thread = max(deepest(name, ()) for name in roots)
         handlers = [name for name in own if name.startswith(INTERRUPT_PREFIXES)]
         interrupt = max((deepest(name, ()) for name in handlers), default=0)
-    except _Recursive:
+    except _RecursionError:
         return None
     frame = EXCEPTION_FRAME.get(cpu, DEFAULT_EXCEPTION_FRAME) if interrupt else 0
     return thread + interrupt + frame
 
 
-class _Recursive(Exception):
+class _RecursionError(Exception):
     """A call graph with recursion has no static stack bound."""

@@ -105,13 +105,15 @@ def start(profile: BoardProfile, image: Path, ready_seconds: float = READY_SECON
             if process.poll() is not None:
                 break
             time.sleep(0.02)
+        ended = process.poll()
         emulator.stop(0)
         if emulator._reader is not None:
             emulator._reader.join(1.0)
         if "Address already in use" in emulator.printed() and attempt < 2:
             continue  # another program took the port between our probe and the start: try another
-        raise EmulatorError(f"board {profile.name}: the emulator did not listen on port {port} within "
-                            f"{ready_seconds:g} s.\ncommand: {' '.join(command)}\n"
+        what = (f"ended (exit code {ended}) before listening on port {port}" if ended is not None
+                else f"did not listen on port {port} within {ready_seconds:g} s")
+        raise EmulatorError(f"board {profile.name}: the emulator {what}.\ncommand: {' '.join(command)}\n"
                             f"it printed: {emulator.printed().strip() or '(nothing)'}")
     raise AssertionError("unreachable")
 
