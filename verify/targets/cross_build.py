@@ -135,8 +135,8 @@ _EDGE = re.compile(r'edge:\s*\{\s*sourcename:\s*"([^"]+)"\s*targetname:\s*"([^"]
 _BYTES = re.compile(r"(\d+) bytes")
 
 
-def _worst_stack(folder: Path, frames: dict[str, int], cpu: str) -> int | None:
-    """Deepest path from the reset entry, plus the deepest interrupt path and its exception frame."""
+def _call_graph(folder: Path, frames: dict[str, int]) -> tuple[dict[str, int], dict[str, set[str]]]:
+    """Each function's own frame and its callees, from the compiler's .ci files."""
     own: dict[str, int] = {}
     calls: dict[str, set[str]] = {}
     for graph in sorted(folder.glob("*.ci")):
@@ -150,19 +150,52 @@ def _worst_stack(folder: Path, frames: dict[str, int], cpu: str) -> int | None:
             calls.setdefault(source.rsplit(":", 1)[-1], set()).add(target.rsplit(":", 1)[-1])
     for name, size in frames.items():
         own.setdefault(name, size)
+    return own, calls
 
-    def deepest(name: str, path: tuple[str, ...]) -> int:
-        if name in path:
-            raise _RecursionError(name)
-        return own.get(name, 0) + max((deepest(c, (*path, name)) for c in calls.get(name, ())), default=0)
 
+def _deepest(name: str, own: dict[str, int], calls: dict[str, set[str]], path: tuple[str, ...] = ()) -> int:
+    if name in path:
+        raise _RecursionError(name)
+    return own.get(name, 0) + max((_deepest(c, own, calls, (*path, name)) for c in calls.get(name, ())),
+                                  default=0)
+
+
+def stack_from(folder: Path, function: str) -> int | None:
+    """The deepest stack below (and including) ``function`` in a build folder, from the call graph;
+    None without one (older compilers) or with recursion. Library callees count as zero."""
+    if not any(folder.glob("*.ci")):
+        return None
+    own, calls = _call_graph(folder, _frames(folder))
+    try:
+        return _deepest(function, own, calls)
+    except _RecursionError:
+        return None
+
+
+def reachable_functions(folder: Path, function: str) -> set[str]:
+    """``function`` and every function it calls, directly or not, per the call graph (just the
+    function itself without one)."""
+    _, calls = _call_graph(folder, {})
+    seen = {function}
+    todo = [function]
+    while todo:
+        for callee in calls.get(todo.pop(), ()):
+            if callee not in seen:
+                seen.add(callee)
+                todo.append(callee)
+    return seen
+
+
+def _worst_stack(folder: Path, frames: dict[str, int], cpu: str) -> int | None:
+    """Deepest path from the reset entry, plus the deepest interrupt path and its exception frame."""
+    own, calls = _call_graph(folder, frames)
     try:
         roots = [name for name in ENTRY_POINTS if name in own]
         if not roots:
             return None
-        thread = max(deepest(name, ()) for name in roots)
+        thread = max(_deepest(name, own, calls) for name in roots)
         handlers = [name for name in own if name.startswith(INTERRUPT_PREFIXES)]
-        interrupt = max((deepest(name, ()) for name in handlers), default=0)
+        interrupt = max((_deepest(name, own, calls) for name in handlers), default=0)
     except _RecursionError:
         return None
     frame = EXCEPTION_FRAME.get(cpu, DEFAULT_EXCEPTION_FRAME) if interrupt else 0
