@@ -25,8 +25,8 @@
 #define COST_PER_TICK_DEN 1u
 #endif
 
-/* 1: sleep (idle mode) while waiting for a byte. QEMU 7.2's AVR model never wakes from SLEEP on
- * the USART interrupt (measured), so the QEMU profile sets 0 and the wait spins instead. */
+/* 1: sleep (idle mode) while waiting for a byte; 0: spin with interrupts on (for a simulator
+ * that does not wake from SLEEP on the USART interrupt, as QEMU 7.2's AVR model, measured). */
 #ifndef AVR_IDLE_SLEEP
 #define AVR_IDLE_SLEEP 1
 #endif

@@ -36,18 +36,11 @@ STEP_FUNCTIONS = {"generated": "vanderpol_step", "reference": "vdp_reference_ste
 def build(profile: BoardProfile, generated: Path, folder: Path, steps: int) -> CrossImage:
     sources = [generated / "vanderpol.c", HERE / "vdp_reference.c", HERE / "vdp_reference_float.c",
                HERE / "bench_main.c"]
-    defines = {"BENCH_STEPS": str(steps)}
-    if profile.cpu == "avr":
-        defines["AVR_IDLE_SLEEP"] = "1"  # runs under simavr, which wakes from sleep
-    return cross_build(profile, sources, [generated, HERE], folder, "-O2", defines)
+    return cross_build(profile, sources, [generated, HERE], folder, "-O2", {"BENCH_STEPS": str(steps)})
 
 
 def run_emulated(profile: BoardProfile, image: Path) -> str:
-    """The firmware's printout: over the UART socket (QEMU), or simavr's standard output (AVR)."""
-    if profile.cpu == "avr":
-        done = subprocess.run(["simavr", "-m", "atmega328p", "-f", "16000000", str(image)],
-                              capture_output=True, text=True, timeout=600, check=False)
-        return re.sub(r"\x1b\[[0-9;]*m", "", done.stdout + done.stderr).replace(".\n", "\n")
+    """The firmware's printout, read from the board's UART socket."""
     with emulators.started(profile, image) as emulator:
         link = serial.serial_for_url(emulator.url, timeout=120)
         lines = []
@@ -110,7 +103,7 @@ def main() -> None:
     for profile in profiles:
         needs = [profile.cc, profile.size_tool or "size"]
         if profile.kind == "emulated":
-            needs += ["simavr"] if profile.cpu == "avr" else [profile.start[0]]
+            needs += profile.needs
         missing = [tool for tool in needs if tool and subprocess.run(["which", tool], capture_output=True,
                                                                      check=False).returncode != 0]
         if missing:
@@ -134,7 +127,7 @@ def main() -> None:
             per_step[kind] = int(found.group(1)) / int(found.group(2)) if found else float("nan")
         state = re.search(r"^state (\d+) (\d+)$", text, re.MULTILINE)
         same = bool(state) and [int(state.group(1)), int(state.group(2))] == expected_words
-        unit = "cycles" if profile.cpu == "avr" else "instructions"
+        unit = profile.cost_unit
         print(f"{profile.name:15} {profile.cpu:14} {unit:12} {per_step['generated']:10.1f} "
               f"{per_step['reference']:10.1f} {per_step['float']:10.1f} "
               f"{per_step['generated'] / per_step['reference']:7.2f} {flash:>19} {stack:>13} "

@@ -6,8 +6,6 @@
  *   'P'            pause (a busy loop of about a million instructions) while bytes pile up
  *   'C'            cost of a counted loop of 1000 and of 2000 turns (two uint32, little-endian)
  *   'Q' c          end the run with exit code c
- * Built with -DECHO_REPORT_ONLY it prints the two loop costs as text and ends at once (for a
- * simulator whose UART only sends).
  */
 #include <stdint.h>
 
@@ -53,30 +51,11 @@ static void put_u32(uint32_t value)
     board_write(bytes, 4u);
 }
 
-#if defined(ECHO_REPORT_ONLY)
-static void put_decimal(uint32_t value)
-{
-    uint8_t digits[11];
-    unsigned int at = sizeof digits;
-    digits[--at] = ' ';
-    do {
-        digits[--at] = (uint8_t)('0' + value % 10u);
-        value /= 10u;
-    } while (value != 0u);
-    board_write(&digits[at], sizeof digits - at);
-}
-#endif
 
 int main(void)
 {
     board_init();
     board_write(hello, sizeof hello - 1u);
-#if defined(ECHO_REPORT_ONLY)
-    put_decimal(loop_cost(1000u));
-    put_decimal(loop_cost(2000u));
-    board_write((const uint8_t *)"\n", 1u);
-    board_finish(0);
-#endif
     for (;;) {
         int command = board_read_byte();
         if (command == 'H') {

@@ -2,14 +2,20 @@
 ``{image}`` and ``{port}`` filled in, a wait until the emulator listens, and a clean stop.
 
 The emulator serves the board's UART on ``socket://127.0.0.1:PORT`` (pyserial's
-``serial_for_url``). QEMU's ``wait=on`` keeps the guest stopped until the host connects, so no
-byte the firmware sends first is lost; that is also why readiness is seen from the listening
-socket (``/proc/net/tcp``) or the emulator's own message, never by a trial connection.
+``serial_for_url``). A command may also name ``{simavr_link}``: the small host program in
+``boards/avr/simavr_link.c`` that puts simavr's AVR on such a socket, built here on first use.
+
+Both keep the guest stopped until the host connects (QEMU's ``wait=on``), so readiness is seen
+from the listening socket (``/proc/net/tcp``) or the emulator's own message, never by a trial
+connection, which would start the guest. Note that pyserial's ``socket://`` open() empties its
+input buffer, so a host should ask the board to speak rather than rely on what it sends at once.
 """
 
 from __future__ import annotations
 
 import contextlib
+import hashlib
+import os
 import socket
 import subprocess
 import threading
@@ -19,7 +25,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from orbitfix.gen.errors import ToolchainError
-from orbitfix.verify.targets.board_profiles import BoardProfile
+from orbitfix.verify.targets.board_profiles import BoardProfile, boards_folder
+from orbitfix.verify.targets.host_build import cache_root, compiler
 
 READY_SECONDS = 20.0
 STOP_SECONDS = 5.0
@@ -83,6 +90,32 @@ def _listening(port: int) -> bool:
     return False
 
 
+def simavr_link() -> Path:
+    """The simavr socket bridge, built with the host compiler against libsimavr (cached by source)."""
+    source = boards_folder() / "avr" / "simavr_link.c"
+    text = source.read_bytes()
+    cc = compiler()
+    key = hashlib.sha256(text + cc.encode()).hexdigest()[:16]
+    program = cache_root() / "tools" / f"simavr_link-{key}"
+    if program.is_file():
+        return program
+    program.parent.mkdir(parents=True, exist_ok=True)
+    building = program.with_name(f"{program.name}.{os.getpid()}")
+    done = subprocess.run([cc, "-O2", "-std=c99", "-Wall", "-Wextra", "-Werror", str(source),
+                           "-lsimavr", "-o", str(building)], capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        raise EmulatorError("cannot build the simavr link (it needs simavr's library and headers; "
+                            f"Debian: sudo apt-get install libsimavr-dev):\n{done.stderr.strip()}")
+    building.replace(program)
+    return program
+
+
+def _fill(word: str, image: Path, port: int) -> str:
+    if "{simavr_link}" in word:
+        word = word.replace("{simavr_link}", str(simavr_link()))
+    return word.replace("{image}", str(image)).replace("{port}", str(port))
+
+
 def start(profile: BoardProfile, image: Path, ready_seconds: float = READY_SECONDS) -> Emulator:
     """Start ``profile``'s emulator on ``image`` and return once its UART socket listens."""
     if not profile.start:
@@ -92,7 +125,7 @@ def start(profile: BoardProfile, image: Path, ready_seconds: float = READY_SECON
         raise EmulatorError(f"board {profile.name}: {', '.join(missing)} not found; {profile.install_hint()}")
     for attempt in range(3):
         port = free_port()
-        command = [word.replace("{image}", str(image)).replace("{port}", str(port)) for word in profile.start]
+        command = [_fill(word, image, port) for word in profile.start]
         process = subprocess.Popen(command, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
                                    stderr=subprocess.STDOUT, text=True, errors="replace")
         emulator = Emulator(process=process, port=port, command=command)
