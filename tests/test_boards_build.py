@@ -92,3 +92,18 @@ def test_stack_figure_follows_a_deeper_frame(tmp_path: Path) -> None:
     assert built.frames["deep"] >= 512
     assert built.stack_bytes >= built.frames["deep"] + 32
     assert built.stack_bytes - small > 400
+
+
+def test_the_shipped_boards() -> None:
+    # What the issue asks to ship: three emulated Cortex-M (M0, M3, M4F), an 8-bit AVR whose int
+    # is 16 bits, and real boards with a Cortex-M0+ and a Cortex-M4F that the user flashes.
+    boards = {p.name: p for p in all_profiles() if p.kind != "host"}
+    emulated = {p.cpu for p in boards.values() if p.kind == "emulated"}
+    assert {"cortex-m0", "cortex-m3", "cortex-m4f", "avr"} <= emulated
+    assert {p.cpu for p in boards.values() if p.kind == "real"} >= {"cortex-m0plus", "cortex-m4f"}
+    assert boards["atmega328p"].int_bits == 16
+    for profile in boards.values():
+        assert all(path.is_file() for path in profile.glue), profile.name
+        assert (profile.kind == "real") == (profile.link_kind == "port") == (not profile.start)
+        assert profile.cost_unit == ("cycles" if profile.kind == "real" or profile.cpu == "avr"
+                                     else "instructions")

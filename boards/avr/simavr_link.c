@@ -89,11 +89,12 @@ static void serve_host(avr_t *avr, avr_irq_t *input, int wait_ms)
 
 static avr_irq_t *uart_input;
 
-/* While the firmware sleeps, wait for the host instead of the wall clock: simulated time jumps. */
+/* While the firmware sleeps until the next timed event, wait for the host instead of the wall
+ * clock (up to that event's simulated time, at most 20 ms); simulated time then jumps to it. */
 static void sleep_for_host(avr_t *avr, avr_cycle_count_t cycles)
 {
-    (void)cycles;
-    serve_host(avr, uart_input, host_gone ? 0 : 20);
+    uint64_t ms = avr->frequency ? (uint64_t)cycles * 1000u / avr->frequency : 0u;
+    serve_host(avr, uart_input, host_gone ? 0 : (int)(ms < 20u ? ms : 20u));
 }
 
 int main(int argc, char **argv)

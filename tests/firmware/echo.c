@@ -4,6 +4,7 @@
  *                  emulators, so a host asks)
  *   'E' n b1..bn   send the n bytes back
  *   'P'            pause (a busy loop of about a million instructions) while bytes pile up
+ *   'S' n          stream n blocks of 64 bytes (0, 1, ..., 63 each) to the host
  *   'C'            cost of a counted loop of 1000 and of 2000 turns (two uint32, little-endian)
  *   'Q' c          end the run with exit code c
  */
@@ -69,6 +70,14 @@ int main(void)
         } else if (command == 'P') {
             for (unsigned int i = 0; i < 8u; ++i) {
                 counted_loop(60000u);
+            }
+        } else if (command == 'S') {
+            uint8_t block[64];
+            for (unsigned int i = 0; i < sizeof block; ++i) {
+                block[i] = (uint8_t)i;
+            }
+            for (int blocks = board_read_byte(); blocks > 0; --blocks) {
+                board_write(block, sizeof block);
             }
         } else if (command == 'C') {
             put_u32(loop_cost(1000u));
