@@ -98,6 +98,39 @@ def test_cost_of_a_known_loop_and_the_exit_code(name: str, tmp_path: Path) -> No
     assert code == 5
 
 
+def test_the_stm32f4_board_glue_on_an_emulated_stm32f405(tmp_path: Path) -> None:
+    # The NUCLEO-F401RE's USART2 driver cannot be run here on the part, but QEMU's netduinoplus2
+    # (STM32F405) has the same USART2 registers and IRQ 38, and the same core: echo, a burst larger
+    # than the receive queue, the cost counter (SysTick at 168 MHz under -icount shift=10: 172.032
+    # ticks per instruction) and the exit code, with the real profile's glue and flags.
+    real = _tools_or_skip("nucleo-f401re", ("qemu-system-arm",))
+    kept = [p for p in real.glue if p.name != "finish_halt.c"]
+    glue = (*kept, real.glue[0].parent / "finish_semihosting.c")
+    kept_flags = [f for f in real.flags if "COST_PER_TICK" not in f]
+    flags = (*kept_flags, "-DCOST_PER_TICK_NUM=125u", "-DCOST_PER_TICK_DEN=21504u")
+    start = ("qemu-system-arm", "-M", "netduinoplus2", "-nographic", "-monitor", "none",
+             "-icount", "shift=10", "-semihosting-config", "enable=on,target=native", "-serial", "null",
+             "-serial", "tcp:127.0.0.1:{port},server=on,wait=on,nodelay=on", "-kernel", "{image}")
+    profile = dataclasses.replace(real, name="stm32f405-qemu", kind="emulated", link_kind="socket",
+                                  glue=glue, flags=flags, start=start, needs=("qemu-system-arm",))
+    image = build_firmware(profile, [FIRMWARE / "echo.c"], [], tmp_path)
+    burst = random.Random(9).randbytes(250)
+    with emulators.started(profile, image.path) as emulator:
+        link = serial.serial_for_url(emulator.url, timeout=10)
+        _handshake(link, profile.name)
+        link.write(b"PE" + bytes([len(burst)]) + burst)
+        assert link.read(len(burst)) == burst
+        link.write(b"C")
+        reply = link.read(8)
+        short, long = int.from_bytes(reply[:4], "little"), int.from_bytes(reply[4:], "little")
+        link.write(b"Q\x06")
+        link.close()
+        code = emulator.stop()
+    # QEMU's 168 MHz clock is kept as a rounded period, so the count is near, not exactly, 2000
+    assert abs((long - short) - 2000) <= 20
+    assert code == 6
+
+
 def test_an_emulator_that_will_not_start_says_what_it_printed(tmp_path: Path) -> None:
     profile = load_profile("mps2-an385")
     broken = dataclasses.replace(profile, start=("sh", "-c", "echo no such machine; exit 3"), needs=())

@@ -46,12 +46,14 @@ void uart_send(uint8_t byte)
     USART_TDR = byte;
 }
 
+/* Paused at the NVIC rather than with RXNEIE: a pended interrupt then stays pending, and
+ * emulators that raise the line only on a new byte (QEMU's STM32 USART) behave as the part does. */
 void uart_receive_interrupt(int enabled)
 {
     if (enabled) {
-        USART_CR1 |= CR1_RXNEIE;
+        nvic_enable(UART_IRQ);
     } else {
-        USART_CR1 &= ~CR1_RXNEIE;
+        nvic_disable(UART_IRQ);
     }
 }
 
