@@ -44,6 +44,18 @@ def test_echo_firmware_builds_under_strict_warnings_and_fits(name: str, tmp_path
         assert image.stack_bytes is not None and 0 < image.stack_bytes < 1024
 
 
+@pytest.mark.parametrize("name", [p.name for p in all_profiles() if p.kind == "real"])
+def test_a_real_board_gets_images_for_the_users_flashing_tool(name: str, tmp_path: Path) -> None:
+    profile = _compiler_or_skip(name)
+    built = cross_build(profile, [FIRMWARE / "echo.c"], [], tmp_path)
+    binary, hex_file = built.flashable
+    # the raw image holds the flash contents from the vector table on: text plus initialised data
+    assert binary.stat().st_size == built.size["text"] + built.size["data"]
+    # Intel HEX: every record starts with ':' and the file ends with the end-of-file record
+    lines = hex_file.read_text().split()
+    assert all(line.startswith(":") for line in lines) and lines[-1] == ":00000001FF"
+
+
 @pytest.mark.parametrize("name", CORTEX_M)
 def test_vector_table_opens_the_image(name: str, tmp_path: Path) -> None:
     # Armv7-M / Armv6-M architecture reference manuals: at reset the core loads SP from the first

@@ -29,12 +29,14 @@ INTERRUPT_PREFIXES = ("uart_interrupt", "systick_interrupt", "__vector_")
 
 @dataclass(frozen=True)
 class CrossImage:
-    """A built image: the ELF, its sections' sizes, and what the compiler says about stack."""
+    """A built image: the ELF, its sections' sizes, and what the compiler says about stack; for a
+    real board also raw binary and Intel HEX copies for the user's flashing tool."""
 
     path: Path
     size: dict[str, int]
     stack_bytes: int | None
     frames: dict[str, int] = field(default_factory=dict)
+    flashable: tuple[Path, ...] = ()
 
 
 def cross_build(profile: BoardProfile, sources: list[Path], include_dirs: list[Path], folder: Path,
@@ -85,7 +87,20 @@ def cross_build(profile: BoardProfile, sources: list[Path], include_dirs: list[P
     _run(link, "the link", profile)
     frames = _frames(folder)
     stack = _worst_stack(folder, frames, profile.cpu) if call_graph else None
-    return CrossImage(path=image, size=_size(profile, image), stack_bytes=stack, frames=frames)
+    flashable = _flashable(profile, image) if profile.kind == "real" else ()
+    return CrossImage(path=image, size=_size(profile, image), stack_bytes=stack, frames=frames,
+                      flashable=flashable)
+
+
+def _flashable(profile: BoardProfile, image: Path) -> tuple[Path, ...]:
+    """``NAME.bin`` and ``NAME.hex`` beside the ELF (objcopy of the same toolchain)."""
+    objcopy = (profile.size_tool or "size").replace("size", "objcopy")
+    made = []
+    for kind, suffix in (("binary", ".bin"), ("ihex", ".hex")):
+        target = image.with_suffix(suffix)
+        _run([objcopy, "-O", kind, str(image), str(target)], f"objcopy to {suffix}", profile)
+        made.append(target)
+    return tuple(made)
 
 
 def _run(command: list[str], what: str, profile: BoardProfile) -> None:
