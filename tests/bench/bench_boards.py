@@ -87,11 +87,10 @@ def function_sizes(profile: BoardProfile, image: Path) -> dict[str, int]:
     return sizes
 
 
-def step_stack(folder: Path, image: CrossImage, function: str) -> str:
-    """Deepest stack below the step from the call graph; its own frame (marked +) where the
-    compiler writes no call graph (avr-gcc 5)."""
-    deepest = stack_from(folder, function)
-    return str(deepest) if deepest is not None else f"{image.frames.get(function, 0)}+"
+def step_stack(folder: Path, function: str, cpu: str) -> str:
+    """Deepest stack below the step, from the call graph."""
+    deepest = stack_from(folder, function, cpu)
+    return "?" if deepest is None else str(deepest)
 
 
 def main() -> None:
@@ -115,8 +114,8 @@ def main() -> None:
           f"generated: {len(program.ops)} operations on 32-bit words")
     print("cost per step: instructions under QEMU -icount (every instruction counts 1), cycles under "
           "simavr;\nflash = the step's code and every function it calls, library helpers (soft-float, "
-          "64-bit multiply) included; stack = deepest below the step;\n+ = the step's own code or "
-          "frame only (avr-gcc 5 writes no call graph)")
+          "64-bit multiply) included;\nstack = deepest below the step (library helpers' own frames "
+          "not known: counted as zero)")
     header = (f"{'board':15} {'cpu':14} {'unit':12} {'generated':>10} {'reference':>10} {'float':>10} "
               f"{'gen/ref':>7} {'flash g/r/f':>19} {'stack g/r/f':>13} {'image text':>10}  golden")
     print(header)
@@ -138,10 +137,9 @@ def main() -> None:
         folder = work / profile.name
         image = build(profile, generated, folder, steps)
         sizes = function_sizes(profile, image.path)
-        own_only = "+" if not any(folder.glob("*.ci")) else ""
-        flash = "/".join(str(sum(sizes.get(g, 0) for g in reachable_functions(folder, f))) + own_only
+        flash = "/".join(str(sum(sizes.get(g, 0) for g in reachable_functions(folder, f)))
                          for f in STEP_FUNCTIONS.values())
-        stack = "/".join(step_stack(folder, image, f) for f in STEP_FUNCTIONS.values())
+        stack = "/".join(step_stack(folder, f, profile.cpu) for f in STEP_FUNCTIONS.values())
         if profile.kind == "real":
             print(f"{profile.name:15} {profile.cpu:14} {'(flash it)':12} {'-':>10} {'-':>10} {'-':>10} "
                   f"{'-':>7} {flash:>19} {stack:>13} {image.size['text']:>10}  -")

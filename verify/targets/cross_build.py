@@ -1,11 +1,13 @@
 """Cross builds for board profiles: compile C sources with the board's glue into one image under
 strict warnings, then measure it (flash and RAM from the size tool, stack from the compiler).
 
-Stack: every object is compiled with ``-fstack-usage`` (each function's own frame). Where the
-compiler can also write its call graph (``-fcallgraph-info=su``, gcc 10 and later), the image's
-worst stack is the deepest path from the reset entry plus the deepest interrupt path plus the
-exception frame the core pushes; calls into the C library (not compiled here) count as zero, which
-the report says. Older compilers (avr-gcc 5) give the frames only, and no whole-image figure.
+Stack: every object is compiled with ``-fstack-usage`` (each function's own frame). The calls
+between functions come from the compiler's call graph (``-fcallgraph-info=su``, gcc 10 and later)
+or, for older compilers (avr-gcc 5), from the linked image's disassembly (every call and jump to
+another function's start). The image's worst stack is the deepest path from the entry plus the
+deepest interrupt path plus what the core pushes on an interrupt; on the AVR each call also
+pushes a two-byte return address. Library functions not compiled here (soft-float, 64-bit
+multiply helpers) count as zero. Recursion gives no figure.
 """
 
 from __future__ import annotations
@@ -21,8 +23,11 @@ from orbitfix.verify.targets.board_profiles import BoardProfile
 from orbitfix.verify.targets.host_build import STRICT_FLAGS, CompileError
 
 # Bytes the core pushes on an exception entry: eight words, or 26 with the FPU's lazy frame.
-EXCEPTION_FRAME = {"cortex-m4f": 104}
+EXCEPTION_FRAME = {"cortex-m4f": 104, "avr": 2}
 DEFAULT_EXCEPTION_FRAME = 32
+# Bytes a call pushes beyond the callee's own frame (Arm keeps LR in the frame; the ATmega328P's
+# 16-bit program counter is pushed as two bytes).
+RETURN_ADDRESS = {"avr": 2}
 ENTRY_POINTS = ("reset_handler", "main")
 INTERRUPT_PREFIXES = ("uart_interrupt", "systick_interrupt", "__vector_")
 
@@ -86,7 +91,9 @@ def cross_build(profile: BoardProfile, sources: list[Path], include_dirs: list[P
     link += [*map(str, objects), "-o", str(image), f"-Wl,-Map={folder / (profile.name + '.map')}"]
     _run(link, "the link", profile)
     frames = _frames(folder)
-    stack = _worst_stack(folder, frames, profile.cpu) if call_graph else None
+    if not call_graph:
+        _write_call_graph_from_image(profile, image, folder)
+    stack = _worst_stack(folder, frames, profile.cpu)
     flashable = _flashable(profile, image) if profile.kind == "real" else ()
     return CrossImage(path=image, size=_size(profile, image), stack_bytes=stack, frames=frames,
                       flashable=flashable)
@@ -168,21 +175,47 @@ def _call_graph(folder: Path, frames: dict[str, int]) -> tuple[dict[str, int], d
     return own, calls
 
 
-def _deepest(name: str, own: dict[str, int], calls: dict[str, set[str]], path: tuple[str, ...] = ()) -> int:
+def _deepest(name: str, own: dict[str, int], calls: dict[str, set[str]], path: tuple[str, ...] = (),
+             call_bytes: int = 0) -> int:
     if name in path:
         raise _RecursionError(name)
-    return own.get(name, 0) + max((_deepest(c, own, calls, (*path, name)) for c in calls.get(name, ())),
-                                  default=0)
+    below = (_deepest(c, own, calls, (*path, name), call_bytes) for c in calls.get(name, ()))
+    return own.get(name, 0) + max((call_bytes + depth for depth in below), default=0)
 
 
-def stack_from(folder: Path, function: str) -> int | None:
+_FUNCTION = re.compile(r"^[0-9a-f]+ <([^>]+)>:$")
+_BRANCH = re.compile(r"\t(?:r?call|r?jmp)\t.*<([^>+]+)>$")
+
+
+def _write_call_graph_from_image(profile: BoardProfile, image: Path, folder: Path) -> None:
+    """Write ``image.ci`` (the same VCG edges gcc writes) from the disassembly: an edge for each
+    call or jump from one function to another function's start."""
+    objdump = (profile.size_tool or "size").replace("size", "objdump")
+    done = subprocess.run([objdump, "-d", str(image)], capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        return
+    edges = set()
+    current = ""
+    for line in done.stdout.splitlines():
+        header = _FUNCTION.match(line)
+        if header:
+            current = header.group(1)
+            continue
+        branch = _BRANCH.search(line)
+        if branch and current and not current.startswith((".", "__vectors")):
+            target = branch.group(1)
+            if target != current and not target.startswith("."):
+                edges.add((current, target))
+    (folder / "image.ci").write_text("".join(
+        f'edge: {{ sourcename: "{source}" targetname: "{target}" }}\n' for source, target in sorted(edges)))
+
+
+def stack_from(folder: Path, function: str, cpu: str = "") -> int | None:
     """The deepest stack below (and including) ``function`` in a build folder, from the call graph;
-    None without one (older compilers) or with recursion. Library callees count as zero."""
-    if not any(folder.glob("*.ci")):
-        return None
+    None with recursion. Library callees count as zero."""
     own, calls = _call_graph(folder, _frames(folder))
     try:
-        return _deepest(function, own, calls)
+        return _deepest(function, own, calls, (), RETURN_ADDRESS.get(cpu, 0))
     except _RecursionError:
         return None
 
@@ -204,13 +237,14 @@ def reachable_functions(folder: Path, function: str) -> set[str]:
 def _worst_stack(folder: Path, frames: dict[str, int], cpu: str) -> int | None:
     """Deepest path from the reset entry, plus the deepest interrupt path and its exception frame."""
     own, calls = _call_graph(folder, frames)
+    call_bytes = RETURN_ADDRESS.get(cpu, 0)
     try:
         roots = [name for name in ENTRY_POINTS if name in own]
         if not roots:
             return None
-        thread = max(_deepest(name, own, calls) for name in roots)
+        thread = max(_deepest(name, own, calls, (), call_bytes) for name in roots)
         handlers = [name for name in own if name.startswith(INTERRUPT_PREFIXES)]
-        interrupt = max((_deepest(name, own, calls) for name in handlers), default=0)
+        interrupt = max((_deepest(name, own, calls, (), call_bytes) for name in handlers), default=0)
     except _RecursionError:
         return None
     frame = EXCEPTION_FRAME.get(cpu, DEFAULT_EXCEPTION_FRAME) if interrupt else 0
