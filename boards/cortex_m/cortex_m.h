@@ -18,6 +18,7 @@
 #define NVIC_ISER0 REG32(0xE000E100u)
 #define NVIC_ISER(n) REG32(0xE000E100u + 4u * (uint32_t)(n))
 #define NVIC_ICER(n) REG32(0xE000E180u + 4u * (uint32_t)(n))
+#define NVIC_ISPR(n) REG32(0xE000E200u + 4u * (uint32_t)(n))
 #define SCB_CPACR REG32(0xE000ED88u)
 
 static inline void nvic_enable(unsigned int irq)
@@ -28,6 +29,11 @@ static inline void nvic_enable(unsigned int irq)
 static inline void nvic_disable(unsigned int irq)
 {
     NVIC_ICER(irq / 32u) = 1u << (irq % 32u);
+}
+
+static inline void nvic_pend(unsigned int irq)
+{
+    NVIC_ISPR(irq / 32u) = 1u << (irq % 32u);
 }
 
 static inline void interrupts_off(void) { __asm__ volatile ("cpsid i" ::: "memory"); }

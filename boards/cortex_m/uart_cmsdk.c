@@ -46,8 +46,11 @@ void uart_receive_interrupt(int enabled)
     }
 }
 
-/* The RX interrupt flag is cleared only after its byte is taken: a byte left in the UART while the
- * queue is full keeps its flag, so turning the interrupt back on brings the handler back. */
+/* The RX interrupt flag is cleared just before its byte is taken. The UART holds one byte, so no
+ * other can arrive in between; a byte that arrives while (or after) DATA is read sets the flag
+ * anew and keeps it, also when the queue is full and the handler leaves it in the UART, so the
+ * handler always comes back for it. (Clearing after the read could wipe the flag of a byte that
+ * arrived during the read: reception then stalled for good, seen under load.) */
 void uart_interrupt(void)
 {
     while (UART_STATE & STATE_RX_FULL) {
@@ -55,8 +58,7 @@ void uart_interrupt(void)
             uart_receive_interrupt(0);
             return;
         }
-        rx_queue_put((uint8_t)UART_DATA);
         UART_INTSTATUS = INT_RX;
+        rx_queue_put((uint8_t)UART_DATA);
     }
-    UART_INTSTATUS = INT_RX;
 }

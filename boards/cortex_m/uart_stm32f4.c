@@ -43,12 +43,16 @@ void uart_send(uint8_t byte)
     USART_DR = byte;
 }
 
-/* Paused at the NVIC rather than with RXNEIE: a pended interrupt then stays pending, and
- * emulators that raise the line only on a new byte (QEMU's STM32 USART) behave as the part does. */
+/* Paused at the NVIC rather than with RXNEIE, and a byte already waiting is pended by hand on
+ * resuming: emulators that raise the line only on a new byte (QEMU's STM32 USART) then behave as
+ * the part does, and the part is not harmed by a spare pend (the handler loops on RXNE). */
 void uart_receive_interrupt(int enabled)
 {
     if (enabled) {
         nvic_enable(UART_IRQ);
+        if (USART_SR & SR_RXNE) {
+            nvic_pend(UART_IRQ);
+        }
     } else {
         nvic_disable(UART_IRQ);
     }
