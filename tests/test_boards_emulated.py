@@ -19,7 +19,7 @@ import serial
 
 from orbitfix.gen.errors import InputError
 from orbitfix.verify.targets import emulators
-from orbitfix.verify.targets.board_build import build_firmware
+from orbitfix.verify.targets.board_build import FirmwareImage, build_firmware
 from orbitfix.verify.targets.board_profiles import all_profiles, load_profile
 from orbitfix.verify.targets.board_run import running
 
@@ -55,7 +55,7 @@ def test_bytes_go_there_and_back(name: str, tmp_path: Path) -> None:
     profile = _tools_or_skip(name)
     image = build_firmware(profile, [FIRMWARE / "echo.c"], [], tmp_path)
     chunks = [bytes([0, 255, 10, 13]), bytes(range(200)), random.Random(7).randbytes(250)]
-    with running(profile, image.path) as url:
+    with running(profile, image) as url:
         link = serial.serial_for_url(url, timeout=10)
         try:
             _handshake(link, name)
@@ -141,8 +141,9 @@ def test_an_emulator_that_will_not_start_says_what_it_printed(tmp_path: Path) ->
 
 def test_a_real_board_needs_a_port() -> None:
     real = next(p for p in all_profiles() if p.kind == "real")
-    with pytest.raises(InputError, match=r"flash .* with your own tool, then give its serial port"):
-        with running(real, Path("fw.elf")):
+    image = FirmwareImage(path=Path("fw.elf"), size={}, stack_bytes=None)
+    with pytest.raises(InputError, match=r"flash fw\.elf with your own tool, then give its serial port"):
+        with running(real, image):
             pass
-    with running(real, Path("fw.elf"), port="loop://") as url:
+    with running(real, image, port="loop://") as url:
         assert url == "loop://"

@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
+from orbitfix.gen.errors import ToolchainError
 from orbitfix.verify.targets.board_profiles import BoardProfile
 from orbitfix.verify.targets.cross_build import cross_build
 
@@ -21,5 +22,7 @@ class FirmwareImage:
 def build_firmware(profile: BoardProfile, sources: list[Path], include_dirs: list[Path], folder: Path,
                    optimisation: str = "-O2") -> FirmwareImage:
     """Build ``sources`` with the board's glue: cross compilers for emulated and real boards."""
-    built = cross_build(profile, sources, include_dirs, folder, optimisation)
-    return FirmwareImage(path=built.path, size=built.size, stack_bytes=built.stack_bytes)
+    if profile.kind != "host":
+        built = cross_build(profile, sources, include_dirs, folder, optimisation)
+        return FirmwareImage(path=built.path, size=built.size, stack_bytes=built.stack_bytes)
+    raise ToolchainError(f"board {profile.name!r}: host boards are not built by this function")
