@@ -8,7 +8,8 @@ counts. Keys:
     name, description, cpu, kind ("host" | "emulated" | "real"), int_bits, flash_bytes, ram_bytes
     [build]  cc, flags, link_flags, glue, include, linker_script, size_tool
     [link]   kind ("pty" | "socket" | "port"), baud
-    [start]  command (list; placeholders {image} and {port}); absent for real boards
+    [start]  command (list; placeholders {image}, {port} and, for the AVR bridge, {simavr_link});
+             absent for real boards
     [cost]   unit ("instructions" | "cycles" | "nanoseconds"), method (one line: how it is counted)
     [tools]  needs (programs on PATH), debian (packages that provide them)
 """

@@ -1,7 +1,8 @@
 """Starting a built image and handing back a URL that pyserial's ``serial_for_url`` opens.
 
 The host board runs as a process whose standard input and output are the master side of a
-pseudo-terminal; the URL is the slave side's path. Emulators (a socket) are added beside it.
+pseudo-terminal; the URL is the slave side's path. An emulator listens on a local socket
+(:mod:`.emulators`); a real board is flashed by the user and reached with ``--port``.
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ import tty
 from collections.abc import Iterator
 
 from orbitfix.gen.errors import InputError, ToolchainError
+from orbitfix.verify.targets import emulators
 from orbitfix.verify.targets.board_build import FirmwareImage
 from orbitfix.verify.targets.board_profiles import BoardProfile
 
@@ -24,11 +26,16 @@ def running(profile: BoardProfile, image: FirmwareImage | None, port: str | None
     if port is not None:
         yield port
         return
-    if profile.link_kind != "pty":
-        raise InputError(f"board {profile.name!r} needs --port URL (its {profile.link_kind} link "
-                         "is not started by this version)")
+    if profile.link_kind == "port":
+        where = f" {image.path}" if image is not None else ""
+        raise InputError(f"board {profile.name} is a real board: flash{where} with your own tool, then "
+                         "give its serial port with --port (for example --port /dev/ttyACM0)")
     if image is None:
         raise InputError(f"board {profile.name!r}: no image to run")
+    if profile.link_kind == "socket":
+        with emulators.started(profile, image.path) as emulator:
+            yield emulator.url
+        return
     master, slave = os.openpty()
     tty.setraw(slave)  # no echo, no line editing: bytes pass unchanged both ways
     command = [part.replace("{image}", str(image.path)) for part in profile.start]
