@@ -8,11 +8,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from orbitfix.gen import work_size
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.model.model_file import MODELS_FOLDER
 from orbitfix.gen.pipeline import plan_step
-from orbitfix.gen.timing import work_size
 from orbitfix.gen.timing.integrators import INTEGRATORS
 from orbitfix.verify.cli.main import main
 

@@ -15,13 +15,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from orbitfix.gen import work_size
 from orbitfix.gen.errors import InputError, UnsupportedError
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.pipeline import plan_step, program_states
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import evaluate_real
-from orbitfix.gen.timing import work_size
 from orbitfix.gen.timing.integrators import Integrator
 
 START_POINTS = 24

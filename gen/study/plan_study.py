@@ -7,6 +7,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from orbitfix.gen import work_size
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
 from orbitfix.gen.pipeline import Design, design, program_states
@@ -24,7 +25,6 @@ from orbitfix.gen.study.discrete_cycle import (
     needed_loop_rate,
     stepped_cycle_work,
 )
-from orbitfix.gen.timing import work_size
 from orbitfix.gen.timing.integrators import INTEGRATORS, Integrator
 
 

@@ -78,9 +78,15 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.progress import tell
     from orbitfix.gen.safety import CAUTION
-    from orbitfix.verify.proofs.bit_exact import check_random_states_fit
+    from orbitfix.gen.work_size import bit_exact_work, refuse_beyond_machine
     from orbitfix.verify.proofs.certificate import certify
-    from orbitfix.verify.proofs.drift import NO_ANGLES, DriftTolerances, build_drift_module, run_drift
+    from orbitfix.verify.proofs.drift import (
+        NO_ANGLES,
+        DriftTolerances,
+        build_drift_module,
+        drift_size,
+        run_drift,
+    )
     from orbitfix.verify.proofs.host_check import check_on_host, read_sources
     from orbitfix.verify.report.certificate import certificate_json, certificate_lines
     from orbitfix.verify.report.design import design_json, design_lines
@@ -99,7 +105,12 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     partial.update(design_json(built))
     if built.plan.program.angle_states and not args.skip_drift:
         raise UnsupportedError(NO_ANGLES)
-    check_random_states_fit(len(built.plan.program.state_names), args.states)
+    # Sized now, so work beyond the machine is refused before any proof starts.
+    program = built.plan.program
+    refuse_beyond_machine(bit_exact_work(len(program.ops), len(program.state_names), args.states,
+                                         args.steps), "give fewer --states or --steps")
+    if not args.skip_drift:
+        refuse_beyond_machine(drift_size(built, args.hours), "give fewer --hours or a lower loop_hz")
     tolerances = DriftTolerances(amplitude=args.max_amplitude_error / 100,
                                  period_ppm=args.max_period_error,
                                  phase_drift_cycles=args.max_phase_drift,

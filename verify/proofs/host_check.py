@@ -15,7 +15,7 @@ from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.quantisation import quantise
-from orbitfix.gen.timing.work_size import bit_exact_work, refuse_beyond_machine
+from orbitfix.gen.work_size import bit_exact_work, refuse_beyond_machine
 from orbitfix.verify.proofs.bit_exact import BitExactReport, prove_bit_exact
 from orbitfix.verify.targets.host_build import HostModule, build_host_module
 

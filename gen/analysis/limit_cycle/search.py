@@ -20,8 +20,8 @@ from scipy.optimize import brentq
 
 from orbitfix.gen.analysis.equilibria import Equilibrium, EquilibriumFinder, format_state
 from orbitfix.gen.analysis.limit_cycle.flow import Budget, Flow, OutOfBudgetError, RunAwayError, integrate
-from orbitfix.gen.analysis.work_size import LARGEST_ARRAY, refuse_oversized
 from orbitfix.gen.model.angles import TURN, whole_turns, wrap_difference
+from orbitfix.gen.work_size import LARGEST_ARRAY, refuse_oversized
 
 SEARCH_RTOL = 1e-9             # relative tolerance while following the flow to find the cycle
 RETURN_TOLERANCE = 1e-5        # returns that repeat to this fraction of the motion's range

@@ -32,7 +32,7 @@ import numpy as np
 from orbitfix.gen.errors import InputError, UnsupportedError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.plain_data import plain_number
-from orbitfix.gen.timing.work_size import Work, drift_work, refuse_beyond_machine
+from orbitfix.gen.work_size import Work, drift_work, refuse_beyond_machine
 from orbitfix.verify.proofs.drift.harness import (
     build_drift_module,
     crossing_time,

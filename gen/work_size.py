@@ -1,6 +1,8 @@
 """Work sized before it starts: estimates of the time and memory of every run whose size follows
 from the input (steps per cycle, hours of loop time, numbers of states), and one refusal, with the
-size it would need, when a run is beyond the machine.
+size it would need, when a run is beyond the machine; and, for the analysis, one array whose
+length follows from the model (samples along a trajectory, a time grid), refused beyond
+``LARGEST_ARRAY`` before it is made.
 
 The costs per operation were measured on the project's two-core build machine (a Van der Pol rk4
 step of 47 operations): the numpy float step map takes 1.3 to 2.1 us per operation and step, the
@@ -18,6 +20,7 @@ from orbitfix.gen.errors import InputError
 
 SECONDS_PER_CORE = 20 * 60        # the longest run one verb may start, per core it uses
 MEMORY_BYTES = 4 * 2**30          # the largest working set one run may allocate
+LARGEST_ARRAY = 512 * 2**20       # bytes the analysis allows for one array (the machine's share)
 
 FLOAT_OP_SECONDS = 2.5e-6         # numpy float step map, per operation and step
 FLOAT_OP_COLUMN_SECONDS = 3e-9    # ... and per operation, step and column of the batch
@@ -53,8 +56,8 @@ class Work:
 
     def describe(self) -> str:
         if not math.isfinite(self.seconds):
-            return f"more time than can be counted and {_size(self.bytes)} of memory"
-        return f"about {_duration(self.seconds)} and {_size(self.bytes)} of memory"
+            return f"more time than can be counted and {byte_text(self.bytes)} of memory"
+        return f"about {_duration(self.seconds)} and {byte_text(self.bytes)} of memory"
 
 
 def float_run(what: str, operations: int, steps: float, columns: int = 1,
@@ -108,7 +111,7 @@ def refuse_beyond_machine(work: Work, advice: str) -> None:
     if work.fits:
         return
     raise InputError(f"{work.what} would need {work.describe()}, beyond the "
-                     f"{_duration(SECONDS_PER_CORE)} per core and {_size(MEMORY_BYTES)} this "
+                     f"{_duration(SECONDS_PER_CORE)} per core and {byte_text(MEMORY_BYTES)} this "
                      f"tool allows one run; {advice}")
 
 
@@ -121,10 +124,23 @@ def _duration(seconds: float) -> str:
     return f"{seconds:.3g} s"
 
 
-def _size(count: float) -> str:
+def byte_text(count: float) -> str:
+    """A number of bytes as '4.79 TiB', '512 MiB' or '96 bytes'."""
     if not math.isfinite(count):
         return "unbounded"
     for unit, size in (("TiB", 2.0**40), ("GiB", 2.0**30), ("MiB", 2.0**20), ("KiB", 2.0**10)):
         if count >= size:
             return f"{count / size:.3g} {unit}"
     return f"{count:.0f} bytes"
+
+
+def refuse_oversized(values: float, what: str, advice: str, *, value_bytes: int = 8) -> None:
+    """Raise InputError when ``values`` numbers of ``value_bytes`` each are more than one array may
+    hold (or are not a finite count). ``what`` names the array, ``advice`` says what to change."""
+    need = values * value_bytes
+    if math.isfinite(need) and need <= LARGEST_ARRAY:
+        return
+    size = (f"{values:,.0f} values, {byte_text(need)}" if math.isfinite(need)
+            else "an unbounded number of values")
+    raise InputError(f"{what} would need {size}, more than the {byte_text(LARGEST_ARRAY)} the analysis "
+                     f"allows for one array; {advice}")
