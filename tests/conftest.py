@@ -29,3 +29,27 @@ def vanderpol_design():
     from orbitfix.gen.pipeline import design
 
     return design(load_model("vanderpol"))
+
+
+# A model of our own with a runtime parameter, shared by the runtime-parameter and board tests.
+HIP = """\
+name = "hip"
+description = "Hopf oscillator pacing a hip joint, its frequency set by the gait controller"
+
+[states]
+x = 1.0
+y = 0.0
+
+[parameters]
+mu = 1.0
+omega = { value = 6.283185307179586, runtime = true, min = 3.0, max = 9.0, rate = 2.0, \
+meaning = "angular frequency" }
+
+[equations]
+x = "mu*x - omega*y - (x^2 + y^2)*x"
+y = "omega*x + mu*y - (x^2 + y^2)*y"
+
+[rhythm]
+cycle_hz = 1.0
+loop_hz = 500
+"""

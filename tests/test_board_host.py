@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import HIP
 
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
@@ -99,23 +100,6 @@ def test_a_seeded_fault_in_the_c_is_caught(host, tmp_path: Path) -> None:
     assert report.first_mismatch is not None and report.failure is None
     assert report.steps_compared == report.first_mismatch["from_step"]
 
-
-HIP = """\
-name = "hip"
-description = "Hopf oscillator pacing a hip joint, its frequency set by the gait controller"
-[states]
-x = 1.0
-y = 0.0
-[parameters]
-mu = 1.0
-omega = { value = 6.283185307179586, runtime = true, min = 3.0, max = 9.0, rate = 2.0 }
-[equations]
-x = "mu*x - omega*y - (x^2 + y^2)*x"
-y = "omega*x + mu*y - (x^2 + y^2)*y"
-[rhythm]
-cycle_hz = 1.0
-loop_hz = 500
-"""
 
 
 @pytest.mark.parametrize("cc", ["gcc", "clang", "avr-gcc"])

@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import serial
+from conftest import HIP
 
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
@@ -121,27 +122,6 @@ def test_firmware_for_another_model_is_refused(host, image16) -> None:
     with pytest.raises(WrongFirmwareError, match="another model"):
         stream_on_board(other, host, steps=100, image=image16, **QUICK)
 
-
-HIP = """\
-name = "hip"
-description = "Hopf oscillator pacing a hip joint, its frequency set by the gait controller"
-
-[states]
-x = 1.0
-y = 0.0
-
-[parameters]
-mu = 1.0
-omega = { value = 6.283185307179586, runtime = true, min = 3.0, max = 9.0, rate = 2.0 }
-
-[equations]
-x = "mu*x - omega*y - (x^2 + y^2)*x"
-y = "omega*x + mu*y - (x^2 + y^2)*y"
-
-[rhythm]
-cycle_hz = 1.0
-loop_hz = 500
-"""
 
 
 def test_set_moves_a_runtime_parameter_on_the_board(tmp_path: Path, host) -> None:

@@ -11,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import HIP
 
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.model_file import load_model
@@ -18,28 +19,6 @@ from orbitfix.gen.pipeline import CornerError, design
 from orbitfix.gen.program import golden
 from orbitfix.verify.cli.main import main
 from orbitfix.verify.proofs.host_check import check_on_host
-
-HIP = """\
-name = "hip"
-description = "Hopf oscillator pacing a hip joint, its frequency set by the gait controller"
-
-[states]
-x = 1.0
-y = 0.0
-
-[parameters]
-mu = 1.0
-omega = { value = 6.283185307179586, runtime = true, min = 3.0, max = 9.0, rate = 2.0, \
-meaning = "angular frequency" }
-
-[equations]
-x = "mu*x - omega*y - (x^2 + y^2)*x"
-y = "omega*x + mu*y - (x^2 + y^2)*y"
-
-[rhythm]
-cycle_hz = 1.0
-loop_hz = 500
-"""
 
 
 @pytest.fixture(scope="module")

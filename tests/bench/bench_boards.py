@@ -23,6 +23,8 @@ import serial
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
+from quick_mode import arguments, pick
+
 from orbitfix.gen.c.emit import render_model
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
@@ -95,10 +97,9 @@ def step_stack(folder: Path, function: str, cpu: str) -> str:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="20 steps per kind instead of 200")
     parser.add_argument("--boards", nargs="*", help="board names (default: every cross board)")
-    options = parser.parse_args()
-    steps = 20 if options.quick else 200
+    options = parser.parse_args(arguments())
+    steps = pick(200, 20)  # steps per kind; --quick (or ORBITFIX_BENCH_QUICK=1) for the tiny size
 
     built = design(load_model("vanderpol"))
     program = built.plan.program
