@@ -39,6 +39,8 @@ void orbitfix_harness_step_each(const int32_t *in, int32_t *out, size_t count);
 void orbitfix_harness_run(int32_t *state_io, size_t steps, int32_t *record);
 void orbitfix_harness_trace(const int32_t *in, int32_t *out, int32_t *trace);
 void orbitfix_harness_trace_each(const int32_t *in, int32_t *out, int32_t *trace, size_t count);
+void orbitfix_harness_set(const int32_t *in, int32_t *out, size_t which, int32_t target);
+size_t orbitfix_harness_setter_count(void);
 size_t orbitfix_harness_state_count(void);
 size_t orbitfix_harness_trace_length(void);
 """
@@ -183,7 +185,8 @@ def render_host_harness(model: Model, program: IntegerProgram) -> str:
     return environment().get_template("host_harness.c.j2").render(
         names=names, fields=[names.field(n) for n in program.state_names],
         count=len(program.state_names), version=__version__, word_type=f"int{word_bits}_t",
-        declarations=HARNESS_DECLARATIONS)
+        declarations=HARNESS_DECLARATIONS,
+        setters=[names.setter(p.name) for p in model.runtime_parameters])
 
 
 def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dict]:

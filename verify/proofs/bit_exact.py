@@ -1,16 +1,22 @@
 """The bit-exact proof: compiled C (layer L3) against the golden interpreter (layer L2).
 
-Two parts: one step from each of many random states spread over the whole word range, and a long
-trajectory from the initial state in which every single step is compared. On the random states,
-the verification-only traced step (``NAME_trace.c``) is also compared with golden value by value,
-and the firmware's own step with the traced step, so a fault in either file is caught. A mismatch
-names the first failing step, the state before it, what was expected and got, and the operation
-of the integer program where the two part.
+First every entry point the firmware calls besides the step: the state ``NAME_init`` sets must be
+the plan's initial state bit for bit, each setter must write its target and nothing else, and each
+ramp, driven through the C setter to the word's extremes and back, must match golden at every step
+and keep to the model's declared range and rate. Then two parts: one step from each of many random
+states inside the word (spread over its whole range, near the cycle, at the edges of saturation,
+the smallest values), and a long trajectory from the initial state in which every single step is
+compared. On the random states, the verification-only traced step (``NAME_trace.c``) is also
+compared with golden value by value, and the firmware's own step with the traced step, so a fault
+in either file is caught. ``compare_sanitized`` repeats the comparison on a build under the
+undefined-behaviour sanitizer. A mismatch names the first failing step, the state before it, what
+was expected and got, and the operation of the integer program where the two part.
 """
 
 from __future__ import annotations
 
 import math
+import subprocess
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
@@ -39,9 +45,11 @@ class Mismatch:
     got: list[int]
     operation: dict | None
     units: tuple[float, ...]  # per state, the real value of one integer unit (see state_units)
+    reason: str | None = None  # what was wrong, when it is not a plain C-against-golden difference
 
     def to_json(self) -> dict:
         return {
+            "reason": self.reason,
             "part": self.part,
             "step": self.step,
             "state_before": self.state_before,
@@ -62,18 +70,44 @@ def state_units(program: IntegerProgram) -> tuple[float, ...]:
                  for i, bits in enumerate(program.state_fraction_bits))
 
 
+@dataclass(frozen=True)
+class Ramp:
+    """What the model declares for one runtime parameter: its range, and its largest change per
+    step in real units (None: it follows its target at once)."""
+
+    name: str
+    low: float
+    high: float
+    per_step: float | None
+
+
+@dataclass(frozen=True)
+class SanitizedRun:
+    """The comparison repeated on a build under the undefined-behaviour sanitizer."""
+
+    level: str  # the optimisation flag of the build
+    states: int
+    steps: int
+    seconds: float
+    undefined: str | None  # the sanitizer's report of the first undefined operation
+
+
 @dataclass
 class BitExactReport:
-    """The outcome of both parts of the proof."""
+    """The outcome of every part of the proof."""
 
     states_compared: int = 0
     steps_compared: int = 0
     first_mismatch: Mismatch | None = None
     seconds: dict[str, float] = field(default_factory=dict)
+    init_checked: bool = False
+    setters_checked: int = 0
+    ramp_steps: int = 0
+    sanitized: list[SanitizedRun] = field(default_factory=list)
 
     @property
     def bit_exact(self) -> bool:
-        return self.first_mismatch is None
+        return self.first_mismatch is None and not any(run.undefined for run in self.sanitized)
 
 
 
@@ -86,8 +120,10 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
     low, high = program.word_min, program.word_max
     quarter = count // 4
     spread = rng.integers(low, high, size=(n, count - 3 * quarter), endpoint=True)
-    reach = np.maximum(2 * np.asarray(typical, dtype=np.int64), 16).reshape(-1, 1)
-    near_cycle = np.clip(rng.integers(-reach, reach, size=(n, quarter), endpoint=True), low, high)
+    # Twice the cycle's size, but never past the word: with under a bit of headroom, twice the
+    # sure bound is beyond it, and a state the C cannot hold proves nothing.
+    reach = np.minimum(np.maximum(2 * np.asarray(typical, dtype=np.int64), 16), high).reshape(-1, 1)
+    near_cycle = rng.integers(np.maximum(-reach, low), reach, size=(n, quarter), endpoint=True)
     edges = np.where(rng.random((n, quarter)) < 0.5, low, high) - np.sign(
         rng.random((n, quarter)) - 0.5).astype(np.int64) * rng.integers(0, 1 << 12, (n, quarter))
     edges = np.clip(edges, low, high)
@@ -95,11 +131,24 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
     return np.hstack([spread, near_cycle, edges, small]).astype(np.int64)
 
 
+def _require_inside_word(program: IntegerProgram, states: np.ndarray, what: str) -> None:
+    """States travel to the C as int32_t and become the firmware's word there: one outside the word
+    would reach the C wrapped and golden unwrapped, a false alarm. Never let one through."""
+    states = np.asarray(states)
+    if states.size and (states.min() < program.word_min or states.max() > program.word_max):
+        raise ValueError(f"{what} holds a value outside the {program.word_bits}-bit word "
+                         f"[{program.word_min}, {program.word_max}]: a bug in the verifier")
+
+
 def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarray,
                     typical: np.ndarray, states: int = 1_000_000, steps: int = 1_000_000,
                     segment: int = 64, block: int = 1 << 18, seed: int = SEED,
-                    shipped_trace: Callable[[], HostModule | None] | None = None) -> BitExactReport:
-    """Compare C and golden on ``states`` random states and a ``steps``-step trajectory.
+                    shipped_trace: Callable[[], HostModule | None] | None = None,
+                    ramps: tuple[Ramp, ...] = ()) -> BitExactReport:
+    """Check the init function, the setters and ramps, then compare C and golden on ``states``
+    random states and a ``steps``-step trajectory.
+
+    ramps : the model's runtime parameters in order (one setter each), for the ramp checks.
 
     shipped_trace : builds, when a mismatch must be located, a module whose traced step is the
         firmware's own step code with a trace added (see ``host_check``), so the operation named
@@ -107,11 +156,23 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
     """
     report = BitExactReport()
     _check_shape(program, host)
+    initial = np.asarray(initial, dtype=np.int64)
+    _require_inside_word(program, initial, "the initial state")
+    locator = _Locator(host, shipped_trace)
+    started = time.perf_counter()
+    report.first_mismatch = _check_init(program, host, initial)
+    report.init_checked = report.first_mismatch is None
+    if report.first_mismatch is None:
+        report.setters_checked, report.ramp_steps, report.first_mismatch = _check_ramps(
+            program, host, ramps, locator)
+    report.seconds["init_and_setters"] = time.perf_counter() - started
+    if report.first_mismatch is not None:
+        return report
     started = time.perf_counter()
     rng = np.random.default_rng(seed)
     batch = random_states(program, states, typical, rng)
+    _require_inside_word(program, batch, "a random state")
     got = _c_step_each(host, batch)
-    locator = _Locator(host, shipped_trace)
     chunk = min(CHUNK, max(1024, TRACE_BUDGET // len(program.ops)))
     for first in range(0, states, chunk):
         tell("comparing random states, C against golden", first, states)
@@ -140,6 +201,165 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
         program, host, np.asarray(initial, dtype=np.int64), steps, segment, block, locator)
     report.seconds["trajectory"] = time.perf_counter() - started
     return report
+
+
+def _check_init(program: IntegerProgram, host: HostModule, initial: np.ndarray) -> Mismatch | None:
+    """The state the C's init function sets against the plan's initial state, bit for bit."""
+    out = np.zeros(len(program.state_names), dtype=np.int32)
+    host.lib.orbitfix_harness_init(host.ffi.from_buffer("int32_t[]", out))
+    if np.array_equal(out.astype(np.int64), initial):
+        return None
+    wrong = [program.state_names[i] for i in np.flatnonzero(out != initial)]
+    return Mismatch(part="init", step=0, state_before=[], expected=[int(v) for v in initial],
+                    got=[int(v) for v in out], operation=None, units=state_units(program),
+                    reason=f"the init function sets {', '.join(wrong)} to another value than the "
+                           "plan's initial state")
+
+
+RAMP_STEP_CAP = 1 << 16  # steps followed after each setter call at most
+
+
+def _c_set(host: HostModule, state: np.ndarray, which: int, target: int) -> np.ndarray:
+    ffi = host.ffi
+    given = np.ascontiguousarray(state, dtype=np.int32)
+    out = np.empty_like(given)
+    host.lib.orbitfix_harness_set(ffi.from_buffer("int32_t[]", given),
+                                  ffi.from_buffer("int32_t[]", out), which, int(target))
+    return out.astype(np.int64)
+
+
+def _check_ramps(program: IntegerProgram, host: HostModule, ramps: tuple[Ramp, ...],
+                 locator: _Locator) -> tuple[int, int, Mismatch | None]:
+    """Each setter, called through the C on the state the C itself reached, with targets at the
+    word's extremes, inside the range and back: it must write its target and nothing else; every
+    step after it must match golden; and the parameter must keep to its declared range, move by
+    at most its declared rate and arrive at its target held in the range. Returns (setters
+    checked, steps compared, first mismatch or None)."""
+    count = int(host.lib.orbitfix_harness_setter_count())
+    if count != len(ramps):
+        raise InputError(f"the C has {count} setters but the model has {len(ramps)} runtime "
+                         "parameters; the sources belong to another model")
+    units = state_units(program)
+    first_parameter = program.model_state_count
+    steps_done = 0
+    for which, ramp in enumerate(ramps):
+        current, target = first_parameter + 2 * which, first_parameter + 2 * which + 1
+        bits = program.state_fraction_bits[current]
+        unit = 2.0 ** -bits
+        # constants of the ramp are rounded in their own formats: allow the word's resolution
+        slack = 2 * unit + 2 * max(abs(ramp.low), abs(ramp.high)) * 2.0 ** (2 - program.word_bits)
+        middle = round((ramp.low + ramp.high) / 2 * 2.0 ** program.state_fraction_bits[target])
+        out = np.zeros(len(program.state_names), dtype=np.int32)
+        host.lib.orbitfix_harness_init(host.ffi.from_buffer("int32_t[]", out))
+        state = out.astype(np.int64)
+        span = ramp.high - ramp.low
+        follow = 2 if ramp.per_step is None else math.ceil(span / ramp.per_step) + 2
+        follow = min(follow, RAMP_STEP_CAP)
+        for wanted in (program.word_max, program.word_min, middle, program.word_max):
+            expected = state.copy()
+            expected[target] = wanted
+            got = _c_set(host, state, which, wanted)
+            if not np.array_equal(got, expected):
+                return which + 1, steps_done, Mismatch(
+                    part="setter", step=steps_done, state_before=[int(v) for v in state],
+                    expected=[int(v) for v in expected], got=[int(v) for v in got],
+                    operation=None, units=units,
+                    reason=f"the setter of {ramp.name} does not write just its target")
+            state = got
+            end, record = _c_run(host, state, follow)
+            before = np.vstack([state.reshape(1, -1), record[:-1]])
+            want = golden.step(program, before.T).T
+            wrong = np.flatnonzero(np.any(want != record, axis=1))
+            if wrong.size:
+                k = int(wrong[0])
+                return which + 1, steps_done + k + 1, _locate(
+                    program, locator.host(), "ramp", steps_done + k + 1, before[k], want[k],
+                    record[k])
+            values = np.concatenate([[state[current]], record[:, current]]) * unit
+            held = min(max(wanted * 2.0 ** -program.state_fraction_bits[target], ramp.low),
+                       ramp.high)
+            problem = None
+            if values[1:].min() < ramp.low - slack or values[1:].max() > ramp.high + slack:
+                problem = (f"{ramp.name} leaves its range [{ramp.low:g}, {ramp.high:g}]: it "
+                           f"reaches {values[1:].min():g} .. {values[1:].max():g}")
+            elif ramp.per_step is not None and np.abs(np.diff(values)).max() > ramp.per_step + slack:
+                problem = (f"{ramp.name} moves by {np.abs(np.diff(values)).max():g} in one step, "
+                           f"more than its rate allows ({ramp.per_step:g} per step)")
+            elif follow < RAMP_STEP_CAP and abs(values[-1] - held) > slack:
+                problem = (f"{ramp.name} ends at {values[-1]:g} after {follow} steps, not at its "
+                           f"target held in its range ({held:g})")
+            if problem is not None:
+                return which + 1, steps_done + follow, Mismatch(
+                    part="ramp", step=steps_done + follow, state_before=[int(v) for v in state],
+                    expected=[], got=[int(v) for v in end], operation=None, units=units,
+                    reason=problem)
+            steps_done += follow
+            state = end
+    return len(ramps), steps_done, None
+
+
+def compare_sanitized(program: IntegerProgram, executable: str, level: str, initial: np.ndarray,
+                      typical: np.ndarray, states: int, steps: int,
+                      seed: int = SEED) -> tuple[SanitizedRun, Mismatch | None]:
+    """The stand-alone sanitized build (``host_build.build_sanitized_program``) on ``states``
+    random states (drawn as in the main proof, the traced step too) and ``steps`` steps from its
+    own init state, every value against golden. Undefined behaviour stops the program: its report
+    is kept in the run."""
+    started = time.perf_counter()
+    batch = random_states(program, states, typical, np.random.default_rng(seed))
+    _require_inside_word(program, batch, "a random state")
+    n, length = len(program.state_names), len(program.ops)
+    feed = np.concatenate([np.array([states, states, steps], dtype=np.int32),
+                           np.ascontiguousarray(batch.T, dtype=np.int32).ravel()])
+    done = subprocess.run([executable], input=feed.tobytes(), capture_output=True, check=False)
+    if done.returncode != 0:
+        text = done.stderr.decode(errors="replace").strip().splitlines()
+        found = [line for line in text if "runtime error" in line] or text[-3:] or [
+            f"exit code {done.returncode}"]
+        return SanitizedRun(level, states, steps, time.perf_counter() - started,
+                            undefined="\n".join(found[:3])), None
+    out = np.frombuffer(done.stdout, dtype=np.int32).astype(np.int64)
+    sizes = [n, states * n, states * n, states * length, steps * n]
+    if out.size != sum(sizes):
+        raise ValueError(f"the sanitized program wrote {out.size} values, not {sum(sizes)}")
+    init, stepped, traced_next, traces, record = np.split(out, np.cumsum(sizes)[:-1])
+    run = SanitizedRun(level, states, steps, 0.0, None)
+    units = state_units(program)
+    part = f"sanitized build {level}"
+    mismatch = None
+    if not np.array_equal(init, initial):
+        mismatch = Mismatch(part=part, step=0, state_before=[], expected=[int(v) for v in initial],
+                            got=[int(v) for v in init], operation=None, units=units,
+                            reason="the init function sets another state in this build")
+    values = golden.evaluate(program, batch)
+    want = np.stack([values[i] for i in program.next_state])
+    stepped, traced_next = stepped.reshape(states, n).T, traced_next.reshape(states, n).T
+    traces = traces.reshape(states, length)
+    wrong = np.any(stepped != want, axis=0) | np.any(traced_next != want, axis=0)
+    for index, value in enumerate(values):
+        wrong |= traces[:, index] != value
+    bad = np.flatnonzero(wrong)
+    if mismatch is None and bad.size:
+        k = int(bad[0])
+        operation = next(({"index": i, "kind": program.ops[i].kind, "note": program.ops[i].note,
+                           "args": list(program.ops[i].args), "expected": int(values[i][k]),
+                           "got": int(traces[k, i])}
+                          for i in range(length) if traces[k, i] != values[i][k]), None)
+        mismatch = Mismatch(part=part, step=k, state_before=[int(v) for v in batch[:, k]],
+                            expected=[int(v) for v in want[:, k]],
+                            got=[int(v) for v in stepped[:, k]], operation=operation, units=units)
+    if mismatch is None and steps:
+        record = record.reshape(steps, n)
+        before = np.vstack([init.reshape(1, -1), record[:-1]])
+        expected = golden.step(program, before.T).T
+        bad = np.flatnonzero(np.any(expected != record, axis=1))
+        if bad.size:
+            k = int(bad[0])
+            mismatch = Mismatch(part=part, step=k + 1, state_before=[int(v) for v in before[k]],
+                                expected=[int(v) for v in expected[k]],
+                                got=[int(v) for v in record[k]], operation=None, units=units,
+                                reason="a step of the trajectory from the init state differs")
+    return replace(run, seconds=time.perf_counter() - started), mismatch
 
 
 class _Locator:

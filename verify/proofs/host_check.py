@@ -16,8 +16,22 @@ from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.work_size import bit_exact_work, refuse_beyond_machine
-from orbitfix.verify.proofs.bit_exact import BitExactReport, prove_bit_exact
-from orbitfix.verify.targets.host_build import HostModule, build_host_module
+from orbitfix.verify.proofs.bit_exact import (
+    BitExactReport,
+    Ramp,
+    compare_sanitized,
+    prove_bit_exact,
+)
+from orbitfix.verify.targets.host_build import (
+    SANITIZED_LEVELS,
+    HostModule,
+    build_host_module,
+    build_sanitized_program,
+)
+
+# Random states (and trajectory steps) the sanitized builds compare: each costs about as much as
+# the main comparison's million at full optimisation, so a sixteenth of it keeps verify fast.
+SANITIZED_STATES = 1 << 16
 
 PROGRAM_MARK = re.compile(r"integer program ([0-9a-f]{16})")
 
@@ -62,8 +76,11 @@ def read_sources(design: Design, folder: Path) -> tuple[dict[str, str], list[str
 
 
 def check_on_host(design: Design, sources_folder: Path | None = None, states: int = 1_000_000,
-                  steps: int = 1_000_000) -> HostCheck:
-    """Build the C on the host and run both parts of the bit-exact proof."""
+                  steps: int = 1_000_000, sanitized_states: int = SANITIZED_STATES) -> HostCheck:
+    """Build the C on the host and run every part of the bit-exact proof; when it holds, repeat
+    the comparison on ``sanitized_states`` states and as many steps (at most ``states`` and
+    ``steps``) under the undefined-behaviour sanitizer at each level of SANITIZED_LEVELS (0: not
+    at all)."""
     program = design.plan.program
     refuse_beyond_machine(bit_exact_work(len(program.ops), len(program.state_names), states, steps),
                           "give fewer --states or --steps")
@@ -86,9 +103,26 @@ def check_on_host(design: Design, sources_folder: Path | None = None, states: in
     # planning box, in its own integer units, is the size of a typical state.
     typical = [quantise(max(abs(low), abs(high)), bits) for (low, high), bits in
                zip(plan.sure_bounds, plan.program.state_fraction_bits, strict=False)]
-    report = prove_bit_exact(plan.program, host, np.array(plan.initial_state, dtype=np.int64),
-                             np.array(typical), states=states, steps=steps,
-                             shipped_trace=lambda: _shipped_trace(design, sources, traced, harness))
+    loop_hz = design.timing.loop_hz
+    ramps = tuple(Ramp(p.name, p.low, p.high, None if p.rate is None else p.rate / loop_hz)
+                  for p in design.model.runtime_parameters)
+    initial = np.array(plan.initial_state, dtype=np.int64)
+    report = prove_bit_exact(plan.program, host, initial, np.array(typical), states=states,
+                             steps=steps,
+                             shipped_trace=lambda: _shipped_trace(design, sources, traced, harness),
+                             ramps=ramps)
+    if report.bit_exact and sanitized_states > 0:
+        for level in SANITIZED_LEVELS:
+            started = time.perf_counter()
+            executable = build_sanitized_program({**sources, **traced}, harness, level)
+            report.seconds[f"sanitized_build{level}"] = time.perf_counter() - started
+            run, mismatch = compare_sanitized(plan.program, str(executable), level, initial,
+                                              np.array(typical), min(sanitized_states, states),
+                                              min(sanitized_states, steps))
+            report.sanitized.append(run)
+            if mismatch is not None or run.undefined:
+                report.first_mismatch = mismatch
+                break
     return HostCheck(sources=origin, report=report, build_seconds=build_seconds,
                      build_reused=host.reused, notes=notes)
 

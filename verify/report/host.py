@@ -7,7 +7,7 @@ from typing import Any
 
 from orbitfix.verify.proofs.bit_exact import Mismatch
 from orbitfix.verify.proofs.host_check import HostCheck
-from orbitfix.verify.targets.host_build import STRICT_FLAGS
+from orbitfix.verify.targets.host_build import SANITIZE_FLAGS, STRICT_FLAGS
 
 
 def host_fields(outcome: HostCheck) -> dict[str, Any]:
@@ -18,6 +18,12 @@ def host_fields(outcome: HostCheck) -> dict[str, Any]:
         "bit_exact": report.bit_exact,
         "states_compared": report.states_compared,
         "steps_compared": report.steps_compared,
+        "init_checked": report.init_checked,
+        "setters_checked": report.setters_checked,
+        "ramp_steps_compared": report.ramp_steps,
+        "sanitized": [{"flags": [run.level, *SANITIZE_FLAGS], "states_compared": run.states,
+                       "steps_compared": run.steps, "seconds": run.seconds,
+                       "undefined_behaviour": run.undefined} for run in report.sanitized],
         "first_mismatch": mismatch.to_json() if mismatch else None,
         "sources": outcome.sources,
         "notes": outcome.notes,
@@ -33,14 +39,27 @@ def host_lines(outcome: HostCheck) -> list[str]:
     lines += [f"  note: {note}" for note in outcome.notes]
     reused = " (reused from the cache)" if outcome.build_reused else ""
     lines.append(f"host build: {' '.join(STRICT_FLAGS)}, {outcome.build_seconds:.2f} s{reused}")
+    if report.init_checked:
+        ramps = (f"; {report.setters_checked} setter(s) and their ramps, "
+                 f"{report.ramp_steps:,} steps compared" if report.setters_checked else "")
+        lines.append(f"init function: sets the plan's initial state bit for bit{ramps}"
+                     + _seconds(report.seconds.get("init_and_setters")))
     lines.append(f"random states: {report.states_compared:,} compared one step each"
                  + _seconds(report.seconds.get("random_states")))
     if "trajectory" in report.seconds or report.steps_compared:
         lines.append(f"trajectory from the initial state: {report.steps_compared:,} steps compared"
                      + _seconds(report.seconds.get("trajectory")))
+    for run in report.sanitized:
+        verdict = (f"undefined behaviour: {run.undefined}" if run.undefined else
+                   f"{run.states:,} states and {run.steps:,} steps compared")
+        lines.append(f"sanitized build ({run.level} {' '.join(SANITIZE_FLAGS)}): {verdict}"
+                     + _seconds(run.seconds))
+    undefined = any(run.undefined for run in report.sanitized)
     if report.first_mismatch:
         lines += mismatch_lines(report.first_mismatch)
-        lines.append("result: NOT bit-exact: the C does not give the golden model's bits")
+    if report.first_mismatch or undefined:
+        lines.append("result: NOT bit-exact: the C does not give the golden model's bits"
+                     + (" on every build" if undefined and not report.first_mismatch else ""))
     else:
         lines.append("result: bit-exact: the C gives the golden model's bits at every compared step")
     return lines
@@ -52,11 +71,19 @@ def mismatch_lines(mismatch: Mismatch) -> list[str]:
              "traced step": f"random state number {mismatch.step}, in the traced step "
                             "(the verification-only file)"}.get(
         mismatch.part, f"random state number {mismatch.step}")
-    lines = [f"first mismatch at {where}",
-             f"  state before: {mismatch.state_before}",
-             f"  expected:     {mismatch.expected}",
-             f"  got:          {mismatch.got}"]
-    if mismatch.operation is None and mismatch.part == "traced step":
+    where = {"init": "the init function", "setter": "a setter",
+             "ramp": f"step {mismatch.step} after a setter call"}.get(mismatch.part, where)
+    if mismatch.part.startswith("sanitized build"):
+        where = f"{mismatch.part}, {where}"
+    lines = [f"first mismatch at {where}"]
+    if mismatch.state_before:
+        lines.append(f"  state before: {mismatch.state_before}")
+    if mismatch.expected:
+        lines.append(f"  expected:     {mismatch.expected}")
+    lines.append(f"  got:          {mismatch.got}")
+    if mismatch.reason:
+        lines.append(f"  {mismatch.reason}")
+    elif mismatch.operation is None and mismatch.part == "traced step":
         lines.append("  every intermediate value agrees with golden; the traced step stores a "
                      "different next state from the firmware step")
     elif mismatch.operation is None:

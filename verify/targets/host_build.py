@@ -26,7 +26,12 @@ from orbitfix.gen.errors import OrbitfixError, ToolchainError
 STRICT_FLAGS = ("-std=c99", "-Wall", "-Wextra", "-Wconversion", "-Wsign-conversion",
                 "-pedantic", "-Werror")
 OPTIMISE_FLAGS = ("-O2", "-fPIC")
-
+# A second opinion on every value: the same C under the undefined-behaviour sanitizer, which stops
+# the run at the first undefined operation (a shift of a negative value or by too much, a signed
+# overflow), at no optimisation and at full optimisation, so no compiler's folding can hide it.
+SANITIZE_FLAGS = ("-fsanitize=undefined", "-fno-sanitize-recover=undefined")
+SANITIZED_LEVELS = ("-O0", "-O2")
+HARNESS_MAIN = "ORBITFIX_HARNESS_MAIN"  # defined for the stand-alone sanitized program
 
 
 class CompileError(OrbitfixError):
@@ -100,8 +105,39 @@ def build_host_module(sources: dict[str, str], harness: str, header: str,
     return HostModule(ffi=module.ffi, lib=module.lib, folder=folder, reused=reused)
 
 
-def _build(folder: Path, module_name: str, sources: dict[str, str], harness: str, header: str,
-           declarations: str, cc: str, flags: tuple[str, ...]) -> Path:
+def build_sanitized_program(sources: dict[str, str], harness: str, level: str) -> Path:
+    """The firmware and harness as a stand-alone program under the undefined-behaviour sanitizer
+    at optimisation ``level`` (one of SANITIZED_LEVELS), with the strict flags. It reads states
+    on its standard input and writes results on its standard output (see the harness's main);
+    any undefined operation stops it with a non-zero exit and the sanitizer's report."""
+    cc = compiler()
+    flags = (*STRICT_FLAGS, level, *SANITIZE_FLAGS, f"-D{HARNESS_MAIN}")
+    digest = hashlib.sha256()
+    for part in ("sanitized program", _compiler_identity(cc), " ".join(flags), harness):
+        digest.update(part.encode())
+    for name in sorted(sources):
+        digest.update(name.encode())
+        digest.update(sources[name].encode())
+    folder = cache_root() / digest.hexdigest()[:20]
+    program = folder / "orbitfix_sanitized"
+    if program.is_file():
+        return program
+    work = _work_folder(folder, sources, harness)
+    objects = _compile_objects(work, sources, cc, flags)
+    command = [cc, *SANITIZE_FLAGS, *objects, "-o", str(work / program.name)]
+    done = subprocess.run(command, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        shutil.rmtree(work, ignore_errors=True)
+        raise ToolchainError(f"linking the sanitized host program failed with {cc}:\n"
+                             f"{done.stderr.strip()}\ninstall the compiler's sanitizer runtime "
+                             "(Debian: apt-get install libubsan1 for gcc)")
+    if folder.exists():
+        shutil.rmtree(folder, ignore_errors=True)
+    work.rename(folder)
+    return program
+
+
+def _work_folder(folder: Path, sources: dict[str, str], harness: str) -> Path:
     work = folder.with_name(folder.name + f".building-{os.getpid()}")
     if work.exists():
         shutil.rmtree(work)
@@ -109,6 +145,12 @@ def _build(folder: Path, module_name: str, sources: dict[str, str], harness: str
     for name, text in sources.items():
         (work / name).write_text(text)
     (work / "orbitfix_harness.c").write_text(harness)
+    return work
+
+
+def _compile_objects(work: Path, sources: dict[str, str], cc: str,
+                     flags: tuple[str, ...]) -> list[str]:
+    """Every C file of ``work`` (the sources and the harness) compiled to an object."""
     objects = []
     for name in [*sorted(n for n in sources if n.endswith(".c")), "orbitfix_harness.c"]:
         target = work / (Path(name).stem + ".o")
@@ -119,6 +161,13 @@ def _build(folder: Path, module_name: str, sources: dict[str, str], harness: str
             raise CompileError(f"{name} does not compile warning-free with {cc} "
                                f"{' '.join(flags)}:\n{done.stderr.strip()}")
         objects.append(str(target))
+    return objects
+
+
+def _build(folder: Path, module_name: str, sources: dict[str, str], harness: str, header: str,
+           declarations: str, cc: str, flags: tuple[str, ...]) -> Path:
+    work = _work_folder(folder, sources, harness)
+    objects = _compile_objects(work, sources, cc, flags)
     ffi = cffi.FFI()
     ffi.cdef(declarations)
     ffi.set_source(module_name, f'#include <stddef.h>\n#include <stdint.h>\n#include "{header}"\n'
