@@ -2,18 +2,24 @@
 
 cffi's own wrapper does not build under ``-pedantic -Werror`` (it converts object pointers to
 function pointers), so the firmware and harness sources are compiled to objects with the strict
-flags first, and the wrapper is built around those objects with default flags. Builds land in a
+flags, the wrapper (cffi's C, which depends only on the header and the declarations) with default
+flags, and the three are linked into an extension module. Builds land in a
 cache folder keyed by a hash of the sources, flags and compiler, so repeated runs reuse them.
 """
 
 from __future__ import annotations
 
+import contextlib
+import functools
 import hashlib
+import importlib.machinery
 import importlib.util
+import io
 import os
 import shutil
 import subprocess
 import sys
+import sysconfig
 import types
 from dataclasses import dataclass
 from pathlib import Path
@@ -68,6 +74,7 @@ def compiler() -> str:
                          "gcc) or point $CC at one")
 
 
+@functools.lru_cache(maxsize=8)
 def _compiler_identity(cc: str) -> str:
     done = subprocess.run([cc, "--version"], capture_output=True, text=True, check=False)
     return done.stdout.splitlines()[0] if done.stdout else cc
@@ -91,12 +98,12 @@ def build_host_module(sources: dict[str, str], harness: str, header: str,
         digest.update(name.encode())
         digest.update(sources[name].encode())
     key = digest.hexdigest()[:20]
-    module_name = f"_orbitfix_host_{key}"
     folder = cache_root() / key
-    built = sorted(folder.glob(f"{module_name}*.so")) + sorted(folder.glob(f"{module_name}*.pyd"))
+    built = sorted(folder.glob("_orbitfix_host_*.so")) + sorted(folder.glob("_orbitfix_host_*.pyd"))
     reused = bool(built)
     if not built:
-        built = [_build(folder, module_name, sources, harness, header, declarations, cc, flags)]
+        built = [_build(folder, sources, harness, header, declarations, cc, flags)]
+    module_name = built[0].name.split(".")[0]
     spec = importlib.util.spec_from_file_location(module_name, built[0])
     if spec is None or spec.loader is None:
         raise ToolchainError(f"cannot load the host build {built[0]}; delete {folder} and retry")
@@ -150,34 +157,90 @@ def _work_folder(folder: Path, sources: dict[str, str], harness: str) -> Path:
 
 def _compile_objects(work: Path, sources: dict[str, str], cc: str,
                      flags: tuple[str, ...]) -> list[str]:
-    """Every C file of ``work`` (the sources and the harness) compiled to an object."""
+    """Every C file of ``work`` (the sources and the harness) compiled to an object. Objects are
+    kept in the cache by a hash of the compiler, the flags, the file and every header beside it,
+    so a build that changes one file compiles only that one."""
+    headers = "".join(f"{name}\0{text}\0" for name, text in sorted(sources.items())
+                      if name.endswith(".h"))
+    store = cache_root() / "objects"
+    store.mkdir(parents=True, exist_ok=True)
     objects = []
     for name in [*sorted(n for n in sources if n.endswith(".c")), "orbitfix_harness.c"]:
+        text = (work / name).read_text()
+        digest = hashlib.sha256()
+        for part in (_compiler_identity(cc), " ".join(flags), name, text, headers):
+            digest.update(part.encode())
+        kept = store / f"{digest.hexdigest()[:24]}.o"
         target = work / (Path(name).stem + ".o")
+        if kept.is_file():
+            shutil.copyfile(kept, target)
+            objects.append(str(target))
+            continue
         command = [cc, *flags, "-I", str(work), "-c", str(work / name), "-o", str(target)]
         done = subprocess.run(command, capture_output=True, text=True, check=False)
         if done.returncode != 0:
             shutil.rmtree(work, ignore_errors=True)
             raise CompileError(f"{name} does not compile warning-free with {cc} "
                                f"{' '.join(flags)}:\n{done.stderr.strip()}")
+        partial = kept.with_name(f"{kept.name}.{os.getpid()}")
+        shutil.copyfile(target, partial)
+        partial.replace(kept)
         objects.append(str(target))
     return objects
 
 
-def _build(folder: Path, module_name: str, sources: dict[str, str], harness: str, header: str,
-           declarations: str, cc: str, flags: tuple[str, ...]) -> Path:
-    work = _work_folder(folder, sources, harness)
-    objects = _compile_objects(work, sources, cc, flags)
+def _wrapper_object(cc: str, header: str, header_text: str, declarations: str) -> tuple[str, Path]:
+    """cffi's wrapper around the declarations, compiled once per header and declarations (it does
+    not depend on the sources' bodies) and kept in the cache: (module name, object file). Built
+    by hand from cffi's C rather than through setuptools, which would recompile it every time."""
+    digest = hashlib.sha256()
+    for part in ("wrapper", _compiler_identity(cc), cffi.__version__, sys.version, declarations,
+                 header, header_text):
+        digest.update(part.encode())
+    key = digest.hexdigest()[:20]
+    module_name = f"_orbitfix_host_{key}"
+    store = cache_root() / "wrappers"
+    kept = store / f"{module_name}.o"
+    if kept.is_file():
+        return module_name, kept
+    work = store / f"{module_name}.building-{os.getpid()}"
+    work.mkdir(parents=True, exist_ok=True)
+    (work / header).write_text(header_text)
     ffi = cffi.FFI()
     ffi.cdef(declarations)
     ffi.set_source(module_name, f'#include <stddef.h>\n#include <stdint.h>\n#include "{header}"\n'
-                   + declarations, include_dirs=[str(work)], extra_objects=objects)
-    try:
-        built = Path(ffi.compile(tmpdir=str(work), verbose=False))
-    except Exception as exc:  # cffi raises distutils/setuptools errors of several kinds
+                   + declarations)
+    source = work / f"{module_name}.c"
+    with contextlib.redirect_stdout(io.StringIO()):  # cffi says "generating ..." otherwise
+        ffi.emit_c_code(str(source))
+    include = sysconfig.get_paths()["include"]
+    command = [cc, "-O2", "-fPIC", "-I", include, "-I", str(work), "-c", str(source), "-o",
+               str(work / kept.name)]
+    done = subprocess.run(command, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
         shutil.rmtree(work, ignore_errors=True)
-        raise ToolchainError(f"building the cffi wrapper failed ({exc}); check that the Python "
-                             "headers are installed (Debian: apt-get install python3-dev)") from None
+        raise ToolchainError(f"building the cffi wrapper failed:\n{done.stderr.strip()[-2000:]}\n"
+                             "check that the Python headers are installed (Debian: apt-get "
+                             "install python3-dev)")
+    (work / kept.name).replace(kept)
+    shutil.rmtree(work, ignore_errors=True)
+    return module_name, kept
+
+
+def _build(folder: Path, sources: dict[str, str], harness: str, header: str, declarations: str,
+           cc: str, flags: tuple[str, ...]) -> Path:
+    if header not in sources:
+        raise ToolchainError(f"the sources hold no {header} for the cffi wrapper to include")
+    work = _work_folder(folder, sources, harness)
+    objects = _compile_objects(work, sources, cc, flags)
+    module_name, wrapper = _wrapper_object(cc, header, sources[header], declarations)
+    built = work / f"{module_name}{importlib.machinery.EXTENSION_SUFFIXES[0]}"
+    link = ["-undefined", "dynamic_lookup"] if sys.platform == "darwin" else []
+    command = [cc, "-shared", *link, *objects, str(wrapper), "-o", str(built)]
+    done = subprocess.run(command, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        shutil.rmtree(work, ignore_errors=True)
+        raise ToolchainError(f"linking the host module failed with {cc}:\n{done.stderr.strip()}")
     if folder.exists():
         shutil.rmtree(folder, ignore_errors=True)
     work.rename(folder)
