@@ -261,3 +261,58 @@ def test_c_products_round_like_exact_rationals_at_ties(word: int, rounding: str,
         else:
             value = (value - low) % (1 << word) + low
         assert int(trace[mul]) == value, (a, b)
+
+
+def test_an_edited_init_literal_is_caught_and_named(vanderpol_design, tmp_path) -> None:
+    # Every initial-state literal of NAME_init, one LSB off, must fail the proof (the init function
+    # is what firmware and boards start from).
+    files = write_firmware(tmp_path, vanderpol_design)
+    source = files["vanderpol.c"]
+    literals = list(re.finditer(r"state->(\w+) = INT32_C\((-?\d+)\);", source))
+    assert len(literals) == len(vanderpol_design.plan.program.state_names)
+    for found in literals:
+        edited = (source[:found.start(2)] + str(int(found.group(2)) + 1) + source[found.end(2):])
+        (tmp_path / "vanderpol.c").write_text(edited)
+        outcome = check_on_host(vanderpol_design, tmp_path, states=1000, steps=1000)
+        mismatch = outcome.report.first_mismatch
+        assert mismatch is not None and mismatch.part == "init"
+        assert found.group(1) in mismatch.reason
+        assert mismatch.expected == list(vanderpol_design.plan.initial_state)
+        assert any("the init function" in line for line in mismatch_lines(mismatch))
+
+
+def test_random_states_stay_inside_the_word_however_little_the_headroom() -> None:
+    # With under a bit of headroom, twice the cycle's size is beyond the word; no state may be.
+    from orbitfix.verify.proofs.bit_exact import random_states
+
+    for bits in (16, 32):
+        low, high = -(1 << (bits - 1)), (1 << (bits - 1)) - 1
+        program = IntegerProgram(name="edge", state_names=("x", "y"),
+                                 ops=(Op("state", state=0, note="x"),
+                                      Op("state", state=1, note="y")),
+                                 next_state=(0, 1), word_bits=bits,
+                                 product_bits=2 * bits)
+        states = random_states(program, 40_000, np.array([high - 5, high // 3]),
+                               np.random.default_rng(1))
+        assert states.min() >= low and states.max() <= high
+        near = states[:, 10_000:20_000]  # the near-cycle quarter still reaches the word's edges
+        assert near[0].max() > high * 0.9 and near[0].min() < low * 0.9
+
+
+def test_a_state_outside_the_word_is_refused_as_a_verifier_bug(vanderpol_design) -> None:
+    from orbitfix.verify.proofs.bit_exact import _require_inside_word
+
+    program = vanderpol_design.plan.program
+    with pytest.raises(ValueError, match="outside the 32-bit word"):
+        _require_inside_word(program, np.array([[-2149444361], [0]]), "a random state")
+    _require_inside_word(program, np.array([[program.word_min], [program.word_max]]), "a state")
+
+
+def test_little_headroom_is_no_false_alarm(vanderpol_design) -> None:
+    # The false alarm of `verify vanderpol --fraction-bits 28`: states near the cycle at twice the
+    # sure bound went past int32 and were compared wrapped in C, unwrapped in golden.
+    model = vanderpol_design.model.with_fixed_point(fraction_bits=28)
+    built = design(model, analysis=vanderpol_design.analysis)
+    assert built.plan.headroom_bits < 2
+    outcome = check_on_host(built, states=100_000, steps=10_000, sanitized_states=1000)
+    assert outcome.report.bit_exact, outcome.report.first_mismatch

@@ -224,3 +224,62 @@ def test_plan_verb_works_on_a_model_with_a_runtime_parameter(tmp_path: Path, cap
     assert [s["integrator"] for s in result["integrators"]] == ["euler", "symplectic-euler", "heun", "rk4"]
     rk4 = result["integrators"][-1]
     assert rk4["integer_map"]["kept"] and rk4["lowest_loop_hz"] is not None
+
+
+def test_the_proof_drives_every_setter_and_ramp_through_the_c(hip) -> None:
+    outcome = check_on_host(hip, states=2000, steps=2000, sanitized_states=0)
+    report = outcome.report
+    assert report.bit_exact and report.init_checked
+    assert report.setters_checked == 1
+    # four targets, each followed across the whole range at 2 per second and 500 Hz: (9 - 3) /
+    # (2 / 500) = 1500 steps and two more (common practice: a rate limiter's travel time).
+    assert report.ramp_steps == 4 * 1502
+
+
+@pytest.mark.parametrize(("old", "new", "words"), [
+    ("    state->omega_target = target;\n", "    state->omega_target = (int32_t)(target / 2);\n",
+     "does not write just its target"),
+    ("    state->omega_target = target;\n", "    state->omega = target;\n",
+     "does not write just its target"),
+])
+def test_a_wrong_setter_is_caught(hip, tmp_path, old: str, new: str, words: str) -> None:
+    from orbitfix.gen.c.emit import render_model
+
+    files = render_model(hip.model, hip.timing, hip.integrator, hip.plan)
+    assert old in files["hip.c"]
+    files["hip.c"] = files["hip.c"].replace(old, new)
+    for name, text in files.items():
+        (tmp_path / name).write_text(text)
+    outcome = check_on_host(hip, tmp_path, states=2000, steps=2000)
+    mismatch = outcome.report.first_mismatch
+    assert mismatch is not None and mismatch.part == "setter"
+    assert words in mismatch.reason
+
+
+@pytest.mark.parametrize(("change", "words"), [
+    ({"per_step": 1.0 / 500}, "more than its rate allows"),
+    ({"high": 8.0}, "leaves its range"),
+])
+def test_a_ramp_that_breaks_the_declared_rate_or_range_is_caught(hip, change: dict,
+                                                                 words: str) -> None:
+    # The ramp is judged against the model's declaration, not only golden: a program whose ramp
+    # moves faster (or further) than declared fails even though C and golden agree.
+    from dataclasses import replace
+
+    from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
+    from orbitfix.verify.proofs.bit_exact import Ramp, prove_bit_exact
+    from orbitfix.verify.targets.host_build import build_host_module
+
+    files = {**render_model(hip.model, hip.timing, hip.integrator, hip.plan),
+             **render_trace(hip.model, hip.timing, hip.integrator, hip.plan)}
+    host = build_host_module(files, render_host_harness(hip.model, hip.plan.program), "hip.h")
+    declared = Ramp("omega", 3.0, 9.0, 2.0 / 500)
+    initial = np.array(hip.plan.initial_state, dtype=np.int64)
+    typical = np.abs(initial) + 1
+    good = prove_bit_exact(hip.plan.program, host, initial, typical, states=100, steps=100,
+                           ramps=(declared,))
+    assert good.bit_exact
+    bad = prove_bit_exact(hip.plan.program, host, initial, typical, states=100, steps=100,
+                          ramps=(replace(declared, **change),))
+    assert bad.first_mismatch is not None and bad.first_mismatch.part == "ramp"
+    assert words in bad.first_mismatch.reason
