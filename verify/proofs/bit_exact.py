@@ -268,7 +268,9 @@ def _check_ramps(program: IntegerProgram, host: HostModule, ramps: tuple[Ramp, .
             state = got
             end, record = _c_run(host, state, follow)
             before = np.vstack([state.reshape(1, -1), record[:-1]])
-            want = golden.step(program, before.T).T
+            chunk = min(CHUNK, max(1024, TRACE_BUDGET // len(program.ops)))
+            want = np.vstack([golden.step(program, before[first:first + chunk].T).T
+                              for first in range(0, follow, chunk)])
             wrong = np.flatnonzero(np.any(want != record, axis=1))
             if wrong.size:
                 k = int(wrong[0])
@@ -309,7 +311,8 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
     batch = random_states(program, states, typical, np.random.default_rng(seed))
     _require_inside_word(program, batch, "a random state")
     n, length = len(program.state_names), len(program.ops)
-    feed = np.concatenate([np.array([states, states, steps], dtype=np.int32),
+    traced = min(states, max(1024, TRACE_BUDGET // length))  # traces held in memory at once
+    feed = np.concatenate([np.array([states, traced, steps], dtype=np.int32),
                            np.ascontiguousarray(batch.T, dtype=np.int32).ravel()])
     done = subprocess.run([executable], input=feed.tobytes(), capture_output=True, check=False)
     if done.returncode != 0:
@@ -319,7 +322,7 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
         return SanitizedRun(level, states, steps, time.perf_counter() - started,
                             undefined="\n".join(found[:3])), None
     out = np.frombuffer(done.stdout, dtype=np.int32).astype(np.int64)
-    sizes = [n, states * n, states * n, states * length, steps * n]
+    sizes = [n, states * n, traced * n, traced * length, steps * n]
     if out.size != sum(sizes):
         raise ValueError(f"the sanitized program wrote {out.size} values, not {sum(sizes)}")
     init, stepped, traced_next, traces, record = np.split(out, np.cumsum(sizes)[:-1])
@@ -331,27 +334,37 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
         mismatch = Mismatch(part=part, step=0, state_before=[], expected=[int(v) for v in initial],
                             got=[int(v) for v in init], operation=None, units=units,
                             reason="the init function sets another state in this build")
-    values = golden.evaluate(program, batch)
-    want = np.stack([values[i] for i in program.next_state])
-    stepped, traced_next = stepped.reshape(states, n).T, traced_next.reshape(states, n).T
-    traces = traces.reshape(states, length)
-    wrong = np.any(stepped != want, axis=0) | np.any(traced_next != want, axis=0)
-    for index, value in enumerate(values):
-        wrong |= traces[:, index] != value
-    bad = np.flatnonzero(wrong)
-    if mismatch is None and bad.size:
-        k = int(bad[0])
-        operation = next(({"index": i, "kind": program.ops[i].kind, "note": program.ops[i].note,
-                           "args": list(program.ops[i].args), "expected": int(values[i][k]),
-                           "got": int(traces[k, i])}
-                          for i in range(length) if traces[k, i] != values[i][k]), None)
-        mismatch = Mismatch(part=part, step=k, state_before=[int(v) for v in batch[:, k]],
-                            expected=[int(v) for v in want[:, k]],
-                            got=[int(v) for v in stepped[:, k]], operation=operation, units=units)
+    stepped, traced_next = stepped.reshape(states, n).T, traced_next.reshape(traced, n).T
+    traces = traces.reshape(traced, length)
+    chunk = min(CHUNK, max(1024, TRACE_BUDGET // length))
+    for first in range(0, states if mismatch is None else 0, chunk):
+        values = golden.evaluate(program, batch[:, first:first + chunk])
+        want = np.stack([values[i] for i in program.next_state])
+        wrong = np.any(stepped[:, first:first + chunk] != want, axis=0)
+        inside = max(0, min(traced - first, want.shape[1]))
+        wrong[:inside] |= np.any(traced_next[:, first:first + inside] != want[:, :inside], axis=0)
+        for index, value in enumerate(values):
+            wrong[:inside] |= traces[first:first + inside, index] != value[:inside]
+        bad = np.flatnonzero(wrong)
+        if bad.size:
+            j = int(bad[0])
+            k = first + j
+            operation = None
+            if k < traced:
+                operation = next(({"index": i, "kind": program.ops[i].kind,
+                                   "note": program.ops[i].note, "args": list(program.ops[i].args),
+                                   "expected": int(values[i][j]), "got": int(traces[k, i])}
+                                  for i in range(length) if traces[k, i] != values[i][j]), None)
+            mismatch = Mismatch(part=part, step=k, state_before=[int(v) for v in batch[:, k]],
+                                expected=[int(v) for v in want[:, j]],
+                                got=[int(v) for v in stepped[:, k]], operation=operation,
+                                units=units)
+            break
     if mismatch is None and steps:
         record = record.reshape(steps, n)
         before = np.vstack([init.reshape(1, -1), record[:-1]])
-        expected = golden.step(program, before.T).T
+        expected = np.vstack([golden.step(program, before[first:first + chunk].T).T
+                              for first in range(0, steps, chunk)])
         bad = np.flatnonzero(np.any(expected != record, axis=1))
         if bad.size:
             k = int(bad[0])
