@@ -24,6 +24,7 @@ from orbitfix.gen.c.emit import render_model
 from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.pipeline import design
 from orbitfix.verify.proofs.host_check import check_on_host
+from orbitfix.verify.report.host import host_fields, host_lines
 from orbitfix.verify.targets.host_build import CompileError, compiler
 
 # Small enough that a mutant costs well under a second once built; every mutant that changes
@@ -298,6 +299,9 @@ def test_undefined_shift_that_passes_at_full_optimisation_is_caught(subject, tmp
     undefined = [run.undefined for run in outcome.report.sanitized if run.undefined]
     assert undefined and "shift" in undefined[0]
     assert outcome.report.sanitized[0].level == "-O0"
+    text = "\n".join(host_lines(outcome))
+    assert "undefined behaviour" in text and "result: NOT bit-exact" in text
+    assert host_fields(outcome)["sanitized"][0]["undefined_behaviour"] == undefined[0]
 
 
 def test_the_default_proof_is_clean_under_the_sanitizer(subject) -> None:
