@@ -5,10 +5,12 @@ the equilibrium inside the cycle, near the basin's edge, near saturation) and th
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
+from orbitfix.gen.errors import InputError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.lowering import evaluate_real
 
@@ -106,16 +108,36 @@ def choose_starts(design: Design, equilibrium_offset: float = 1e-3, seed: int = 
     starts.append(Start("near saturation", _fit(near, word_max),
                         f"{program.state_names[0]} at 63/64 of the word's limit, the other states "
                         "at their initial values"))
-    bits = program.state_fraction_bits
-    for k, given in enumerate(extra, start=1):
-        point = np.array(plan.initial_state[:n], dtype=float)
-        for name, value in given.items():
-            i = program.state_names.index(name)
-            point[i] = round(value * 2.0 ** bits[i])
+    for k, (given, point) in enumerate(zip(extra, given_starts(design, extra), strict=True), start=1):
         text = ", ".join(f"{name} = {value:g}" for name, value in given.items())
-        starts.append(Start(f"given start {k}", _fit(point, word_max) + held,
-                            f"given with --start: {text}"))
+        starts.append(Start(f"given start {k}", point, f"given with --start: {text}"))
     return starts, notes
+
+
+def given_starts(design: Design, extra: tuple[dict[str, float], ...]) -> list[tuple[int, ...]]:
+    """The user's starts (model units by state name) in integer units; a state not named keeps its
+    initial value. A name that is not a state of the model, or a value the state's word cannot
+    hold, is an input error."""
+    plan = design.plan
+    program = plan.program
+    n = program.model_state_count
+    names = program.state_names[:n]
+    bits = program.state_fraction_bits
+    points = []
+    for given in extra:
+        point = list(plan.initial_state)
+        for name, value in given.items():
+            if name not in names:
+                raise InputError(f"--start names '{name}', which is not a state of "
+                                 f"'{design.model.name}'; its states are {', '.join(names)}")
+            i = names.index(name)
+            limit = program.word_max / 2.0 ** bits[i]
+            if not (math.isfinite(value) and abs(value) <= limit):
+                raise InputError(f"--start {name}={value!r}: the state's word holds values from "
+                                 f"{-limit:.6g} to {limit:.6g}; give a start inside that")
+            point[i] = round(value * 2.0 ** bits[i])
+        points.append(tuple(int(v) for v in point))
+    return points
 
 
 def _fit(point: np.ndarray, word_max: int) -> tuple[int, ...]:
