@@ -469,7 +469,7 @@ def explain(run: DriftRun, names: tuple[str, ...]) -> str:
                 "round an equilibrium where every increment rounds to nothing; firmware must "
                 "never be reset to such a state")
     if run.equal_states:
-        pairs = ", ".join(f"{a} = {b}" for a, b in run.equal_states)
+        pairs = ", ".join(" = ".join(group) for group in equal_groups(run.equal_states, names))
         index = {name: i for i, name in enumerate(names)}
         kept = all(run.start.state[index[a]] == run.start.state[index[b]] for a, b in run.equal_states)
         how = ("the start has them equal and the integer map keeps that symmetry exactly"
@@ -481,3 +481,18 @@ def explain(run: DriftRun, names: tuple[str, ...]) -> str:
                 "does not reach the cycle either")
     return ("another attractor of the integer map: the float step map (L1) from this start reaches "
             "the cycle, but the integer orbit settles elsewhere")
+
+
+def equal_groups(pairs: list[tuple[str, str]], names: tuple[str, ...]) -> list[list[str]]:
+    """Pairs of equal states gathered into groups of states all equal to one another."""
+    group = {name: {name} for name in names}
+    for a, b in pairs:
+        joined = group[a] | group[b]
+        for name in joined:
+            group[name] = joined
+    seen: list[list[str]] = []
+    for name in names:
+        members = [m for m in names if m in group[name]]
+        if len(members) > 1 and members not in seen:
+            seen.append(members)
+    return seen
