@@ -116,8 +116,9 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     refuse_beyond_machine(bit_exact_work(len(program.ops), len(program.state_names), args.states,
                                          args.steps), "give fewer --states or --steps")
     if not args.skip_drift:
-        refuse_beyond_machine(drift_size(built, args.hours), "give fewer --hours or a lower loop_hz")
         given_starts(built, starts)  # names and values checked before any proof
+        refuse_beyond_machine(drift_size(built, args.hours, len(starts)),
+                              "give fewer --hours or a lower loop_hz")
     tolerances = DriftTolerances(amplitude=args.max_amplitude_error / 100,
                                  period_ppm=args.max_period_error,
                                  phase_drift_cycles=args.max_phase_drift,

@@ -208,7 +208,8 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     """
     if design.plan.program.angle_states:
         raise UnsupportedError(NO_ANGLES)
-    refuse_beyond_machine(drift_size(design, hours), "give fewer --hours or a lower loop_hz")
+    refuse_beyond_machine(drift_size(design, hours, len(extra_starts)),
+                          "give fewer --hours or a lower loop_hz")
     if host is None:
         started = time.perf_counter()
         host = build_drift_module(design)
@@ -234,17 +235,18 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     return report
 
 
-def drift_size(design: Design, hours: float) -> Work:
-    """The size of :func:`run_drift` before it starts (at most four starts, and one run per
-    corner of the runtime ranges)."""
+def drift_size(design: Design, hours: float, extra_starts: int = 0) -> Work:
+    """The size of :func:`run_drift` before it starts, as if no start found its integer cycle and
+    every run went the full hours (every start, and one run per corner of the runtime ranges)."""
     program, timing = design.plan.program, design.timing
+    starts = len(choose_starts(design)[0]) + extra_starts
 
     def one(runs: int) -> Work:
         return drift_work(len(program.ops), len(program.state_names), timing.steps_per_cycle,
                           timing.loop_hz, hours, runs, STEP_MAP_CYCLES, STEP_MAP_MEASURED,
                           reference_columns=runs + 1)
 
-    total = one(4)
+    total = one(starts)
     for _ in design.corners:
         total = total + one(1)
     return replace(total, what=f"the drift proof ({hours:g} h at {timing.loop_hz:g} Hz)")
