@@ -201,9 +201,19 @@ def test_an_unknown_board_is_refused_with_the_known_ones(capsys) -> None:
     assert "unknown board 'no-such-board'" in err and "mps2-an385" in err
 
 
-def test_a_real_board_without_a_port_is_refused(capsys) -> None:
-    err = _refused(capsys, ["board", "vanderpol", "--board", "nucleo-g071rb"])
-    assert "real board" in err and "--port" in err
+def test_a_real_board_without_a_port_is_refused_with_its_image_built(capsys) -> None:
+    profile = load_profile("nucleo-g071rb")
+    err = _refused(capsys, ["board", "vanderpol", "--board", profile.name])
+    if not profile.tools_installed():
+        assert "sudo apt-get install" in err  # the cross compiler is named instead
+        return
+    assert "real board" in err and "--port" in err and "flash one of these with your own tool" in err
+    code, out, _ = _run(capsys, ["board", "vanderpol", "--board", profile.name, "--json"])
+    result = json.loads(out)
+    assert code == 2 and result["ok"] is False
+    images = [Path(f) for f in result["image"]]
+    assert [f.suffix for f in images] == [".elf", ".bin", ".hex"] and all(f.is_file() for f in images)
+    assert str(images[0]) in err and result["size"]["text"] > 0
 
 
 def test_missing_tools_are_named_with_what_to_install(capsys, tmp_path: Path) -> None:
