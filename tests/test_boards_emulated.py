@@ -27,7 +27,7 @@ FIRMWARE = Path(__file__).parent / "firmware"
 EMULATED = [p.name for p in all_profiles() if p.kind == "emulated"]
 
 
-def _tools_or_skip(name: str, extra: tuple[str, ...] = ()):
+def tools_or_skip(name: str, extra: tuple[str, ...] = ()):
     profile = load_profile(name)
     missing = profile.missing_tools() + [tool for tool in extra if shutil.which(tool) is None]
     if missing and not os.environ.get("CI"):
@@ -52,7 +52,7 @@ def _handshake(link: serial.Serial, name: str) -> None:
 
 @pytest.mark.parametrize("name", EMULATED)
 def test_bytes_go_there_and_back(name: str, tmp_path: Path) -> None:
-    profile = _tools_or_skip(name)
+    profile = tools_or_skip(name)
     image = build_firmware(profile, [FIRMWARE / "echo.c"], [], tmp_path)
     chunks = [bytes([0, 255, 10, 13]), bytes(range(200)), random.Random(7).randbytes(250)]
     with running(profile, image) as url:
@@ -81,7 +81,7 @@ LOOP_COST = {"instructions": 2000, "cycles": 4000}
 
 @pytest.mark.parametrize("name", EMULATED)
 def test_cost_of_a_known_loop_and_the_exit_code(name: str, tmp_path: Path) -> None:
-    profile = _tools_or_skip(name)
+    profile = tools_or_skip(name)
     image = build_firmware(profile, [FIRMWARE / "echo.c"], [], tmp_path)
     with emulators.started(profile, image.path) as emulator:
         link = serial.serial_for_url(emulator.url, timeout=10)
@@ -103,7 +103,7 @@ def test_the_stm32f4_board_glue_on_an_emulated_stm32f405(tmp_path: Path) -> None
     # (STM32F405) has the same USART2 registers and IRQ 38, and the same core: echo, a burst larger
     # than the receive queue, the cost counter (SysTick at 168 MHz under -icount shift=10: 172.032
     # ticks per instruction) and the exit code, with the real profile's glue and flags.
-    real = _tools_or_skip("nucleo-f401re", ("qemu-system-arm",))
+    real = tools_or_skip("nucleo-f401re", ("qemu-system-arm",))
     kept = [p for p in real.glue if p.name != "finish_halt.c"]
     glue = (*kept, real.glue[0].parent / "finish_semihosting.c")
     kept_flags = [f for f in real.flags if "COST_PER_TICK" not in f]

@@ -225,9 +225,16 @@ def test_healthy_van_der_pol_passes_from_every_start(vanderpol_design) -> None:
     assert data["steps"] == 36_000  # round(0.01 h * 3600 s/h * 1000 Hz)
     assert data["verdict"] == "pass"
     names = [run["start"] for run in data["runs"]]
-    assert names == ["nominal", "near the equilibrium", "near the basin edge", "near saturation"]
+    assert names == ["nominal", "near the equilibrium (1)", "near the equilibrium (2)",
+                     "near the equilibrium (3)", "near the basin edge", "near saturation"]
+    assert data["seed"] == 1 and data["robustness"]["fraction"] == 1.0
+    assert [run["decides_verdict"] for run in data["runs"]] == [True] + [False] * 5
     for run in data["runs"]:
         assert run["verdict"] == "pass", run["reasons"]
+        # Van der Pol's integer orbit closes within the budget: the verdict holds for all time.
+        assert run["horizon"] == "unbounded"
+        assert run["steps_to_cycle"] is not None and run["cycle_length"] >= 600
+        assert run["cycle_length"] == run["integer_period_steps"]
         assert run["amplitude_error"] < 0.02
         assert abs(run["period_error_ppm"]) < 1000
         assert abs(run["phase_drift_cycles"]) < 1

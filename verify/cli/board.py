@@ -69,9 +69,6 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         raise InputError("--timeout: give between 0.05 and 600 seconds")
     faults = parse_faults(args.faults) if args.faults else None
     profile = load_profile(args.board)
-    if args.port is None and profile.kind == "real":
-        raise InputError(f"board {profile.name!r} is a real board: flash it yourself, then give "
-                         "--port URL (e.g. --port /dev/ttyACM0)")
     if args.port is None and not profile.tools_installed():
         raise InputError(f"board {profile.name!r} needs {', '.join(profile.missing_tools())}: "
                          f"{profile.install_hint()}")
@@ -79,6 +76,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     partial.update({"model": model.name, "board": profile.name})
     built = design(model)
     partial["program_fingerprint"] = built.plan.program.fingerprint()
+    if args.port is None and profile.kind == "real":
+        _refuse_without_port(built, profile, partial)
     report = stream_on_board(built, profile, steps=args.steps, every=args.every, port=args.port,
                              faults=faults, silence_timeout=args.timeout,
                              reply_timeout=min(args.timeout, 2.0))
@@ -101,6 +100,21 @@ def run(args: argparse.Namespace, partial: dict) -> int:
             print(f"the states received so far are saved in {result['saved']}")
         print(CAUTION)
     return 0 if report.ok else 1
+
+
+def _refuse_without_port(built: Any, profile: Any, partial: dict) -> None:
+    """A real board is flashed by its user: build its image (kept in the JSON), say where it is,
+    and ask for the port of the board running it."""
+    from orbitfix.verify.proofs.board_stream import build_for_board
+
+    image = build_for_board(built, profile)
+    files = [image.path, *(image.path.with_suffix(s) for s in (".bin", ".hex"))]
+    files = [f for f in files if f.is_file()]
+    partial.update({"image": [str(f) for f in files], "size": {**image.size, "stack": image.stack_bytes}})
+    sizes = ", ".join(f"{k} {v}" for k, v in partial["size"].items() if v is not None)
+    raise InputError(f"board {profile.name!r} is a real board: its firmware is built ({sizes} bytes): "
+                     f"{', '.join(str(f) for f in files)}; flash one of these with your own tool, then "
+                     "run again with --port URL (for example --port /dev/ttyACM0)")
 
 
 def _save(path: Path, result: dict, report: Any) -> None:

@@ -8,6 +8,7 @@ certificate); 2 bad input.
 from __future__ import annotations
 
 import argparse
+import math
 from pathlib import Path
 from typing import Any
 
@@ -47,6 +48,9 @@ def register(verbs: Any) -> None:
     drift.add_argument("--hours", type=POSITIVE, default=24.0, metavar="H",
                        help="length of the drift test in hours of loop time (default 24)")
     drift.add_argument("--skip-drift", action="store_true", help="leave out the long-run drift test")
+    drift.add_argument("--start", action="append", default=[], metavar="NAME=VALUE,...",
+                       help="add a drift start, e.g. --start x=0.1,y=-0.2 (states not named keep "
+                            "their initial values; repeatable); reported as a robustness finding")
     drift.add_argument("--max-phase-drift", type=POSITIVE, default=1.0, metavar="CYCLES",
                        help="phase drift allowed against the float step map over the run (default 1)")
     drift.add_argument("--max-return-spread", type=POSITIVE, default=2.0, metavar="PERCENT",
@@ -71,6 +75,7 @@ def register(verbs: Any) -> None:
 def run(args: argparse.Namespace, partial: dict) -> int:
     """Run the proofs in order; each later one only on C that is bit-exact."""
     box = parse_box(args.box) or None  # checked before any work
+    starts = tuple(parse_start(item) for item in args.start)
     if args.sources is not None and not args.sources.is_dir():
         raise InputError(f"--sources '{args.sources}' is not a folder: give the folder gen wrote "
                          "NAME.h and NAME.c into")
@@ -85,6 +90,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         DriftTolerances,
         build_drift_module,
         drift_size,
+        given_starts,
         run_drift,
     )
     from orbitfix.verify.proofs.host_check import check_on_host, read_sources
@@ -110,7 +116,9 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     refuse_beyond_machine(bit_exact_work(len(program.ops), len(program.state_names), args.states,
                                          args.steps), "give fewer --states or --steps")
     if not args.skip_drift:
-        refuse_beyond_machine(drift_size(built, args.hours), "give fewer --hours or a lower loop_hz")
+        given_starts(built, starts)  # names and values checked before any proof
+        refuse_beyond_machine(drift_size(built, args.hours, len(starts)),
+                              "give fewer --hours or a lower loop_hz")
     tolerances = DriftTolerances(amplitude=args.max_amplitude_error / 100,
                                  period_ppm=args.max_period_error,
                                  phase_drift_cycles=args.max_phase_drift,
@@ -124,7 +132,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         sources = read_sources(built, args.sources)[0] if args.sources else None
         tell(f"long-run drift test: {args.hours:g} h of loop time from several starts", 0, 1)
         drift = run_drift(built, hours=args.hours, tolerances=tolerances,
-                          host=build_drift_module(built, sources))
+                          host=build_drift_module(built, sources), extra_starts=starts)
         partial["drift"] = drift_json(drift)
     certificate = None
     if args.certify and bit_exact:
@@ -147,3 +155,24 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     print("\n".join(lines))
     print(CAUTION)
     return 0 if passed else 1
+
+
+def parse_start(item: str) -> dict[str, float]:
+    """'x=0.1,y=-0.2' to {'x': 0.1, 'y': -0.2}; a malformed item is an input error."""
+    start: dict[str, float] = {}
+    for part in item.split(","):
+        name, sep, text = part.partition("=")
+        name = name.strip()
+        if not sep or not name:
+            raise InputError(f"--start '{item}': write NAME=VALUE pairs separated by commas, "
+                             "e.g. --start x=0.1,y=-0.2")
+        try:
+            value = float(text)
+        except ValueError:
+            raise InputError(f"--start '{item}': '{text}' is not a number") from None
+        if not math.isfinite(value):
+            raise InputError(f"--start '{item}': give a finite number for '{name}'")
+        if name in start:
+            raise InputError(f"--start '{item}' gives the state '{name}' twice")
+        start[name] = value
+    return start

@@ -46,6 +46,7 @@ class BoardStreamReport:
     board: str
     steps: int
     every: int
+    kind: str = "host"  # the profile's kind: host, emulated or real
     hello: dict | None = None
     steps_compared: int = 0
     states_compared: int = 0
@@ -75,7 +76,7 @@ class BoardStreamReport:
 
     def to_json(self) -> dict:
         return {
-            "ok": self.ok, "board": self.board, "bit_exact": self.bit_exact,
+            "ok": self.ok, "board": self.board, "kind": self.kind, "bit_exact": self.bit_exact,
             "steps": self.steps, "every": self.every, "steps_compared": self.steps_compared,
             "states_compared": self.states_compared, "first_mismatch": self.first_mismatch,
             "frames": self.frames, "missing_states": self.missing_states,
@@ -134,6 +135,26 @@ def compare_samples(program: IntegerProgram, start: np.ndarray, samples: dict[in
     return int(before_steps[k]), k, mismatch
 
 
+def link_throughput(profile: BoardProfile, samples: int, bytes_received: int, seconds: float) -> dict:
+    """States and bytes per second over the link, and the fraction of the line's byte rate they
+    fill. That fraction means something only on a real UART (10 bits a byte: start, 8 data, stop;
+    common practice): an emulator's UART and the host board's pty pass bytes as fast as the
+    machine runs, whatever the profile's baud, so there it is null, with the reason."""
+    rate = samples / seconds if seconds > 0 else 0.0
+    byte_rate = bytes_received / seconds if seconds > 0 else 0.0
+    throughput: dict = {"samples_per_second": rate, "bytes_per_second": byte_rate,
+                        "fraction_of_link": None}
+    if profile.kind == "real":
+        throughput["fraction_of_link"] = byte_rate / (profile.baud / 10)
+    elif profile.kind == "emulated":
+        throughput["fraction_of_link_reason"] = (
+            "an emulated UART is not paced by the profile's baud rate; the rate is the emulator's "
+            "on this machine, not the board's")
+    else:
+        throughput["fraction_of_link_reason"] = "the host board's pseudo-terminal has no line rate"
+    return throughput
+
+
 def firmware_folder(built: Design, profile: BoardProfile) -> Path:
     """Where this design's firmware for this board is built (a cache keyed by what goes in)."""
     key = hashlib.sha256(f"{built.plan.program.fingerprint()}|{built.model.fingerprint()}|"
@@ -154,7 +175,7 @@ def stream_on_board(built: Design, profile: BoardProfile, steps: int = 100_000, 
     """Build (unless given an image or a port), start or connect, check the firmware's identity,
     measure the cost of a step, stream ``steps`` steps and compare them."""
     program = built.plan.program
-    report = BoardStreamReport(board=profile.name, steps=steps, every=every,
+    report = BoardStreamReport(board=profile.name, steps=steps, every=every, kind=profile.kind,
                                faults=faults.to_json() if faults else None)
     started = time.perf_counter()
     if image is None and port is None:
@@ -200,10 +221,7 @@ def stream_on_board(built: Design, profile: BoardProfile, steps: int = 100_000, 
             program, np.array(built.plan.initial_state, dtype=np.int64), stream.samples)
         report.seconds["stream"] = stream.seconds
         report.seconds["compare"] = time.perf_counter() - compare_started
-        rate = len(stream.samples) / stream.seconds if stream.seconds > 0 else 0.0
-        byte_rate = stream.bytes_received / stream.seconds if stream.seconds > 0 else 0.0
-        line_rate = profile.baud / 10 if profile.link_kind != "pty" else None
-        report.throughput = {"samples_per_second": rate, "bytes_per_second": byte_rate,
-                             "fraction_of_link": byte_rate / line_rate if line_rate else None}
+        report.throughput = link_throughput(profile, len(stream.samples), stream.bytes_received,
+                                            stream.seconds)
     report.seconds["total"] = time.perf_counter() - started
     return report

@@ -19,6 +19,9 @@ def board_lines(report: BoardStreamReport) -> list[str]:
         c = report.cost
         lines.append(f"  cost of one step: {c['per_step']:.1f} {c['unit']} (least {c['least']}, most "
                      f"{c['most']}, over {c['steps_measured']} steps; {c['method']})")
+        if report.kind == "emulated":
+            lines.append(f"  an emulator counts {c['unit']}, not time: its clock is simulated, so the "
+                         "figure is a guide to the part's cost; time a step on the real board")
     f = report.frames
     if f:
         lines.append(f"  frames: {f['received']} received, {f['corrupt']} corrupt, {f['dropped']} "
@@ -32,7 +35,9 @@ def board_lines(report: BoardStreamReport) -> list[str]:
         lines.append(f"  throughput: {t['samples_per_second']:,.0f} states/s, "
                      f"{t['bytes_per_second']:,.0f} bytes/s"
                      + (f" ({100 * t['fraction_of_link']:.0f} % of the line rate)"
-                        if t.get("fraction_of_link") else ""))
+                        if t.get("fraction_of_link") is not None else ""))
+        if t.get("fraction_of_link_reason"):
+            lines.append(f"  no fraction of the line rate: {t['fraction_of_link_reason']}")
     lines.append(f"  compared: {report.states_compared:,} states covering {report.steps_compared:,} of "
                  f"{report.last_sample:,} steps" + (f"; {report.missing_states} states never arrived"
                                                     if report.missing_states else ""))

@@ -11,9 +11,11 @@ from orbitfix.verify.proofs.drift import DriftReport, DriftRun, DriftTolerances
 def drift_lines(report: DriftReport) -> list[str]:
     """The report as readable lines."""
     names = report.state_names
-    lines = [f"Long-run drift of '{report.model}': {report.steps:,} steps "
-             f"({report.hours:g} h at {report.loop_hz:g} Hz) from {len(report.runs)} starts, in "
-             "compiled C",
+    exact = sum(1 for run in report.runs if run.horizon == "unbounded")
+    lines = [f"Long-run drift of '{report.model}' from {len(report.runs)} starts, in compiled C: "
+             f"{exact} judged on the exact integer cycle (for all time), "
+             f"{len(report.runs) - exact} run for {report.hours:g} h ({report.steps:,} steps at "
+             f"{report.loop_hz:g} Hz) since no cycle was found within {report.cycle_budget:,} steps",
              f"  references: continuous cycle {report.continuous_period_steps:.6f} steps per "
              "cycle, float step map " + _maybe(report.step_map.period_steps, lambda v: f"{v:.6f}",
                                                "has no cycle at this step size"),
@@ -24,9 +26,18 @@ def drift_lines(report: DriftReport) -> list[str]:
              f"{report.tolerances.period_ppm:g} ppm, phase drift "
              f"{report.tolerances.phase_drift_cycles:g} cycles over the run, return spread "
              f"{100 * report.tolerances.return_spread:g} % of the range"]
+    if report.seed is not None:
+        lines.append(f"  random starts near the equilibria: seed {report.seed}")
     for run in report.runs:
-        lines.append(f"  from {run.start.name} ({run.start.why}): {run.verdict.upper()}")
-        lines.append("    amplitude at the end: " + ", ".join(
+        role = "decides the verdict" if run.decides else "robustness"
+        lines.append(f"  from {run.start.name} ({run.start.why}; {role}): {run.outcome.upper()}, "
+                     f"horizon {run.horizon}")
+        if run.horizon == "unbounded":
+            lines.append(f"    on the integer cycle from step {run.steps_to_cycle:,}: "
+                         f"{run.cycle_length:,} steps, {run.crossings_per_cycle} crossings of the "
+                         "section per turn")
+        lines.append(f"    amplitude {'on the cycle' if run.horizon == 'unbounded' else 'at the end'}: "
+                     + ", ".join(
             f"{n} {a:.6g}" for n, a in zip(names, run.amplitude, strict=True))
             + _maybe(run.amplitude_error, lambda v: f"; worst error {100 * v:.4g} %"))
         if run.period_steps is not None:
@@ -35,8 +46,10 @@ def drift_lines(report: DriftReport) -> list[str]:
                              run.period_error_ppm_step_map,
                              lambda v: f", {v:+.4g} ppm against the float step map") + _maybe(
                              run.phase_drift_cycles,
-                             lambda v: f"; phase drift {v:+.4g} cycles over the run"))
-        if run.integer_period_steps is not None:
+                             lambda v: f"; phase drift {v:+.4g} cycles over {report.hours:g} h"))
+        if run.horizon == "unbounded":
+            pass
+        elif run.integer_period_steps is not None:
             lines.append(f"    the integer orbit repeats exactly every {run.integer_period_steps:,} "
                          f"steps ({run.integer_period_steps / report.continuous_period_steps:.4g} "
                          f"continuous periods), from step {run.cycle_entered_at_step:,} on")
@@ -48,6 +61,13 @@ def drift_lines(report: DriftReport) -> list[str]:
                      + f"; outside the planned range on "
                      f"{events['outside_planned_range']['count']:,} steps")
         lines += [f"    reason: {reason}" for reason in run.reasons]
+        if run.explanation:
+            lines.append(f"    finding: {run.explanation}")
+    robust = report.robustness
+    if robust["starts"]:
+        lines.append(f"  robustness: {robust['reach_the_cycle']} of {robust['starts']} other starts "
+                     f"reach the cycle ({100 * robust['fraction']:.0f} %); the verdict rests on the "
+                     "model's initial state and the runtime corners")
     lines += [f"  note: {note}" for note in report.notes]
     lines.append(f"  verdict: {report.verdict.upper()}")
     return lines
@@ -72,7 +92,10 @@ def drift_json(report: DriftReport) -> dict:
             "step_map": {"period_steps": report.step_map.period_steps,
                          "amplitude": [plain_number(v) for v in report.step_map.amplitude]},
         },
+        "cycle_budget_steps": report.cycle_budget,
+        "seed": report.seed,
         "runs": [run_json(run, report.fraction_bits, len(report.state_names)) for run in report.runs],
+        "robustness": report.robustness,
         "notes": list(report.notes),
         "seconds": dict(report.seconds),
         "verdict": report.verdict,
@@ -84,6 +107,11 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int) -> dict:
     return {
         "start": run.start.name,
         "why": run.start.why,
+        "decides_verdict": run.decides,
+        "horizon": run.horizon,
+        "steps_to_cycle": run.steps_to_cycle,
+        "cycle_length": run.cycle_length,
+        "crossings_per_cycle": run.crossings_per_cycle,
         "initial_state": list(run.start.state),
         "initial_state_real": [v / 2.0 ** fraction_bits
                                for v in run.start.state[:model_states]],
@@ -96,6 +124,7 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int) -> dict:
         "period_error_ppm_step_map": run.period_error_ppm_step_map,
         "phase_drift_cycles": run.phase_drift_cycles,
         "phase_drift_cycles_continuous": run.phase_drift_cycles_continuous,
+        "phase_drift_cycles_per_hour": run.phase_drift_cycles_per_hour,
         "return_spread": run.return_spread,
         "crossings": run.crossings,
         "settled_crossings": run.settled_crossings,
@@ -104,8 +133,10 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int) -> dict:
         "cycle_entered_at_step": run.cycle_entered_at_step,
         "saturation_events": run.saturation_events,
         "step_map_returns_from_this_start": run.step_map_returns,
-        "verdict": run.verdict,
+        "verdict": run.outcome,
         "reasons": list(run.reasons),
+        "explanation": run.explanation,
+        "equal_states": [list(pair) for pair in run.equal_states],
         "seconds": run.seconds,
         **({"references": run.against} if run.against else {}),
     }

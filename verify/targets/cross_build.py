@@ -18,7 +18,7 @@ import subprocess
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from orbitfix.gen.errors import ToolchainError
+from orbitfix.gen.errors import InputError, ToolchainError
 from orbitfix.verify.targets.board_profiles import BoardProfile
 from orbitfix.verify.targets.host_build import STRICT_FLAGS, CompileError
 
@@ -112,6 +112,13 @@ def _flashable(profile: BoardProfile, image: Path) -> tuple[Path, ...]:
 
 def _run(command: list[str], what: str, profile: BoardProfile) -> None:
     done = subprocess.run(command, capture_output=True, text=True, check=False)
+    overflow = re.search(r"region [`'](\w+)' overflowed by (\d+) bytes", done.stderr)
+    if done.returncode != 0 and overflow:
+        memory = {"text": "flash", "FLASH": "flash", "data": "RAM", "RAM": "RAM"}.get(
+            overflow.group(1), overflow.group(1))
+        raise InputError(f"board {profile.name}: the firmware does not fit the board's {memory}: "
+                           f"{int(overflow.group(2)):,} bytes too many. Try 16-bit words (--word 16) if "
+                           "it uses 32, a smaller model, or a board with more memory")
     if done.returncode != 0:
         raise CompileError(f"board {profile.name}: {what} failed under the strict flags:\n"
                            f"{' '.join(command)}\n{done.stderr.strip()}")

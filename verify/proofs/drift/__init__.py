@@ -16,8 +16,8 @@ from orbitfix.verify.proofs.drift.proof import (
     drift_size,
     run_drift,
 )
-from orbitfix.verify.proofs.drift.references import Start, choose_starts
+from orbitfix.verify.proofs.drift.references import Start, choose_starts, given_starts
 
 __all__ = ["NO_ANGLES", "DriftReport", "DriftRun", "DriftTolerances", "Start", "build_drift_module",
-           "choose_starts", "cycle_start", "drift_size", "harness_statistics",
+           "choose_starts", "cycle_start", "drift_size", "given_starts", "harness_statistics",
            "integer_period", "run_drift"]

@@ -25,7 +25,8 @@ from orbitfix.verify.targets.host_build import HostModule, build_host_module
 DRIFT_DECLARATIONS = """\
 void orbitfix_drift_run(const int32_t *start, uint64_t steps, uint64_t settle, uint64_t window,
                         int32_t section_level, uint64_t *counts,
-                        int32_t *ranges, int32_t *brackets, int32_t *end_state);
+                        int32_t *ranges, int32_t *brackets, int32_t *end_state,
+                        int32_t *settle_state, uint8_t *apart);
 uint64_t orbitfix_drift_period(const int32_t *start, uint64_t budget, uint64_t *seen_at);
 uint64_t orbitfix_drift_cycle_start(const int32_t *start, uint64_t period, uint64_t budget);
 """
@@ -47,6 +48,8 @@ class HarnessStatistics:
     first_bracket: tuple[list[int], list[int]]
     last_bracket: tuple[list[int], list[int]]
     end_state: list[int]
+    settle_state: list[int]
+    equal_pairs: list[tuple[int, int]]
     seconds: float
 
 
@@ -81,7 +84,10 @@ def build_drift_module(design: Design, sources: dict[str, str] | None = None) ->
 
 def harness_statistics(host: HostModule, start: tuple[int, ...], steps: int, settle: int,
                        window: int, section_level: int) -> HarnessStatistics:
-    """One streaming run in C from ``start`` (integer units) with the statistics kept on the way."""
+    """One streaming run in C from ``start`` (integer units) with the statistics kept on the way.
+
+    ``equal_pairs`` are the pairs of states (i < j) equal at every step of the first window after
+    settling (only meaningful when that window has steps in it)."""
     n = len(start)
     ffi = host.ffi
     begin = np.array(start, dtype=np.int32)
@@ -89,13 +95,17 @@ def harness_statistics(host: HostModule, start: tuple[int, ...], steps: int, set
     ranges = np.zeros(len(RANGE_GROUPS) * n, dtype=np.int32)
     brackets = np.zeros(4 * n, dtype=np.int32)
     end = np.zeros(n, dtype=np.int32)
+    at_settle = np.zeros(n, dtype=np.int32)
+    apart = np.zeros(n * n, dtype=np.uint8)
     started = time.perf_counter()
     host.lib.orbitfix_drift_run(ffi.from_buffer("int32_t[]", begin), steps, settle, window,
                                 section_level,
                                 ffi.from_buffer("uint64_t[]", counts),
                                 ffi.from_buffer("int32_t[]", ranges),
                                 ffi.from_buffer("int32_t[]", brackets),
-                                ffi.from_buffer("int32_t[]", end))
+                                ffi.from_buffer("int32_t[]", end),
+                                ffi.from_buffer("int32_t[]", at_settle),
+                                ffi.from_buffer("uint8_t[]", apart))
     seconds = time.perf_counter() - started
     b = [int(v) for v in brackets]
     return HarnessStatistics(
@@ -103,7 +113,9 @@ def harness_statistics(host: HostModule, start: tuple[int, ...], steps: int, set
         ranges={name: [int(v) for v in ranges[i * n:(i + 1) * n]]
                 for i, name in enumerate(RANGE_GROUPS)},
         first_bracket=(b[:n], b[n:2 * n]), last_bracket=(b[2 * n:3 * n], b[3 * n:]),
-        end_state=[int(v) for v in end], seconds=seconds)
+        end_state=[int(v) for v in end], settle_state=[int(v) for v in at_settle],
+        equal_pairs=[(i, j) for i in range(n) for j in range(i + 1, n) if not apart[i * n + j]],
+        seconds=seconds)
 
 
 def integer_period(host: HostModule, start: tuple[int, ...], budget: int) -> tuple[int | None, int]:

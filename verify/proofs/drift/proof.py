@@ -14,7 +14,21 @@ the harness measures, and what this module makes of it:
   word saturates) and steps where one lies outside the planner's range (largest signal on the
   cycle times the margin), which holds for both overflow modes;
 - the integer period: a finite-state orbit always ends up periodic; Brent's algorithm finds that
-  exact period in steps over the run.
+  exact period in steps.
+
+Verdicts for all time: the integer map is deterministic on a finite lattice, so once the orbit from
+a start is found periodic (Brent's algorithm with the plain step, then the first step on the cycle),
+its whole future is that cycle. The harness then runs the transient and exactly one turn of the
+cycle; the traced step must close the cycle (the state one cycle past its entry equals the entry),
+and amplitude, mean period (cycle length over the crossings in it), return spread and saturation are
+judged on the cycle itself: the verdict holds for unbounded time (``horizon = "unbounded"``). The
+phase drift is the exact rate times the --hours horizon (any period error drifts without bound).
+Only when no cycle is found within the budget is the orbit run for --hours (``horizon = "N hours"``).
+
+Which runs decide: the model's initial state and the corners of the runtime ranges. The other starts
+(random, asymmetric ones near the equilibria, near the basin's edge, near saturation, the user's)
+test robustness: one that ends elsewhere is a finding with its explanation (a symmetric subspace,
+a resting state, another attractor), and the report gives the fraction that reach the cycle.
 
 Rooms: the C harness and the calls into it (``harness``), the starts and the float step map
 (``references``); this module runs and judges the runs. The text and JSON renderings are in
@@ -38,6 +52,7 @@ from orbitfix.verify.proofs.drift.harness import (
     crossing_time,
     cycle_start,
     harness_statistics,
+    integer_period,
 )
 from orbitfix.verify.proofs.drift.references import (
     STEP_MAP_CYCLES,
@@ -53,6 +68,7 @@ NO_ANGLES = ("the long-run drift test does not handle angle states (phases) yet:
              "amplitudes assume states that swing rather than turn; run verify with --skip-drift")
 
 LONGEST_RUN = 1 << 62
+CYCLE_BUDGET = 20_000_000  # steps of the plain step searched for the exact cycle before falling back
 FEWEST_CYCLES = 16      # a run shorter than this cannot settle and still measure a period
 WINDOW_CYCLES = 3       # the amplitude windows, in cycles
 
@@ -113,10 +129,25 @@ class DriftRun:
     reasons: list[str]
     seconds: float
     against: dict | None = None
+    horizon: str = "unbounded"
+    steps_to_cycle: int | None = None
+    cycle_length: int | None = None
+    crossings_per_cycle: int | None = None
+    phase_drift_cycles_per_hour: float | None = None
+    decides: bool = True
+    explanation: str | None = None
+    equal_states: list[tuple[str, str]] = field(default_factory=list)
 
     @property
     def verdict(self) -> str:
         return "fail" if self.reasons else "pass"
+
+    @property
+    def outcome(self) -> str:
+        """pass or fail for a run that decides the verdict; pass or finding for a robustness run."""
+        if not self.reasons:
+            return "pass"
+        return "fail" if self.decides else "finding"
 
 
 @dataclass
@@ -140,15 +171,28 @@ class DriftReport:
     runs: list[DriftRun]
     notes: list[str] = field(default_factory=list)
     seconds: dict[str, float] = field(default_factory=dict)
+    seed: int | None = None
+    cycle_budget: int = CYCLE_BUDGET
 
     @property
     def verdict(self) -> str:
-        return "fail" if any(run.verdict == "fail" for run in self.runs) else "pass"
+        """Decided by the runs from the model's initial state and the runtime corners only."""
+        return "fail" if any(run.decides and run.reasons for run in self.runs) else "pass"
+
+    @property
+    def robustness(self) -> dict:
+        """The robustness starts: how many, and the fraction that reach the cycle."""
+        others = [run for run in self.runs if not run.decides]
+        reached = sum(1 for run in others if not run.reasons)
+        return {"starts": len(others), "reach_the_cycle": reached,
+                "fraction": reached / len(others) if others else None}
 
 
 def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances | None = None,
               settle_fraction: float = 0.25, equilibrium_offset: float = 1e-3,
-              host: HostModule | None = None) -> DriftReport:
+              host: HostModule | None = None, seed: int = 1,
+              extra_starts: tuple[dict[str, float], ...] = (),
+              cycle_budget: int = CYCLE_BUDGET) -> DriftReport:
     """The long-run drift proof: steps = round(hours * 3600 * loop rate) from every start, and,
     for a model with runtime parameters, from its initial state at every corner of their ranges
     (judged against the cycle at that corner).
@@ -156,22 +200,30 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     settle_fraction : the first part of each run that is left out of the period, return-point
         and after-settling counts (the way onto the cycle from a far start).
     host : a module from ``build_drift_module`` (built here when not given).
+    seed : of the random, asymmetric starts near the equilibria (reported).
+    extra_starts : the user's starts (model units by state name; states not named keep their
+        initial values); robustness starts, like the random ones.
+    cycle_budget : plain steps searched for the exact integer cycle from each start before the
+        run falls back to --hours.
     """
     if design.plan.program.angle_states:
         raise UnsupportedError(NO_ANGLES)
-    refuse_beyond_machine(drift_size(design, hours), "give fewer --hours or a lower loop_hz")
+    refuse_beyond_machine(drift_size(design, hours, len(extra_starts)),
+                          "give fewer --hours or a lower loop_hz")
     if host is None:
         started = time.perf_counter()
         host = build_drift_module(design)
         built_in = time.perf_counter() - started
     else:
         built_in = 0.0
-    report = _drift_report(design, hours, tolerances, settle_fraction, equilibrium_offset, host)
+    report = _drift_report(design, hours, tolerances, settle_fraction, equilibrium_offset, host,
+                           seed=seed, extra_starts=extra_starts, cycle_budget=cycle_budget)
     report.seconds["host_build"] = built_in
     for corner, cycle in design.corners:
         where = ", ".join(f"{name} = {value:g}" for name, value in corner.items())
         at_corner = _drift_report(_at_corner(design, corner, cycle), hours, tolerances,
-                                  settle_fraction, equilibrium_offset, host, only_nominal=True)
+                                  settle_fraction, equilibrium_offset, host, only_nominal=True,
+                                  cycle_budget=cycle_budget)
         for run in at_corner.runs:
             run.start = replace(run.start, name=where,
                                 why=f"the initial state with {where} (a corner of the runtime "
@@ -183,17 +235,18 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     return report
 
 
-def drift_size(design: Design, hours: float) -> Work:
-    """The size of :func:`run_drift` before it starts (at most four starts, and one run per
-    corner of the runtime ranges)."""
+def drift_size(design: Design, hours: float, extra_starts: int = 0) -> Work:
+    """The size of :func:`run_drift` before it starts, as if no start found its integer cycle and
+    every run went the full hours (every start, and one run per corner of the runtime ranges)."""
     program, timing = design.plan.program, design.timing
+    starts = len(choose_starts(design)[0]) + extra_starts
 
     def one(runs: int) -> Work:
         return drift_work(len(program.ops), len(program.state_names), timing.steps_per_cycle,
                           timing.loop_hz, hours, runs, STEP_MAP_CYCLES, STEP_MAP_MEASURED,
                           reference_columns=runs + 1)
 
-    total = one(4)
+    total = one(starts)
     for _ in design.corners:
         total = total + one(1)
     return replace(total, what=f"the drift proof ({hours:g} h at {timing.loop_hz:g} Hz)")
@@ -216,7 +269,9 @@ def _at_corner(design: Design, corner: dict[str, float], cycle: object) -> Desig
 
 def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | None,
                   settle_fraction: float, equilibrium_offset: float, host: HostModule,
-                  only_nominal: bool = False) -> DriftReport:
+                  only_nominal: bool = False, seed: int = 1,
+                  extra_starts: tuple[dict[str, float], ...] = (),
+                  cycle_budget: int = CYCLE_BUDGET) -> DriftReport:
     """The runs of one design (at one setting of the runtime parameters)."""
     tolerances = tolerances if tolerances is not None else DriftTolerances()
     timing, plan = design.timing, design.plan
@@ -241,7 +296,7 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
     cycle = design.analysis.cycle
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
     level = round(float(low[0] + high[0]) / 2 * scale)
-    starts, notes = choose_starts(design, equilibrium_offset)
+    starts, notes = choose_starts(design, equilibrium_offset, seed=seed, extra=extra_starts)
     if only_nominal:
         starts, notes = starts[:1], []
     seconds: dict[str, float] = {}
@@ -258,7 +313,7 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
         state_names=program.state_names[:program.model_state_count],
         tolerances=tolerances, continuous_period_steps=spc,
         continuous_amplitude=continuous_amplitude, step_map=reference, runs=[], notes=notes,
-        seconds=seconds)
+        seconds=seconds, seed=None if only_nominal else seed, cycle_budget=cycle_budget)
     started = time.perf_counter()
     for start in starts:
         report.runs.append(_one_run(report, host, start, program.overflow))
@@ -267,12 +322,21 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
 
 
 def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str) -> DriftRun:
-    """One long run in C and its judgement against the references and the tolerances."""
+    """One run in C and its judgement against the references and the tolerances: on the exact
+    integer cycle when one is found within the budget, else over --hours."""
     tol = report.tolerances
     scale = 2.0 ** -report.fraction_bits
-    stats = harness_statistics(host, start.state, report.steps, report.settle_steps,
-                               report.window_steps, report.section_level)
-    seconds = stats.seconds
+    started = time.perf_counter()
+    budget = min(report.steps, report.cycle_budget)
+    p, seen_at = integer_period(host, start.state, budget)
+    mu = cycle_start(host, start.state, p, seen_at) if p is not None else None
+    exact = p is not None and mu is not None
+    if exact:
+        steps, settle, window = mu + p, mu, p
+    else:
+        steps, settle, window = report.steps, report.settle_steps, report.window_steps
+    stats = harness_statistics(host, start.state, steps, settle, window, report.section_level)
+    seconds = time.perf_counter() - started
     names = report.state_names
     c = stats.counts
     r = {group: values[:len(names)] for group, values in stats.ranges.items()}
@@ -280,6 +344,10 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     amplitude_first = [(hi - lo) / 2 * scale
                        for lo, hi in zip(r["first_low"], r["first_high"], strict=True)]
     reasons: list[str] = []
+    if exact and stats.end_state != stats.settle_state:
+        reasons.append(f"the cycle found by Brent's algorithm ({p:,} steps from step {mu:,}) does not "
+                       "close under the traced step: the plain and the traced step disagree, or the "
+                       "harness is wrong; no verdict for all time can rest on it")
 
     reference_ok = report.step_map.period_steps is not None
 
@@ -292,34 +360,40 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         reasons.append("the float step map (L1) itself does not go round the cycle at this step "
                        "size (a discretisation failure, before any rounding): raise the loop rate "
                        "or choose a higher-order integrator")
+    where = "on the integer cycle" if exact else "at the end"
     for label, errors in (("the continuous cycle", versus_l0), ("the float step map", versus_l1)):
         bad = [f"{name} {value:.6g} ({100 * error:.3g} % off)"
                for name, error, value in zip(names, errors, amplitude, strict=True)
                if error > tol.amplitude]
         if bad and (reference_ok or label == "the continuous cycle"):
-            reasons.append(f"amplitude at the end against {label}: {', '.join(bad)} (tolerance "
+            reasons.append(f"amplitude {where} against {label}: {', '.join(bad)} (tolerance "
                            f"{100 * tol.amplitude:g} %)")
 
-    period = period_ppm = period_ppm_l1 = drift = drift_l0 = None
+    period = period_ppm = period_ppm_l1 = drift = drift_l0 = per_hour = None
     spread = None
     level = report.section_level
-    if c["settled_crossings"] >= 2:
-        t_first = crossing_time(*stats.first_bracket, c["first_settled_crossing"], level)
-        t_last = crossing_time(*stats.last_bracket, c["last_crossing"], level)
-        period = (t_last - t_first) / (c["settled_crossings"] - 1)
+    crossings_per_cycle = c["settled_crossings"] if exact else None
+    if c["settled_crossings"] >= (1 if exact else 2):
+        if exact:
+            period = p / c["settled_crossings"]  # exact mean period for all time
+        else:
+            t_first = crossing_time(*stats.first_bracket, c["first_settled_crossing"], level)
+            t_last = crossing_time(*stats.last_bracket, c["last_crossing"], level)
+            period = (t_last - t_first) / (c["settled_crossings"] - 1)
         period_ppm = 1e6 * (period - report.continuous_period_steps) / report.continuous_period_steps
         drift_l0 = report.steps * (1 / report.continuous_period_steps - 1 / period)
         if reference_ok:
             l1 = report.step_map.period_steps
             period_ppm_l1 = 1e6 * (period - l1) / l1
             drift = report.steps * (1 / l1 - 1 / period)
+            per_hour = drift / report.hours
         for label, ppm in (("the continuous cycle", period_ppm), ("the float step map", period_ppm_l1)):
             if ppm is not None and abs(ppm) > tol.period_ppm:
                 reasons.append(f"period {period:.6g} steps is {ppm:+.4g} ppm off {label} "
                                f"(tolerance {tol.period_ppm:g} ppm)")
         if drift is not None and abs(drift) > tol.phase_drift_cycles:
-            reasons.append(f"phase drifts {drift:+.4g} cycles over the run against the float step "
-                           f"map (tolerance {tol.phase_drift_cycles:g})")
+            reasons.append(f"phase drifts {drift:+.4g} cycles over {report.hours:g} h against the "
+                           f"float step map (tolerance {tol.phase_drift_cycles:g})")
         ranges = [2 * a for a in report.continuous_amplitude]
         spread = [(hi - lo) * scale / width if width > 0 else 0.0
                   for lo, hi, width in zip(r["return_low"], r["return_high"], ranges, strict=True)]
@@ -328,17 +402,19 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
                 reasons.append(f"return points of {name} on the Poincare section spread over "
                                f"{100 * value:.3g} % of its range (tolerance "
                                f"{100 * tol.return_spread:g} %)")
+    elif exact:
+        reasons.append(f"no rhythm on the integer cycle: state {names[0]} never crosses the "
+                       f"section in its {p:,} steps")
     else:
         reasons.append(f"no rhythm after settling: state {names[0]} crossed the section "
                        f"{c['settled_crossings']} times in {report.steps - report.settle_steps:,} "
                        "steps")
 
-    p = c["period"] or None
-    mu = None
+    if not exact:
+        p = c["period"] or None
+        if p is not None:
+            mu = cycle_start(host, start.state, p, c["period_seen_at"])
     if p is not None:
-        started = time.perf_counter()
-        mu = cycle_start(host, start.state, p, c["period_seen_at"])
-        seconds += time.perf_counter() - started
         if p == 1:
             reasons.append("the integer orbit settled to a fixed point (integer period 1 step)")
         elif p < report.continuous_period_steps / 2:
@@ -348,10 +424,11 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
 
     if c["limit_settled"]:
         reasons.append(f"an intermediate sat at the word's limit on {c['limit_settled']:,} steps "
-                       "after settling (saturation on the cycle)")
+                       f"{'of the integer cycle' if exact else 'after settling'} (saturation on the "
+                       "cycle)")
     if c["range_settled"]:
         reasons.append(f"an intermediate left the planned range on {c['range_settled']:,} steps "
-                       "after settling")
+                       f"{'of the integer cycle' if exact else 'after settling'}")
     if any(a > 2 * b for a, b in zip(amplitude, report.continuous_amplitude, strict=True)):
         reasons.append("the orbit grew to more than twice the cycle's amplitude")
     returns = report.step_map.reached[start.name]
@@ -367,13 +444,57 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         "outside_planned_range": {"count": c["range_steps"], "first_step": c["range_first"] or None,
                                   "after_settling": c["range_settled"]},
     }
-    return DriftRun(
+    equal = [(names[i], names[j]) for i, j in stats.equal_pairs if j < len(names)]
+    run = DriftRun(
         start=start, amplitude=amplitude, amplitude_first=amplitude_first,
         amplitude_error=plain_number(max(versus_l0)),
         amplitude_error_step_map=plain_number(max(versus_l1)) if reference_ok else None,
         period_steps=period, period_error_ppm=period_ppm, period_error_ppm_step_map=period_ppm_l1,
         phase_drift_cycles=drift, phase_drift_cycles_continuous=drift_l0, return_spread=spread,
         crossings=c["crossings"], settled_crossings=c["settled_crossings"],
-        integer_period_steps=p, integer_period_seen_at=c["period_seen_at"] or None,
+        integer_period_steps=p, integer_period_seen_at=(seen_at if exact else c["period_seen_at"]) or None,
         cycle_entered_at_step=mu, saturation_events=events, step_map_returns=returns,
-        reasons=reasons, seconds=seconds)
+        reasons=reasons, seconds=seconds,
+        horizon="unbounded" if exact else f"{report.hours:g} hours",
+        steps_to_cycle=mu if exact else None, cycle_length=p if exact else None,
+        crossings_per_cycle=crossings_per_cycle, phase_drift_cycles_per_hour=per_hour,
+        decides=start.decides, equal_states=equal)
+    if reasons and not start.decides:
+        run.explanation = explain(run, names)
+    return run
+
+
+def explain(run: DriftRun, names: tuple[str, ...]) -> str:
+    """Why a robustness start ended somewhere other than the cycle (a finding, not a failure)."""
+    if run.integer_period_steps == 1:
+        return ("resting state: the integer orbit from this start comes to rest, as in a dead zone "
+                "round an equilibrium where every increment rounds to nothing; firmware must "
+                "never be reset to such a state")
+    if run.equal_states:
+        pairs = ", ".join(" = ".join(group) for group in equal_groups(run.equal_states, names))
+        index = {name: i for i, name in enumerate(names)}
+        kept = all(run.start.state[index[a]] == run.start.state[index[b]] for a, b in run.equal_states)
+        how = ("the start has them equal and the integer map keeps that symmetry exactly"
+               if kept else "the orbit fell onto that subspace from an asymmetric start")
+        return (f"symmetric subspace: {pairs} at every step of the orbit it ends on ({how}); the "
+                "designed cycle lies off that subspace")
+    if not run.step_map_returns:
+        return ("another attractor, or outside the basin: the float step map (L1) from this start "
+                "does not reach the cycle either")
+    return ("another attractor of the integer map: the float step map (L1) from this start reaches "
+            "the cycle, but the integer orbit settles elsewhere")
+
+
+def equal_groups(pairs: list[tuple[str, str]], names: tuple[str, ...]) -> list[list[str]]:
+    """Pairs of equal states gathered into groups of states all equal to one another."""
+    group = {name: {name} for name in names}
+    for a, b in pairs:
+        joined = group[a] | group[b]
+        for name in joined:
+            group[name] = joined
+    seen: list[list[str]] = []
+    for name in names:
+        members = [m for m in names if m in group[name]]
+        if len(members) > 1 and members not in seen:
+            seen.append(members)
+    return seen

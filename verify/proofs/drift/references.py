@@ -5,10 +5,12 @@ the equilibrium inside the cycle, near the basin's edge, near saturation) and th
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
+from orbitfix.gen.errors import InputError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.lowering import evaluate_real
 
@@ -23,6 +25,10 @@ class Start:
     name: str
     state: tuple[int, ...]
     why: str
+    decides: bool = False  # True for the starts whose runs decide the verdict
+
+
+RANDOM_STARTS = 3  # random, asymmetric starts round each unstable equilibrium inside the cycle
 
 
 @dataclass(frozen=True)
@@ -39,13 +45,22 @@ class StepMapReference:
     reached: dict[str, bool]
 
 
-def choose_starts(design: Design, equilibrium_offset: float = 1e-3) -> tuple[list[Start], list[str]]:
+def choose_starts(design: Design, equilibrium_offset: float = 1e-3, seed: int = 1,
+                  extra: tuple[dict[str, float], ...] = ()) -> tuple[list[Start], list[str]]:
     """The initial states of the drift runs, and notes on any that had to be left out.
 
-    equilibrium_offset : the distance from the equilibrium, as a fraction of each state's range on
-        the cycle (at least 4 LSB), so that the start can leave an unstable equilibrium at all: a
-        start only a few LSB away sits in the rounding's dead zone, where every increment rounds
-        to nothing (that would be a finding about starting from rest, not about drift).
+    The model's initial state decides the verdict; the others test robustness.
+
+    equilibrium_offset : the typical distance from an equilibrium, as a fraction of each state's
+        range on the cycle (at least 4 LSB), so that the start can leave an unstable equilibrium
+        at all: a start only a few LSB away sits in the rounding's dead zone, where every increment
+        rounds to nothing (that would be a finding about starting from rest, not about drift).
+    seed : of the random starts near the equilibria. Each state's offset has its own random sign
+        and a size between 0.5 and 1.5 times the typical distance, so the start leaves any
+        symmetric subspace of a network (where identical units hold equal states), which the
+        integer map would keep exactly.
+    extra : the user's starts, model units by state name (states not named keep their initial
+        values); the names are checked by the caller.
     """
     plan = design.plan
     program = plan.program
@@ -57,26 +72,32 @@ def choose_starts(design: Design, equilibrium_offset: float = 1e-3) -> tuple[lis
     word_max = program.word_max
     n = program.model_state_count
     held = tuple(plan.initial_state[n:])  # runtime parameters stay at their nominal values
-    starts = [Start("nominal", tuple(plan.initial_state), "the model's initial state")]
+    starts = [Start("nominal", tuple(plan.initial_state), "the model's initial state", decides=True)]
     notes: list[str] = []
 
     inside = [e for e in design.analysis.equilibria
               if np.all(e.state >= low) and np.all(e.state <= high)]
     if not inside:
         notes.append("no equilibrium lies inside the cycle's bounding box, so there is no run "
-                     "from near the equilibrium")
-    else:
-        equilibrium = min(inside, key=lambda e: float(np.max(np.abs(e.state - centre))))
+                     "from near an equilibrium")
+    generator = np.random.default_rng(seed)
+    typical = np.maximum(np.round(equilibrium_offset * 2 * half * scale), 4)
+    for number, equilibrium in enumerate(inside, start=1):
+        where = ", ".join(f"{name} = {value:.4g}"
+                          for name, value in zip(program.state_names, equilibrium.state, strict=False))
         if equilibrium.stable:
-            notes.append(f"the equilibrium inside the cycle is a {equilibrium.kind} of the "
-                         "continuous model, so a start near it is not expected to reach the cycle; "
-                         "that run is left out")
-        else:
-            offset = np.maximum(np.round(equilibrium_offset * 2 * half * scale), 4)
-            point = np.round(equilibrium.state * scale) + offset
-            starts.append(Start("near the equilibrium", _fit(point, word_max) + held,
-                                f"the {equilibrium.kind} plus {equilibrium_offset:g} of the "
-                                "cycle's range"))
+            notes.append(f"the equilibrium at {where} is a {equilibrium.kind} of the continuous "
+                         "model, so starts near it are not expected to reach the cycle; they are "
+                         "left out")
+            continue
+        label = "near the equilibrium" if len(inside) == 1 else f"near equilibrium {number}"
+        for k in range(1, RANDOM_STARTS + 1):
+            signs = generator.choice((-1.0, 1.0), size=n)
+            sizes = generator.uniform(0.5, 1.5, size=n)
+            point = np.round(equilibrium.state * scale) + np.round(signs * sizes * typical)
+            starts.append(Start(f"{label} ({k})", _fit(point, word_max) + held,
+                                f"the {equilibrium.kind} at {where} plus a random asymmetric offset "
+                                f"of about {equilibrium_offset:g} of the cycle's range (seed {seed})"))
 
     corner = centre + 0.95 * plan.margin * half
     starts.append(Start("near the basin edge", _fit(np.round(corner * scale), word_max) + held,
@@ -87,7 +108,36 @@ def choose_starts(design: Design, equilibrium_offset: float = 1e-3) -> tuple[lis
     starts.append(Start("near saturation", _fit(near, word_max),
                         f"{program.state_names[0]} at 63/64 of the word's limit, the other states "
                         "at their initial values"))
+    for k, (given, point) in enumerate(zip(extra, given_starts(design, extra), strict=True), start=1):
+        text = ", ".join(f"{name} = {value:g}" for name, value in given.items())
+        starts.append(Start(f"given start {k}", point, f"given with --start: {text}"))
     return starts, notes
+
+
+def given_starts(design: Design, extra: tuple[dict[str, float], ...]) -> list[tuple[int, ...]]:
+    """The user's starts (model units by state name) in integer units; a state not named keeps its
+    initial value. A name that is not a state of the model, or a value the state's word cannot
+    hold, is an input error."""
+    plan = design.plan
+    program = plan.program
+    n = program.model_state_count
+    names = program.state_names[:n]
+    bits = program.state_fraction_bits
+    points = []
+    for given in extra:
+        point = list(plan.initial_state)
+        for name, value in given.items():
+            if name not in names:
+                raise InputError(f"--start names '{name}', which is not a state of "
+                                 f"'{design.model.name}'; its states are {', '.join(names)}")
+            i = names.index(name)
+            limit = program.word_max / 2.0 ** bits[i]
+            if not (math.isfinite(value) and abs(value) <= limit):
+                raise InputError(f"--start {name}={value!r}: the state's word holds values from "
+                                 f"{-limit:.6g} to {limit:.6g}; give a start inside that")
+            point[i] = round(value * 2.0 ** bits[i])
+        points.append(tuple(int(v) for v in point))
+    return points
 
 
 def _fit(point: np.ndarray, word_max: int) -> tuple[int, ...]:
