@@ -37,26 +37,30 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.study.discrete_cycle import NO_ANGLES, CycleTolerance
     from orbitfix.gen.study.plan_study import coefficient_effect, search, study_integrators
+    from orbitfix.gen.study.start_path import check_start_path
     from orbitfix.verify.report.design import (
         coefficient_line,
         integrator_lines,
         plan_json,
         plan_lines,
         search_lines,
+        start_path_lines,
     )
     from orbitfix.verify.report.json_output import json_text
 
     tolerance = CycleTolerance(period_ppm=args.max_period_error,
                                amplitude=args.max_amplitude_error / 100.0)
     built = design(model_from_args(args))
-    partial.update({"model": built.model.name, "plan": plan_json(built)})
+    start = check_start_path(built)
+    partial.update({"model": built.model.name, "plan": plan_json(built),
+                    "start_path": start.to_json()})
     if built.plan.program.angle_states:
         partial["note"] = NO_ANGLES
         code = 2 if args.search else 0
         if args.json:
             print(json_text(code == 0, partial))
         else:
-            print("\n".join(plan_lines(built)))
+            print("\n".join(plan_lines(built) + start_path_lines(start)))
             print(f"\nnote: {NO_ANGLES}; the plan above still holds")
         return code
     effect = coefficient_effect(built, tolerance)
@@ -71,7 +75,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     if args.json:
         print(json_text(ok, partial))
     else:
-        lines = [*plan_lines(built), coefficient_line(effect), "",
+        lines = [*plan_lines(built), *start_path_lines(start), coefficient_line(effect), "",
                  *integrator_lines(built, studies, tolerance)]
         if found is not None:
             lines += ["", *search_lines(found)]

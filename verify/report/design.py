@@ -6,6 +6,7 @@ from __future__ import annotations
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.study.discrete_cycle import CycleTolerance
 from orbitfix.gen.study.plan_study import CoefficientEffect, SearchResult
+from orbitfix.gen.study.start_path import StartPath
 from orbitfix.gen.timing.integrators import INTEGRATORS
 
 
@@ -134,3 +135,12 @@ def search_lines(found: SearchResult) -> list[str]:
     else:
         lines.append(f"  binding tolerance: {found.binding}")
     return lines
+
+
+def start_path_lines(path: StartPath) -> list[str]:
+    """The start-up path's verdict in one line, then each problem."""
+    if path.ok:
+        return [f"start-up path: the integer map follows the float step map from the initial state "
+                f"over {path.steps} steps (parting {path.parting:.3g} of a state's range, tolerance "
+                f"{path.tolerance:g}), with no saturation"]
+    return ["start-up path: FAILS", *(f"  {p}" for p in path.problems())]
