@@ -40,9 +40,10 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     from orbitfix.gen.c.emit import render_model
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.safety import CAUTION
+    from orbitfix.gen.study.dead_zones import dead_zones
     from orbitfix.gen.study.discrete_cycle import CycleTolerance
     from orbitfix.gen.study.start_path import check_start_path, plan_warnings
-    from orbitfix.verify.report.design import design_json, design_lines
+    from orbitfix.verify.report.design import dead_zone_json, design_json, design_lines
     from orbitfix.verify.report.generated import written_fields, written_lines
     from orbitfix.verify.report.json_output import json_text
 
@@ -52,7 +53,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     start = check_start_path(built)
     stepped, warnings = plan_warnings(built, start, tolerance)
     partial["start_path"] = start.to_json()
-    texts = render_model(built.model, built.timing, built.integrator, built.plan)
+    zones = dead_zones(built)
+    texts = render_model(built.model, built.timing, built.integrator, built.plan, zones)
     files = {args.output / name: text for name, text in texts.items()}
     if args.program_json:
         files[args.program_json] = json.dumps(built.plan.program.to_json(), indent=2) + "\n"
@@ -67,7 +69,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     if args.json:
         print(json_text(True, {**design_json(built), "start_path": start.to_json(),
                                "integer_cycle": stepped.to_json() if stepped else None,
-                               "plan_warnings": warnings, "files": written_fields(files),
+                               "plan_warnings": warnings,
+                               "dead_zones": dead_zone_json(zones), "files": written_fields(files),
                                "caution": CAUTION}))
     else:
         print("\n".join(design_lines(built) + [f"  warning: {w}" for w in warnings]
