@@ -1,5 +1,6 @@
-"""The fixed-point planner: chooses the Q format from the signals' ranges on the cycle, rounds every
-constant once, and fills the integer part of the program.
+"""The fixed-point planner: chooses the Q format from the signals' ranges on the cycle and on the
+float step map's start-up paths, rounds every constant once, and fills the integer part of the
+program.
 
 Q formats are written Qm.n: m integer bits counting the sign bit, n fraction bits, m + n = word
 size; Q8.24 holds [-128, 128) in steps of 2**-24 (common practice).
@@ -75,8 +76,9 @@ class FixedPointPlan:
 
     signal_format -- the format every state shares (one scale reads the whole state vector);
     each intermediate value has its own format, in ``program.ops[i].fraction_bits``.
-    largest_signal -- the largest state magnitude met on the cycle.
-    signal_ranges -- per value, (min, max) met on the cycle (and at the initial state).
+    largest_signal -- the largest state magnitude met on the cycle and the start-up paths.
+    signal_ranges -- per value, (min, max) met on the cycle, at the initial state and on the float
+    step map's start-up paths (see :func:`start_paths`).
     sure_bounds -- per value, (min, max) by interval arithmetic over the planning box: no step
     from a state in the box can exceed them, and every format holds them times the margin.
     """

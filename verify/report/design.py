@@ -37,7 +37,8 @@ def design_lines(built: Design) -> list[str]:
         f"intermediate in its own format; {plan.program.word_bits}-bit words, "
         f"{plan.program.product_bits}-bit products, rounding "
         f"{plan.program.rounding}, overflow {plan.program.overflow}; largest state "
-        f"{plan.largest_signal:.4g} on the cycle, {plan.headroom_bits:.2f} bits of headroom",
+        f"{plan.largest_signal:.4g} on the cycle and start-up path, {plan.headroom_bits:.2f} bits "
+        "of headroom",
     ]
     lines += [f"  warning: {w}" for w in plan.warnings]
     return lines
