@@ -13,8 +13,10 @@ Methods (named in every result):
   cycle inside it. Exact for the box; the box is doubled until the zone is at most half of it.
   Used when (2m + 1)^n stays below :data:`MOST_LATTICE_STATES` (every 16-bit planar model).
 - ``sampled``: otherwise, :data:`SAMPLES` seeded random lattice states of the box are stepped
-  :data:`SAMPLE_STEPS_CYCLES` cycles; those still inside the box count as dead. A lower bound on the
-  zone (a state missed by the samples is not reported).
+  :data:`SAMPLE_STEPS_CYCLES` cycles; those still inside the box count as dead, and the box is
+  doubled until they fill at most half of it. A lower bound on the zone (a state missed by the
+  samples, or one that leaves only after the sampled steps, is not reported); the result says
+  how wide the last box was.
 """
 
 from __future__ import annotations
@@ -33,8 +35,9 @@ from orbitfix.gen.program.quantisation import quantise
 MOST_LATTICE_STATES = 1 << 21
 FIRST_HALF_WIDTH = 8     # LSB
 REST_SEARCH = 2          # LSB either side of the rounded equilibrium searched for a rest state
-SAMPLES = 20_000
+SAMPLES = 4_000
 SAMPLE_STEPS_CYCLES = 2.0
+SAMPLED_DOUBLINGS = 6
 SEED = 8
 
 
@@ -150,6 +153,20 @@ def _exhaustive(program, rest: np.ndarray, n: int, half: int) -> np.ndarray:
 
 def _sampled(plan: FixedPointPlan, equilibrium: np.ndarray, rest: np.ndarray, half: int,
              steps: int) -> DeadZone:
+    """Seeded samples of a box doubled (at most SAMPLED_DOUBLINGS times, and within the word)
+    until the states that stay fill at most half of it."""
+    program = plan.program
+    for _ in range(SAMPLED_DOUBLINGS):
+        zone = _sampled_box(plan, equilibrium, rest, half, steps)
+        wider = 2 * half
+        if (2 * max(zone.radius_lsb) <= half or np.max(np.abs(rest)) + wider >= program.word_max):
+            return zone
+        half = wider
+    return zone
+
+
+def _sampled_box(plan: FixedPointPlan, equilibrium: np.ndarray, rest: np.ndarray, half: int,
+                 steps: int) -> DeadZone:
     program = plan.program
     n = program.model_state_count
     rng = np.random.default_rng(SEED)
