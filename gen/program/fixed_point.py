@@ -197,7 +197,8 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
         samples = np.hstack([samples, path[:n]])
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
     points = np.vstack([points, np.repeat(np.reshape(nominal, (-1, 1)), points.shape[1], axis=1)])
-    met = tuple((float(np.min(v)), float(np.max(v))) for v in evaluate_real(program, points))
+    with np.errstate(over="ignore", invalid="ignore"):  # a diverging path: refused just below
+        met = tuple((float(np.min(v)), float(np.max(v))) for v in evaluate_real(program, points))
     low, high = planning_box(samples, initial, box_scale, angles)
     low = np.concatenate([low, [v for p in runtime for v in (p.low, p.low)]])
     high = np.concatenate([high, [v for p in runtime for v in (p.high, p.high)]])
@@ -275,12 +276,13 @@ def start_paths(program: IntegerProgram, initial: np.ndarray, runtime: tuple[Par
     stops being finite is cut where it does (the planner then refuses the box)."""
     state = start_points(np.asarray(initial, dtype=float), runtime)
     met = [state]
-    for _ in range(steps):
-        values = evaluate_real(program, state)
-        state = np.stack([values[i] for i in program.next_state])
-        if not np.all(np.isfinite(state)):
-            break
-        met.append(state)
+    with np.errstate(over="ignore", invalid="ignore"):  # a diverging path is cut just below
+        for _ in range(steps):
+            values = evaluate_real(program, state)
+            state = np.stack([values[i] for i in program.next_state])
+            if not np.all(np.isfinite(state)):
+                break
+            met.append(state)
     return np.hstack(met)
 
 
