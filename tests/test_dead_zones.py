@@ -3,8 +3,11 @@ argument) and against brute force on the lattice, and the verdict on a start ins
 
 from __future__ import annotations
 
+import json
 import math
+import re
 from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -17,6 +20,7 @@ from orbitfix.gen.program.fixed_point import plan_fixed_point
 from orbitfix.gen.program.lowering import lower_step
 from orbitfix.gen.study.dead_zones import dead_zone, dead_zones, path_lands_inside
 from orbitfix.gen.timing.integrators import EULER
+from orbitfix.verify.cli.main import main
 
 GROWTH, TURN_RATE, STEP = 0.1, 1.0, 0.05  # x' = s x - w y, y' = w x + s y: an unstable focus
 FOCUS = define_model("focus", {"x": 0.5, "y": 0.0},
@@ -80,3 +84,21 @@ def test_a_start_inside_the_zone_fails_and_the_initial_state_does_not() -> None:
     at_rest = replace(built, plan=replace(built.plan, initial_state=(0, 0)))
     landed = path_lands_inside(at_rest, zones, 1000)
     assert landed is not None and landed[0] == 0
+
+
+def test_verify_fails_a_model_that_starts_in_its_dead_zone(tmp_path, capsys) -> None:
+    """Seeded fault through the command line: vanderpol with its initial state at the origin
+    (inside the 16-bit zone) is bit-exact, yet verify fails and names the zone in its JSON."""
+    library = Path(__file__).resolve().parents[1] / "gen" / "model" / "library" / "vanderpol.toml"
+    text = library.read_text()
+    text = re.sub(r"initial = [-0-9.e]+", "initial = 0.0", text)
+    text = re.sub(r'^name = ".*"', 'name = "vdp_zero"', text, flags=re.M)
+    model_file = tmp_path / "vdp_zero.toml"
+    model_file.write_text(text)
+    code = main(["verify", str(model_file), "--word", "16", "--skip-drift", "--states", "1000",
+                 "--steps", "1000", "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert code == 1 and data["ok"] is False
+    assert data["initial_state_in_dead_zone"] is True
+    zone = data["dead_zones"][0]
+    assert zone["method"] == "exhaustive" and zone["radius_lsb"] == {"x": 219, "y": 85}
