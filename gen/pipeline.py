@@ -4,6 +4,7 @@ integer program, each stage reading only what the one before produced."""
 from __future__ import annotations
 
 import itertools
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -64,23 +65,34 @@ def design(model: Model, analysis: Analysis | None = None) -> Design:
     timing = plan_timing(model, analysis.cycle.period)
     corners = corner_cycles(model)
     samples = np.hstack([analysis.cycle.samples, *(cycle.samples for _, cycle in corners)])
-    plan = plan_step(model, integrator, timing.step, samples)
+    plan = plan_step(model, integrator, timing.step, samples, path_steps=start_path_steps(model))
     return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan,
                   corners=corners)
 
 
+START_PATH_CYCLES = 3  # cycles of the float step map from every start the plan covers
+
+
+def start_path_steps(model: Model, cycles: float = START_PATH_CYCLES) -> int:
+    """Steps of the start-up path the plan covers: ``cycles`` wanted cycles at the loop rate."""
+    return math.ceil(cycles * model.rhythm.loop_hz / model.rhythm.cycle_hz)
+
+
 def plan_step(model: Model, integrator: Integrator, step: float,
-              samples: np.ndarray) -> FixedPointPlan:
+              samples: np.ndarray, path_steps: int = 0) -> FixedPointPlan:
     """The one lower-then-plan path: the step of ``model`` at ``step`` (model time units) lowered
     to an integer program and planned from ``samples`` (shape (n_states, k), the model's states
-    only) with the model's fixed-point request and its runtime parameters' ranges. A plan with a
+    only) with the model's fixed-point request and its runtime parameters' ranges, and over the
+    float step map's path of ``path_steps`` steps from every start (the initial state, the runtime
+    corners; see fixed_point.start_paths). A plan with a
     step constant that rounds to zero is refused (gen/program/plan_checks.py)."""
     request = model.fixed_point
     program = lower_step(model, integrator, step)
     plan = plan_fixed_point(program, samples, model.initial_state,
                             margin=request.margin, fraction_bits=request.fraction_bits,
                             word_bits=request.word_bits, rounding=request.rounding,
-                            overflow=request.overflow, runtime=model.runtime_parameters)
+                            overflow=request.overflow, runtime=model.runtime_parameters,
+                            path_steps=path_steps)
     refuse_vanished_constants(plan, model.name, model.rhythm.loop_hz / model.rhythm.cycle_hz)
     return plan
 

@@ -75,15 +75,27 @@ def int_literal(value: int, word_bits: int) -> str:
 
 
 def render_model(model: Model, timing: Timing, integrator: Integrator,
-                 plan: FixedPointPlan) -> dict[str, str]:
-    """The firmware files ``NAME.h`` and ``NAME.c`` for one planned model."""
+                 plan: FixedPointPlan, dead_zones: tuple = ()) -> dict[str, str]:
+    """The firmware files ``NAME.h`` and ``NAME.c`` for one planned model. ``dead_zones``
+    (``gen/study/dead_zones.DeadZone``) are described in the header, with how to stay out."""
     names = CNames(model.name)
     context = _context(model, timing, integrator, plan, traced=False)
+    context["dead_zones"] = [_dead_zone_text(zone) for zone in dead_zones]
     env = environment()
     return {
         names.header: env.get_template("model.h.j2").render(context),
         names.source: env.get_template("model.c.j2").render(context),
     }
+
+
+def _dead_zone_text(zone) -> dict:
+    return {"where": ", ".join(f"{n} = {v:.6g}" for n, v in zip(zone.state_names, zone.equilibrium,
+                                                                 strict=True)),
+            "states": zone.states, "method": zone.method,
+            "rest": ", ".join(f"{n} = {v}" for n, v in zip(zone.state_names, zone.rest_state,
+                                                           strict=True)),
+            "radius": [f"{n} within +/- {lsb} (+/- {r:.4g})" for n, r, lsb in
+                       zip(zone.state_names, zone.radius, zone.radius_lsb, strict=True)]}
 
 
 def render_trace(model: Model, timing: Timing, integrator: Integrator,

@@ -1,5 +1,6 @@
-"""The fixed-point planner: chooses the Q format from the signals' ranges on the cycle, rounds every
-constant once, and fills the integer part of the program.
+"""The fixed-point planner: chooses the Q format from the signals' ranges on the cycle and on the
+float step map's start-up paths, rounds every constant once, and fills the integer part of the
+program.
 
 Q formats are written Qm.n: m integer bits counting the sign bit, n fraction bits, m + n = word
 size; Q8.24 holds [-128, 128) in steps of 2**-24 (common practice).
@@ -7,6 +8,7 @@ size; Q8.24 holds [-128, 128) in steps of 2**-24 (common practice).
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, replace
 from fractions import Fraction
@@ -74,8 +76,9 @@ class FixedPointPlan:
 
     signal_format -- the format every state shares (one scale reads the whole state vector);
     each intermediate value has its own format, in ``program.ops[i].fraction_bits``.
-    largest_signal -- the largest state magnitude met on the cycle.
-    signal_ranges -- per value, (min, max) met on the cycle (and at the initial state).
+    largest_signal -- the largest state magnitude met on the cycle and the start-up paths.
+    signal_ranges -- per value, (min, max) met on the cycle, at the initial state and on the float
+    step map's start-up paths (see :func:`start_paths`).
     sure_bounds -- per value, (min, max) by interval arithmetic over the planning box: no step
     from a state in the box can exceed them, and every format holds them times the margin.
     """
@@ -162,7 +165,7 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
                      margin: float = 2.0, fraction_bits: int | None = None,
                      word_bits: int = 32, rounding: str = "half-up",
                      overflow: str = "saturate", box_scale: float = 1.5,
-                     runtime: tuple[Parameter, ...] = ()) -> FixedPointPlan:
+                     runtime: tuple[Parameter, ...] = (), path_steps: int = 0) -> FixedPointPlan:
     """Plan formats for ``program``.
 
     samples : ndarray, shape (n_states, k) -- states on the cycle.
@@ -173,6 +176,9 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     box_scale : float -- the planning box is the cycle's bounding box widened by this factor.
     runtime : the model's runtime parameters, in the program's order: each holds its whole
         [low, high] range, and its current value and target share one format.
+    path_steps : int -- the box also covers the float step map's path over this many steps from
+        every start the firmware uses (see :func:`start_paths`): a start-up transient that leaves
+        the cycle's box (an amplitude settling from its initial value) is planned for too.
     """
     _check_choice("word size", word_bits, WORD_SIZES)
     _check_choice("rounding", rounding, ROUNDINGS)
@@ -186,9 +192,13 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     for i in angles:  # angle states are planned, and held, in turns
         samples[i], initial[i] = radians_to_turns(samples[i]), radians_to_turns(initial[i])
     nominal = [v for p in runtime for v in (p.value, p.value)]
+    if path_steps > 0:
+        path = start_paths(program, np.concatenate([initial, nominal]), runtime, path_steps)
+        samples = np.hstack([samples, path[:n]])
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
     points = np.vstack([points, np.repeat(np.reshape(nominal, (-1, 1)), points.shape[1], axis=1)])
-    met = tuple((float(np.min(v)), float(np.max(v))) for v in evaluate_real(program, points))
+    with np.errstate(over="ignore", invalid="ignore"):  # a diverging path: refused just below
+        met = tuple((float(np.min(v)), float(np.max(v))) for v in evaluate_real(program, points))
     low, high = planning_box(samples, initial, box_scale, angles)
     low = np.concatenate([low, [v for p in runtime for v in (p.low, p.low)]])
     high = np.concatenate([high, [v for p in runtime for v in (p.high, p.high)]])
@@ -244,6 +254,36 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
                           initial_state=initial_ints, warnings=tuple(warnings),
                           signal_ranges=met, sure_bounds=tuple(sure),
                           box=tuple(zip(low.tolist(), high.tolist(), strict=True)))
+
+
+def start_points(initial: np.ndarray, runtime: tuple[Parameter, ...]) -> np.ndarray:
+    """Every start the firmware can step from, shape (n_states + 2 * runtime, k): the model's
+    initial state with each runtime parameter at its value, and, for every corner of the runtime
+    ranges, the parameters held at the corner and ramping from their value to the corner."""
+    starts = [np.asarray(initial, dtype=float)]
+    n = len(initial) - 2 * len(runtime)
+    for corner in itertools.product(*((p.low, p.high) for p in runtime)):
+        held = [v for c in corner for v in (c, c)]
+        ramp = [v for p, c in zip(runtime, corner, strict=True) for v in (p.value, c)]
+        starts += [np.concatenate([initial[:n], held]), np.concatenate([initial[:n], ramp])]
+    return np.stack(starts, axis=1)
+
+
+def start_paths(program: IntegerProgram, initial: np.ndarray, runtime: tuple[Parameter, ...],
+                steps: int) -> np.ndarray:
+    """The float step map's (L1) states over ``steps`` steps from every start of
+    :func:`start_points`, shape (n_states + 2 * runtime, k); angle states in turns. A path that
+    stops being finite is cut where it does (the planner then refuses the box)."""
+    state = start_points(np.asarray(initial, dtype=float), runtime)
+    met = [state]
+    with np.errstate(over="ignore", invalid="ignore"):  # a diverging path is cut just below
+        for _ in range(steps):
+            values = evaluate_real(program, state)
+            state = np.stack([values[i] for i in program.next_state])
+            if not np.all(np.isfinite(state)):
+                break
+            met.append(state)
+    return np.hstack(met)
 
 
 def _check_choice(what: str, value: object, choices: tuple) -> None:

@@ -13,6 +13,8 @@ import numpy as np
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.operations import kind_of
 
+DEGENERATE_FLOOR = 0.1  # of the model's largest half range: the least half range a state gets
+
 
 def interval_ranges(program: IntegerProgram, low: np.ndarray,
                     high: np.ndarray) -> list[tuple[float, float]]:
@@ -27,12 +29,18 @@ def interval_ranges(program: IntegerProgram, low: np.ndarray,
 
 def planning_box(samples: np.ndarray, initial: np.ndarray, scale: float,
                  angles: tuple[int, ...] = ()) -> tuple[np.ndarray, np.ndarray]:
-    """The states the plan must hold: the cycle's bounding box (with the initial state) widened
-    about its centre by ``scale``; an angle state (in turns) holds the whole turn."""
+    """The states the plan must hold: the bounding box of the samples (the cycle, the paths from
+    the starts) and the initial state, widened about its centre by ``scale``; an angle state (in
+    turns) holds the whole turn. A state whose range is degenerate (zero on the cycle, say) gets
+    a floor from the model's own scale, the largest half range of its other states, so neither it
+    nor any value computed from it is planned for a range of zero width."""
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
     low, high = points.min(axis=1), points.max(axis=1)
     centre, half = 0.5 * (low + high), 0.5 * (high - low)
-    half = np.maximum(half * scale, 1e-9)
+    plain = [i for i in range(len(half)) if i not in angles]
+    model_scale = max([float(half[i]) for i in plain] + [0.0])
+    floor = max(DEGENERATE_FLOOR * model_scale, 1e-9)
+    half = np.maximum(half * scale, floor)
     low, high = centre - half, centre + half
     for i in angles:
         low[i], high[i] = -0.5, 0.5

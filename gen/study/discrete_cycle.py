@@ -18,7 +18,7 @@ import numpy as np
 from orbitfix.gen import work_size
 from orbitfix.gen.errors import InputError, UnsupportedError
 from orbitfix.gen.model.definition import Model
-from orbitfix.gen.pipeline import plan_step, program_states
+from orbitfix.gen.pipeline import START_PATH_CYCLES, plan_step, program_states, start_path_steps
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import evaluate_real
@@ -229,7 +229,7 @@ def lowest_loop_rate(model: Model, integrator: Integrator, period: float, sample
     starts = program_states(model, samples)
     try:
         program = plan_step(model, integrator, period * cycle_hz / model.rhythm.loop_hz,
-                            plan_samples).program
+                            plan_samples, path_steps=start_path_steps(model)).program
     except InputError:
         return None
     work_size.refuse_beyond_machine(
@@ -239,7 +239,8 @@ def lowest_loop_rate(model: Model, integrator: Integrator, period: float, sample
     def keeps(loop_hz: float) -> bool:
         steps_per_cycle = loop_hz / cycle_hz
         try:
-            plan = plan_step(model, integrator, period * cycle_hz / loop_hz, plan_samples)
+            plan = plan_step(model, integrator, period * cycle_hz / loop_hz, plan_samples,
+                             path_steps=math.ceil(steps_per_cycle * START_PATH_CYCLES))
         except InputError:
             return False
         return integer_cycle(plan.program, starts, steps_per_cycle, cycle_min, cycle_max,

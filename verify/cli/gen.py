@@ -12,7 +12,12 @@ from pathlib import Path
 from typing import Any
 
 from orbitfix.gen.errors import InputError
-from orbitfix.verify.cli.options import add_fixed_point_options, add_model_arguments, model_from_args
+from orbitfix.verify.cli.options import (
+    add_cycle_tolerances,
+    add_fixed_point_options,
+    add_model_arguments,
+    model_from_args,
+)
 
 
 def register(verbs: Any) -> None:
@@ -21,6 +26,8 @@ def register(verbs: Any) -> None:
     add_model_arguments(parser, json_help="print one JSON object (ok, the files written with their "
                                           "SHA-256, the formats, the program's fingerprint)")
     add_fixed_point_options(parser)
+    add_cycle_tolerances(parser, "the continuous cycle (gen warns, and still writes, when the "
+                                 "integer map misses them)")
     parser.add_argument("-o", "--output", required=True, type=Path, metavar="DIR",
                         help="folder to write the C files into (created if missing)")
     parser.add_argument("--program-json", type=Path, metavar="FILE",
@@ -33,12 +40,21 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     from orbitfix.gen.c.emit import render_model
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.safety import CAUTION
-    from orbitfix.verify.report.design import design_json, design_lines
+    from orbitfix.gen.study.dead_zones import dead_zones
+    from orbitfix.gen.study.discrete_cycle import CycleTolerance
+    from orbitfix.gen.study.start_path import check_start_path, plan_warnings
+    from orbitfix.verify.report.design import dead_zone_json, design_json, design_lines
     from orbitfix.verify.report.generated import written_fields, written_lines
     from orbitfix.verify.report.json_output import json_text
 
     built = design(model_from_args(args))
-    texts = render_model(built.model, built.timing, built.integrator, built.plan)
+    tolerance = CycleTolerance(period_ppm=args.max_period_error,
+                               amplitude=args.max_amplitude_error / 100.0)
+    start = check_start_path(built)
+    stepped, warnings = plan_warnings(built, start, tolerance)
+    partial["start_path"] = start.to_json()
+    zones = dead_zones(built)
+    texts = render_model(built.model, built.timing, built.integrator, built.plan, zones)
     files = {args.output / name: text for name, text in texts.items()}
     if args.program_json:
         files[args.program_json] = json.dumps(built.plan.program.to_json(), indent=2) + "\n"
@@ -51,9 +67,13 @@ def run(args: argparse.Namespace, partial: dict) -> int:
                              "can write to") from None
         partial.setdefault("files", []).append(written_fields({path: text})[0])
     if args.json:
-        print(json_text(True, {**design_json(built), "files": written_fields(files),
+        print(json_text(True, {**design_json(built), "start_path": start.to_json(),
+                               "integer_cycle": stepped.to_json() if stepped else None,
+                               "plan_warnings": warnings,
+                               "dead_zones": dead_zone_json(zones), "files": written_fields(files),
                                "caution": CAUTION}))
     else:
-        print("\n".join(design_lines(built) + written_lines(files)))
+        print("\n".join(design_lines(built) + [f"  warning: {w}" for w in warnings]
+                        + written_lines(files)))
         print(CAUTION)
     return 0

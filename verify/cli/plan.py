@@ -35,28 +35,36 @@ def register(verbs: Any) -> None:
 def run(args: argparse.Namespace, partial: dict) -> int:
     """Show the plan and the integrators' studies; search when asked."""
     from orbitfix.gen.pipeline import design
+    from orbitfix.gen.study.dead_zones import dead_zones
     from orbitfix.gen.study.discrete_cycle import NO_ANGLES, CycleTolerance
     from orbitfix.gen.study.plan_study import coefficient_effect, search, study_integrators
+    from orbitfix.gen.study.start_path import check_start_path
     from orbitfix.verify.report.design import (
         coefficient_line,
+        dead_zone_json,
+        dead_zone_lines,
         integrator_lines,
         plan_json,
         plan_lines,
         search_lines,
+        start_path_lines,
     )
     from orbitfix.verify.report.json_output import json_text
 
     tolerance = CycleTolerance(period_ppm=args.max_period_error,
                                amplitude=args.max_amplitude_error / 100.0)
     built = design(model_from_args(args))
-    partial.update({"model": built.model.name, "plan": plan_json(built)})
+    start = check_start_path(built)
+    zones = dead_zones(built)
+    partial.update({"model": built.model.name, "plan": plan_json(built),
+                    "start_path": start.to_json(), "dead_zones": dead_zone_json(zones)})
     if built.plan.program.angle_states:
         partial["note"] = NO_ANGLES
         code = 2 if args.search else 0
         if args.json:
             print(json_text(code == 0, partial))
         else:
-            print("\n".join(plan_lines(built)))
+            print("\n".join(plan_lines(built) + start_path_lines(start)))
             print(f"\nnote: {NO_ANGLES}; the plan above still holds")
         return code
     effect = coefficient_effect(built, tolerance)
@@ -71,7 +79,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     if args.json:
         print(json_text(ok, partial))
     else:
-        lines = [*plan_lines(built), coefficient_line(effect), "",
+        lines = [*plan_lines(built), *start_path_lines(start), *dead_zone_lines(zones),
+                 coefficient_line(effect), "",
                  *integrator_lines(built, studies, tolerance)]
         if found is not None:
             lines += ["", *search_lines(found)]

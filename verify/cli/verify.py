@@ -83,6 +83,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.progress import tell
     from orbitfix.gen.safety import CAUTION
+    from orbitfix.gen.study.dead_zones import dead_zones, path_lands_inside
+    from orbitfix.gen.study.start_path import check_start_path
     from orbitfix.gen.work_size import bit_exact_work, refuse_beyond_machine
     from orbitfix.verify.proofs.certificate import certify
     from orbitfix.verify.proofs.drift import (
@@ -95,7 +97,13 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     )
     from orbitfix.verify.proofs.host_check import check_on_host, read_sources
     from orbitfix.verify.report.certificate import certificate_json, certificate_lines
-    from orbitfix.verify.report.design import design_json, design_lines
+    from orbitfix.verify.report.design import (
+        dead_zone_json,
+        dead_zone_lines,
+        design_json,
+        design_lines,
+        start_path_lines,
+    )
     from orbitfix.verify.report.drift import drift_json, drift_lines
     from orbitfix.verify.report.host import host_fields, host_lines
     from orbitfix.verify.report.json_output import json_text
@@ -123,6 +131,11 @@ def run(args: argparse.Namespace, partial: dict) -> int:
                                  period_ppm=args.max_period_error,
                                  phase_drift_cycles=args.max_phase_drift,
                                  return_spread=args.max_return_spread / 100)
+    start = check_start_path(built)  # the integer map itself, from the initial state (L2 vs L1)
+    zones = dead_zones(built)
+    landed = path_lands_inside(built, zones, start.steps)
+    partial.update({"start_path": start.to_json(), "dead_zones": dead_zone_json(zones),
+                    "initial_state_in_dead_zone": landed is not None})
     tell("building the C on the host and comparing it with the golden model", 0, 1)
     outcome = check_on_host(built, args.sources, states=args.states, steps=args.steps)
     bit_exact = outcome.report.bit_exact
@@ -140,12 +153,13 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         certificate = certify(built, band=args.band, tolerance=args.tolerance_band, box=box,
                               exclude_radius=args.exclude_radius)
         partial["certificate"] = certificate_json(certificate)
-    passed = (bit_exact and (drift is None or drift.verdict == "pass")
+    passed = (bit_exact and start.ok and landed is None and (drift is None or drift.verdict == "pass")
               and (certificate is None or certificate.proved))
     if args.json:
         print(json_text(passed, {**partial, "caution": CAUTION}))
         return 0 if passed else 1
-    lines = design_lines(built) + host_lines(outcome)
+    lines = (design_lines(built) + start_path_lines(start) + dead_zone_lines(zones, landed)
+             + host_lines(outcome))
     if drift is not None:
         lines += ["", *drift_lines(drift)]
     elif not args.skip_drift:

@@ -4,8 +4,10 @@ what ``gen``, ``verify`` and ``plan`` print about the plan they use."""
 from __future__ import annotations
 
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.study.dead_zones import DeadZone
 from orbitfix.gen.study.discrete_cycle import CycleTolerance
 from orbitfix.gen.study.plan_study import CoefficientEffect, SearchResult
+from orbitfix.gen.study.start_path import StartPath
 from orbitfix.gen.timing.integrators import INTEGRATORS
 
 
@@ -35,7 +37,8 @@ def design_lines(built: Design) -> list[str]:
         f"intermediate in its own format; {plan.program.word_bits}-bit words, "
         f"{plan.program.product_bits}-bit products, rounding "
         f"{plan.program.rounding}, overflow {plan.program.overflow}; largest state "
-        f"{plan.largest_signal:.4g} on the cycle, {plan.headroom_bits:.2f} bits of headroom",
+        f"{plan.largest_signal:.4g} on the cycle and start-up path, {plan.headroom_bits:.2f} bits "
+        "of headroom",
     ]
     lines += [f"  warning: {w}" for w in plan.warnings]
     return lines
@@ -133,4 +136,29 @@ def search_lines(found: SearchResult) -> list[str]:
                      "rate: raise the loop rate or loosen the tolerances")
     else:
         lines.append(f"  binding tolerance: {found.binding}")
+    return lines
+
+
+def start_path_lines(path: StartPath) -> list[str]:
+    """The start-up path's verdict in one line, then each problem."""
+    if path.ok:
+        return [f"start-up path: the integer map follows the float step map from the initial state "
+                f"over {path.steps} steps (parting {path.parting:.3g} of a state's range, tolerance "
+                f"{path.tolerance:g}), with no saturation"]
+    return ["start-up path: FAILS", *(f"  {p}" for p in path.problems())]
+
+
+def dead_zone_json(zones: tuple[DeadZone, ...]) -> list[dict]:
+    """The dead zones as data (JSON ``dead_zones``): equilibrium, radius per state, method."""
+    return [zone.to_json() for zone in zones]
+
+
+def dead_zone_lines(zones: tuple[DeadZone, ...], landed: tuple[int, DeadZone] | None = None) -> list[str]:
+    """One line per dead zone, and whether the path from the initial state lands in one."""
+    if not zones:
+        return ["dead zones: none (the integer map keeps no equilibrium as a rest state)"]
+    lines = [f"{zone.describe()}; never reset the state to the rest state" for zone in zones]
+    if landed is not None:
+        lines.append(f"  FAILS: the run from the initial state is inside it at step {landed[0]}: the "
+                     "firmware would never start; move the initial state out of the zone")
     return lines

@@ -1,0 +1,100 @@
+"""The plan holds the start-up path, and the integer map's first cycles follow the float step map
+(L2 against L1), with seeded faults each check must catch."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.pipeline import design, plan_step
+from orbitfix.gen.program import golden
+from orbitfix.gen.study.start_path import check_start_path, plan_warnings
+
+
+@pytest.fixture(scope="module")
+def fin():
+    return design(load_model("phase_amplitude"))
+
+
+def _cycle_only_plan(built):
+    """The seeded fault: the plan as it was before it held the path (the cycle's box only, so
+    r_dot, zero on the cycle, gets a range of almost zero width)."""
+    return plan_step(built.model, built.integrator, built.timing.step, built.analysis.cycle.samples)
+
+
+def test_the_path_plan_never_saturates_and_follows_the_float_map(fin) -> None:
+    path = check_start_path(fin)
+    assert path.saturation is None and path.saturated_steps == 0
+    assert path.parting < 1e-4
+    assert path.ok
+
+
+def test_a_cycle_only_plan_saturates_and_is_named(fin) -> None:
+    path = check_start_path(fin, plan=_cycle_only_plan(fin))
+    assert not path.ok
+    assert path.saturation is not None
+    assert "20*r_dot" in path.saturation.note
+    assert path.saturation.step == 2
+    assert path.saturation.format.startswith("Q")
+    assert abs(path.saturation.integer) >= (1 << 31) - 1
+    assert any("saturates at step 2" in p for p in path.problems())
+
+
+def test_a_wrong_constant_parts_from_the_float_map(fin) -> None:
+    """Seeded fault: the stored constant 100 (a^2/4) off by a tenth in every stage; golden and C
+    would still agree bit for bit, but the integer map is no longer the model's."""
+    plan = fin.plan
+    ops = list(plan.program.ops)
+    for index, op in enumerate(ops):
+        if op.kind == "scale" and op.note.endswith("100*r"):
+            ops[index] = replace(op, constant=int(op.constant * 1.1))
+    wrong = replace(plan, program=replace(plan.program, ops=tuple(ops)))
+    path = check_start_path(fin, plan=wrong)
+    assert path.saturation is None
+    assert path.parting > path.tolerance
+    assert not path.ok
+
+
+def _critically_damped(r0: float, target: float, a: float, t: np.ndarray) -> np.ndarray:
+    """x'' + 2 w x' + w^2 x = 0 with x = r - R, x(0) = r0 - R, x'(0) = 0 has the solution
+    x(t) = x(0) (1 + w t) exp(-w t) (the standard critically damped solution, common practice).
+    The model's r'' = a (a/4 (R - r) - r') is that equation with w = a / 2."""
+    w = a / 2.0
+    return target + (r0 - target) * (1.0 + w * t) * np.exp(-w * t)
+
+
+@pytest.mark.slow
+def test_phase_chain_amplitude_follows_the_closed_form_solution() -> None:
+    """The generated 32-bit step (golden; verify proves the C gives its bits) from the model's
+    own initial state against the closed-form solution, and the old cycle-only plan against it."""
+    built = design(load_model("phase_chain"))
+    program = built.plan.program
+    r = program.state_names.index("r1")
+    params = built.model.parameter_values
+    steps = math.ceil(2 * built.timing.steps_per_cycle)
+    t = np.arange(steps + 1) * built.timing.step
+    exact = _critically_damped(built.model.initial_state[r], params["R"], params["a"], t)
+    run = golden.run(program, np.asarray(built.plan.initial_state), steps)
+    amplitude = run[:, r] / 2.0 ** program.state_fraction_bits[r]
+    assert np.max(np.abs(amplitude - exact)) < 1e-4
+    assert amplitude.max() <= params["R"] + 1e-6  # critically damped: never overshoots
+    wrong = _cycle_only_plan(built)
+    bad = golden.run(wrong.program, np.asarray(wrong.initial_state), steps)
+    bad_amplitude = bad[:, r] / 2.0 ** wrong.program.state_fraction_bits[r]
+    assert np.max(np.abs(bad_amplitude - exact)) > 0.01
+    assert not check_start_path(built, plan=wrong).ok
+
+
+@pytest.mark.slow
+def test_gen_warns_when_the_16_bit_orbit_runs_slow() -> None:
+    model = load_model("vanderpol")
+    built = design(replace(model, fixed_point=replace(model.fixed_point, word_bits=16)))
+    stepped, warnings = plan_warnings(built, check_start_path(built))
+    assert stepped is not None and stepped.period_error_ppm > 1000
+    assert any("ppm in period" in w for w in warnings)
+    _, quiet = plan_warnings(design(model), check_start_path(design(model)))
+    assert quiet == []
