@@ -29,12 +29,13 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from orbitfix.gen.analysis.equilibria import Equilibrium, find_equilibria
-from orbitfix.gen.analysis.sweep.branch import BranchPoint, follow_branch
+from orbitfix.gen.analysis.limit_cycle import find_limit_cycle
+from orbitfix.gen.analysis.sweep.branch import BranchPoint, CycleBranch, Fold, follow_branch
 from orbitfix.gen.analysis.sweep.continuation import ParameterFamily, continue_across, point_text
 from orbitfix.gen.analysis.sweep.hopf_points import HopfPoint, locate_hopf, same_hopf
 from orbitfix.gen.errors import InputError
@@ -46,7 +47,6 @@ DEFAULT_SAMPLES = 41
 DEFAULT_SECONDS = 60.0         # wall-clock budget of the whole sweep, s
 MAX_SAMPLES = 10_000
 SEARCH_EVERY = 5               # the full seeded search runs at every 5th sample; continuation between
-LEAD_IN = (0.125, 0.25, 0.5)   # first branch points, as fractions of the sample spacing
 
 
 @dataclass(frozen=True, eq=False)
@@ -70,6 +70,12 @@ class Sweep:
     branch: tuple[BranchPoint, ...]
     notes: tuple[str, ...]
     complete: bool
+    branches: tuple[CycleBranch, ...] = ()
+    reason: str = ""
+
+    @property
+    def folds(self) -> tuple[Fold, ...]:
+        return tuple(f for b in self.branches for f in b.folds)
 
     def to_json(self) -> dict:
         """Plain data for ``json.dump`` (non-finite numbers as None)."""
@@ -99,6 +105,8 @@ class Sweep:
                 "amplitude": plain_number(b.amplitude),
                 "max_multiplier": plain_number(b.max_multiplier),
                 "verdict": b.verdict,
+                "branch_index": b.branch_index,
+                "multipliers": _complex(b.multipliers),
             } for b in self.branch],
             "samples": [{
                 "param_value": s.param_value,
@@ -107,6 +115,23 @@ class Sweep:
                                                 for v in e.eigenvalues],
                                 "kind": e.kind} for e in s.equilibria],
             } for s in self.samples],
+            "branches": [{
+                "index": b.index,
+                "hopf_index": b.hopf_index,
+                "end_hopf_index": b.end_hopf,
+                "complete": b.complete,
+                "reason": b.reason,
+                "born_stable": b.born_stable,
+                "points": [_row_json(p) for p in b.points],
+            } for b in self.branches],
+            "folds": [{
+                "branch_index": f.branch_index,
+                "param_value": f.param_value,
+                "period": f.period,
+                "amplitude": f.amplitude,
+                "multipliers": _complex(f.multipliers),
+            } for f in self.folds],
+            "reason": self.reason,
             "notes": list(self.notes),
         }
 
@@ -155,28 +180,35 @@ def sweep(model: Model, parameter: str, start: float, stop: float, *,
                 hopf.append(found)
     hopf.sort(key=lambda h: (h.param_value - start) / (stop - start))
 
-    branch: list[BranchPoint] = []
-    complete = True
+    branches: list[CycleBranch] = []
     if follow_cycles and hopf:
-        jobs = []
+        spacing = abs(stop - start) / (samples - 1)
+        reached: set[int] = set()
         for index, point in enumerate(hopf):
-            sign = 1.0 if point.cycle_side == "above" else -1.0
-            spacing = abs(stop - start) / (samples - 1)
-            ahead = sorted([float(v) for v in values if (v - point.param_value) * sign > 0.5 * spacing]
-                           + [point.param_value + sign * f * spacing for f in LEAD_IN],
-                           key=lambda v: abs(v - point.param_value))
-            ahead = [v for v in ahead if min(start, stop) <= v <= max(start, stop)]
-            jobs.append((model, parameter, index, point, ahead, deadline))
-        for points, note, finished in fan_out(follow_branch, jobs, workers, scheduler):
-            branch.extend(points)
-            notes.extend([note] if note else [])
-            complete = complete and finished
+            if index in reached:
+                continue
+            others = [h for k, h in enumerate(hopf) if k != index]
+            begin = None
+            if point.kind == "degenerate":
+                begin = _cycle_near(model, parameter, point, values, spacing, deadline)
+            followed = follow_branch(model, parameter, index, point, (start, stop), spacing, deadline,
+                                     others, begin)
+            if followed.end_hopf is not None:
+                end = followed.end_hopf + (1 if followed.end_hopf >= index else 0)
+                reached.add(end)
+                followed = replace(followed, end_hopf=end)
+            branches.append(followed)
+    branch = [row for b in branches for row in b.points]
+    lost = [b for b in branches if not b.complete]
+    complete = not lost
+    reason = "; ".join(f"the branch from the Hopf point at {parameter} = {hopf[b.hopf_index].param_value:.8g}"
+                       f" is incomplete: {b.reason}" for b in lost)
     if not hopf:
         notes.append(f"no Hopf point between {parameter} = {start:.6g} and {stop:.6g}: no complex "
                      "pair of eigenvalues crosses the imaginary axis between neighbouring samples")
     return Sweep(model=model, parameter=parameter, start=float(start), stop=float(stop),
                  samples=table, hopf=tuple(hopf), branch=tuple(branch), notes=tuple(notes),
-                 complete=complete)
+                 complete=complete, branches=tuple(branches), reason=reason)
 
 
 # -- checks and fan-out --------------------------------------------------------------------------
@@ -203,12 +235,45 @@ def _check_request(model: Model, parameter: str, start: float, stop: float, samp
         raise InputError(f"the time budget must be a positive number of seconds, got {seconds}")
 
 
+def _cycle_near(model: Model, parameter: str, point: HopfPoint, values: np.ndarray, spacing: float,
+                deadline: float) -> tuple[np.ndarray, float, float] | None:
+    """A cycle found by following the flow at the samples nearest a degenerate Hopf point (forward
+    on the side where the equilibrium is unstable, backward on the other), to start the branch
+    from where the normal form says nothing."""
+    sign = 1.0 if point.unstable_side == "above" else -1.0
+    near = sorted((float(v) for v in values if abs(v - point.param_value) > 0.5 * spacing),
+                  key=lambda v: abs(v - point.param_value))
+    for value in near[:4]:
+        left = deadline - time.monotonic()
+        if left <= 0.0:
+            return None
+        at = model.with_parameters({parameter: value})
+        nudge = 1e-2 * max(1.0, float(np.max(np.abs(point.equilibrium))))
+        at = replace(at, states=tuple(replace(s, initial=float(v)) for s, v in
+                                      zip(at.states, point.equilibrium + nudge, strict=True)))
+        cycle = find_limit_cycle(at, reverse_time=(value - point.param_value) * sign < 0,
+                                 seconds=min(10.0, left))
+        if cycle.found:
+            return np.array(cycle.point, dtype=float), float(cycle.period), value
+    return None
+
+
 def _equilibria_at(model: Model, parameter: str, value: float) -> list[np.ndarray]:
     """The equilibria's states at one parameter value, from the usual seeds."""
     return [np.array(e.state) for e in find_equilibria(model.with_parameters({parameter: value}))]
 
 
 # -- JSON numbers ----------------------------------------------------------------------------------
+
+
+def _complex(values: tuple[complex, ...]) -> list[list[float | None]]:
+    return [[plain_number(v.real), plain_number(v.imag)] for v in values]
+
+
+def _row_json(b: BranchPoint) -> dict:
+    return {"param_value": b.param_value, "period": plain_number(b.period),
+            "amplitude": plain_number(b.amplitude), "stable": b.stable,
+            "max_multiplier": plain_number(b.max_multiplier), "multipliers": _complex(b.multipliers)}
 
 
 def _numbers(values: np.ndarray) -> list[float | None]:
