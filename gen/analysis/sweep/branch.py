@@ -37,18 +37,17 @@ from orbitfix.gen.model.compiled import scalar_function
 from orbitfix.gen.model.definition import Model
 
 RTOL = 1e-9                    # relative tolerance of every shooting integration (DOP853)
-CLOSE = 1e-9                   # gap |phi - x0| accepted, relative to the state scale
 NEWTON_STEPS = 8
 FIRST_STEP = 0.02              # first arclength step, scaled units
-MIN_STEP = 1e-6                # below this the branch is lost
+MIN_STEP = 1e-4                # below this the branch is lost
 MAX_POINTS = 400               # accepted points per branch
 PERIOD_GROWTH = 30.0           # period over the Hopf period beyond which the orbit is homoclinic
-START_RADIUS = 0.02            # the first cycle's radius, as a share of the state scale
+START_RADIUS = 0.1             # the first cycle's radius, as a share of the state scale
 FOLD_BISECTIONS = 30
 GRID = 512                     # samples over one period for the amplitude
 
 
-class _Stop(Exception):
+class _OutOfTimeError(Exception):
     """Raised inside an integration when the sweep's deadline passes."""
 
 
@@ -63,7 +62,7 @@ class BranchPoint:
     max_multiplier : their largest modulus (below 1: stable).
     """
 
-    hopf_index: int
+    hopf_index: int | None
     param_value: float
     found: bool
     verdict: str
@@ -92,7 +91,7 @@ class CycleBranch:
     end (``complete``) and why it stopped (``reason``)."""
 
     index: int
-    hopf_index: int
+    hopf_index: int | None
     points: tuple[BranchPoint, ...]
     folds: tuple[Fold, ...]
     complete: bool
@@ -116,6 +115,7 @@ class CycleFamily:
         rates = sympy.Matrix([eq.xreplace(fixed) for eq in model.equations])
         jacobian = rates.jacobian(sympy.Matrix(states))
         self.n = len(states)
+        self.parameter = parameter
         self._field = scalar_function([*states, swept], list(rates))
         self._all = scalar_function([*states, swept], [*rates, *jacobian, *rates.diff(swept)])
         self.deadline = deadline
@@ -135,7 +135,7 @@ class CycleFamily:
     def shoot(self, x0: np.ndarray, period: float, p: float, scale: float):
         """(end, monodromy, dphi/dp, divergence integral, dense solution) over [0, period]."""
         if time.monotonic() > self.deadline + 5.0:
-            raise _Stop
+            raise _OutOfTimeError
         n = self.n
         y0 = np.concatenate([x0, np.eye(n).ravel(), np.zeros(n), [0.0]])
         atol = np.concatenate([np.full(n, 1e-12 * scale), np.full(n * n + n + 1, 1e-12)])
@@ -177,6 +177,7 @@ class _Tracer:
         normal = self.family.field(xs, ps)
         normal = normal / max(float(np.linalg.norm(normal)), 1e-300)
         message = "no Newton step was taken"
+        last_closing = math.inf
         for count in range(1, NEWTON_STEPS + 1):
             x0, period, p = self.real(u)
             if period <= 0.0:
@@ -186,6 +187,10 @@ class _Tracer:
             except ArithmeticError as exc:
                 return None, count, f"the integration failed ({exc})"
             gap = end - x0
+            closing = float(np.max(np.abs(gap)))
+            if count >= 3 and closing > last_closing:
+                return None, count, f"Newton's method diverged (gap {closing:.3g})"
+            last_closing = closing
             system = np.zeros((n + 1, n + 2))
             system[:n, :n] = mono - np.eye(n)
             system[:n, n] = self.family.field(end, p)
@@ -194,9 +199,6 @@ class _Tracer:
             system = system * self.scales
             cycle = _Cycle(u=u.copy(), monodromy=mono, system=system, divergence=div, solution=sol)
             residual = np.concatenate([gap, [normal @ (x0 - xs)], [last_row @ u - target]])
-            if float(np.max(np.abs(gap))) <= CLOSE * self.state_scale and abs(residual[-1]) < 1e-9 \
-                    and count > 1:
-                return cycle, count, ""
             full = np.vstack([system, last_row])
             try:
                 step = np.linalg.solve(full, -residual)
@@ -205,7 +207,8 @@ class _Tracer:
             if not np.all(np.isfinite(step)):
                 return None, count, "the Newton matrix is singular"
             u = u + step
-            if float(np.max(np.abs(step))) <= 1e-7 and float(np.max(np.abs(gap))) <= \
+            moved = float(np.max(np.abs(step)))
+            if (moved <= 1e-10 or (moved <= 1e-9 and count >= 3)) and float(np.max(np.abs(gap))) <= \
                     1e-6 * self.state_scale:
                 return cycle, count, ""   # as closed as the integration's own accuracy allows
             message = f"the orbit did not close (gap {float(np.max(np.abs(gap))):.3g})"
@@ -289,7 +292,7 @@ def follow_branch(model: Model, parameter: str, index: int, point: HopfPoint, bo
                            folds=back.folds + ahead.folds, complete=back.complete and ahead.complete,
                            reason=reason, end_hopf=ahead.end_hopf if ahead.end_hopf is not None
                            else back.end_hopf)
-    except _Stop:
+    except _OutOfTimeError:
         return CycleBranch(index=index, hopf_index=index, points=(), folds=(), complete=False,
                            reason="the sweep's time budget ran out before this branch was followed")
 
@@ -329,7 +332,7 @@ def _first_cycle(tracer: _Tracer, equilibria: ParameterFamily, point: HopfPoint,
 
 
 def _row(tracer: _Tracer, cycle: _Cycle, hopf_index: int, branch: int) -> BranchPoint:
-    x0, period, p = tracer.real(cycle.u)
+    _x0, period, p = tracer.real(cycle.u)
     multipliers = _multipliers(cycle, tracer.n)
     largest = float(np.max(np.abs(multipliers))) if multipliers.size else 0.0
     stable = largest < 1.0
@@ -347,7 +350,7 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
     span_scale = tracer.scales[-1]
     cycle = first
     tangent = _tangent(cycle.system, None)
-    x_first, _, p_first = tracer.real(first.u)
+    x_first, _, _p_first = tracer.real(first.u)
     if direction is None:
         outward = (x_first - point.equilibrium) / tracer.scales[:n]
         sign = float(tangent[:n] @ outward)
@@ -368,7 +371,7 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
         guess = cycle.u + step * tangent
         p_guess = guess[-1] * span_scale
         edge = None
-        if p_guess > hi or p_guess < lo:
+        if (p_guess > hi or p_guess < lo) and abs(guess[-1] - cycle.u[-1]) > 1e-12:
             edge = hi if p_guess > hi else lo
             row = np.zeros(n + 2)
             row[-1] = 1.0
@@ -405,6 +408,15 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
                 where = other.param_value
                 return _done(index, rows, folds, True, f"shrinks back to the Hopf point at {where:.8g}",
                              end_hopf)
+        recent = [r.param_value for r in rows[-10:]]
+        if len(rows) > 12 and max(recent) - min(recent) < 1e-6 * span_scale:
+            return _done(index, rows, folds, False,
+                         f"the branch turns vertical at {parameter_name(tracer)} = {p_new:.8g}: the cycle "
+                         "grows at a nearly constant parameter (a canard explosion), too sensitive for "
+                         "single shooting to follow", None)
+        if row.amplitude is not None and row.amplitude < 1e-6 * tracer.state_scale:
+            return _done(index, rows[:-1], folds, False, f"the cycle collapsed onto an equilibrium at "
+                         f"{p_new:.8g} away from any Hopf point", None)
         if period > PERIOD_GROWTH * tracer.scales[n]:
             return _done(index, rows, folds, True,
                          f"its period grows without bound near {p_new:.8g} (the cycle approaches an "
@@ -414,6 +426,10 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
         elif count >= 7:
             step *= 0.6
     return _done(index, rows, folds, complete, reason, end_hopf)
+
+
+def parameter_name(tracer: _Tracer) -> str:
+    return tracer.family.parameter
 
 
 def _done(index: int, rows: list[BranchPoint], folds: list[Fold], complete: bool, reason: str,

@@ -17,9 +17,11 @@ Method:
    sweep's span) with the equilibrium continued at every step. A complex pair at the crossing is a
    Hopf point, its imaginary part the frequency; a real eigenvalue crossing zero is noted.
 3. Kind: the first Lyapunov coefficient (:mod:`gen.hopf`) at the Hopf point.
-4. Branch: natural continuation of the cycle from the Hopf point into the side where it exists,
-   one :func:`gen.limit_cycle.find_limit_cycle` per sample, each started from the last cycle's
-   point (the first from the small cycle the normal form predicts).
+4. Branch: pseudo-arclength continuation of the cycle in (cycle point, period, parameter) from
+   the small cycle the normal form predicts (:mod:`.branch`), through folds of cycles, to the
+   range's edge or back to a Hopf point; stable and unstable parts alike, with their multipliers.
+   Where a Hopf branch is lost, the stable cycles the flow runs onto between the Hopf points are
+   followed too, so a large stable cycle beyond a fold is still reported.
 
 Rooms: continuation of equilibria (``continuation``), detection (``hopf_points``), the branch
 (``branch``); this module holds the results and runs the steps.
@@ -27,6 +29,7 @@ Rooms: continuation of equilibria (``continuation``), detection (``hopf_points``
 
 from __future__ import annotations
 
+import itertools
 import math
 import time
 from dataclasses import dataclass, replace
@@ -198,11 +201,13 @@ def sweep(model: Model, parameter: str, start: float, stop: float, *,
                 reached.add(end)
                 followed = replace(followed, end_hopf=end)
             branches.append(followed)
+    if follow_cycles and hopf and any(not b.complete for b in branches):
+        branches += _branches_from_the_flow(model, parameter, values, hopf, branches, spacing, deadline)
     branch = [row for b in branches for row in b.points]
     lost = [b for b in branches if not b.complete]
     complete = not lost
-    reason = "; ".join(f"the branch from the Hopf point at {parameter} = {hopf[b.hopf_index].param_value:.8g}"
-                       f" is incomplete: {b.reason}" for b in lost)
+    reason = "; ".join(f"branch {b.index + 1} ({_origin(b, hopf, parameter)}) is incomplete: {b.reason}"
+                       for b in lost)
     if not hopf:
         notes.append(f"no Hopf point between {parameter} = {start:.6g} and {stop:.6g}: no complex "
                      "pair of eigenvalues crosses the imaginary axis between neighbouring samples")
@@ -233,6 +238,52 @@ def _check_request(model: Model, parameter: str, start: float, stop: float, samp
         raise InputError(f"workers must be at least 1, got {workers}")
     if not (math.isfinite(seconds) and seconds > 0):
         raise InputError(f"the time budget must be a positive number of seconds, got {seconds}")
+
+
+def _origin(branch: CycleBranch, hopf: list[HopfPoint], parameter: str) -> str:
+    if branch.hopf_index is None:
+        first = branch.points[0].param_value if branch.points else float("nan")
+        return f"a cycle the flow runs onto near {parameter} = {first:.6g}"
+    return f"from the Hopf point at {parameter} = {hopf[branch.hopf_index].param_value:.8g}"
+
+
+def _branches_from_the_flow(model: Model, parameter: str, values: np.ndarray, hopf: list[HopfPoint],
+                            branches: list[CycleBranch], spacing: float,
+                            deadline: float) -> list[CycleBranch]:
+    """Branches of stable cycles the Hopf branches did not reach (a large cycle beyond a fold the
+    shooting could not pass): the flow from the model's initial state at the samples midway
+    between Hopf points, and a sample past each end, finds them; each new one is followed both
+    ways."""
+    found: list[CycleBranch] = []
+    marks = sorted(h.param_value for h in hopf)
+    lo, hi = float(min(values)), float(max(values))
+    probes = [0.5 * (a + b) for a, b in itertools.pairwise(marks)]
+    probes += [v for v in (marks[0] - 2 * spacing, marks[-1] + 2 * spacing) if lo <= v <= hi]
+    for value in probes:
+        if deadline - time.monotonic() <= 1.0:
+            break
+        at = model.with_parameters({parameter: value})
+        cycle = find_limit_cycle(at, seconds=min(10.0, deadline - time.monotonic()))
+        if not cycle.found or not cycle.stable:
+            continue
+        amplitude = 0.5 * float(cycle.state_max[0] - cycle.state_min[0])
+        if any(_on_branch(b, value, amplitude, spacing) for b in [*branches, *found]):
+            continue
+        point = min(hopf, key=lambda h: abs(h.param_value - value))
+        index = len(branches) + len(found)
+        new = follow_branch(model, parameter, index, point, (lo, hi), spacing, deadline, list(hopf),
+                            (np.array(cycle.point, dtype=float), float(cycle.period), value))
+        found.append(replace(new, hopf_index=None, points=tuple(replace(p, hopf_index=None,
+                                                                        branch_index=index)
+                                                                for p in new.points),
+                             folds=tuple(replace(f, branch_index=index) for f in new.folds)))
+    return found
+
+
+def _on_branch(branch: CycleBranch, value: float, amplitude: float, spacing: float) -> bool:
+    rows = sorted(branch.points, key=lambda r: abs(r.param_value - value))[:4]
+    return any(abs(r.param_value - value) <= spacing and r.amplitude is not None
+               and abs(r.amplitude - amplitude) <= 0.05 * max(amplitude, 1e-9) for r in rows)
 
 
 def _cycle_near(model: Model, parameter: str, point: HopfPoint, values: np.ndarray, spacing: float,
