@@ -258,3 +258,94 @@ def test_vanderpol_sweep_reports_its_hopf_point_as_degenerate():
     assert hopf.param_value == pytest.approx(0.0, abs=1e-9)
     assert hopf.frequency == pytest.approx(1.0, rel=1e-9)
     assert hopf.kind == "degenerate"
+
+
+# -- branches followed through folds ----------------------------------------------------------------
+
+
+@functools.cache
+def bautin_sweep():
+    from orbitfix.gen.model.model_file import load_model
+
+    return sweep(load_model("vibration_drive"), "mu", -1.5, 0.5, samples=9, workers=1)
+
+
+@pytest.mark.slow
+def test_bautin_fold_of_cycles_is_at_the_hand_derived_point():
+    # Kuznetsov, Elements of Applied Bifurcation Theory (2004), sec. 8.3 (Bautin normal form),
+    # our model r' = r (mu + 2 r^2 - r^4): cycles where mu = r^4 - 2 r^2; the fold is where
+    # d mu / d r = 4 r^3 - 4 r = 0, so r = 1 and mu = -1 (derived by hand)
+    result = bautin_sweep()
+    (hopf,) = result.hopf
+    assert hopf.kind == "subcritical"
+    assert result.complete and result.reason == ""
+    fold = result.branches[0].folds[0]
+    assert fold.param_value == pytest.approx(-1.0, abs=1e-6)
+    assert fold.amplitude == pytest.approx(1.0, abs=1e-5)
+    assert abs(fold.multipliers[0]) == pytest.approx(1.0, abs=1e-5)
+
+
+@pytest.mark.slow
+def test_bautin_branch_is_unstable_then_stable_with_the_exact_multipliers():
+    # same normal form: on the cycle r' linearised gives r g'(r) = 4 r^2 (1 - r^2), so the
+    # nontrivial multiplier is exp(T 4 r^2 (1 - r^2)), T = 2 pi / omega (derived by hand)
+    branch = bautin_sweep().branches[0]
+    assert not branch.points[0].stable             # born unstable: never "a small stable cycle grows"
+    assert branch.points[-1].stable
+    for row in branch.points:
+        r = row.amplitude
+        # the integration's tolerance is amplified by 1 / |1 - multiplier| near the fold
+        assert row.param_value == pytest.approx(r**4 - 2 * r**2, abs=1e-5)
+        expected = math.exp(1.0 * 4 * r**2 * (1 - r**2))
+        assert row.max_multiplier == pytest.approx(expected, rel=1e-4)
+        assert row.stable == (r > 1.0)
+
+
+def test_vanderpol_branch_is_kept_through_small_mu():
+    # Strogatz (1994) sec. 7.6: for small mu the Van der Pol cycle has amplitude close to 2; the
+    # cycle exists (stable for mu > 0, unstable for mu < 0 by time reversal) at every mu != 0
+    model = define_model("vdp", {"x": 1.0, "y": 0.0}, {"x": "y", "y": "mu*(1 - x^2)*y - x"},
+                         {"mu": 0.5}, cycle_hz=1.0, loop_hz=100.0)
+    result = sweep(model, "mu", -0.5, 1.0, samples=7, workers=1)
+    assert result.complete, result.reason
+    rows = result.branch
+    assert min(r.param_value for r in rows) < -0.4 and max(r.param_value for r in rows) > 0.9
+    for row in rows:
+        assert row.found and row.stable == (row.param_value > 0)
+        if abs(row.param_value) < 0.1:
+            assert row.amplitude == pytest.approx(2.0, abs=0.01)
+    text = " ".join(result.notes) + result.reason
+    assert "chaotic" not in text and "quasi-periodic" not in text
+
+
+def test_lost_branch_says_incomplete_with_a_reason():
+    result = sweep(fitzhugh_nagumo(), "I", 0.0, 1.5, samples=9, workers=1, seconds=3.0)
+    data = result.to_json()
+    assert data["complete"] is False and data["reason"]
+    assert any(not b["complete"] and b["reason"] for b in data["branches"])
+
+
+@pytest.mark.slow
+def test_fitzhugh_nagumo_large_stable_cycle_matches_scipy_shooting():
+    # reference: scipy's solve_ivp (DOP853, tight tolerances) from the reported cycle point over
+    # many periods, then the period from successive upward crossings of v through the point's v;
+    # independent of the sweep's own shooting
+    from scipy.integrate import solve_ivp
+
+    result = sweep(fitzhugh_nagumo(), "I", 0.0, 1.5, samples=31, workers=1)
+    stable = [r for r in result.branch if r.stable and 0.5 <= r.param_value <= 1.2]
+    assert stable, "the large stable cycle between the Hopf points must be reported"
+    for row in stable[:: max(1, len(stable) // 3)]:
+        current = row.param_value
+
+        def field(_t, y, current=current):
+            v, w = y
+            return [v - v**3 / 3 - w + current, EPS * (v + A - B * w)]
+
+        run = solve_ivp(field, (0, 20 * row.period), [1.0, 1.0], method="DOP853", rtol=1e-11,
+                        atol=1e-12, dense_output=True)
+        times = np.linspace(10 * row.period, 20 * row.period, 200001)
+        v = run.sol(times)[0]
+        up = times[1:][(v[:-1] < 0.0) & (v[1:] >= 0.0)]
+        assert np.mean(np.diff(up)) == pytest.approx(row.period, rel=1e-5)
+        assert 0.5 * (v.max() - v.min()) == pytest.approx(row.amplitude, rel=1e-4)
