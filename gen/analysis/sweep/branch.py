@@ -43,7 +43,9 @@ MIN_STEP = 1e-4                # below this the branch is lost
 MAX_POINTS = 400               # accepted points per branch
 PERIOD_GROWTH = 30.0           # period over the Hopf period beyond which the orbit is homoclinic
 START_RADIUS = 0.1             # the first cycle's radius, as a share of the state scale
-FOLD_BISECTIONS = 30
+FOLD_ITERATIONS = 24
+SYMBOLIC_STATES = 6            # up to this many states the variational system is compiled whole
+SEGMENTS = 10                  # pieces of the cycle in the multiple shooting
 GRID = 512                     # samples over one period for the amplitude
 
 
@@ -119,12 +121,25 @@ class CycleFamily:
         self._field = scalar_function([*states, swept], list(rates))
         self._all = scalar_function([*states, swept], [*rates, *jacobian, *rates.diff(swept)])
         self.deadline = deadline
+        self._whole = None
+        if self.n <= SYMBOLIC_STATES:
+            # small models: the whole variational system as one compiled function, which is several
+            # times faster per call than the matrix product in numpy
+            columns = sympy.Matrix(self.n, self.n + 1, sympy.symbols(f"c0:{self.n * (self.n + 1)}"))
+            grown = jacobian * columns
+            grown[:, self.n] += rates.diff(swept)
+            flat = [grown[i, k] for k in range(self.n + 1) for i in range(self.n)]
+            ordered = [columns[i, k] for k in range(self.n + 1) for i in range(self.n)]
+            self._whole = scalar_function([*states, *ordered, sympy.Symbol("_d"), swept],
+                                          [*rates, *flat, jacobian.trace()])
 
     def field(self, x: np.ndarray, p: float) -> np.ndarray:
         return np.array(self._field(*x.tolist(), p), dtype=float)
 
     def _variational(self, _t: float, y: np.ndarray, p: float) -> np.ndarray:
         n = self.n
+        if self._whole is not None:
+            return np.array(self._whole(*y.tolist(), p), dtype=float)
         values = np.array(self._all(*y[:n].tolist(), p), dtype=float)
         jac = values[n:n + n * n].reshape(n, n)
         rest = y[n:n + n * n + n].reshape(n + 1, n).T          # columns: M, then dphi/dp
@@ -152,53 +167,86 @@ class CycleFamily:
 
 @dataclass
 class _Cycle:
-    u: np.ndarray             # scaled (x0, T, p)
+    u: np.ndarray             # scaled (x_0, ..., x_{m-1}, T, p)
     monodromy: np.ndarray
-    system: np.ndarray        # the (n + 1) x (n + 2) scaled Jacobian of closing and phase
+    system: np.ndarray        # the (m n + 1) x (m n + 2) scaled Jacobian of closing and phase
     divergence: float
-    solution: object
+    solutions: list           # dense solution of each segment, over [0, T / m]
 
 
 class _Tracer:
-    def __init__(self, family: CycleFamily, scales: np.ndarray, state_scale: float) -> None:
-        self.family, self.scales, self.state_scale = family, scales, state_scale
+    """Multiple shooting: the cycle is cut into ``segments`` pieces of equal time, each integrated
+    from its own start, so the sensitivity of one piece stays moderate where the whole orbit's
+    would not (cycles that run along a repelling slow manifold, canards)."""
+
+    def __init__(self, family: CycleFamily, state_scale: float, period_scale: float, span: float,
+                 segments: int) -> None:
+        self.family, self.state_scale, self.m = family, state_scale, segments
         self.n = family.n
+        self.scales = np.concatenate([np.full(segments * self.n, state_scale * math.sqrt(segments)),
+                                      [period_scale, span]])
 
     def real(self, u: np.ndarray) -> tuple[np.ndarray, float, float]:
+        """(x_0, T, p) of a scaled point."""
         v = u * self.scales
-        return v[:self.n], float(v[self.n]), float(v[self.n + 1])
+        return v[:self.n], float(v[-2]), float(v[-1])
+
+    def spread(self, x0: np.ndarray, period: float, p: float) -> np.ndarray | None:
+        """A scaled starting point: the segments' starts read off one integration from x0."""
+        n = self.family.n
+        with warnings.catch_warnings(), np.errstate(all="ignore"):
+            warnings.simplefilter("ignore", RuntimeWarning)
+            run = solve_ivp(lambda _t, x: self.family.field(x, p), (0.0, period), x0, method="DOP853",
+                            rtol=1e-9, atol=1e-12 * self.state_scale, dense_output=True)
+        if not run.success:
+            return None
+        starts = run.sol(np.arange(self.m) * period / self.m).T.reshape(self.m * n)
+        return np.concatenate([starts, [period, p]]) / self.scales
 
     def correct(self, guess: np.ndarray, section: np.ndarray, last_row: np.ndarray,
                 target: float) -> tuple[_Cycle | None, int, str]:
         """Newton on (closing, phase, last_row . u = target) from ``guess`` (scaled). The phase
-        condition keeps x0 on the plane through ``section`` normal to the flow there."""
-        n, u = self.n, guess.copy()
+        condition keeps x_0 on the plane through ``section``'s x_0 normal to the flow there."""
+        n, m, u = self.n, self.m, guess.copy()
         xs, _, ps = self.real(section)
         normal = self.family.field(xs, ps)
         normal = normal / max(float(np.linalg.norm(normal)), 1e-300)
         message = "no Newton step was taken"
         last_closing = math.inf
+        size = m * n
         for count in range(1, NEWTON_STEPS + 1):
-            x0, period, p = self.real(u)
+            v = u * self.scales
+            starts, period, p = v[:size].reshape(m, n), float(v[-2]), float(v[-1])
             if period <= 0.0:
                 return None, count, "the period became negative"
-            try:
-                end, mono, dp, div, sol = self.family.shoot(x0, period, p, self.state_scale)
-            except ArithmeticError as exc:
-                return None, count, f"the integration failed ({exc})"
-            gap = end - x0
+            system = np.zeros((size + 1, size + 2))
+            gap = np.empty(size)
+            monodromy, divergence, solutions = np.eye(n), 0.0, []
+            for i in range(m):
+                try:
+                    end, mono, dp, div, sol = self.family.shoot(starts[i], period / m, p,
+                                                                self.state_scale)
+                except ArithmeticError as exc:
+                    return None, count, f"the integration failed ({exc})"
+                rows = slice(i * n, (i + 1) * n)
+                nxt = (i + 1) % m
+                gap[rows] = end - starts[nxt]
+                system[rows, i * n:(i + 1) * n] += mono
+                system[rows, nxt * n:(nxt + 1) * n] -= np.eye(n)
+                system[rows, size] = self.family.field(end, p) / m
+                system[rows, size + 1] = dp
+                monodromy = mono @ monodromy
+                divergence += div
+                solutions.append(sol)
             closing = float(np.max(np.abs(gap)))
             if count >= 3 and closing > last_closing:
                 return None, count, f"Newton's method diverged (gap {closing:.3g})"
             last_closing = closing
-            system = np.zeros((n + 1, n + 2))
-            system[:n, :n] = mono - np.eye(n)
-            system[:n, n] = self.family.field(end, p)
-            system[:n, n + 1] = dp
-            system[n, :n] = normal
+            system[size, :n] = normal
             system = system * self.scales
-            cycle = _Cycle(u=u.copy(), monodromy=mono, system=system, divergence=div, solution=sol)
-            residual = np.concatenate([gap, [normal @ (x0 - xs)], [last_row @ u - target]])
+            cycle = _Cycle(u=u.copy(), monodromy=monodromy, system=system, divergence=divergence,
+                           solutions=solutions)
+            residual = np.concatenate([gap, [normal @ (starts[0] - xs)], [last_row @ u - target]])
             full = np.vstack([system, last_row])
             try:
                 step = np.linalg.solve(full, -residual)
@@ -208,15 +256,24 @@ class _Tracer:
                 return None, count, "the Newton matrix is singular"
             u = u + step
             moved = float(np.max(np.abs(step)))
-            if (moved <= 1e-10 or (moved <= 1e-9 and count >= 3)) and float(np.max(np.abs(gap))) <= \
-                    1e-6 * self.state_scale:
+            if (moved <= 1e-10 or (moved <= 1e-9 and count >= 3)) and closing <= 1e-6 * self.state_scale:
                 return cycle, count, ""   # as closed as the integration's own accuracy allows
-            message = f"the orbit did not close (gap {float(np.max(np.abs(gap))):.3g})"
+            message = f"the orbit did not close (gap {closing:.3g})"
         return None, NEWTON_STEPS, message
 
 
 def _tangent(system: np.ndarray, previous: np.ndarray | None) -> np.ndarray:
-    """The unit null vector of the closing-and-phase Jacobian, turned to agree with ``previous``."""
+    """The unit null vector of the closing-and-phase Jacobian, turned to agree with ``previous``
+    (bordered by ``previous``, an LU solve; the first one from the SVD)."""
+    if previous is not None:
+        right = np.zeros(system.shape[0] + 1)
+        right[-1] = 1.0
+        try:
+            t = np.linalg.solve(np.vstack([system, previous]), right)
+            if np.all(np.isfinite(t)):
+                return t / np.linalg.norm(t)
+        except np.linalg.LinAlgError:
+            pass
     t = np.linalg.svd(system)[2][-1]
     if previous is not None and float(t @ previous) < 0.0:
         t = -t
@@ -234,15 +291,22 @@ def _multipliers(cycle: _Cycle, n: int) -> np.ndarray:
 
 
 def _amplitude(cycle: _Cycle, period: float) -> float:
-    times = np.linspace(0.0, period, GRID + 1)
-    first = cycle.solution(times)[0]
+    """Half the peak-to-peak range of the first state: a grid on every segment, then a local
+    refinement of the extremes."""
+    piece = period / len(cycle.solutions)
+    times = np.linspace(0.0, piece, max(GRID // len(cycle.solutions), 16) + 1)
     step = times[1] - times[0]
     ends = []
     for sign in (1.0, -1.0):
-        k = int(np.argmin(sign * first))
-        best = sign * first[k]
-        a, b = max(0.0, times[k] - step), min(period, times[k] + step)
-        refined = minimize_scalar(lambda s, sign=sign: sign * cycle.solution(s)[0], bounds=(a, b),
+        best, where = math.inf, (0, 0.0)
+        for k, sol in enumerate(cycle.solutions):
+            first = sign * sol(times)[0]
+            i = int(np.argmin(first))
+            if first[i] < best:
+                best, where = float(first[i]), (k, float(times[i]))
+        sol = cycle.solutions[where[0]]
+        a, b = max(0.0, where[1] - step), min(piece, where[1] + step)
+        refined = minimize_scalar(lambda s, sol=sol, sign=sign: sign * sol(s)[0], bounds=(a, b),
                                   method="bounded", options={"xatol": 1e-12 * max(period, 1.0)})
         if refined.success and refined.fun < best:
             best = float(refined.fun)
@@ -265,8 +329,7 @@ def follow_branch(model: Model, parameter: str, index: int, point: HopfPoint, bo
     base = max([1e-3, float(np.max(np.abs(point.equilibrium)))]
                + [abs(s.initial) for s in model.states])
     hopf_period = 2.0 * math.pi / point.frequency
-    scales = np.concatenate([np.full(model.dimension, base), [hopf_period, hi - lo]])
-    tracer = _Tracer(family, scales, base)
+    tracer = _Tracer(family, base, hopf_period, hi - lo, SEGMENTS)
     max_step = max(4.0 * spacing / (hi - lo), 0.05)
     try:
         if start is None:
@@ -276,7 +339,11 @@ def follow_branch(model: Model, parameter: str, index: int, point: HopfPoint, bo
                                    reason=first)
             return _trace(tracer, first, None, point, others, index, lo, hi, max_step)
         x0, period, p = start
-        u = np.concatenate([x0, [period, p]]) / scales
+        u = tracer.spread(x0, period, p)
+        if u is None:
+            return CycleBranch(index=index, hopf_index=index, points=(), folds=(), complete=False,
+                               reason=f"the cycle found at {parameter} = {p:.6g} could not be "
+                                      "integrated again")
         row = np.zeros(u.size)
         row[-1] = 1.0
         cycle, _, message = tracer.correct(u, u, row, u[-1])
@@ -301,7 +368,6 @@ def _first_cycle(tracer: _Tracer, equilibria: ParameterFamily, point: HopfPoint,
                  hi: float) -> _Cycle | str:
     """The small cycle near the Hopf point: radius START_RADIUS of the scale, parameter offset
     from the normal form (beta = -omega l1 r^2, Kuznetsov sec. 3.5), corrected at that parameter."""
-    n = tracer.n
     l1 = point.lyapunov.value
     if point.kind == "degenerate" or not math.isfinite(l1) or not math.isfinite(point.crossing_rate) \
             or point.crossing_rate == 0.0:
@@ -318,8 +384,10 @@ def _first_cycle(tracer: _Tracer, equilibria: ParameterFamily, point: HopfPoint,
                 q = vectors[:, i] / np.linalg.norm(vectors[:, i])
                 x0 = x_eq + radius * np.real(q) / max(float(np.max(np.abs(np.real(q)))), 1e-12)
                 x0 = x_eq + (x0 - x_eq) * radius / float(np.linalg.norm(x0 - x_eq))
-                u = np.concatenate([x0, [2.0 * math.pi / abs(values[i].imag), value]]) / tracer.scales
-                row = np.zeros(n + 2)
+                u = tracer.spread(x0, 2.0 * math.pi / abs(values[i].imag), value)
+                if u is None:
+                    break
+                row = np.zeros(u.size)
                 row[-1] = 1.0
                 cycle, _, _ = tracer.correct(u, u, row, u[-1])
                 if cycle is not None:
@@ -373,7 +441,7 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
         edge = None
         if (p_guess > hi or p_guess < lo) and abs(guess[-1] - cycle.u[-1]) > 1e-12:
             edge = hi if p_guess > hi else lo
-            row = np.zeros(n + 2)
+            row = np.zeros(guess.size)
             row[-1] = 1.0
             fraction = (edge / span_scale - cycle.u[-1]) / (guess[-1] - cycle.u[-1])
             guess = cycle.u + fraction * step * tangent
@@ -390,8 +458,9 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
             continue
         new_tangent = _tangent(new.system, tangent)
         x_new, period, p_new = tracer.real(new.u)
-        if (tangent[-1] > 0.0) != (new_tangent[-1] > 0.0) and edge is None:
-            folds.append(_locate_fold(tracer, cycle, tangent, step, index))
+        crossing = _closest_to_one(cycle, n) * _closest_to_one(new, n) < 0.0
+        if crossing and edge is None and _real_crossing(new, n):
+            folds.append(_locate_fold(tracer, cycle, tangent, step, new, new_tangent, index))
         cycle, tangent = new, new_tangent
         row = _row(tracer, cycle, index, index)
         rows.append(row)
@@ -408,16 +477,10 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
                 where = other.param_value
                 return _done(index, rows, folds, True, f"shrinks back to the Hopf point at {where:.8g}",
                              end_hopf)
-        recent = [r.param_value for r in rows[-10:]]
-        if len(rows) > 12 and max(recent) - min(recent) < 1e-6 * span_scale:
-            return _done(index, rows, folds, False,
-                         f"the branch turns vertical at {parameter_name(tracer)} = {p_new:.8g}: the cycle "
-                         "grows at a nearly constant parameter (a canard explosion), too sensitive for "
-                         "single shooting to follow", None)
         if row.amplitude is not None and row.amplitude < 1e-6 * tracer.state_scale:
             return _done(index, rows[:-1], folds, False, f"the cycle collapsed onto an equilibrium at "
                          f"{p_new:.8g} away from any Hopf point", None)
-        if period > PERIOD_GROWTH * tracer.scales[n]:
+        if period > PERIOD_GROWTH * tracer.scales[-2]:
             return _done(index, rows, folds, True,
                          f"its period grows without bound near {p_new:.8g} (the cycle approaches an "
                          "orbit through a saddle, a homoclinic orbit)", None)
@@ -428,33 +491,62 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
     return _done(index, rows, folds, complete, reason, end_hopf)
 
 
-def parameter_name(tracer: _Tracer) -> str:
-    return tracer.family.parameter
-
-
 def _done(index: int, rows: list[BranchPoint], folds: list[Fold], complete: bool, reason: str,
           end_hopf: int | None) -> CycleBranch:
     return CycleBranch(index=index, hopf_index=index, points=tuple(rows), folds=tuple(folds),
                        complete=complete, reason=reason, end_hopf=end_hopf)
 
 
-def _locate_fold(tracer: _Tracer, cycle: _Cycle, tangent: np.ndarray, step: float, index: int) -> Fold:
-    """Bisect the step from ``cycle`` along ``tangent`` for the point where the tangent's parameter
-    component is zero."""
-    low, high, best = 0.0, step, cycle
-    sign = tangent[-1] > 0.0
-    for _ in range(FOLD_BISECTIONS):
-        mid = 0.5 * (low + high)
+def _closest_to_one(cycle: _Cycle, n: int) -> float:
+    """ln |m| of the nontrivial multiplier nearest 1: zero at a fold of cycles."""
+    values = _multipliers(cycle, n)
+    return float(np.log(np.abs(values[int(np.argmin(np.abs(values - 1.0)))])))
+
+
+def _real_crossing(cycle: _Cycle, n: int) -> bool:
+    """The multiplier nearest 1 is real (a fold), not one of a complex pair (a torus)."""
+    values = _multipliers(cycle, n)
+    near = values[int(np.argmin(np.abs(values - 1.0)))]
+    return abs(near.imag) <= 1e-6 * max(abs(near), 1e-300)
+
+
+def _locate_fold(tracer: _Tracer, cycle: _Cycle, tangent: np.ndarray, step: float, new: _Cycle,
+                 after: np.ndarray, index: int) -> Fold:
+    """The fold between ``cycle`` and the next accepted point ``new``: where a multiplier is 1
+    (the defining condition of a saddle-node of cycles; the tangent's parameter component, also
+    zero there, is too flat to resolve it where the branch runs almost parallel to the parameter,
+    and is used only when the multiplier does not cross 1 in between): regula falsi (Illinois) on
+    the step length along ``tangent``."""
+    low, high = 0.0, step
+    f_low, f_high = _closest_to_one(cycle, tracer.n), _closest_to_one(new, tracer.n)
+    by_multiplier = f_low * f_high < 0.0
+    if not by_multiplier:
+        f_low, f_high = float(tangent[-1]), float(after[-1])
+    best, side = cycle, 0
+    for _ in range(FOLD_ITERATIONS):
+        mid = (low * f_high - high * f_low) / (f_high - f_low)
+        if not low < mid < high:
+            mid = 0.5 * (low + high)
         guess = cycle.u + mid * tangent
         found, _, _ = tracer.correct(guess, cycle.u, tangent, float(tangent @ guess))
         if found is None:
             break
         best = found
-        if (_tangent(found.system, tangent)[-1] > 0.0) == sign:
-            low = mid
+        value = _closest_to_one(found, tracer.n) if by_multiplier else \
+            float(_tangent(found.system, tangent)[-1])
+        if value == 0.0:
+            break
+        if (value > 0.0) == (f_low > 0.0):
+            low, f_low = mid, value
+            if side == -1:
+                f_high *= 0.5
+            side = -1
         else:
-            high = mid
-        if high - low < 1e-10:
+            high, f_high = mid, value
+            if side == 1:
+                f_low *= 0.5
+            side = 1
+        if high - low < 1e-9 * step:
             break
     row = _row(tracer, best, index, index)
     return Fold(branch_index=index, param_value=row.param_value, period=float(row.period),
