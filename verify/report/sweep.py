@@ -58,7 +58,8 @@ def format_sweep(result: Sweep) -> str:
         else:
             origin = f"from Hopf point {branch.hopf_index + 1}"
         lines.append(f"Cycle branch {branch.index + 1} ({origin})")
-        if branch.points and branch.hopf_index is not None:
+        if branch.points and branch.hopf_index is not None \
+                and result.hopf[branch.hopf_index].kind != "degenerate":
             first = branch.points[0]
             lines.append("  born " + ("stable: a small stable cycle grows from the Hopf point"
                                       if first.stable else "unstable: the small cycle near the Hopf "
@@ -69,8 +70,14 @@ def format_sweep(result: Sweep) -> str:
             lines.append(f"  {row.param_value:>{width}.8g}  {row.period:>12.6g}  {row.amplitude:>12.6g}  "
                          f"{_plain(row.max_multiplier):>18}  {'yes' if row.stable else 'no'}")
         for fold in branch.folds:
-            lines.append(f"  fold of cycles at {name} = {fold.param_value:.8g}: period {fold.period:.6g}, "
-                         f"amplitude {fold.amplitude:.6g} (a stable and an unstable cycle meet and vanish)")
+            if fold.kind == "fold":
+                lines.append(f"  fold of cycles at {name} = {fold.param_value:.8g}: period "
+                             f"{fold.period:.6g}, amplitude {fold.amplitude:.6g} (two cycles meet and "
+                             "vanish; the branch turns back)")
+            else:
+                lines.append(f"  a multiplier passes 1 at {name} = {fold.param_value:.8g} while the branch "
+                             f"goes on (amplitude {fold.amplitude:.6g}): another family of cycles "
+                             "meets this one there")
         if branch.reason:
             state = "ends" if branch.complete else "LOST"
             lines.append(f"  {state}: {branch.reason}")

@@ -44,6 +44,7 @@ MAX_POINTS = 400               # accepted points per branch
 PERIOD_GROWTH = 30.0           # period over the Hopf period beyond which the orbit is homoclinic
 START_RADIUS = 0.1             # the first cycle's radius, as a share of the state scale
 FOLD_ITERATIONS = 24
+FOLD_TURNING = 1e-3             # |tangent's parameter component| (scaled) below which a crossing is a fold
 SYMBOLIC_STATES = 6            # up to this many states the variational system is compiled whole
 SEGMENTS = 10                  # pieces of the cycle in the multiple shooting
 GRID = 512                     # samples over one period for the amplitude
@@ -85,6 +86,7 @@ class Fold:
     period: float
     amplitude: float
     multipliers: tuple[complex, ...]
+    kind: str = "fold"       # or "branch point": a multiplier passes 1 but the branch goes on
 
 
 @dataclass(frozen=True)
@@ -549,5 +551,10 @@ def _locate_fold(tracer: _Tracer, cycle: _Cycle, tangent: np.ndarray, step: floa
         if high - low < 1e-9 * step:
             break
     row = _row(tracer, best, index, index)
+    # at a fold the branch turns back in the parameter, so the tangent's parameter component
+    # vanishes; where it does not, the branch crosses the parameter value and another family of
+    # cycles meets it there (a branch point, or a degenerate Hopf point's family of cycles)
+    turning = abs(float(_tangent(best.system, tangent)[-1])) < FOLD_TURNING
     return Fold(branch_index=index, param_value=row.param_value, period=float(row.period),
-                amplitude=float(row.amplitude), multipliers=row.multipliers)
+                amplitude=float(row.amplitude), multipliers=row.multipliers,
+                kind="fold" if turning else "branch point")

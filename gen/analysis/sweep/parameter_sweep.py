@@ -78,7 +78,11 @@ class Sweep:
 
     @property
     def folds(self) -> tuple[Fold, ...]:
-        return tuple(f for b in self.branches for f in b.folds)
+        return tuple(f for b in self.branches for f in b.folds if f.kind == "fold")
+
+    @property
+    def branch_points(self) -> tuple[Fold, ...]:
+        return tuple(f for b in self.branches for f in b.folds if f.kind != "fold")
 
     def to_json(self) -> dict:
         """Plain data for ``json.dump`` (non-finite numbers as None)."""
@@ -134,6 +138,13 @@ class Sweep:
                 "amplitude": f.amplitude,
                 "multipliers": _complex(f.multipliers),
             } for f in self.folds],
+            "branch_points": [{
+                "branch_index": f.branch_index,
+                "param_value": f.param_value,
+                "period": f.period,
+                "amplitude": f.amplitude,
+                "multipliers": _complex(f.multipliers),
+            } for f in self.branch_points],
             "reason": self.reason,
             "notes": list(self.notes),
         }
