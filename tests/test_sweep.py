@@ -332,7 +332,7 @@ def test_fitzhugh_nagumo_large_stable_cycle_matches_scipy_shooting():
     # independent of the sweep's own shooting
     from scipy.integrate import solve_ivp
 
-    result = sweep(fitzhugh_nagumo(), "I", 0.0, 1.5, samples=31, workers=1)
+    result = sweep(fitzhugh_nagumo(), "I", 0.0, 1.5, samples=31, workers=1, seconds=240.0)
     stable = [r for r in result.branch if r.stable and 0.5 <= r.param_value <= 1.2]
     assert stable, "the large stable cycle between the Hopf points must be reported"
     for row in stable[:: max(1, len(stable) // 3)]:
@@ -349,3 +349,31 @@ def test_fitzhugh_nagumo_large_stable_cycle_matches_scipy_shooting():
         up = times[1:][(v[:-1] < 0.0) & (v[1:] >= 0.0)]
         assert np.mean(np.diff(up)) == pytest.approx(row.period, rel=1e-5)
         assert 0.5 * (v.max() - v.min()) == pytest.approx(row.amplitude, rel=1e-4)
+
+
+@pytest.mark.slow
+def test_fitzhugh_nagumo_folds_bound_the_large_cycle_as_scipy_finds_it():
+    # reference: scipy's solve_ivp (DOP853) from a point outside the cycle, run long enough to pass
+    # the slow passage near a fold: just inside each fold the motion keeps its large cycle, just
+    # outside it settles at the (stable) equilibrium, so each fold is bracketed to 1e-3
+    from scipy.integrate import solve_ivp
+
+    result = sweep(fitzhugh_nagumo(), "I", 0.0, 1.5, samples=16, workers=1, seconds=240.0)
+    assert result.complete, result.reason
+    (branch,) = result.branches
+    assert branch.end_hopf == 1                     # from Hopf point 1 round to Hopf point 2
+    folds = sorted(f.param_value for f in result.folds)
+    assert len(folds) == 2 and folds[0] < result.hopf[0].param_value < result.hopf[1].param_value < folds[1]
+    assert any(r.stable for r in branch.points) and not branch.points[0].stable
+    for fold, inside in ((folds[0], +1.0), (folds[1], -1.0)):
+        for offset, running in ((1e-3 * inside, True), (-1e-3 * inside, False)):
+            current = fold + offset
+
+            def field(_t, y, current=current):
+                v, w = y
+                return [v - v**3 / 3 - w + current, EPS * (v + A - B * w)]
+
+            run = solve_ivp(field, (0.0, 6000.0), [2.0, 1.5], method="DOP853", rtol=1e-9, atol=1e-12,
+                            dense_output=True)
+            v = run.sol(np.linspace(5500.0, 6000.0, 20001))[0]
+            assert (0.5 * (v.max() - v.min()) > 1.5) == running, (current, v.max() - v.min())

@@ -39,6 +39,7 @@ from orbitfix.gen.model.definition import Model
 RTOL = 1e-9                    # relative tolerance of every shooting integration (DOP853)
 NEWTON_STEPS = 8
 FIRST_STEP = 0.02              # first arclength step, scaled units
+MAX_STEP = 0.1                 # longest arclength step, scaled units
 MIN_STEP = 1e-4                # below this the branch is lost
 MAX_POINTS = 400               # accepted points per branch
 PERIOD_GROWTH = 30.0           # period over the Hopf period beyond which the orbit is homoclinic
@@ -332,7 +333,7 @@ def follow_branch(model: Model, parameter: str, index: int, point: HopfPoint, bo
                + [abs(s.initial) for s in model.states])
     hopf_period = 2.0 * math.pi / point.frequency
     tracer = _Tracer(family, base, hopf_period, hi - lo, SEGMENTS)
-    max_step = max(4.0 * spacing / (hi - lo), 0.05)
+    max_step = MAX_STEP
     try:
         if start is None:
             first = _first_cycle(tracer, equilibria, point, lo, hi)
@@ -415,7 +416,19 @@ def _row(tracer: _Tracer, cycle: _Cycle, hopf_index: int, branch: int) -> Branch
 def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfPoint,
            others: list[HopfPoint], index: int, lo: float, hi: float, max_step: float) -> CycleBranch:
     """Pseudo-arclength continuation from ``first``; direction None: away from the equilibrium,
-    else +1/-1 in the parameter."""
+    else +1/-1 in the parameter. The points found are kept when the time budget runs out."""
+    rows: list[BranchPoint] = []
+    folds: list[Fold] = []
+    try:
+        return _steps(tracer, first, direction, point, others, index, lo, hi, max_step, rows, folds)
+    except _OutOfTimeError:
+        return _done(index, rows, folds, False, "the sweep's time budget ran out while this branch "
+                     "was followed", None)
+
+
+def _steps(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfPoint,
+           others: list[HopfPoint], index: int, lo: float, hi: float, max_step: float,
+           rows: list[BranchPoint], folds: list[Fold]) -> CycleBranch:
     n = tracer.n
     span_scale = tracer.scales[-1]
     cycle = first
@@ -427,8 +440,7 @@ def _trace(tracer: _Tracer, first: _Cycle, direction: float | None, point: HopfP
     else:
         sign = direction * tangent[-1]
     tangent = tangent if sign >= 0.0 else -tangent
-    rows = [_row(tracer, cycle, index, index)]
-    folds: list[Fold] = []
+    rows.append(_row(tracer, cycle, index, index))
     step = FIRST_STEP
     reason, complete, end_hopf = "", True, None
     at_edge = False
