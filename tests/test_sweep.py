@@ -377,3 +377,27 @@ def test_fitzhugh_nagumo_folds_bound_the_large_cycle_as_scipy_finds_it():
                             dense_output=True)
             v = run.sol(np.linspace(5500.0, 6000.0, 20001))[0]
             assert (0.5 * (v.max() - v.min()) > 1.5) == running, (current, v.max() - v.min())
+
+
+def test_sweep_text_and_json_show_branches_folds_and_birth(capsys):
+    import json
+
+    from orbitfix.verify.cli.main import main
+
+    code = main(["sweep", "vibration_drive", "--param", "mu", "--from", "-1.5", "--to", "0.5",
+                 "--samples", "9"])
+    out = capsys.readouterr().out
+    assert code == 0
+    # the Bautin normal form's branch is born unstable (subcritical) and turns at mu = -1 (derived by
+    # hand above): never "a small stable cycle grows" over an unstable first row
+    assert "born unstable" in out and "fold of cycles at mu = -1" in out
+    assert "a small stable cycle grows" not in out
+    code = main(["sweep", "vibration_drive", "--param", "mu", "--from", "-1.5", "--to", "0.5",
+                 "--samples", "9", "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert data["complete"] is True and data["reason"] == ""
+    (branch,) = data["branches"]
+    assert branch["born_stable"] is False
+    assert {"stable", "multipliers", "max_multiplier"} <= set(branch["points"][0])
+    (fold,) = data["folds"]
+    assert fold["param_value"] == pytest.approx(-1.0, abs=1e-6)
