@@ -63,7 +63,8 @@ def format_sweep(result: Sweep) -> str:
             first = branch.points[0]
             lines.append("  born " + ("stable: a small stable cycle grows from the Hopf point"
                                       if first.stable else "unstable: the small cycle near the Hopf "
-                                      "point repels (it bounds the rest state's basin)"))
+                                      f"point has a multiplier of modulus {first.max_multiplier:.4g}, "
+                                      "above 1, so the rhythm cannot start gently there"))
         lines.append(f"  {name:>{width}}  {'period':>12}  {'amplitude':>12}  {'largest multiplier':>18}"
                      "  stable")
         for row in branch.points:
