@@ -258,3 +258,146 @@ def test_vanderpol_sweep_reports_its_hopf_point_as_degenerate():
     assert hopf.param_value == pytest.approx(0.0, abs=1e-9)
     assert hopf.frequency == pytest.approx(1.0, rel=1e-9)
     assert hopf.kind == "degenerate"
+
+
+# -- branches followed through folds ----------------------------------------------------------------
+
+
+@functools.cache
+def bautin_sweep():
+    from orbitfix.gen.model.model_file import load_model
+
+    return sweep(load_model("vibration_drive"), "mu", -1.5, 0.5, samples=9, workers=1)
+
+
+@pytest.mark.slow
+def test_bautin_fold_of_cycles_is_at_the_hand_derived_point():
+    # Kuznetsov, Elements of Applied Bifurcation Theory (2004), sec. 8.3 (Bautin normal form),
+    # our model r' = r (mu + 2 r^2 - r^4): cycles where mu = r^4 - 2 r^2; the fold is where
+    # d mu / d r = 4 r^3 - 4 r = 0, so r = 1 and mu = -1 (derived by hand)
+    result = bautin_sweep()
+    (hopf,) = result.hopf
+    assert hopf.kind == "subcritical"
+    assert result.complete and result.reason == ""
+    fold = result.branches[0].folds[0]
+    assert fold.param_value == pytest.approx(-1.0, abs=1e-6)
+    assert fold.amplitude == pytest.approx(1.0, abs=1e-5)
+    assert abs(fold.multipliers[0]) == pytest.approx(1.0, abs=1e-5)
+
+
+@pytest.mark.slow
+def test_bautin_branch_is_unstable_then_stable_with_the_exact_multipliers():
+    # same normal form: on the cycle r' linearised gives r g'(r) = 4 r^2 (1 - r^2), so the
+    # nontrivial multiplier is exp(T 4 r^2 (1 - r^2)), T = 2 pi / omega (derived by hand)
+    branch = bautin_sweep().branches[0]
+    assert not branch.points[0].stable             # born unstable: never "a small stable cycle grows"
+    assert branch.points[-1].stable
+    for row in branch.points:
+        r = row.amplitude
+        # the integration's tolerance is amplified by 1 / |1 - multiplier| near the fold
+        assert row.param_value == pytest.approx(r**4 - 2 * r**2, abs=1e-5)
+        expected = math.exp(1.0 * 4 * r**2 * (1 - r**2))
+        assert row.max_multiplier == pytest.approx(expected, rel=1e-4)
+        assert row.stable == (r > 1.0)
+
+
+def test_vanderpol_branch_is_kept_through_small_mu():
+    # Strogatz (1994) sec. 7.6: for small mu the Van der Pol cycle has amplitude close to 2; the
+    # cycle exists (stable for mu > 0, unstable for mu < 0 by time reversal) at every mu != 0
+    model = define_model("vdp", {"x": 1.0, "y": 0.0}, {"x": "y", "y": "mu*(1 - x^2)*y - x"},
+                         {"mu": 0.5}, cycle_hz=1.0, loop_hz=100.0)
+    result = sweep(model, "mu", -0.5, 1.0, samples=7, workers=1)
+    assert result.complete, result.reason
+    rows = result.branch
+    assert min(r.param_value for r in rows) < -0.4 and max(r.param_value for r in rows) > 0.9
+    for row in rows:
+        assert row.found and row.stable == (row.param_value > 0)
+        if abs(row.param_value) < 0.1:
+            assert row.amplitude == pytest.approx(2.0, abs=0.01)
+    text = " ".join(result.notes) + result.reason
+    assert "chaotic" not in text and "quasi-periodic" not in text
+
+
+def test_lost_branch_says_incomplete_with_a_reason():
+    result = sweep(fitzhugh_nagumo(), "I", 0.0, 1.5, samples=9, workers=1, seconds=3.0)
+    data = result.to_json()
+    assert data["complete"] is False and data["reason"]
+    assert any(not b["complete"] and b["reason"] for b in data["branches"])
+
+
+@pytest.mark.slow
+def test_fitzhugh_nagumo_large_stable_cycle_matches_scipy_shooting():
+    # reference: scipy's solve_ivp (DOP853, tight tolerances) from the reported cycle point over
+    # many periods, then the period from successive upward crossings of v through the point's v;
+    # independent of the sweep's own shooting
+    from scipy.integrate import solve_ivp
+
+    result = sweep(fitzhugh_nagumo(), "I", 0.0, 1.5, samples=31, workers=1, seconds=240.0)
+    stable = [r for r in result.branch if r.stable and 0.5 <= r.param_value <= 1.2]
+    assert stable, "the large stable cycle between the Hopf points must be reported"
+    for row in stable[:: max(1, len(stable) // 3)]:
+        current = row.param_value
+
+        def field(_t, y, current=current):
+            v, w = y
+            return [v - v**3 / 3 - w + current, EPS * (v + A - B * w)]
+
+        run = solve_ivp(field, (0, 20 * row.period), [1.0, 1.0], method="DOP853", rtol=1e-11,
+                        atol=1e-12, dense_output=True)
+        times = np.linspace(10 * row.period, 20 * row.period, 200001)
+        v = run.sol(times)[0]
+        up = times[1:][(v[:-1] < 0.0) & (v[1:] >= 0.0)]
+        assert np.mean(np.diff(up)) == pytest.approx(row.period, rel=1e-5)
+        assert 0.5 * (v.max() - v.min()) == pytest.approx(row.amplitude, rel=1e-4)
+
+
+@pytest.mark.slow
+def test_fitzhugh_nagumo_folds_bound_the_large_cycle_as_scipy_finds_it():
+    # reference: scipy's solve_ivp (DOP853) from a point outside the cycle, run long enough to pass
+    # the slow passage near a fold: just inside each fold the motion keeps its large cycle, just
+    # outside it settles at the (stable) equilibrium, so each fold is bracketed to 1e-3
+    from scipy.integrate import solve_ivp
+
+    result = sweep(fitzhugh_nagumo(), "I", 0.0, 1.5, samples=16, workers=1, seconds=240.0)
+    assert result.complete, result.reason
+    (branch,) = result.branches
+    assert branch.end_hopf == 1                     # from Hopf point 1 round to Hopf point 2
+    folds = sorted(f.param_value for f in result.folds)
+    assert len(folds) == 2 and folds[0] < result.hopf[0].param_value < result.hopf[1].param_value < folds[1]
+    assert any(r.stable for r in branch.points) and not branch.points[0].stable
+    for fold, inside in ((folds[0], +1.0), (folds[1], -1.0)):
+        for offset, running in ((1e-3 * inside, True), (-1e-3 * inside, False)):
+            current = fold + offset
+
+            def field(_t, y, current=current):
+                v, w = y
+                return [v - v**3 / 3 - w + current, EPS * (v + A - B * w)]
+
+            run = solve_ivp(field, (0.0, 6000.0), [2.0, 1.5], method="DOP853", rtol=1e-9, atol=1e-12,
+                            dense_output=True)
+            v = run.sol(np.linspace(5500.0, 6000.0, 20001))[0]
+            assert (0.5 * (v.max() - v.min()) > 1.5) == running, (current, v.max() - v.min())
+
+
+def test_sweep_text_and_json_show_branches_folds_and_birth(capsys):
+    import json
+
+    from orbitfix.verify.cli.main import main
+
+    code = main(["sweep", "vibration_drive", "--param", "mu", "--from", "-1.5", "--to", "0.5",
+                 "--samples", "9"])
+    out = capsys.readouterr().out
+    assert code == 0
+    # the Bautin normal form's branch is born unstable (subcritical) and turns at mu = -1 (derived by
+    # hand above): never "a small stable cycle grows" over an unstable first row
+    assert "born unstable" in out and "fold of cycles at mu = -1" in out
+    assert "a small stable cycle grows" not in out
+    code = main(["sweep", "vibration_drive", "--param", "mu", "--from", "-1.5", "--to", "0.5",
+                 "--samples", "9", "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert data["complete"] is True and data["reason"] == ""
+    (branch,) = data["branches"]
+    assert branch["born_stable"] is False
+    assert {"stable", "multipliers", "max_multiplier"} <= set(branch["points"][0])
+    (fold,) = data["folds"]
+    assert fold["param_value"] == pytest.approx(-1.0, abs=1e-6)

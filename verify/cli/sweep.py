@@ -1,8 +1,9 @@
 """The ``sweep`` verb: move one parameter across a range, find the Hopf points where the rhythm is
 born or dies, and follow the cycle's period, amplitude and stability beyond each.
 
-Exit codes: 0 the sweep ran to the end; 1 its time budget ran out first (the figures so far are
-printed); 2 bad input.
+Exit codes: 0 the sweep ran to the end and every cycle branch was followed to its end; 1 a branch
+was lost or the time budget ran out first (the figures so far are printed, with the reason); 2 bad
+input.
 """
 
 from __future__ import annotations

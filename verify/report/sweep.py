@@ -10,8 +10,8 @@ from orbitfix.gen.analysis.sweep import BISECTION_TOLERANCE, Sweep
 from orbitfix.verify.report.numbers import to_tolerance
 
 KIND_MEANINGS = {
-    "supercritical": "a small stable cycle grows from zero amplitude on the side where the "
-                     "equilibrium is unstable: the rhythm starts and stops gently",
+    "supercritical": "the first Lyapunov coefficient is negative: the cycle born here is stable "
+                     "when the branch below confirms it, and the rhythm starts and stops gently",
     "subcritical": "a small unstable cycle exists on the side where the equilibrium is stable: "
                    "past this point the rhythm jumps in at a large amplitude, and it stops at "
                    "another value (hysteresis)",
@@ -51,20 +51,37 @@ def format_sweep(result: Sweep) -> str:
         lines.append(f"     {KIND_MEANINGS[point.kind]}")
         lines.append(f"     the equilibrium is unstable {point.unstable_side} this point; the small "
                      f"cycle is looked for {point.cycle_side} it")
-    for number, _ in enumerate(result.hopf):
-        rows = [b for b in result.branch if b.hopf_index == number]
-        if not rows:
-            continue
+    for branch in result.branches:
         lines.append("")
-        lines.append(f"Cycle followed from Hopf point {number + 1}")
+        if branch.hopf_index is None:
+            origin = "from a stable cycle the flow runs onto"
+        else:
+            origin = f"from Hopf point {branch.hopf_index + 1}"
+        lines.append(f"Cycle branch {branch.index + 1} ({origin})")
+        if branch.points and branch.hopf_index is not None \
+                and result.hopf[branch.hopf_index].kind != "degenerate":
+            first = branch.points[0]
+            lines.append("  born " + ("stable: a small stable cycle grows from the Hopf point"
+                                      if first.stable else "unstable: the small cycle near the Hopf "
+                                      f"point has a multiplier of modulus {first.max_multiplier:.4g}, "
+                                      "above 1, so the rhythm cannot start gently there"))
         lines.append(f"  {name:>{width}}  {'period':>12}  {'amplitude':>12}  {'largest multiplier':>18}"
                      "  stable")
-        for row in rows:
-            if not row.found:
-                lines.append(f"  {row.param_value:>{width}.6g}  no cycle found here (see the notes)")
-                continue
-            lines.append(f"  {row.param_value:>{width}.6g}  {row.period:>12.6g}  {row.amplitude:>12.6g}  "
+        for row in branch.points:
+            lines.append(f"  {row.param_value:>{width}.8g}  {row.period:>12.6g}  {row.amplitude:>12.6g}  "
                          f"{_plain(row.max_multiplier):>18}  {'yes' if row.stable else 'no'}")
+        for fold in branch.folds:
+            if fold.kind == "fold":
+                lines.append(f"  fold of cycles at {name} = {fold.param_value:.8g}: period "
+                             f"{fold.period:.6g}, amplitude {fold.amplitude:.6g} (two cycles meet and "
+                             "vanish; the branch turns back)")
+            else:
+                lines.append(f"  a multiplier passes 1 at {name} = {fold.param_value:.8g} while the branch "
+                             f"goes on (amplitude {fold.amplitude:.6g}): another family of cycles "
+                             "meets this one there")
+        if branch.reason:
+            state = "ends" if branch.complete else "LOST"
+            lines.append(f"  {state}: {branch.reason}")
         lines.append(f"  (amplitude: half the peak-to-peak range of {model.state_names[0]}; largest "
                      "multiplier: the largest nontrivial Floquet multiplier modulus, below 1 stable)")
     if result.notes:
@@ -73,7 +90,7 @@ def format_sweep(result: Sweep) -> str:
         lines += [f"  - {note}" for note in result.notes]
     if not result.complete:
         lines.append("")
-        lines.append("result: INCOMPLETE: the time budget ran out; raise --seconds or lower --samples")
+        lines.append(f"result: INCOMPLETE: {result.reason or 'the time budget ran out'}")
     return "\n".join(lines)
 
 

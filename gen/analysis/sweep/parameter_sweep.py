@@ -17,9 +17,11 @@ Method:
    sweep's span) with the equilibrium continued at every step. A complex pair at the crossing is a
    Hopf point, its imaginary part the frequency; a real eigenvalue crossing zero is noted.
 3. Kind: the first Lyapunov coefficient (:mod:`gen.hopf`) at the Hopf point.
-4. Branch: natural continuation of the cycle from the Hopf point into the side where it exists,
-   one :func:`gen.limit_cycle.find_limit_cycle` per sample, each started from the last cycle's
-   point (the first from the small cycle the normal form predicts).
+4. Branch: pseudo-arclength continuation of the cycle in (cycle point, period, parameter) from
+   the small cycle the normal form predicts (:mod:`.branch`), through folds of cycles, to the
+   range's edge or back to a Hopf point; stable and unstable parts alike, with their multipliers.
+   Where a Hopf branch is lost, the stable cycles the flow runs onto between the Hopf points are
+   followed too, so a large stable cycle beyond a fold is still reported.
 
 Rooms: continuation of equilibria (``continuation``), detection (``hopf_points``), the branch
 (``branch``); this module holds the results and runs the steps.
@@ -27,14 +29,16 @@ Rooms: continuation of equilibria (``continuation``), detection (``hopf_points``
 
 from __future__ import annotations
 
+import itertools
 import math
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from orbitfix.gen.analysis.equilibria import Equilibrium, find_equilibria
-from orbitfix.gen.analysis.sweep.branch import BranchPoint, follow_branch
+from orbitfix.gen.analysis.limit_cycle import find_limit_cycle
+from orbitfix.gen.analysis.sweep.branch import BranchPoint, CycleBranch, Fold, follow_branch
 from orbitfix.gen.analysis.sweep.continuation import ParameterFamily, continue_across, point_text
 from orbitfix.gen.analysis.sweep.hopf_points import HopfPoint, locate_hopf, same_hopf
 from orbitfix.gen.errors import InputError
@@ -46,7 +50,6 @@ DEFAULT_SAMPLES = 41
 DEFAULT_SECONDS = 60.0         # wall-clock budget of the whole sweep, s
 MAX_SAMPLES = 10_000
 SEARCH_EVERY = 5               # the full seeded search runs at every 5th sample; continuation between
-LEAD_IN = (0.125, 0.25, 0.5)   # first branch points, as fractions of the sample spacing
 
 
 @dataclass(frozen=True, eq=False)
@@ -70,6 +73,16 @@ class Sweep:
     branch: tuple[BranchPoint, ...]
     notes: tuple[str, ...]
     complete: bool
+    branches: tuple[CycleBranch, ...] = ()
+    reason: str = ""
+
+    @property
+    def folds(self) -> tuple[Fold, ...]:
+        return tuple(f for b in self.branches for f in b.folds if f.kind == "fold")
+
+    @property
+    def branch_points(self) -> tuple[Fold, ...]:
+        return tuple(f for b in self.branches for f in b.folds if f.kind != "fold")
 
     def to_json(self) -> dict:
         """Plain data for ``json.dump`` (non-finite numbers as None)."""
@@ -99,6 +112,8 @@ class Sweep:
                 "amplitude": plain_number(b.amplitude),
                 "max_multiplier": plain_number(b.max_multiplier),
                 "verdict": b.verdict,
+                "branch_index": b.branch_index,
+                "multipliers": _complex(b.multipliers),
             } for b in self.branch],
             "samples": [{
                 "param_value": s.param_value,
@@ -107,6 +122,30 @@ class Sweep:
                                                 for v in e.eigenvalues],
                                 "kind": e.kind} for e in s.equilibria],
             } for s in self.samples],
+            "branches": [{
+                "index": b.index,
+                "hopf_index": b.hopf_index,
+                "end_hopf_index": b.end_hopf,
+                "complete": b.complete,
+                "reason": b.reason,
+                "born_stable": b.born_stable,
+                "points": [_row_json(p) for p in b.points],
+            } for b in self.branches],
+            "folds": [{
+                "branch_index": f.branch_index,
+                "param_value": f.param_value,
+                "period": f.period,
+                "amplitude": f.amplitude,
+                "multipliers": _complex(f.multipliers),
+            } for f in self.folds],
+            "branch_points": [{
+                "branch_index": f.branch_index,
+                "param_value": f.param_value,
+                "period": f.period,
+                "amplitude": f.amplitude,
+                "multipliers": _complex(f.multipliers),
+            } for f in self.branch_points],
+            "reason": self.reason,
             "notes": list(self.notes),
         }
 
@@ -155,28 +194,37 @@ def sweep(model: Model, parameter: str, start: float, stop: float, *,
                 hopf.append(found)
     hopf.sort(key=lambda h: (h.param_value - start) / (stop - start))
 
-    branch: list[BranchPoint] = []
-    complete = True
+    branches: list[CycleBranch] = []
     if follow_cycles and hopf:
-        jobs = []
+        spacing = abs(stop - start) / (samples - 1)
+        reached: set[int] = set()
         for index, point in enumerate(hopf):
-            sign = 1.0 if point.cycle_side == "above" else -1.0
-            spacing = abs(stop - start) / (samples - 1)
-            ahead = sorted([float(v) for v in values if (v - point.param_value) * sign > 0.5 * spacing]
-                           + [point.param_value + sign * f * spacing for f in LEAD_IN],
-                           key=lambda v: abs(v - point.param_value))
-            ahead = [v for v in ahead if min(start, stop) <= v <= max(start, stop)]
-            jobs.append((model, parameter, index, point, ahead, deadline))
-        for points, note, finished in fan_out(follow_branch, jobs, workers, scheduler):
-            branch.extend(points)
-            notes.extend([note] if note else [])
-            complete = complete and finished
+            if index in reached:
+                continue
+            others = [h for k, h in enumerate(hopf) if k != index]
+            begin = None
+            if point.kind == "degenerate":
+                begin = _cycle_near(model, parameter, point, values, spacing, deadline)
+            followed = follow_branch(model, parameter, index, point, (start, stop), spacing, deadline,
+                                     others, begin)
+            if followed.end_hopf is not None:
+                end = followed.end_hopf + (1 if followed.end_hopf >= index else 0)
+                reached.add(end)
+                followed = replace(followed, end_hopf=end)
+            branches.append(followed)
+    if follow_cycles and hopf and any(not b.complete for b in branches):
+        branches += _branches_from_the_flow(model, parameter, values, hopf, branches, spacing, deadline)
+    branch = [row for b in branches for row in b.points]
+    lost = [b for b in branches if not b.complete]
+    complete = not lost
+    reason = "; ".join(f"branch {b.index + 1} ({_origin(b, hopf, parameter)}) is incomplete: {b.reason}"
+                       for b in lost)
     if not hopf:
         notes.append(f"no Hopf point between {parameter} = {start:.6g} and {stop:.6g}: no complex "
                      "pair of eigenvalues crosses the imaginary axis between neighbouring samples")
     return Sweep(model=model, parameter=parameter, start=float(start), stop=float(stop),
                  samples=table, hopf=tuple(hopf), branch=tuple(branch), notes=tuple(notes),
-                 complete=complete)
+                 complete=complete, branches=tuple(branches), reason=reason)
 
 
 # -- checks and fan-out --------------------------------------------------------------------------
@@ -203,12 +251,91 @@ def _check_request(model: Model, parameter: str, start: float, stop: float, samp
         raise InputError(f"the time budget must be a positive number of seconds, got {seconds}")
 
 
+def _origin(branch: CycleBranch, hopf: list[HopfPoint], parameter: str) -> str:
+    if branch.hopf_index is None:
+        first = branch.points[0].param_value if branch.points else float("nan")
+        return f"a cycle the flow runs onto near {parameter} = {first:.6g}"
+    return f"from the Hopf point at {parameter} = {hopf[branch.hopf_index].param_value:.8g}"
+
+
+def _branches_from_the_flow(model: Model, parameter: str, values: np.ndarray, hopf: list[HopfPoint],
+                            branches: list[CycleBranch], spacing: float,
+                            deadline: float) -> list[CycleBranch]:
+    """Branches of stable cycles the Hopf branches did not reach (a large cycle beyond a fold the
+    shooting could not pass): the flow from the model's initial state at the samples midway
+    between Hopf points, and a sample past each end, finds them; each new one is followed both
+    ways."""
+    found: list[CycleBranch] = []
+    marks = sorted(h.param_value for h in hopf)
+    lo, hi = float(min(values)), float(max(values))
+    probes = [0.5 * (a + b) for a, b in itertools.pairwise(marks)]
+    probes += [v for v in (marks[0] - 2 * spacing, marks[-1] + 2 * spacing) if lo <= v <= hi]
+    for value in probes:
+        if deadline - time.monotonic() <= 1.0:
+            break
+        at = model.with_parameters({parameter: value})
+        cycle = find_limit_cycle(at, seconds=min(10.0, deadline - time.monotonic()))
+        if not cycle.found or not cycle.stable:
+            continue
+        amplitude = 0.5 * float(cycle.state_max[0] - cycle.state_min[0])
+        if any(_on_branch(b, value, amplitude, spacing) for b in [*branches, *found]):
+            continue
+        point = min(hopf, key=lambda h: abs(h.param_value - value))
+        index = len(branches) + len(found)
+        new = follow_branch(model, parameter, index, point, (lo, hi), spacing, deadline, list(hopf),
+                            (np.array(cycle.point, dtype=float), float(cycle.period), value))
+        found.append(replace(new, hopf_index=None, points=tuple(replace(p, hopf_index=None,
+                                                                        branch_index=index)
+                                                                for p in new.points),
+                             folds=tuple(replace(f, branch_index=index) for f in new.folds)))
+    return found
+
+
+def _on_branch(branch: CycleBranch, value: float, amplitude: float, spacing: float) -> bool:
+    rows = sorted(branch.points, key=lambda r: abs(r.param_value - value))[:4]
+    return any(abs(r.param_value - value) <= spacing and r.amplitude is not None
+               and abs(r.amplitude - amplitude) <= 0.05 * max(amplitude, 1e-9) for r in rows)
+
+
+def _cycle_near(model: Model, parameter: str, point: HopfPoint, values: np.ndarray, spacing: float,
+                deadline: float) -> tuple[np.ndarray, float, float] | None:
+    """A cycle found by following the flow at the samples nearest a degenerate Hopf point (forward
+    on the side where the equilibrium is unstable, backward on the other), to start the branch
+    from where the normal form says nothing."""
+    sign = 1.0 if point.unstable_side == "above" else -1.0
+    near = sorted((float(v) for v in values if abs(v - point.param_value) > 0.5 * spacing),
+                  key=lambda v: abs(v - point.param_value))
+    for value in near[:4]:
+        left = deadline - time.monotonic()
+        if left <= 0.0:
+            return None
+        at = model.with_parameters({parameter: value})
+        nudge = 1e-2 * max(1.0, float(np.max(np.abs(point.equilibrium))))
+        at = replace(at, states=tuple(replace(s, initial=float(v)) for s, v in
+                                      zip(at.states, point.equilibrium + nudge, strict=True)))
+        cycle = find_limit_cycle(at, reverse_time=(value - point.param_value) * sign < 0,
+                                 seconds=min(10.0, left))
+        if cycle.found:
+            return np.array(cycle.point, dtype=float), float(cycle.period), value
+    return None
+
+
 def _equilibria_at(model: Model, parameter: str, value: float) -> list[np.ndarray]:
     """The equilibria's states at one parameter value, from the usual seeds."""
     return [np.array(e.state) for e in find_equilibria(model.with_parameters({parameter: value}))]
 
 
 # -- JSON numbers ----------------------------------------------------------------------------------
+
+
+def _complex(values: tuple[complex, ...]) -> list[list[float | None]]:
+    return [[plain_number(v.real), plain_number(v.imag)] for v in values]
+
+
+def _row_json(b: BranchPoint) -> dict:
+    return {"param_value": b.param_value, "period": plain_number(b.period),
+            "amplitude": plain_number(b.amplitude), "stable": b.stable,
+            "max_multiplier": plain_number(b.max_multiplier), "multipliers": _complex(b.multipliers)}
 
 
 def _numbers(values: np.ndarray) -> list[float | None]:
