@@ -18,6 +18,7 @@ from orbitfix.gen.program.lowering import lower_step
 from orbitfix.gen.program.plan_checks import refuse_vanished_constants
 from orbitfix.gen.timing.integrators import Integrator, get_integrator
 from orbitfix.gen.timing.step_size import Timing, plan_timing
+from orbitfix.gen.work_size import float_run, golden_run
 
 
 class NoStableCycleError(OrbitfixError):
@@ -71,6 +72,8 @@ def design(model: Model, analysis: Analysis | None = None) -> Design:
 
 
 START_PATH_CYCLES = 3  # cycles of the float step map from every start the plan covers
+CHECKED_PATH_CYCLES = 2  # cycles of golden beside the float step map (gen/study/start_path.py)
+DESIGN_SECONDS = 60.0  # the longest a design may take to plan and check its start-up path
 
 
 def start_path_steps(model: Model, cycles: float = START_PATH_CYCLES) -> int:
@@ -88,6 +91,8 @@ def plan_step(model: Model, integrator: Integrator, step: float,
     step constant that rounds to zero is refused (gen/program/plan_checks.py)."""
     request = model.fixed_point
     program = lower_step(model, integrator, step)
+    if path_steps > 0:
+        _refuse_slow_path(model, len(program.ops), path_steps)
     plan = plan_fixed_point(program, samples, model.initial_state,
                             margin=request.margin, fraction_bits=request.fraction_bits,
                             word_bits=request.word_bits, rounding=request.rounding,
@@ -95,6 +100,21 @@ def plan_step(model: Model, integrator: Integrator, step: float,
                             path_steps=path_steps)
     refuse_vanished_constants(plan, model.name, model.rhythm.loop_hz / model.rhythm.cycle_hz)
     return plan
+
+
+def _refuse_slow_path(model: Model, operations: int, path_steps: int) -> None:
+    """Size the start-up path before it runs: the float step map over ``path_steps`` steps from
+    every start, and golden beside it over the checked cycles. Refused beyond DESIGN_SECONDS."""
+    starts = 1 + 2 ** len(model.runtime_parameters)
+    checked = path_steps * CHECKED_PATH_CYCLES / START_PATH_CYCLES
+    work = (float_run("planning the start-up path", operations, path_steps, columns=2 * starts)
+            + golden_run("checking it", operations, checked))
+    if work.seconds > DESIGN_SECONDS:
+        steps_per_cycle = model.rhythm.loop_hz / model.rhythm.cycle_hz
+        raise InputError(
+            f"model {model.name!r}: {work.what} at {steps_per_cycle:,.0f} steps per cycle would need "
+            f"{work.describe()}, more than the {DESIGN_SECONDS:g} s a design may take; give a lower "
+            "loop_hz (fewer steps per cycle) or a higher cycle_hz")
 
 
 def program_states(model: Model, samples: np.ndarray) -> np.ndarray:

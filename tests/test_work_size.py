@@ -62,14 +62,22 @@ def test_verify_at_a_megahertz_loop_is_refused_with_the_size_it_would_need(tmp_p
     # the issue: over ten minutes of work before any answer; 24 h at 1 MHz is 8.6e10 steps a run
     path = with_rhythm(tmp_path, "vanderpol", loop_hz="1e6")
     err = refused(["verify", str(path), "--states", "1000", "--steps", "1000"], capsys)
-    assert "drift proof" in err and "would need about" in err and "hours" in err
-    assert "--hours" in err  # what to do
+    # the first work that grows with the loop rate is the design's start-up path (minutes at
+    # 666,667 steps per cycle), refused before it runs, before any proof
+    assert "start-up path" in err and "would need about" in err and "loop_hz" in err
 
 
 def test_plan_at_a_megahertz_loop_is_refused_before_any_study_runs(tmp_path: Path, capsys) -> None:
     path = with_rhythm(tmp_path, "vanderpol", loop_hz="1e6")
     err = refused(["plan", str(path)], capsys)
-    assert "plan studies" in err and "would need about" in err and "loop_hz" in err
+    assert "start-up path" in err and "would need about" in err and "loop_hz" in err
+
+
+def test_a_long_drift_is_refused_with_the_size_it_would_need(capsys) -> None:
+    # 10,000 hours of loop time at 500 Hz is 1.8e10 steps a run: beyond the machine
+    err = refused(["verify", "vanderpol", "--hours", "10000", "--states", "1000", "--steps", "1000"],
+                  capsys)
+    assert "drift proof" in err and "would need about" in err and "--hours" in err
 
 
 def test_verify_with_a_billion_random_states_is_refused(capsys) -> None:
