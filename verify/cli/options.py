@@ -119,21 +119,24 @@ def model_from_args(args: argparse.Namespace) -> Model:
     return model.with_fixed_point(**changes) if changes else model
 
 
+def name_and_value(option: str, item: str, part: str, example: str) -> tuple[str, float]:
+    """One NAME=VALUE of ``item`` given to ``option``; malformed or non-finite is an input error."""
+    name, sep, text = part.partition("=")
+    name = name.strip()
+    if not sep or not name:
+        raise InputError(f"{option} '{item}': write NAME=VALUE, e.g. {example}")
+    try:
+        value = float(text)
+    except ValueError:
+        raise InputError(f"{option} '{item}': '{text}' is not a number") from None
+    if not math.isfinite(value):
+        raise InputError(f"{option} '{item}': give a finite number for '{name}'")
+    return name, value
+
+
 def parse_settings(items: list[str]) -> dict[str, float]:
     """--set items to {name: value}; a malformed item or a non-finite value is an input error."""
-    overrides = {}
-    for item in items:
-        name, sep, value = item.partition("=")
-        if not sep or not name.strip():
-            raise InputError(f"--set '{item}': write NAME=VALUE, e.g. --set mu=2.5")
-        try:
-            figure = float(value)
-        except ValueError:
-            raise InputError(f"--set '{item}': '{value}' is not a number") from None
-        if not math.isfinite(figure):
-            raise InputError(f"--set '{item}': the value must be finite")
-        overrides[name.strip()] = figure
-    return overrides
+    return dict(name_and_value("--set", item, item, "--set mu=2.5") for item in items)
 
 
 def parse_box(items: list[str]) -> dict[str, tuple[float, float]]:

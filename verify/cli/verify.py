@@ -8,7 +8,6 @@ certificate); 2 bad input.
 from __future__ import annotations
 
 import argparse
-import math
 from pathlib import Path
 from typing import Any
 
@@ -20,6 +19,7 @@ from orbitfix.verify.cli.options import (
     add_fixed_point_options,
     add_model_arguments,
     model_from_args,
+    name_and_value,
     parse_box,
     whole,
 )
@@ -175,17 +175,7 @@ def parse_start(item: str) -> dict[str, float]:
     """'x=0.1,y=-0.2' to {'x': 0.1, 'y': -0.2}; a malformed item is an input error."""
     start: dict[str, float] = {}
     for part in item.split(","):
-        name, sep, text = part.partition("=")
-        name = name.strip()
-        if not sep or not name:
-            raise InputError(f"--start '{item}': write NAME=VALUE pairs separated by commas, "
-                             "e.g. --start x=0.1,y=-0.2")
-        try:
-            value = float(text)
-        except ValueError:
-            raise InputError(f"--start '{item}': '{text}' is not a number") from None
-        if not math.isfinite(value):
-            raise InputError(f"--start '{item}': give a finite number for '{name}'")
+        name, value = name_and_value("--start", item, part, "--start x=0.1,y=-0.2")
         if name in start:
             raise InputError(f"--start '{item}' gives the state '{name}' twice")
         start[name] = value
