@@ -264,10 +264,22 @@ def test_euler_at_too_low_a_loop_rate_fails_on_the_discretisation(vanderpol_desi
     # Euler's stability region is the unit disc around -1, which the focus at 0.5 +- 0.87i leaves).
     from dataclasses import replace
 
+    from orbitfix.gen.pipeline import plan_step
+    from orbitfix.gen.timing.integrators import get_integrator
+    from orbitfix.gen.timing.step_size import plan_timing
+
     model = vanderpol_design.model
     slow = replace(model, rhythm=replace(model.rhythm, loop_hz=12.0)).with_fixed_point(
         integrator="euler")
-    report = run_drift(design(slow, analysis=vanderpol_design.analysis), hours=0.5)
+    # The design refuses it already: the float step map's start-up path diverges.
+    with pytest.raises(InputError, match="not finite over the planning box"):
+        design(slow, analysis=vanderpol_design.analysis)
+    # Planned from the cycle alone (no path), the drift proof must still fail it on its own.
+    timing = plan_timing(slow, vanderpol_design.analysis.cycle.period)
+    euler = get_integrator("euler")
+    plan = plan_step(slow, euler, timing.step, vanderpol_design.analysis.cycle.samples)
+    built = replace(vanderpol_design, model=slow, timing=timing, integrator=euler, plan=plan)
+    report = run_drift(built, hours=0.5)
     assert report.verdict == "fail"
     assert report.step_map.period_steps is None
     run = report.runs[0]
