@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import re
 import shutil
+from pathlib import Path
 
 import pytest
 
@@ -53,3 +55,13 @@ y = "omega*x + mu*y - (x^2 + y^2)*y"
 cycle_hz = 1.0
 loop_hz = 500
 """
+
+
+def slip_one_product(step_c: Path) -> None:
+    """Seed a scaling slip into generated C: the first word product is shifted one place too few,
+    the fingerprint left as it was. The proofs must catch it."""
+    text = step_c.read_text()
+    changed = re.sub(r"(= mul_word\(v\d+, k\d+, )(\d+)u\)",
+                     lambda m: f"{m.group(1)}{int(m.group(2)) - 1}u)", text, count=1)
+    assert changed != text, "no word product to seed a fault into"
+    step_c.write_text(changed)
