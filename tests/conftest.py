@@ -65,3 +65,26 @@ def slip_one_product(step_c: Path) -> None:
                      lambda m: f"{m.group(1)}{int(m.group(2)) - 1}u)", text, count=1)
     assert changed != text, "no word product to seed a fault into"
     step_c.write_text(changed)
+
+
+def brute_force_cycle(rows) -> tuple[int, int]:
+    """(entry step, period) of a trajectory's rows by remembering every state (common practice:
+    the naive cycle search, independent of Brent's algorithm)."""
+    seen: dict[tuple[int, ...], int] = {}
+    for k, row in enumerate(rows):
+        key = tuple(int(v) for v in row)
+        if key in seen:
+            return seen[key], k - seen[key]
+        seen[key] = k
+    raise AssertionError("no repeat within the brute-force budget")
+
+
+def refused(argv: list[str], capsys: pytest.CaptureFixture) -> str:
+    """Run the command line; it must refuse with exit 2 and a message, never a traceback."""
+    from orbitfix.verify.cli.main import main
+
+    code = main(argv)
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert "Traceback" not in err and "internal error" not in err
+    return err

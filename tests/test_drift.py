@@ -8,6 +8,7 @@ import json
 
 import numpy as np
 import pytest
+from conftest import brute_force_cycle
 
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.definition import define_model
@@ -55,15 +56,6 @@ def congruential_design(a: int, c: int) -> Design:
     return Design(model=model, analysis=None, timing=timing, integrator=EULER, plan=plan)
 
 
-def brute_force_cycle(rows) -> tuple[int, int]:
-    """(mu, period) by remembering every state of a trajectory (independent reference)."""
-    seen: dict[tuple[int, ...], int] = {}
-    for k, row in enumerate(rows):
-        key = tuple(int(v) for v in row)
-        if key in seen:
-            return seen[key], k - seen[key]
-        seen[key] = k
-    raise AssertionError("no repeat within the brute-force budget")
 
 
 def congruential_orbit(a: int, c: int, start: tuple[int, int], steps: int):

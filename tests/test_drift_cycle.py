@@ -9,6 +9,7 @@ import json
 
 import numpy as np
 import pytest
+from conftest import brute_force_cycle
 
 from orbitfix.gen.c.emit import render_model
 from orbitfix.gen.model.model_file import load_model
@@ -25,16 +26,6 @@ def matsuoka_design():
     return design(load_model("matsuoka"))
 
 
-def brute_force_cycle(rows: np.ndarray) -> tuple[int, int]:
-    """(entry step, period) by remembering every state of a trajectory (common practice: the
-    naive cycle search, independent of Brent's algorithm)."""
-    seen: dict[tuple[int, ...], int] = {}
-    for k, row in enumerate(rows):
-        key = tuple(int(v) for v in row)
-        if key in seen:
-            return seen[key], k - seen[key]
-        seen[key] = k
-    raise AssertionError("no repeat within the brute-force budget")
 
 
 def test_the_exact_cycle_and_its_statistics_equal_brute_force_on_golden(vanderpol_design) -> None:

@@ -9,12 +9,12 @@ from pathlib import Path
 
 import pytest
 import sympy
+from conftest import refused
 
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model import limits
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.model.expressions import MOST_DEPTH, MOST_OPERATORS, ExpressionError, parse_expression
-from orbitfix.verify.cli.main import main
 
 OSCILLATOR = """\
 name = "pump"
@@ -49,13 +49,6 @@ def write(tmp_path: Path, **changes: str) -> Path:
     return path
 
 
-def refused(argv: list[str], capsys: pytest.CaptureFixture) -> str:
-    """Run the command line; it must refuse with exit 2 and a message, never a traceback."""
-    code = main(argv)
-    err = capsys.readouterr().err
-    assert code == 2, err
-    assert "Traceback" not in err and "internal error" not in err
-    return err
 
 
 @pytest.mark.parametrize("value", ["1e308", "-1e308", "inf", "nan", "1e7"])

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import refused
 
 from orbitfix.gen import work_size
 from orbitfix.gen.errors import InputError
@@ -14,7 +15,6 @@ from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.model.model_file import MODELS_FOLDER
 from orbitfix.gen.pipeline import plan_step
 from orbitfix.gen.timing.integrators import INTEGRATORS
-from orbitfix.verify.cli.main import main
 
 
 def with_rhythm(tmp_path: Path, model: str, **rhythm: str) -> Path:
@@ -28,12 +28,6 @@ def with_rhythm(tmp_path: Path, model: str, **rhythm: str) -> Path:
     return path
 
 
-def refused(argv: list[str], capsys: pytest.CaptureFixture) -> str:
-    code = main(argv)
-    err = capsys.readouterr().err
-    assert code == 2, err
-    assert "Traceback" not in err and "internal error" not in err
-    return err
 
 
 def test_phase_chain_with_an_absurd_frequency_is_refused_before_the_analysis(capsys) -> None:
