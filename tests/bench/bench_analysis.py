@@ -7,11 +7,7 @@ case (--quick: one run at mu = 1).
 from __future__ import annotations
 
 import statistics
-import sys
 import time
-from pathlib import Path
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
 from quick_mode import pick
 

@@ -13,16 +13,12 @@ import argparse
 import re
 import statistics
 import subprocess
-import sys
 import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
 import serial
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
-
 from quick_mode import arguments, pick
 
 from orbitfix.gen.c.emit import render_model

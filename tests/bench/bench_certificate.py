@@ -9,10 +9,6 @@ format only)
 from __future__ import annotations
 
 import resource
-import sys
-from pathlib import Path
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from quick_mode import quick
 

@@ -17,9 +17,6 @@ import subprocess
 import sys
 import tempfile
 import time
-from pathlib import Path
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from quick_mode import arguments, pick
 

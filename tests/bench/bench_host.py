@@ -8,15 +8,10 @@ from __future__ import annotations
 
 import os
 import statistics
-import sys
 import tempfile
 import time
-from pathlib import Path
 
 import numpy as np
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
-
 from quick_mode import pick
 
 from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace

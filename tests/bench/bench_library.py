@@ -8,11 +8,7 @@ of angle states (phases, modulo 2 pi).
 from __future__ import annotations
 
 import statistics
-import sys
 import time
-from pathlib import Path
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
 from quick_mode import pick
 

@@ -9,15 +9,10 @@ from __future__ import annotations
 
 import os
 import statistics
-import sys
 import tempfile
 import time
-from pathlib import Path
 
 import serial
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
-
 from quick_mode import pick
 
 from orbitfix.gen.model.model_file import load_model

@@ -13,11 +13,7 @@ Run as ``python tests/bench/bench_sweep.py [--quick]``; prints the median of a f
 from __future__ import annotations
 
 import statistics
-import sys
 import time
-from pathlib import Path
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))   # run from a checkout, uninstalled
 
 from quick_mode import pick
 
