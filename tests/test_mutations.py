@@ -223,6 +223,9 @@ def run_mutants(built, files, chosen: list[Mutant], tmp_path: Path) -> dict[str,
     return tally
 
 
+KILL_RATE_TITLE = "mutation kill rate, 16-bit Van der Pol, check_on_host with the C as --sources"
+
+
 def kill_rate_lines(tally: dict[str, Counter]) -> list[str]:
     lines = [f"{'kind':<24} {'mutants':>7} {'killed':>6} {'equivalent':>10}  how killed"]
     for kind, count in tally.items():
@@ -254,6 +257,8 @@ def test_a_sample_of_each_kind_is_caught_or_equivalent(subject, tmp_path) -> Non
         of_kind = [m for m in found if m.kind == kind]
         sample += [of_kind[len(of_kind) // 2], of_kind[-1]]
     tally = run_mutants(built, files, sample, tmp_path)
+    print(KILL_RATE_TITLE + " (a sample of each kind)")  # shown with -s (tests/bench/bench_mutations.py)
+    print("\n".join(kill_rate_lines(tally)))
     assert sum(c["killed"] for c in tally.values()) >= len(sample) - 2
 
 
@@ -264,7 +269,7 @@ def test_every_mutant_is_caught_or_shown_equivalent(subject, tmp_path, capsys) -
     found = mutants(files[names.source], names)
     tally = run_mutants(built, files, found, tmp_path)
     with capsys.disabled():
-        print("\nmutation kill rate, 16-bit Van der Pol, check_on_host with the C as --sources:")
+        print("\n" + KILL_RATE_TITLE)
         print("\n".join(kill_rate_lines(tally)))
     assert sum(c["killed"] + c["equivalent"] for c in tally.values()) == len(found)
 
