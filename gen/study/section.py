@@ -160,15 +160,19 @@ def wrap_word(value: int, word_bits: int) -> int:
     return (value + half) % (1 << word_bits) - half
 
 
-def section_for(program: IntegerProgram, cycle_min: np.ndarray, cycle_max: np.ndarray,
+def section_for(program: IntegerProgram, cycle_min: np.ndarray | None, cycle_max: np.ndarray | None,
                 turns: np.ndarray | None = None) -> Section:
     """The section of a model's cycle: the first angle state that turns on it (at phase 0, its
     turns per cycle from the cycle's ``turns``; one turn when not given), else the middle of the
     first swinging state's range. ``cycle_min``/``cycle_max`` in model units (angles in radians,
-    the full turn for one that turns, as the analysis reports them)."""
+    the full turn for one that turns, as the analysis reports them); with no cycle known (None),
+    the first angle state, else state 0 at level 0."""
     n = program.model_state_count
     angles = set(program.angle_states)
     swinging = tuple(i for i in range(n) if i not in angles)
+    if cycle_min is None or cycle_max is None:
+        cycle_min = np.zeros(n)
+        cycle_max = np.where(np.isin(np.arange(n), program.angle_states), TURN, 0.0)
     low, high = np.asarray(cycle_min, dtype=float), np.asarray(cycle_max, dtype=float)
     for i in sorted(angles):
         whole = int(turns[i]) if turns is not None else (1 if high[i] - low[i] >= TURN * (1 - 1e-9)

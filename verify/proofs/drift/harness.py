@@ -59,9 +59,13 @@ class HarnessStatistics:
 
 
 def drift_section(design: Design) -> Section:
-    """The section the drift proof times the cycle by (the rule of ``gen/study/section.py``)."""
+    """The section the drift proof times the cycle by (the rule of ``gen/study/section.py``; a
+    design built without an analysis, as tests build bare maps, gets it with no cycle known)."""
+    program = design.plan.program
+    if design.analysis is None:
+        return section_for(program, None, None)
     cycle = design.analysis.cycle
-    return section_for(design.plan.program, cycle.state_min, cycle.state_max, cycle.turns)
+    return section_for(program, cycle.state_min, cycle.state_max, cycle.turns)
 
 
 def render_drift_harness(design: Design) -> str:
