@@ -112,7 +112,8 @@ class Section:
         return {"state": names[self.state], "kind": "phase" if self.angle else "level",
                 "level": self.integer_level(fraction_bits), "level_real": self.level,
                 "units": "turns" if self.angle else "state units",
-                "direction": "forward" if self.direction > 0 else "backward",
+                "direction": ("upward" if not self.angle else
+                              "forward" if self.direction > 0 else "backward"),
                 "turns_per_cycle": self.turns if self.angle else None,
                 "amplitude_states": [names[i] for i in self.swinging]}
 

@@ -19,10 +19,11 @@ def drift_lines(report: DriftReport) -> list[str]:
              f"  references: continuous cycle {report.continuous_period_steps:.6f} steps per "
              "cycle, float step map " + _maybe(report.step_map.period_steps, lambda v: f"{v:.6f}",
                                                "has no cycle at this step size"),
-             "  amplitudes (continuous / float step map): " + ", ".join(
-                 f"{n} {a:.6g} / {_number(b)}" for n, a, b in
-                 zip(names, report.continuous_amplitude, report.step_map.amplitude, strict=True)
-                 if a is not None) + _angles_note(report),
+             "  amplitudes (continuous / float step map): " + ("; ".join(part for part in (", ".join(
+                 f"{n} {a:.6g} / {_number(b)}" for n, a, b, rests in
+                 zip(names, report.continuous_amplitude, report.step_map.amplitude, report.resting,
+                     strict=True) if a is not None and not rests), _rest_note(report),
+                 _angles_note(report)) if part)),
              f"  section: {_section_text(report)}",
              f"  tolerances: amplitude {100 * report.tolerances.amplitude:g} %, period "
              f"{report.tolerances.period_ppm:g} ppm, phase drift "
@@ -46,8 +47,7 @@ def drift_lines(report: DriftReport) -> list[str]:
                          f"{run.cycle_length:,} steps, {run.crossings_per_cycle} crossings of the "
                          "section per turn")
         lines.append(f"    amplitude {'on the cycle' if run.horizon == 'unbounded' else 'at the end'}: "
-                     + ", ".join(
-            f"{n} {a:.6g}" for n, a in zip(names, run.amplitude, strict=True) if a is not None)
+                     + ", ".join(_run_amplitude(run, report))
             + _maybe(run.amplitude_error, lambda v: f"; worst error {100 * v:.4g} %"))
         if run.period_steps is not None:
             lines.append(f"    period {run.period_steps:.6f} steps: {run.period_error_ppm:+.4g} ppm "
@@ -147,6 +147,7 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int,
         "phase_drift_cycles_per_hour": run.phase_drift_cycles_per_hour,
         "return_spread": run.return_spread,
         "return_spread_is_bound": run.return_spread_bound,
+        "middle": run.middle,
         "crossings": run.crossings,
         "settled_crossings": run.settled_crossings,
         "integer_period_steps": run.integer_period_steps,
@@ -172,9 +173,26 @@ def _number(value: float | None) -> str:
     return "-" if value is None else f"{value:.6g}"
 
 
+def _rest_note(report: DriftReport) -> str:
+    rest = [f"{n} {0.5 * (lo + hi):.6g}" for n, lo, hi, rests, a in
+            zip(report.state_names, report.continuous_low, report.continuous_high, report.resting,
+                report.continuous_amplitude, strict=False) if rests and a is not None]
+    return f"at rest on the cycle (judged by level): {', '.join(rest)}" if rest else ""
+
+
+def _run_amplitude(run: DriftRun, report: DriftReport) -> list[str]:
+    parts = []
+    for i, (n, a) in enumerate(zip(report.state_names, run.amplitude, strict=True)):
+        if a is None:
+            continue
+        rests = report.resting[i] and i < len(run.middle) and run.middle[i] is not None
+        parts.append(f"{n} at {run.middle[i]:.9g}" if rests else f"{n} {a:.6g}")
+    return parts
+
+
 def _angles_note(report: DriftReport) -> str:
     turning = [n for n, a in zip(report.state_names, report.continuous_amplitude, strict=True) if a is None]
-    return f" ({', '.join(turning)}: angles, no amplitude)" if turning else ""
+    return f"{', '.join(turning)}: angles, no amplitude" if turning else ""
 
 
 def _section_text(report: DriftReport) -> str:

@@ -159,6 +159,7 @@ class DriftRun:
     equal_states: list[tuple[str, str]] = field(default_factory=list)
     cycle_turns: float | None = None
     return_spread_bound: bool = False
+    middle: list[float | None] = field(default_factory=list)  # each swinging state's mid-range
 
     @property
     def verdict(self) -> str:
@@ -206,6 +207,13 @@ class DriftReport:
     def verdict(self) -> str:
         """Decided by the runs from the model's initial state and the runtime corners only."""
         return "fail" if any(run.decides and run.reasons for run in self.runs) else "pass"
+
+    @property
+    def resting(self) -> list[bool]:
+        """Per model state: at rest on the continuous cycle (judged by its level, not its swing)."""
+        if not self.continuous_low:
+            return [False] * len(self.state_names)
+        return [bool(v) for v in resting(self.continuous_low, self.continuous_high)]
 
     @property
     def robustness(self) -> dict:
@@ -382,6 +390,8 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         return [None if i in angles else (r[high][i] - r[low][i]) / 2 * scales[i] for i in range(n)]
 
     amplitude, amplitude_first = swing("final_low", "final_high"), swing("first_low", "first_high")
+    middle = [None if i in angles else (r["final_high"][i] + r["final_low"][i]) / 2 * scales[i]
+              for i in range(n)]
     reasons: list[str] = []
     if exact and not _closes(stats.settle_state[:len(start.state)], stats.end_state, angles,
                              report.turns_together, word):
@@ -531,7 +541,7 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         steps_to_cycle=mu if exact else None, cycle_length=p if exact else None,
         crossings_per_cycle=crossings_per_cycle, phase_drift_cycles_per_hour=per_hour,
         decides=start.decides, equal_states=equal, cycle_turns=cycle_turns,
-        return_spread_bound=spread_bound)
+        return_spread_bound=spread_bound, middle=middle)
     if reasons and not start.decides:
         run.explanation = explain(run, names)
     return run
