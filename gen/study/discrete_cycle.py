@@ -49,7 +49,8 @@ class CycleTolerance:
 @dataclass(frozen=True)
 class SteppedCycle:
     """What a stepped map does from points on the continuous cycle. ``amplitude`` holds the half
-    range of each swinging state (the model states that are not angles), in model order."""
+    range of each swinging state (the model states that are not angles), in model order, and
+    ``middle`` the middle of its range (the level of a state at rest on the cycle)."""
 
     kept: bool
     verdict: str
@@ -57,6 +58,18 @@ class SteppedCycle:
     period_error_ppm: float | None
     amplitude: tuple[float, ...] | None
     amplitude_error: float | None
+    middle: tuple[float, ...] | None = None
+
+    def amplitude_shift(self, reference: SteppedCycle) -> float:
+        """The largest relative amplitude error of this cycle against another stepped cycle of the
+        same model (by the rule of ``gen/study/section.py``: swings relatively, the level of a
+        state at rest on the reference)."""
+        if not self.amplitude or not reference.amplitude:
+            return 0.0
+        a, m = np.asarray(self.amplitude), np.asarray(self.middle if self.middle else self.amplitude)
+        b, n = (np.asarray(reference.amplitude),
+                np.asarray(reference.middle if reference.middle else reference.amplitude))
+        return float(np.max(amplitude_errors(m - a, m + a, n - b, n + b)))
 
     def to_json(self) -> dict:
         return {"kept": self.kept, "verdict": self.verdict, "period_steps": self.period_steps,
@@ -115,7 +128,7 @@ def measure(step: Callable[[np.ndarray], np.ndarray], start: np.ndarray, steps: 
                f"keeps a cycle, but off by {error_ppm:+.0f} ppm in period and "
                f"{100 * amplitude_error:.2f} % in amplitude")
     return SteppedCycle(kept, verdict, period, error_ppm, tuple(float(a) for a in amplitude),
-                        amplitude_error)
+                        amplitude_error, tuple(float(v) for v in 0.5 * (high + low)))
 
 
 def _crossing_periods(values: np.ndarray, section: Section) -> np.ndarray:
