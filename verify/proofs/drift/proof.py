@@ -202,6 +202,7 @@ class DriftReport:
     turns_together: bool = False
     continuous_low: list[float] = field(default_factory=list)
     continuous_high: list[float] = field(default_factory=list)
+    equal_on_cycle: set[tuple[int, int]] = field(default_factory=set)  # equal on the designed cycle
 
     @property
     def verdict(self) -> str:
@@ -353,12 +354,44 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
         seconds=seconds, seed=None if only_nominal else seed, cycle_budget=cycle_budget,
         section=section, state_fraction_bits=bits, word_bits=program.word_bits,
         turns_together=turns_together(program),
-        continuous_low=[float(v) for v in low], continuous_high=[float(v) for v in high])
+        continuous_low=[float(v) for v in low], continuous_high=[float(v) for v in high],
+        equal_on_cycle=_equal_on_cycle(cycle.samples, program.angle_states))
     started = time.perf_counter()
     for start in starts:
         report.runs.append(_one_run(report, host, start, program.overflow))
+    nominal = report.runs[0]
+    for run in report.runs[1:]:
+        if run.explanation and nominal.reasons and _same_cycle(run, nominal):
+            run.explanation = ("the same integer cycle as the run from the model's initial state "
+                               "(same length, mean period and ranges): its reasons are that run's")
     seconds["runs"] = time.perf_counter() - started
     return report
+
+
+def _equal_on_cycle(samples: np.ndarray, angles: tuple[int, ...]) -> set[tuple[int, int]]:
+    """Pairs of model states (i < j) equal at every sample of the continuous cycle (angles modulo a
+    turn): a symmetric subspace the designed cycle itself lies on explains no finding."""
+    samples = np.asarray(samples, dtype=float)
+    n = samples.shape[0]
+    scale = float(np.max(np.abs(samples))) or 1.0
+    pairs = set()
+    for i in range(n):
+        for j in range(i + 1, n):
+            gap = samples[i] - samples[j]
+            if i in angles and j in angles:
+                gap = (gap + math.pi) % (2 * math.pi) - math.pi
+            elif i in angles or j in angles:
+                continue
+            if np.max(np.abs(gap)) <= 1e-9 * scale:
+                pairs.add((i, j))
+    return pairs
+
+
+def _same_cycle(run: DriftRun, other: DriftRun) -> bool:
+    """Both runs were judged on exact integer cycles of the same length, mean period and ranges."""
+    return (run.horizon == other.horizon == "unbounded" and run.cycle_length == other.cycle_length
+            and run.period_steps == other.period_steps and run.cycle_turns == other.cycle_turns
+            and run.amplitude == other.amplitude and run.middle == other.middle)
 
 
 def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str) -> DriftRun:
@@ -401,6 +434,8 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
 
     reference_ok = report.step_map.period_steps is not None
     swinging = list(section.swinging)
+    rest = resting([report.continuous_low[i] for i in swinging],
+                   [report.continuous_high[i] for i in swinging])
     final_low = [r["final_low"][i] * scales[i] for i in swinging]
     final_high = [r["final_high"][i] * scales[i] for i in swinging]
     versus_l0 = amplitude_errors(final_low, final_high, [report.continuous_low[i] for i in swinging],
@@ -414,8 +449,9 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
                        "or choose a higher-order integrator")
     where = "on the integer cycle" if exact else "at the end"
     for label, errors in (("the continuous cycle", versus_l0), ("the float step map", versus_l1)):
-        bad = [f"{names[i]} {amplitude[i]:.6g} ({100 * error:.3g} % off)"
-               for i, error in zip(swinging, errors, strict=True) if error > tol.amplitude]
+        bad = [(f"{names[i]} at rest at {middle[i]:.6g}" if rests else f"{names[i]} {amplitude[i]:.6g}")
+               + f" ({100 * error:.3g} % off)"
+               for i, error, rests in zip(swinging, errors, rest, strict=True) if error > tol.amplitude]
         if bad and (reference_ok or label == "the continuous cycle"):
             reasons.append(f"amplitude {where} against {label}: {', '.join(bad)} (tolerance "
                            f"{100 * tol.amplitude:g} %)")
@@ -507,9 +543,7 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     if c["range_settled"]:
         reasons.append(f"an intermediate left the planned range on {c['range_settled']:,} steps "
                        f"{'of the integer cycle' if exact else 'after settling'}")
-    moving = [i for i, rests in zip(swinging, resting([report.continuous_low[i] for i in swinging],
-                                                      [report.continuous_high[i] for i in swinging]),
-                                    strict=True) if not rests]
+    moving = [i for i, rests in zip(swinging, rest, strict=True) if not rests]
     if any(amplitude[i] > 2 * report.continuous_amplitude[i] for i in moving):
         reasons.append("the orbit grew to more than twice the cycle's amplitude")
     returns = report.step_map.reached[start.name]
@@ -525,7 +559,8 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         "outside_planned_range": {"count": c["range_steps"], "first_step": c["range_first"] or None,
                                   "after_settling": c["range_settled"]},
     }
-    equal = [(names[i], names[j]) for i, j in stats.equal_pairs if j < len(names)]
+    equal = [(names[i], names[j]) for i, j in stats.equal_pairs
+             if j < len(names) and (i, j) not in report.equal_on_cycle]
     run = DriftRun(
         start=start, amplitude=amplitude, amplitude_first=amplitude_first,
         amplitude_error=plain_number(max(versus_l0, default=0.0)),
