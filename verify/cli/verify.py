@@ -18,6 +18,7 @@ from orbitfix.verify.cli.options import (
     add_cycle_tolerances,
     add_fixed_point_options,
     add_model_arguments,
+    add_trim_option,
     model_from_args,
     name_and_value,
     parse_box,
@@ -37,6 +38,8 @@ def register(verbs: Any) -> None:
                                              "its long-run drift within tolerance")
     add_model_arguments(parser)
     add_fixed_point_options(parser)
+    add_trim_option(parser, "verifies the trimmed design (give the same --trim to gen for "
+                            "--sources)")
     parser.add_argument("--sources", type=Path, metavar="DIR",
                         help="verify NAME.h and NAME.c already in DIR instead of generating them")
     parser.add_argument("--states", type=whole(1), default=1_000_000, metavar="N",
@@ -103,6 +106,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         design_json,
         design_lines,
         start_path_lines,
+        trim_json,
+        trim_lines,
     )
     from orbitfix.verify.report.drift import drift_json, drift_lines
     from orbitfix.verify.report.host import host_fields, host_lines
@@ -116,6 +121,12 @@ def run(args: argparse.Namespace, partial: dict) -> int:
                          f"{drift_steps:.3g} steps, beyond the drift run's step counter (below 2^63): "
                          "give fewer hours")
     built = design(model)
+    trim = None
+    if args.trim:
+        from orbitfix.gen.study.trim import trim_design
+
+        built, trim = trim_design(built)
+        partial["trim"] = trim_json(trim)
     partial.update(design_json(built))
     if built.plan.program.angle_states and not args.skip_drift:
         raise UnsupportedError(NO_ANGLES)
@@ -158,8 +169,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     if args.json:
         print(json_text(passed, {**partial, "caution": CAUTION}))
         return 0 if passed else 1
-    lines = (design_lines(built) + start_path_lines(start) + dead_zone_lines(zones, landed)
-             + host_lines(outcome))
+    lines = (design_lines(built) + (trim_lines(trim) if trim else []) + start_path_lines(start)
+             + dead_zone_lines(zones, landed) + host_lines(outcome))
     if drift is not None:
         lines += ["", *drift_lines(drift)]
     elif not args.skip_drift:
