@@ -23,9 +23,19 @@ NEIGHBOURHOOD_LSB = 2  # the brute force measures the trim's pick and this many 
 
 
 def naive_period(program, start, level: int, budget: int = 40_000) -> Fraction | None:
-    """The exact mean period of the orbit from ``start``: a plain golden trajectory, its cycle by
-    the naive search, the upward crossings of ``level`` (x_k < level <= x_k+1) counted on it."""
-    rows = golden.run(program, np.asarray(start, dtype=np.int64), budget)
+    """The exact mean period of the orbit from ``start``: a plain golden trajectory, one step at a
+    time until a state repeats, its cycle by the naive search, the upward crossings of ``level``
+    (x_k < level <= x_k+1) counted on it."""
+    state = np.asarray(start, dtype=np.int64).reshape(-1, 1)
+    rows, seen = [state[:, 0]], {tuple(state[:, 0].tolist())}
+    while len(rows) <= budget:
+        state = golden.step(program, state)
+        rows.append(state[:, 0])
+        key = tuple(state[:, 0].tolist())
+        if key in seen:
+            break
+        seen.add(key)
+    rows = np.array(rows)
     entry, period = brute_force_cycle(rows)
     first = rows[entry:entry + period + 1, 0]
     turns = int(np.sum((first[:-1] < level) & (first[1:] >= level)))
