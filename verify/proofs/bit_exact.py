@@ -86,6 +86,7 @@ class SanitizedRun:
     """The comparison repeated on a build under the undefined-behaviour sanitizer."""
 
     level: str  # the optimisation flag of the build
+    compiler: str
     states: int
     steps: int
     seconds: float
@@ -301,8 +302,8 @@ def _check_ramps(program: IntegerProgram, host: HostModule, ramps: tuple[Ramp, .
 
 
 def compare_sanitized(program: IntegerProgram, executable: str, level: str, initial: np.ndarray,
-                      typical: np.ndarray, states: int, steps: int,
-                      seed: int = SEED) -> tuple[SanitizedRun, Mismatch | None]:
+                      typical: np.ndarray, states: int, steps: int, seed: int = SEED,
+                      compiler: str = "cc") -> tuple[SanitizedRun, Mismatch | None]:
     """The stand-alone sanitized build (``host_build.build_sanitized_program``) on ``states``
     random states (drawn as in the main proof, the traced step too) and ``steps`` steps from its
     own init state, every value against golden. Undefined behaviour stops the program: its report
@@ -319,16 +320,16 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
         text = done.stderr.decode(errors="replace").strip().splitlines()
         found = [line for line in text if "runtime error" in line] or text[-3:] or [
             f"exit code {done.returncode}"]
-        return SanitizedRun(level, states, steps, time.perf_counter() - started,
+        return SanitizedRun(level, compiler, states, steps, time.perf_counter() - started,
                             undefined="\n".join(found[:3])), None
     out = np.frombuffer(done.stdout, dtype=np.int32).astype(np.int64)
     sizes = [n, states * n, traced * n, traced * length, steps * n]
     if out.size != sum(sizes):
         raise ValueError(f"the sanitized program wrote {out.size} values, not {sum(sizes)}")
     init, stepped, traced_next, traces, record = np.split(out, np.cumsum(sizes)[:-1])
-    run = SanitizedRun(level, states, steps, 0.0, None)
+    run = SanitizedRun(level, compiler, states, steps, 0.0, None)
     units = state_units(program)
-    part = f"sanitized build {level}"
+    part = f"sanitized build {compiler} {level}"
     mismatch = None
     if not np.array_equal(init, initial):
         mismatch = Mismatch(part=part, step=0, state_before=[], expected=[int(v) for v in initial],
