@@ -215,3 +215,14 @@ def test_gen_refuses_a_plan_file_beside_a_fixed_point_option(capsys, tmp_path):
     err = refused(["gen", "vanderpol", "--plan", str(plan_file), "--word", "32", "-o",
                    str(tmp_path / "c")], capsys)
     assert "leave out --word" in err
+
+
+def test_trim_refuses_an_orbit_that_does_not_close_within_its_budget(vanderpol_design):
+    """32-bit Van der Pol's orbit from its initial state closes after about 12,000 steps (verify's
+    drift test finds its 2,000-step cycle from step 10,191); with a budget of 500 the trim has no
+    exact period and must say so rather than guess."""
+    from orbitfix.gen.errors import UnsupportedError
+    from orbitfix.gen.study.trim import trim_design
+
+    with pytest.raises(UnsupportedError, match="does not close into a cycle within 500 steps"):
+        trim_design(vanderpol_design, budget=500)
