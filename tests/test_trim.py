@@ -126,6 +126,13 @@ def test_the_trimmed_design_carries_its_constants_into_the_c(vanderpol_16_trim):
     assert trimmed.plan.program.fingerprint() in header
     for change in record.changed:
         assert str(change.new) in source
+    # the report shows both exact periods, the granularity and every constant old -> new
+    from orbitfix.verify.report.design import trim_lines
+
+    text = "\n".join(trim_lines(record))
+    assert "+1250.0 ppm" in text and "+0.0 ppm" in text and f"{record.granularity_ppm:.3g} ppm" in text
+    for change in record.changed:
+        assert f"{change.old:>12} -> {change.new:<12}" in text
     # only the step constants moved: every other operation is the untrimmed one
     moved = {c.index for c in record.changed}
     for i, (a, b) in enumerate(zip(built.plan.program.ops, trimmed.plan.program.ops, strict=True)):
@@ -248,3 +255,16 @@ def test_verify_trim_shrinks_the_drift_reports_period_error(capsys):
     stored = {c["value_index"]: c["stored"] for c in report["formats"]["constants"]}
     assert trim["changed"] and all(stored[c["value_index"]] == c["new"] for c in trim["changed"])
     assert report["trimmed"].startswith("Period trimmed")
+
+
+@pytest.mark.slow
+def test_trim_refuses_to_move_the_step_further_than_the_plan_was_sized_for(monkeypatch,
+                                                                         vanderpol_16_trim):
+    """16-bit Van der Pol needs about +650 ppm of step; with the reach cut to 100 ppm the trim
+    must refuse and say what to do instead."""
+    from orbitfix.gen.errors import UnsupportedError
+    from orbitfix.gen.study import trim
+
+    monkeypatch.setattr(trim, "MOST_STEP_CHANGE", 1e-4)
+    with pytest.raises(UnsupportedError, match="raise the loop rate or the word size"):
+        trim.trim_design(vanderpol_16_trim[0])

@@ -23,9 +23,12 @@ vectorised golden run, and the window moves while its best lies on an edge. When
 near, the whole way from the untrimmed plan to it is measured: the orbit locks onto lattice cycles
 of whole steps (16-bit Van der Pol: 667, 666.5, 2000/3 or 666 steps per period), so the period is
 a staircase in the step constant, not the smooth 1/h, and the best shift can lie short of the
-guess. The granularity is what one LSB of the lead constant does to the step (1e6 / lead
-constant, in ppm), the period's first-order change per LSB; locking makes the reachable periods
-coarser than that, and the record lists every error met.
+guess. A trim moves the step by at most MOST_STEP_CHANGE: the plan's ranges and sure bounds were
+sized at the planned step, with a margin far wider than that.
+
+The granularity is what one LSB of the lead constant does to the step (1e6 / lead constant, in
+ppm), the period's first-order change per LSB; locking makes the reachable periods coarser than
+that, and the record lists every error met.
 """
 
 from __future__ import annotations
@@ -42,12 +45,14 @@ from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.progress import tell
 
 TRIM_BUDGET_STEPS = 200_000  # golden steps allowed for the orbit to close into its exact cycle
 WINDOW_LSB = 3               # variants either side of the guess, in LSBs of the lead constant
 MOST_ROUNDS = 4              # windows measured after the first guess, at most
 MOST_SPAN_LSB = 48           # a guess this near is searched all the way from the untrimmed plan
+MOST_STEP_CHANGE = 0.01      # the largest trim of the step: the plan's ranges were sized at its step
 
 NO_ANGLES = ("--trim does not handle models with angle states (phases) yet: it times the rhythm by "
              "crossings of a state that swings rather than turns; leave out --trim")
@@ -173,7 +178,7 @@ def scaled_constants(program: IntegerProgram, carriers: tuple[int, ...], lead: i
     """Every step constant scaled by lead_value / (the lead's stored value), each rounded in its
     own format by the house rule (ties to even, as gen/program/quantisation.py)."""
     ratio = Fraction(lead_value, program.ops[lead].constant)
-    return {i: round(program.ops[i].constant * ratio) for i in carriers}
+    return {i: quantise(program.ops[i].constant * ratio, 0) for i in carriers}
 
 
 def section_level(built: Design) -> int:
@@ -283,16 +288,23 @@ def trim_design(built: Design, budget: int = TRIM_BUDGET_STEPS,
                                "(no crossing of the section on its cycle); there is no period to "
                                "trim")
     guess = round(lead_stored * before.mean / Fraction(wanted)) - lead_stored
+    reach = int(MOST_STEP_CHANGE * abs(lead_stored))
+    if abs(guess) > reach:
+        raise UnsupportedError(
+            f"the integer orbit's period is {error(0):+,.0f} ppm off the wanted cycle; trimming it "
+            f"would move the step by more than {100 * MOST_STEP_CHANGE:g} %, beyond what the plan's "
+            "ranges were sized for: raise the loop rate or the word size (plan --search finds the "
+            "cheapest that keeps the cycle) instead of trimming")
     low, high = guess - window, guess + window
     if abs(guess) <= MOST_SPAN_LSB:  # the orbit locks, so the way from 0 to the guess counts too
         low, high = min(low, -window), max(high, window)
-    measure(list(range(low, high + 1)))
+    measure(list(range(max(low, -reach), min(high, reach) + 1)))
     for _ in range(MOST_ROUNDS):
         best = _best(measured, error)
         if best not in (low, high) or error(best) == 0:
             break
         low, high = (best - 2 * window, best) if best == low else (best, best + 2 * window)
-        measure(list(range(low, high + 1)))
+        measure(list(range(max(low, -reach), min(high, reach) + 1)))
     best = _best(measured, error)
     trimmed = _trimmed_plan(built.plan, scaled_constants(program, carriers, lead, lead_stored + best))
     changed = tuple(ChangedConstant(i, program.ops[i].note, _constant_format(built.plan, i),

@@ -105,6 +105,10 @@ def run(args: argparse.Namespace, partial: dict) -> int:
                  *integrator_lines(built, studies, tolerance)]
         if trim is not None:
             lines += ["", *trim_lines(trim)]
+            if trim.changed:
+                lines.append("  (the constants' rounding above includes the trim's deliberate change "
+                             "of the step; the integrator rows are each integrator's own untrimmed "
+                             "plan)")
         if found is not None:
             lines += ["", *search_lines(found)]
         print("\n".join(lines))
