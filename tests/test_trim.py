@@ -268,3 +268,19 @@ def test_trim_refuses_to_move_the_step_further_than_the_plan_was_sized_for(monke
     monkeypatch.setattr(trim, "MOST_STEP_CHANGE", 1e-4)
     with pytest.raises(UnsupportedError, match="raise the loop rate or the word size"):
         trim.trim_design(vanderpol_16_trim[0])
+
+
+def test_verify_sources_written_with_trim_asks_for_trim(capsys, tmp_path, vanderpol_design):
+    """C whose banner says it was trimmed is not verified against the untrimmed design; the
+    message says to give --trim (the banner line is seeded here, the check reads only it)."""
+    from orbitfix.gen.c.emit import render_model
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.gen.pipeline import design
+
+    built = design(load_model("vanderpol"))
+    for name, text in render_model(built.model, built.timing, built.integrator, built.plan).items():
+        (tmp_path / name).write_text(text.replace(" * Integrator", " * Period trimmed: seeded.\\n"
+                                                  " * Integrator", 1))
+    err = refused(["verify", "vanderpol", "--sources", str(tmp_path), "--skip-drift", "--states",
+                   "10", "--steps", "10"], capsys)
+    assert "give --trim" in err

@@ -115,6 +115,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
 
     model = model_from_args(args)
     partial["model"] = model.name
+    if args.sources is not None and not args.trim:
+        refuse_trimmed_sources(args.sources, model.name)
     drift_steps = args.hours * 3600 * model.rhythm.loop_hz
     if not args.skip_drift and drift_steps >= MAX_DRIFT_STEPS:
         raise InputError(f"--hours {args.hours:g} at the model's {model.rhythm.loop_hz:g} Hz loop is "
@@ -191,3 +193,18 @@ def parse_start(item: str) -> dict[str, float]:
             raise InputError(f"--start '{item}' gives the state '{name}' twice")
         start[name] = value
     return start
+
+
+def refuse_trimmed_sources(folder: Path, model_name: str) -> None:
+    """C that ``gen --trim`` wrote says so in its banner; verifying it against the untrimmed design
+    could only fail on its step constants, so say what to give instead."""
+    from orbitfix.gen.c.naming import CNames
+
+    source = folder / CNames(model_name).source
+    try:
+        trimmed = "Period trimmed" in source.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError):
+        return  # reading it is the proof's own job, with its own message
+    if trimmed:
+        raise InputError(f"--sources: {source} was written by 'gen --trim' (its step constants are "
+                         "trimmed); give --trim to verify it against the trimmed design")
