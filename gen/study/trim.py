@@ -16,6 +16,10 @@ golden and by the C emitter alike, so bit-exactness holds by construction. The r
 constants stand for (``op.real``) are left as they were: the float step map (L1) and the planning
 box keep the untrimmed step.
 
+The period trimmed is the one from the model's initial state, with any runtime parameters at their
+values (the start the firmware's init sets, and the drift proof's deciding run); starts that end on
+another lattice cycle may keep another mean period.
+
 How: the ratio is expressed in LSBs of the lead constant (the step constant with the largest
 stored value, so the finest relative step). The untrimmed orbit's exact period gives the first
 guess (the period in steps goes as 1/h); the shifts round it are measured, all variants in one
