@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import math
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from orbitfix.gen.errors import InputError
@@ -84,6 +85,15 @@ def add_fixed_point_options(parser: argparse.ArgumentParser) -> None:
                        help="what a result outside the word does (default saturate)")
 
 
+def add_trim_option(parser: argparse.ArgumentParser, what: str) -> None:
+    """--trim: move the step constants by whole LSBs so the integer orbit's exact period matches
+    the wanted cycle as closely as the lattice allows (gen/study/trim.py)."""
+    parser.add_argument("--trim", action="store_true",
+                        help="trim the period: move the step constants by whole LSBs (formats kept) "
+                             "so the integer orbit's exact mean period from the initial state "
+                             f"matches the wanted cycle as closely as the lattice allows; {what}")
+
+
 def add_cycle_tolerances(parser: argparse.ArgumentParser, against: str) -> Any:
     """--max-period-error and --max-amplitude-error, one meaning and one sign on every verb."""
     group = parser.add_argument_group(f"how far the stepped cycle may stray from {against}")
@@ -104,6 +114,13 @@ def add_fan_out_options(parser: argparse.ArgumentParser, what: str) -> None:
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help=f"run {what} on the Dask cluster whose scheduler is at ADDRESS "
                              "(e.g. tcp://10.0.0.5:8786) instead of local processes")
+
+
+def add_junit_option(parser: argparse.ArgumentParser) -> None:
+    """``--junit FILE``: also write the checks as JUnit XML, for CI systems (see main.py)."""
+    parser.add_argument("--junit", type=Path, metavar="FILE",
+                        help="also write one JUnit XML test case per check to FILE, for CI "
+                             "systems (written when the run fails or stops too)")
 
 
 def model_from_args(args: argparse.Namespace) -> Model:
