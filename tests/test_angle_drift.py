@@ -20,7 +20,13 @@ from orbitfix.gen.study.discrete_cycle import integer_cycle
 from orbitfix.gen.study.section import Section, section_for, turns_together, wrap_word
 from orbitfix.gen.study.start_path import check_start_path, plan_warnings
 from orbitfix.verify.cli.main import main
-from orbitfix.verify.proofs.drift import build_drift_module, harness_statistics, run_drift
+from orbitfix.verify.proofs.drift import (
+    build_drift_module,
+    choose_starts,
+    given_starts,
+    harness_statistics,
+    run_drift,
+)
 from orbitfix.verify.proofs.drift.harness import crossing_time, drift_section
 
 HOURS = 1.0
@@ -169,6 +175,16 @@ def test_the_stepped_cycle_study_times_a_phase_model_per_turn(fin) -> None:
                             turns=cycle.turns)
     assert stepped.kept and stepped.period_steps == pytest.approx(2**32 / _increment(fin), rel=1e-9)
     assert len(stepped.amplitude) == 2  # r and r_dot only
+
+
+def test_starts_treat_a_phase_as_an_angle(fin) -> None:
+    # A quarter turn is pi/2 radians (and so is 2 pi + pi/2): held in turns, 2**30 of a 32-bit word.
+    quarter, again = given_starts(fin, ({"theta": math.pi / 2}, {"theta": 2 * math.pi + math.pi / 2}))
+    assert quarter[0] == again[0] == 1 << 30
+    starts, _ = choose_starts(fin)
+    near = next(s for s in starts if s.name == "near saturation")
+    assert near.state[0] == fin.plan.initial_state[0]  # a phase wraps: it has no limit to come near
+    assert near.state[1] > 0.98 * fin.plan.program.word_max  # r does
 
 
 def _forced():
