@@ -88,6 +88,17 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
     }
 
 
+def render_units(model: Model, timing: Timing, integrator: Integrator,
+                 plan: FixedPointPlan) -> dict[str, str]:
+    """``NAME_units.h``: macros between real values and each state's and runtime parameter's
+    stored integers. They expand to floating point, so they live apart from ``NAME.h``: include
+    them where constants are written (they fold at compile time) or where floating point is at
+    hand, never in the step."""
+    names = CNames(model.name)
+    context = _context(model, timing, integrator, plan, traced=False)
+    return {names.units_header: environment().get_template("units.h.j2").render(context)}
+
+
 def _dead_zone_text(zone) -> dict:
     return {"where": ", ".join(f"{n} = {v:.6g}" for n, v in zip(zone.state_names, zone.equilibrium,
                                                                  strict=True)),
@@ -214,9 +225,12 @@ def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dic
         reals += [p.value, p.value]
     return [{"field": names.field(name), "meaning": comment_text(meaning),
              "initial": int_literal(v, program.word_bits), "initial_real": real,
-             "format": f"Q{program.word_bits - f}.{f}"}
-            for name, meaning, v, real, f in zip(program.state_names, meanings, plan.initial_state,
-                                                 reals, program.state_fraction_bits, strict=True)]
+             "format": f"Q{program.word_bits - f}.{f}", "fraction_bits": f,
+             "macro": names.macro(name), "model_state": i < program.model_state_count,
+             "angle": i in program.angle_states}
+            for i, (name, meaning, v, real, f) in enumerate(zip(
+                program.state_names, meanings, plan.initial_state, reals,
+                program.state_fraction_bits, strict=True))]
 
 
 def _tables(program: IntegerProgram, kept: set[int]) -> tuple[list[dict], dict[int, str]]:

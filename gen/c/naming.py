@@ -178,6 +178,15 @@ class CNames:
         return f"{self.macro_prefix}_TRACE_H_INCLUDED"
 
     @property
+    def units_header(self) -> str:
+        """Macros between real values and stored integers (floating point: kept out of NAME.h)."""
+        return f"{self.prefix}_units.h"
+
+    @property
+    def units_guard(self) -> str:
+        return f"{self.macro_prefix}_UNITS_H_INCLUDED"
+
+    @property
     def selftest_header(self) -> str:
         """The self-test pair: the first steps' expected states, checked on the target."""
         return f"{self.prefix}_selftest.h"
