@@ -1,5 +1,5 @@
-"""The ``gen`` verb: write the model's fixed-point C (NAME.h, NAME.c), and optionally its integer
-program as JSON.
+"""The ``gen`` verb: write the model's fixed-point C (NAME.h, NAME.c) and its self-test
+(NAME_selftest.h, NAME_selftest.c), and optionally its integer program as JSON.
 
 With --plan FILE the fixed-point choice comes from what ``plan --search --json`` chose; with --trim
 the step constants are trimmed first (gen/study/trim.py).
@@ -29,7 +29,7 @@ if TYPE_CHECKING:
 
 def register(verbs: Any) -> None:
     """Add the ``gen`` verb to the command line."""
-    parser = verbs.add_parser("gen", help="write NAME.h and NAME.c for the model")
+    parser = verbs.add_parser("gen", help="write NAME.h and NAME.c for the model, and its self-test")
     add_model_arguments(parser, json_help="print one JSON object (ok, the files written with their "
                                           "SHA-256, the formats, the program's fingerprint)")
     add_fixed_point_options(parser)
@@ -49,6 +49,7 @@ def register(verbs: Any) -> None:
 def run(args: argparse.Namespace, partial: dict) -> int:
     """Design, render and write the files; print what was written and the caution."""
     from orbitfix.gen.c.emit import render_model
+    from orbitfix.gen.c.selftest import render_selftest
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.safety import CAUTION
     from orbitfix.gen.study.dead_zones import dead_zones
@@ -74,7 +75,9 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     stepped, warnings = plan_warnings(built, start, tolerance)
     partial["start_path"] = start.to_json()
     zones = dead_zones(built)
-    texts = render_model(built.model, built.timing, built.integrator, built.plan, zones)
+    texts = {**render_model(built.model, built.timing, built.integrator, built.plan, zones),
+             **render_selftest(built.model, built.timing, built.integrator, built.plan,
+                               start.trajectory)}
     files = {args.output / name: text for name, text in texts.items()}
     if args.program_json:
         files[args.program_json] = json.dumps(built.plan.program.to_json(), indent=2) + "\n"
