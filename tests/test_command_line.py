@@ -192,15 +192,14 @@ def test_plan_refuses_a_non_positive_tolerance(capsys) -> None:
     assert code == 2 and "positive" in err
 
 
-def test_models_with_angle_states_generate_and_verify_but_say_drift_is_not_built(capsys,
-                                                                                 tmp_path) -> None:
+def test_models_with_angle_states_generate_and_verify_with_their_drift_test(capsys,
+                                                                            tmp_path) -> None:
     code, _, _ = run(capsys, "gen", "phase_amplitude", "-o", str(tmp_path))
     assert code == 0 and (tmp_path / "phase_amplitude.c").exists()
-    code, _, err = run(capsys, "verify", "phase_amplitude", "--states", "100", "--steps", "100")
-    assert code == 2 and "--skip-drift" in err
-    code, out, _ = run(capsys, "verify", "phase_amplitude", "--states", "2000", "--steps", "2000",
-                       "--skip-drift")
+    code, out, _ = run(capsys, "verify", "phase_amplitude", "--states", "100", "--steps", "100",
+                       "--hours", "1")
     assert code == 0 and "bit-exact" in out
+    assert "theta passing the phase 0 turn forwards" in out and "horizon unbounded" in out
 
 
 @pytest.mark.slow

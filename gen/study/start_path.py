@@ -172,16 +172,14 @@ def _half_ranges(built: Design, floats: np.ndarray) -> np.ndarray:
 def plan_warnings(built: Design, path: StartPath, tolerance: CycleTolerance | None = None,
                   ) -> tuple[SteppedCycle | None, list[str]]:
     """What ``gen`` warns about the plan it writes: the start-up path's problems, and the integer
-    map's cycle against the continuous one when it misses a tolerance (None for a model with
-    angle states, whose cycle the stepped-cycle study does not time)."""
+    map's cycle against the continuous one when it misses a tolerance (timed by the section rule of
+    ``gen/study/section.py``, so a phase model is timed per turn of its phase)."""
     tolerance = tolerance or CycleTolerance()
     found = path.problems()
-    if built.plan.program.angle_states:
-        return None, found
     cycle = built.analysis.cycle
     stepped = integer_cycle(built.plan.program, program_states(built.model, cycle.samples),
                             built.timing.steps_per_cycle, cycle.state_min, cycle.state_max,
-                            tolerance=tolerance)
+                            tolerance=tolerance, turns=cycle.turns)
     if not stepped.kept:
         found.append(f"the integer map {stepped.verdict} (tolerance {tolerance.period_ppm:g} ppm "
                      f"in period, {100 * tolerance.amplitude:g} % in amplitude): raise the loop rate "
