@@ -10,6 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from orbitfix.gen.analysis.limit_cycle import LimitCycle, find_limit_cycle
+from orbitfix.gen.analysis.near_rest import near_rest_starts
 from orbitfix.gen.analysis.summary import Analysis, analyse
 from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.model.definition import Model
@@ -66,7 +67,9 @@ def design(model: Model, analysis: Analysis | None = None) -> Design:
     timing = plan_timing(model, analysis.cycle.period)
     corners = corner_cycles(model)
     samples = np.hstack([analysis.cycle.samples, *(cycle.samples for _, cycle in corners)])
-    plan = plan_step(model, integrator, timing.step, samples, path_steps=start_path_steps(model))
+    near, _ = near_rest_starts(analysis)
+    plan = plan_step(model, integrator, timing.step, samples, path_steps=start_path_steps(model),
+                     extra_starts=np.stack([s.point for s in near], axis=1) if near else None)
     return Design(model=model, analysis=analysis, timing=timing, integrator=integrator, plan=plan,
                   corners=corners)
 
@@ -82,30 +85,33 @@ def start_path_steps(model: Model, cycles: float = START_PATH_CYCLES) -> int:
 
 
 def plan_step(model: Model, integrator: Integrator, step: float,
-              samples: np.ndarray, path_steps: int = 0) -> FixedPointPlan:
+              samples: np.ndarray, path_steps: int = 0,
+              extra_starts: np.ndarray | None = None) -> FixedPointPlan:
     """The one lower-then-plan path: the step of ``model`` at ``step`` (model time units) lowered
     to an integer program and planned from ``samples`` (shape (n_states, k), the model's states
     only) with the model's fixed-point request and its runtime parameters' ranges, and over the
     float step map's path of ``path_steps`` steps from every start (the initial state, the runtime
-    corners; see fixed_point.start_paths). A plan with a
+    corners, ``extra_starts``: the proof's starts near the unstable equilibria, shape (n_states, k);
+    see fixed_point.start_paths). A plan with a
     step constant that rounds to zero is refused (gen/program/plan_checks.py)."""
     request = model.fixed_point
     program = lower_step(model, integrator, step)
+    extra = 0 if extra_starts is None else np.shape(extra_starts)[1]
     if path_steps > 0:
-        _refuse_slow_path(model, len(program.ops), path_steps)
+        _refuse_slow_path(model, len(program.ops), path_steps, extra)
     plan = plan_fixed_point(program, samples, model.initial_state,
                             margin=request.margin, fraction_bits=request.fraction_bits,
                             word_bits=request.word_bits, rounding=request.rounding,
                             overflow=request.overflow, runtime=model.runtime_parameters,
-                            path_steps=path_steps)
+                            path_steps=path_steps, extra_starts=extra_starts)
     refuse_vanished_constants(plan, model.name, model.rhythm.loop_hz / model.rhythm.cycle_hz)
     return plan
 
 
-def _refuse_slow_path(model: Model, operations: int, path_steps: int) -> None:
+def _refuse_slow_path(model: Model, operations: int, path_steps: int, extra: int = 0) -> None:
     """Size the start-up path before it runs: the float step map over ``path_steps`` steps from
     every start, and golden beside it over the checked cycles. Refused beyond DESIGN_SECONDS."""
-    starts = 1 + 2 ** len(model.runtime_parameters)
+    starts = 1 + 2 ** len(model.runtime_parameters) + extra
     checked = path_steps * CHECKED_PATH_CYCLES / START_PATH_CYCLES
     work = (float_run("planning the start-up path", operations, path_steps, columns=2 * starts)
             + golden_run("checking it", operations, checked))

@@ -12,6 +12,7 @@ by default.
 from __future__ import annotations
 
 import re
+import shutil
 import subprocess
 from collections import Counter
 from dataclasses import dataclass
@@ -23,9 +24,10 @@ import pytest
 from orbitfix.gen.c.emit import render_model
 from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.pipeline import design
+from orbitfix.verify.proofs import host_check
 from orbitfix.verify.proofs.host_check import check_on_host
 from orbitfix.verify.report.host import host_fields, host_lines
-from orbitfix.verify.targets.host_build import CompileError, compiler
+from orbitfix.verify.targets.host_build import CompileError, compiler, sanitizing_compilers
 
 # Small enough that a mutant costs well under a second once built; every mutant that changes
 # behaviour is still caught at this size (the slow test shows it), so the default million is more.
@@ -221,6 +223,9 @@ def run_mutants(built, files, chosen: list[Mutant], tmp_path: Path) -> dict[str,
     return tally
 
 
+KILL_RATE_TITLE = "mutation kill rate, 16-bit Van der Pol, check_on_host with the C as --sources"
+
+
 def kill_rate_lines(tally: dict[str, Counter]) -> list[str]:
     lines = [f"{'kind':<24} {'mutants':>7} {'killed':>6} {'equivalent':>10}  how killed"]
     for kind, count in tally.items():
@@ -252,6 +257,8 @@ def test_a_sample_of_each_kind_is_caught_or_equivalent(subject, tmp_path) -> Non
         of_kind = [m for m in found if m.kind == kind]
         sample += [of_kind[len(of_kind) // 2], of_kind[-1]]
     tally = run_mutants(built, files, sample, tmp_path)
+    print(KILL_RATE_TITLE + " (a sample of each kind)")  # shown with -s (tests/bench/bench_mutations.py)
+    print("\n".join(kill_rate_lines(tally)))
     assert sum(c["killed"] for c in tally.values()) >= len(sample) - 2
 
 
@@ -262,7 +269,7 @@ def test_every_mutant_is_caught_or_shown_equivalent(subject, tmp_path, capsys) -
     found = mutants(files[names.source], names)
     tally = run_mutants(built, files, found, tmp_path)
     with capsys.disabled():
-        print("\nmutation kill rate, 16-bit Van der Pol, check_on_host with the C as --sources:")
+        print("\n" + KILL_RATE_TITLE)
         print("\n".join(kill_rate_lines(tally)))
     assert sum(c["killed"] + c["equivalent"] for c in tally.values()) == len(found)
 
@@ -304,10 +311,26 @@ def test_undefined_shift_that_passes_at_full_optimisation_is_caught(subject, tmp
     assert host_fields(outcome)["sanitized"][0]["undefined_behaviour"] == undefined[0]
 
 
+@pytest.mark.skipif(shutil.which("clang") is None, reason="clang is not installed")
+def test_the_undefined_shift_is_caught_by_clang_alone(subject, tmp_path, monkeypatch) -> None:
+    # The same fault under clang's sanitizer only: a compiler's folding is not the proof's blind spot.
+    built, files = subject
+    names = CNames(built.model.name)
+    old, new = UNDEFINED_SHIFT
+    (tmp_path / names.header).write_text(files[names.header])
+    (tmp_path / names.source).write_text(files[names.source].replace(old, new))
+    monkeypatch.setattr(host_check, "sanitizing_compilers", lambda: ("clang",))
+    outcome = check_on_host(built, tmp_path, states=STATES, steps=STATES)
+    assert not outcome.report.bit_exact
+    assert outcome.report.sanitized[0].compiler == "clang"
+    assert "shift" in (outcome.report.sanitized[0].undefined or "")
+
+
 def test_the_default_proof_is_clean_under_the_sanitizer(subject) -> None:
     built, _ = subject
     outcome = check_on_host(built, states=STATES, steps=STATES)
     assert outcome.report.bit_exact
-    assert [run.level for run in outcome.report.sanitized] == ["-O0", "-O2"]
+    assert [(run.compiler, run.level) for run in outcome.report.sanitized] == [
+        (cc, level) for cc in sanitizing_compilers() for level in ("-O0", "-O2")]
     assert all(run.undefined is None and run.states == STATES for run in outcome.report.sanitized)
     assert np.isfinite(sum(run.seconds for run in outcome.report.sanitized))

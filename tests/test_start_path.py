@@ -9,9 +9,11 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
+from orbitfix.gen.analysis.near_rest import near_rest_starts
 from orbitfix.gen.model.model_file import load_model
-from orbitfix.gen.pipeline import design, plan_step
+from orbitfix.gen.pipeline import design, plan_step, start_path_steps
 from orbitfix.gen.program import golden
+from orbitfix.gen.program.lowering import evaluate_real
 from orbitfix.gen.study.start_path import check_start_path, plan_warnings
 
 
@@ -98,3 +100,31 @@ def test_gen_warns_when_the_16_bit_orbit_runs_slow() -> None:
     assert any("ppm in period" in w for w in warnings)
     _, quiet = plan_warnings(design(model), check_start_path(design(model)))
     assert quiet == []
+
+
+def test_the_plan_covers_the_paths_from_the_starts_near_rest() -> None:
+    # The drift proof's starts near the unstable equilibrium are planned for: the float step map
+    # from each stays inside the plan's box over the planned steps.
+    built = design(load_model("vanderpol"))
+    near, _ = near_rest_starts(built.analysis)
+    assert len(near) == 3 and not any(np.allclose(s.offset, s.offset[0]) for s in near)
+    low, high = np.array(built.plan.box).T[:2]
+    program = built.plan.program
+    state = np.stack([s.point for s in near], axis=1)
+    for _ in range(start_path_steps(built.model)):
+        values = evaluate_real(program, state)
+        state = np.stack([values[i] for i in program.next_state])
+        assert np.all(state >= low[:2, None]) and np.all(state <= high[:2, None])
+
+
+def test_a_start_far_from_the_cycle_widens_the_box() -> None:
+    # The seeded fault for the test above: a start three times the cycle's size must widen the box,
+    # so a plan that ignored extra starts would be caught.
+    built = design(load_model("vanderpol"))
+    far = 3.0 * np.asarray(built.analysis.cycle.state_max, dtype=float).reshape(-1, 1)
+    plain = plan_step(built.model, built.integrator, built.timing.step, built.analysis.cycle.samples,
+                      path_steps=start_path_steps(built.model))
+    wider = plan_step(built.model, built.integrator, built.timing.step, built.analysis.cycle.samples,
+                      path_steps=start_path_steps(built.model), extra_starts=far)
+    assert wider.box[0][1] > 2.5 * plain.box[0][1] / 1.5
+    assert wider.signal_format.fraction_bits < plain.signal_format.fraction_bits

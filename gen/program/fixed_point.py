@@ -165,7 +165,8 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
                      margin: float = 2.0, fraction_bits: int | None = None,
                      word_bits: int = 32, rounding: str = "half-up",
                      overflow: str = "saturate", box_scale: float = 1.5,
-                     runtime: tuple[Parameter, ...] = (), path_steps: int = 0) -> FixedPointPlan:
+                     runtime: tuple[Parameter, ...] = (), path_steps: int = 0,
+                     extra_starts: np.ndarray | None = None) -> FixedPointPlan:
     """Plan formats for ``program``.
 
     samples : ndarray, shape (n_states, k) -- states on the cycle.
@@ -179,6 +180,9 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
     path_steps : int -- the box also covers the float step map's path over this many steps from
         every start the firmware uses (see :func:`start_paths`): a start-up transient that leaves
         the cycle's box (an amplitude settling from its initial value) is planned for too.
+    extra_starts : ndarray, shape (n_states, k) -- more starts whose paths the box covers (the
+        proof's starts near the unstable equilibria), model units, runtime parameters at their
+        values.
     """
     _check_choice("word size", word_bits, WORD_SIZES)
     _check_choice("rounding", rounding, ROUNDINGS)
@@ -193,7 +197,10 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
         samples[i], initial[i] = radians_to_turns(samples[i]), radians_to_turns(initial[i])
     nominal = [v for p in runtime for v in (p.value, p.value)]
     if path_steps > 0:
-        path = start_paths(program, np.concatenate([initial, nominal]), runtime, path_steps)
+        extra = np.zeros((n, 0)) if extra_starts is None else np.array(extra_starts, dtype=float)
+        for i in angles:
+            extra[i] = radians_to_turns(extra[i])
+        path = start_paths(program, np.concatenate([initial, nominal]), runtime, path_steps, extra)
         samples = np.hstack([samples, path[:n]])
     points = np.hstack([np.asarray(samples, dtype=float), np.reshape(initial, (-1, 1))])
     points = np.vstack([points, np.repeat(np.reshape(nominal, (-1, 1)), points.shape[1], axis=1)])
@@ -256,12 +263,16 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
                           box=tuple(zip(low.tolist(), high.tolist(), strict=True)))
 
 
-def start_points(initial: np.ndarray, runtime: tuple[Parameter, ...]) -> np.ndarray:
+def start_points(initial: np.ndarray, runtime: tuple[Parameter, ...],
+                 extra: np.ndarray | None = None) -> np.ndarray:
     """Every start the firmware can step from, shape (n_states + 2 * runtime, k): the model's
     initial state with each runtime parameter at its value, and, for every corner of the runtime
-    ranges, the parameters held at the corner and ramping from their value to the corner."""
+    ranges, the parameters held at the corner and ramping from their value to the corner; then
+    each column of ``extra`` (model states only) with the parameters at their values."""
     starts = [np.asarray(initial, dtype=float)]
     n = len(initial) - 2 * len(runtime)
+    if extra is not None:
+        starts += [np.concatenate([column, initial[n:]]) for column in np.asarray(extra).T]
     for corner in itertools.product(*((p.low, p.high) for p in runtime)):
         held = [v for c in corner for v in (c, c)]
         ramp = [v for p, c in zip(runtime, corner, strict=True) for v in (p.value, c)]
@@ -270,11 +281,11 @@ def start_points(initial: np.ndarray, runtime: tuple[Parameter, ...]) -> np.ndar
 
 
 def start_paths(program: IntegerProgram, initial: np.ndarray, runtime: tuple[Parameter, ...],
-                steps: int) -> np.ndarray:
+                steps: int, extra: np.ndarray | None = None) -> np.ndarray:
     """The float step map's (L1) states over ``steps`` steps from every start of
     :func:`start_points`, shape (n_states + 2 * runtime, k); angle states in turns. A path that
     stops being finite is cut where it does (the planner then refuses the box)."""
-    state = start_points(np.asarray(initial, dtype=float), runtime)
+    state = start_points(np.asarray(initial, dtype=float), runtime, extra)
     met = [state]
     with np.errstate(over="ignore", invalid="ignore"):  # a diverging path is cut just below
         for _ in range(steps):

@@ -3,8 +3,9 @@
 algorithm with the plain step); then the whole default ``verify vanderpol`` beside ``verify
 vanderpol --skip-drift`` (each in a fresh process with a cold build cache), with the drift proof
 judged on the exact integer cycle (now) and run for the full hours with no cycle search (before);
-and the steps each built-in takes from its initial state to reach its integer cycle. Prints
-figures; asserts nothing.
+and for every built-in the default ``verify`` beside ``verify --skip-drift``, the drift test's
+share, and the drift proof before (the full hours, no cycle search) beside now; and the steps each
+built-in takes from its initial state to reach its integer cycle. Prints figures; asserts nothing.
 
 Run: python tests/bench/bench_drift.py [hours] [--quick]   (default 24; --quick: 32-bit words only,
 0.01 h and 100,000 steps, small verify runs, Van der Pol only)
@@ -18,8 +19,9 @@ import sys
 import tempfile
 import time
 
-from quick_mode import arguments, pick
+from quick_mode import arguments, pick, quick
 
+from orbitfix.gen.errors import OrbitfixError
 from orbitfix.gen.model.model_file import builtin_names, load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.verify.proofs.drift import (
@@ -65,6 +67,7 @@ def main() -> None:
             print(f"    {run.start.name:<22} {run.seconds:6.2f} s  integer period "
                   f"{run.integer_period_steps} steps, entered at step {run.cycle_entered_at_step}")
     verify_side_by_side(hours)
+    verify_every_builtin(hours)
     steps_to_cycle()
 
 
@@ -96,6 +99,38 @@ def verify_side_by_side(hours: float) -> None:
     print(f"  drift proof alone, same host module: exact cycle {new_drift:.2f} s, full {hours:g} h "
           f"without cycle search (before) {old_drift:.2f} s; before, verify would take about "
           f"{(skip + old_drift) / skip:.1f}x --skip-drift (verdict then {before.verdict})")
+
+
+def verify_every_builtin(hours: float) -> None:
+    """Each built-in's default verify beside its --skip-drift run (fresh processes, cold caches),
+    the drift test's share, and the drift proof alone now against the full hours without cycle
+    search (before; full size only)."""
+    size = list(pick((), ("--states", "10000", "--steps", "10000")))
+    print(f"verify of every built-in ({hours:g} h; seconds; exit codes in brackets):")
+    print(f"  {'model':<16} {'whole':>9} {'skip-drift':>12} {'drift share':>11}  drift proof now / before")
+    for name in pick(builtin_names(), ("vanderpol",)):
+        whole, code = timed_verify("verify", name, "--hours", f"{hours:g}", *size)
+        skip, skip_code = timed_verify("verify", name, "--skip-drift", *size)
+        line = (f"  {name:<16} {whole:6.1f} ({code}) {skip:8.1f} ({skip_code}) "
+                f"{max(0.0, whole - skip) / whole:10.0%}")
+        if not quick():
+            line += "  " + _drift_now_and_before(name, hours)
+        print(line)
+
+
+def _drift_now_and_before(name: str, hours: float) -> str:
+    try:
+        built = design(load_model(name))
+        host = build_drift_module(built)
+        started = time.perf_counter()
+        run_drift(built, hours=hours, host=host)
+        now = time.perf_counter() - started
+        started = time.perf_counter()
+        run_drift(built, hours=hours, host=host, cycle_budget=1)
+        before = time.perf_counter() - started
+    except OrbitfixError as exc:
+        return f"not run: {exc}"[:90]
+    return f"{now:6.2f} s / {before:7.2f} s"
 
 
 def steps_to_cycle() -> None:

@@ -10,7 +10,13 @@ from pathlib import Path
 from typing import Any
 
 from orbitfix.gen.errors import InputError
-from orbitfix.verify.cli.options import add_fixed_point_options, add_model_arguments, model_from_args, number
+from orbitfix.verify.cli.options import (
+    add_fixed_point_options,
+    add_junit_option,
+    add_model_arguments,
+    model_from_args,
+    number,
+)
 
 TIMEOUT = number(0.05)
 
@@ -39,6 +45,7 @@ def register(verbs: Any) -> None:
                         help="also write the report and every received state to FILE (JSON); "
                              "a run that cannot finish is saved in the cache folder anyway")
     add_fixed_point_options(parser)
+    add_junit_option(parser)
     parser.set_defaults(handler=run)
 
 

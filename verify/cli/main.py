@@ -54,14 +54,16 @@ def main(argv: list[str] | None = None) -> int:
     try:
         with reporting(bar):
             if bar is None:
-                return args.handler(args, partial)
-            with contextlib.redirect_stdout(ClearingStream(sys.stdout, bar)):
-                return args.handler(args, partial)
+                code = args.handler(args, partial)
+            else:
+                with contextlib.redirect_stdout(ClearingStream(sys.stdout, bar)):
+                    code = args.handler(args, partial)
+        return _junit(args, partial, None, code)
     except OrbitfixError as exc:
         if bar is not None:
             bar.close()
             bar = None
-        return _fail(args, partial, exc)
+        return _junit(args, partial, exc, _fail(args, partial, exc))
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
@@ -72,6 +74,23 @@ def main(argv: list[str] | None = None) -> int:
     finally:
         if bar is not None:
             bar.close()
+
+
+def _junit(args: argparse.Namespace, partial: dict, exc: OrbitfixError | None, code: int) -> int:
+    """With --junit, write the checks as JUnit XML (after a failure too); returns the exit code,
+    2 if the file cannot be written."""
+    path = getattr(args, "junit", None)
+    if path is None:
+        return code
+    from orbitfix.verify.report.junit import write_junit
+
+    data = {"model": getattr(args, "model", "?"), **partial}
+    try:
+        write_junit(path, args.verb, data, None if exc is None else str(exc))
+    except OrbitfixError as failed:
+        print(f"orbitfix {args.verb}: {failed}", file=sys.stderr)
+        return max(code, 2)
+    return code
 
 
 def _fail(args: argparse.Namespace, partial: dict, exc: OrbitfixError) -> int:

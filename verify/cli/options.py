@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import math
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from orbitfix.gen.errors import InputError
@@ -104,6 +105,13 @@ def add_fan_out_options(parser: argparse.ArgumentParser, what: str) -> None:
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help=f"run {what} on the Dask cluster whose scheduler is at ADDRESS "
                              "(e.g. tcp://10.0.0.5:8786) instead of local processes")
+
+
+def add_junit_option(parser: argparse.ArgumentParser) -> None:
+    """``--junit FILE``: also write the checks as JUnit XML, for CI systems (see main.py)."""
+    parser.add_argument("--junit", type=Path, metavar="FILE",
+                        help="also write one JUnit XML test case per check to FILE, for CI "
+                             "systems (written when the run fails or stops too)")
 
 
 def model_from_args(args: argparse.Namespace) -> Model:

@@ -17,6 +17,7 @@ from orbitfix.verify.cli.options import (
     POSITIVE,
     add_cycle_tolerances,
     add_fixed_point_options,
+    add_junit_option,
     add_model_arguments,
     model_from_args,
     name_and_value,
@@ -69,6 +70,7 @@ def register(verbs: Any) -> None:
                        help="the starts to prove for (default: the cycle's box times 1.5)")
     proof.add_argument("--exclude-radius", type=NOT_NEGATIVE, default=0.0, metavar="R",
                        help="leave out states this close to an equilibrium (normalised units)")
+    add_junit_option(parser)
     parser.set_defaults(handler=run)
 
 

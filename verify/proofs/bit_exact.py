@@ -93,6 +93,7 @@ class SanitizedRun:
     """The comparison repeated on a build under the undefined-behaviour sanitizer."""
 
     level: str  # the optimisation flag of the build
+    compiler: str
     states: int
     steps: int
     seconds: float
@@ -368,8 +369,8 @@ def _check_ramps(program: IntegerProgram, host: HostModule, ramps: tuple[Ramp, .
 
 
 def compare_sanitized(program: IntegerProgram, executable: str, level: str, initial: np.ndarray,
-                      typical: np.ndarray, states: int, steps: int,
-                      seed: int = SEED) -> tuple[SanitizedRun, Mismatch | None]:
+                      typical: np.ndarray, states: int, steps: int, seed: int = SEED,
+                      compiler: str = "cc") -> tuple[SanitizedRun, Mismatch | None]:
     """The stand-alone sanitized build (``host_build.build_sanitized_program``) on ``states``
     random states (drawn as in the main proof, the traced step too) and ``steps`` steps from its
     own init state, every value and every count of saturated steps against golden. Undefined
@@ -389,7 +390,7 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
         text = done.stderr.decode(errors="replace").strip().splitlines()
         found = [line for line in text if "runtime error" in line] or text[-3:] or [
             f"exit code {done.returncode}"]
-        return SanitizedRun(level, states, steps, time.perf_counter() - started,
+        return SanitizedRun(level, compiler, states, steps, time.perf_counter() - started,
                             undefined="\n".join(found[:3])), None
     words = np.frombuffer(done.stdout, dtype=np.int32)
     sizes = [n, 1, states * n, states, traced * n, traced * length, traced, steps * n, steps]
@@ -399,9 +400,9 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
     init, stepped, traced_next, traces, record = (parts[i].astype(np.int64) for i in (0, 2, 4, 5, 7))
     init_count, stepped_counts, traced_counts, record_counts = (
         parts[i].view(np.uint32).astype(np.int64) for i in (1, 3, 6, 8))
-    run = SanitizedRun(level, states, steps, 0.0, None)
+    run = SanitizedRun(level, compiler, states, steps, 0.0, None)
     units = state_units(program)
-    part = f"sanitized build {level}"
+    part = f"sanitized build {compiler} {level}"
     mismatch = None
     if not np.array_equal(init, initial):
         mismatch = Mismatch(part=part, step=0, state_before=[], expected=[int(v) for v in initial],

@@ -14,6 +14,7 @@ from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.work_size import bit_exact_work, refuse_beyond_machine
 from orbitfix.verify.proofs.bit_exact import (
@@ -27,6 +28,7 @@ from orbitfix.verify.targets.host_build import (
     HostModule,
     build_host_module,
     build_sanitized_program,
+    sanitizing_compilers,
 )
 
 # Random states (and trajectory steps) the sanitized builds compare: each costs about as much as
@@ -112,19 +114,28 @@ def check_on_host(design: Design, sources_folder: Path | None = None, states: in
                              shipped_trace=lambda: _shipped_trace(design, sources, traced, harness),
                              ramps=ramps)
     if report.bit_exact and sanitized_states > 0:
+        _check_sanitized(report, plan.program, {**sources, **traced}, harness, initial,
+                         np.array(typical), min(sanitized_states, states), min(sanitized_states, steps))
+    return HostCheck(sources=origin, report=report, build_seconds=build_seconds,
+                     build_reused=host.reused, notes=notes)
+
+
+def _check_sanitized(report: BitExactReport, program: IntegerProgram, sources: dict[str, str],
+                     harness: str, initial: np.ndarray, typical: np.ndarray, states: int,
+                     steps: int) -> None:
+    """The comparison repeated under the undefined-behaviour sanitizer, with every sanitizing
+    compiler at every level; the first undefined operation or mismatch ends it."""
+    for cc in sanitizing_compilers():
         for level in SANITIZED_LEVELS:
             started = time.perf_counter()
-            executable = build_sanitized_program({**sources, **traced}, harness, level)
-            report.seconds[f"sanitized_build{level}"] = time.perf_counter() - started
-            run, mismatch = compare_sanitized(plan.program, str(executable), level, initial,
-                                              np.array(typical), min(sanitized_states, states),
-                                              min(sanitized_states, steps))
+            executable = build_sanitized_program(sources, harness, level, cc)
+            report.seconds[f"sanitized_build_{cc}{level}"] = time.perf_counter() - started
+            run, mismatch = compare_sanitized(program, str(executable), level, initial, typical,
+                                              states, steps, compiler=cc)
             report.sanitized.append(run)
             if mismatch is not None or run.undefined:
                 report.first_mismatch = mismatch
-                break
-    return HostCheck(sources=origin, report=report, build_seconds=build_seconds,
-                     build_reused=host.reused, notes=notes)
+                return
 
 
 STEP_VALUE = re.compile(r"^\s*const\s+int(?:16|32)_t\s+v(\d+)\s*=", re.M)

@@ -21,8 +21,8 @@ def host_fields(outcome: HostCheck) -> dict[str, Any]:
         "init_checked": report.init_checked,
         "setters_checked": report.setters_checked,
         "ramp_steps_compared": report.ramp_steps,
-        "sanitized": [{"flags": [run.level, *SANITIZE_FLAGS], "states_compared": run.states,
-                       "steps_compared": run.steps, "seconds": run.seconds,
+        "sanitized": [{"compiler": run.compiler, "flags": [run.level, *SANITIZE_FLAGS],
+                       "states_compared": run.states, "steps_compared": run.steps, "seconds": run.seconds,
                        "undefined_behaviour": run.undefined} for run in report.sanitized],
         "first_mismatch": mismatch.to_json() if mismatch else None,
         "sources": outcome.sources,
@@ -52,7 +52,7 @@ def host_lines(outcome: HostCheck) -> list[str]:
     for run in report.sanitized:
         verdict = (f"undefined behaviour: {run.undefined}" if run.undefined else
                    f"{run.states:,} states and {run.steps:,} steps compared")
-        lines.append(f"sanitized build ({run.level} {' '.join(SANITIZE_FLAGS)}): {verdict}"
+        lines.append(f"sanitized build ({run.compiler} {run.level} {' '.join(SANITIZE_FLAGS)}): {verdict}"
                      + _seconds(run.seconds))
     undefined = any(run.undefined for run in report.sanitized)
     if report.first_mismatch:

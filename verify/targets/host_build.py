@@ -34,9 +34,11 @@ STRICT_FLAGS = ("-std=c99", "-Wall", "-Wextra", "-Wconversion", "-Wsign-conversi
 OPTIMISE_FLAGS = ("-O2", "-fPIC")
 # A second opinion on every value: the same C under the undefined-behaviour sanitizer, which stops
 # the run at the first undefined operation (a shift of a negative value or by too much, a signed
-# overflow), at no optimisation and at full optimisation, so no compiler's folding can hide it.
+# overflow), at no optimisation and at full optimisation and with each of the two common compilers
+# found on the host, so no one compiler's folding can hide it.
 SANITIZE_FLAGS = ("-fsanitize=undefined", "-fno-sanitize-recover=undefined")
 SANITIZED_LEVELS = ("-O0", "-O2")
+SANITIZING_COMPILERS = ("gcc", "clang")
 HARNESS_MAIN = "ORBITFIX_HARNESS_MAIN"  # defined for the stand-alone sanitized program
 
 
@@ -75,6 +77,13 @@ def compiler() -> str:
 
 
 @functools.lru_cache(maxsize=8)
+def sanitizing_compilers() -> tuple[str, ...]:
+    """The compilers the sanitized builds use: each of SANITIZING_COMPILERS found on the host,
+    else the one host compiler."""
+    found = tuple(cc for cc in SANITIZING_COMPILERS if shutil.which(cc))
+    return found or (compiler(),)
+
+
 def _compiler_identity(cc: str) -> str:
     done = subprocess.run([cc, "--version"], capture_output=True, text=True, check=False)
     return done.stdout.splitlines()[0] if done.stdout else cc
@@ -112,12 +121,14 @@ def build_host_module(sources: dict[str, str], harness: str, header: str,
     return HostModule(ffi=module.ffi, lib=module.lib, folder=folder, reused=reused)
 
 
-def build_sanitized_program(sources: dict[str, str], harness: str, level: str) -> Path:
+def build_sanitized_program(sources: dict[str, str], harness: str, level: str,
+                            cc: str | None = None) -> Path:
     """The firmware and harness as a stand-alone program under the undefined-behaviour sanitizer
     at optimisation ``level`` (one of SANITIZED_LEVELS), with the strict flags. It reads states
     on its standard input and writes results on its standard output (see the harness's main);
-    any undefined operation stops it with a non-zero exit and the sanitizer's report."""
-    cc = compiler()
+    any undefined operation stops it with a non-zero exit and the sanitizer's report. ``cc`` is
+    the compiler (default the host compiler)."""
+    cc = cc or compiler()
     flags = (*STRICT_FLAGS, level, *SANITIZE_FLAGS, f"-D{HARNESS_MAIN}")
     digest = hashlib.sha256()
     for part in ("sanitized program", _compiler_identity(cc), " ".join(flags), harness):
@@ -137,7 +148,7 @@ def build_sanitized_program(sources: dict[str, str], harness: str, level: str) -
         shutil.rmtree(work, ignore_errors=True)
         raise ToolchainError(f"linking the sanitized host program failed with {cc}:\n"
                              f"{done.stderr.strip()}\ninstall the compiler's sanitizer runtime "
-                             "(Debian: apt-get install libubsan1 for gcc)")
+                             "(Debian: apt-get install libubsan1 for gcc; clang carries its own)")
     if folder.exists():
         shutil.rmtree(folder, ignore_errors=True)
     work.rename(folder)

@@ -10,6 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from orbitfix.gen.analysis.near_rest import OFFSET, SEED, near_rest_starts
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.lowering import evaluate_real
@@ -28,9 +29,6 @@ class Start:
     decides: bool = False  # True for the starts whose runs decide the verdict
 
 
-RANDOM_STARTS = 3  # random, asymmetric starts round each unstable equilibrium inside the cycle
-
-
 @dataclass(frozen=True)
 class StepMapReference:
     """The float step map (L1) run from the continuous cycle's point: period and amplitudes
@@ -45,59 +43,39 @@ class StepMapReference:
     reached: dict[str, bool]
 
 
-def choose_starts(design: Design, equilibrium_offset: float = 1e-3, seed: int = 1,
+def choose_starts(design: Design, equilibrium_offset: float = OFFSET, seed: int = SEED,
                   extra: tuple[dict[str, float], ...] = ()) -> tuple[list[Start], list[str]]:
     """The initial states of the drift runs, and notes on any that had to be left out.
 
-    The model's initial state decides the verdict; the others test robustness.
+    The model's initial state decides the verdict; the others test robustness. The starts near
+    the equilibria are the ones the plan covers (``gen/analysis/near_rest.py``; the planning box
+    holds the float step map's path from each); the start near the basin's edge and the one near
+    saturation probe beyond the planning box on purpose, so what they meet is a finding.
 
     equilibrium_offset : the typical distance from an equilibrium, as a fraction of each state's
-        range on the cycle (at least 4 LSB), so that the start can leave an unstable equilibrium
+        range on the cycle (at least 2 LSB), so that the start can leave an unstable equilibrium
         at all: a start only a few LSB away sits in the rounding's dead zone, where every increment
         rounds to nothing (that would be a finding about starting from rest, not about drift).
-    seed : of the random starts near the equilibria. Each state's offset has its own random sign
-        and a size between 0.5 and 1.5 times the typical distance, so the start leaves any
-        symmetric subspace of a network (where identical units hold equal states), which the
-        integer map would keep exactly.
+    seed : of the random starts near the equilibria (see near_rest_starts).
     extra : the user's starts, model units by state name (states not named keep their initial
         values); the names are checked by the caller.
     """
     plan = design.plan
     program = plan.program
-    fraction = plan.signal_format.fraction_bits
-    scale = 2.0 ** fraction
+    n = program.model_state_count
+    scale = 2.0 ** np.asarray(program.state_fraction_bits[:n], dtype=float)
     cycle = design.analysis.cycle
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
     centre, half = (low + high) / 2, (high - low) / 2
     word_max = program.word_max
-    n = program.model_state_count
     held = tuple(plan.initial_state[n:])  # runtime parameters stay at their nominal values
     starts = [Start("nominal", tuple(plan.initial_state), "the model's initial state", decides=True)]
-    notes: list[str] = []
-
-    inside = [e for e in design.analysis.equilibria
-              if np.all(e.state >= low) and np.all(e.state <= high)]
-    if not inside:
-        notes.append("no equilibrium lies inside the cycle's bounding box, so there is no run "
-                     "from near an equilibrium")
-    generator = np.random.default_rng(seed)
-    typical = np.maximum(np.round(equilibrium_offset * 2 * half * scale), 4)
-    for number, equilibrium in enumerate(inside, start=1):
-        where = ", ".join(f"{name} = {value:.4g}"
-                          for name, value in zip(program.state_names, equilibrium.state, strict=False))
-        if equilibrium.stable:
-            notes.append(f"the equilibrium at {where} is a {equilibrium.kind} of the continuous "
-                         "model, so starts near it are not expected to reach the cycle; they are "
-                         "left out")
-            continue
-        label = "near the equilibrium" if len(inside) == 1 else f"near equilibrium {number}"
-        for k in range(1, RANDOM_STARTS + 1):
-            signs = generator.choice((-1.0, 1.0), size=n)
-            sizes = generator.uniform(0.5, 1.5, size=n)
-            point = np.round(equilibrium.state * scale) + np.round(signs * sizes * typical)
-            starts.append(Start(f"{label} ({k})", _fit(point, word_max) + held,
-                                f"the {equilibrium.kind} at {where} plus a random asymmetric offset "
-                                f"of about {equilibrium_offset:g} of the cycle's range (seed {seed})"))
+    near, notes = near_rest_starts(design.analysis, equilibrium_offset, seed)
+    for start in near:
+        step = np.round(start.offset * scale)
+        step = np.where(np.abs(step) < 2, 2 * np.sign(start.offset), step)
+        point = np.round((start.point - start.offset) * scale) + step
+        starts.append(Start(start.name, _fit(point, word_max) + held, start.why))
 
     corner = centre + 0.95 * plan.margin * half
     starts.append(Start("near the basin edge", _fit(np.round(corner * scale), word_max) + held,
