@@ -184,3 +184,19 @@ def test_the_sanitized_build_compares_the_count_too(vanderpol_design, tmp_path) 
         assert (mismatch is not None) == wrong
         if wrong:
             assert "count of saturated steps" in mismatch.reason
+
+
+def test_clamps_of_values_the_step_does_not_keep_are_not_counted_in_either_step() -> None:
+    # phase_amplitude's RK4 computes stage points of its phase that no slope reads: the firmware
+    # step leaves them out, the traced step computes them; neither counts their clamps, like
+    # golden. The proof compares both counts on random states, many of them saturating.
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.gen.pipeline import design
+
+    built = design(load_model("phase_amplitude"))
+    program = built.plan.program
+    unkept = [i for i, op in enumerate(program.ops)
+              if i not in program.kept_values and program.clamps(op)]
+    assert unkept and not set(unkept) & program.counted_clamps
+    outcome = check_on_host(built, states=20_000, steps=2000, sanitized_states=0)
+    assert outcome.report.bit_exact, outcome.report.first_mismatch

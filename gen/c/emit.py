@@ -152,8 +152,8 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "counts_saturation": program.counts_saturation,
         # the traced step also computes values the next state does not use: their clamps go
         # to a flag of their own, never counted
-        "unkept_clamps": any(program.clamps(op) and i not in program.kept_values
-                             for i, op in enumerate(ops)),
+        "unkept_clamps": any(i in kept and i not in program.kept_values and program.clamps(op)
+                             for i, op in enumerate(program.ops)),
         "saturation_field": names.saturation_field,
         "saturation_type": f"uint{SATURATION_COUNT_BITS}_t",
         "saturation_max": f"UINT{SATURATION_COUNT_BITS}_MAX",
