@@ -23,9 +23,11 @@ demo: $(STAMP)
 	$(BIN)/orbitfix gen vanderpol -o $(DEMO_DIR)
 	$(BIN)/orbitfix verify vanderpol
 
+# On every core, a test file to a worker (its module fixtures are made once); the slowest tests
+# are listed at the end, to keep the suite's time in view.
 test: $(STAMP)
 	$(BIN)/ruff check .
-	$(BIN)/python -m pytest
+	$(BIN)/python -m pytest -n auto --dist loadfile --durations=15
 
 # The tests without the long runs marked @pytest.mark.slow (CI runs them all, with `make test`).
 test-fast: $(STAMP)

@@ -71,6 +71,14 @@ def test_a_seeded_fault_in_the_c_is_caught(host, tmp_path: Path) -> None:
     assert not report.bit_exact and not report.ok
     assert report.first_mismatch is not None and report.failure is None
     assert report.steps_compared == report.first_mismatch["from_step"]
+    assert report.selftest not in (0, None)  # the firmware's own self-test sees the slip too
+
+
+def test_the_self_test_runs_on_the_board_and_passes(host) -> None:
+    built = design(load_model("vanderpol"))
+    report = stream_on_board(built, host, steps=1000)
+    assert report.selftest == 0 and report.ok
+    assert report.to_json()["selftest"] == 0
 
 
 

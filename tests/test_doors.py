@@ -194,7 +194,8 @@ def test_gen_json_lists_the_files_with_their_fingerprints(capsys, tmp_path: Path
     data = json.loads(out)
     assert next(iter(data)) == "ok" and data["ok"] is True
     paths = [Path(f["path"]) for f in data["files"]]
-    assert {p.name for p in paths} == {"vanderpol.h", "vanderpol.c", "program.json"}
+    assert {p.name for p in paths} == {"vanderpol.h", "vanderpol.c", "vanderpol_selftest.h",
+                                       "vanderpol_selftest.c", "program.json"}
     for entry in data["files"]:
         # SHA-256 of the bytes on disk, computed independently with hashlib (Python's standard library)
         assert entry["sha256"] == hashlib.sha256(Path(entry["path"]).read_bytes()).hexdigest()

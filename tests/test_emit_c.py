@@ -13,9 +13,11 @@ from conftest import compilers
 
 from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
 from orbitfix.gen.c.naming import CNames, comment_text, identifier
+from orbitfix.gen.c.selftest import render_selftest
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.pipeline import design
+from orbitfix.gen.study.start_path import check_start_path
 
 STRICT = ["-std=c99", "-pedantic", "-Werror", "-Wall", "-Wextra", "-Wconversion",
           "-Wsign-conversion", "-Wundef", "-Wshadow", "-Wcast-qual", "-Wstrict-prototypes",
@@ -25,6 +27,8 @@ STRICT = ["-std=c99", "-pedantic", "-Werror", "-Wall", "-Wextra", "-Wconversion"
 def write_sources(folder: Path, built) -> dict[str, str]:
     files = render_model(built.model, built.timing, built.integrator, built.plan)
     files.update(render_trace(built.model, built.timing, built.integrator, built.plan))
+    files.update(render_selftest(built.model, built.timing, built.integrator, built.plan,
+                                 check_start_path(built).trajectory))
     files["harness.c"] = render_host_harness(built.model, built.plan.program)
     for name, text in files.items():
         (folder / name).write_text(text)
@@ -36,7 +40,7 @@ def write_sources(folder: Path, built) -> dict[str, str]:
 def test_compiles_warning_free_under_strict_flags(tmp_path: Path, vanderpol_design, cc: str,
                                                   level: str) -> None:
     write_sources(tmp_path, vanderpol_design)
-    for source in ("vanderpol.c", "vanderpol_trace.c", "harness.c"):
+    for source in ("vanderpol.c", "vanderpol_trace.c", "vanderpol_selftest.c", "harness.c"):
         done = subprocess.run([cc, *STRICT, level, "-c", source], cwd=tmp_path,
                               capture_output=True, text=True, check=False)
         assert done.returncode == 0 and done.stderr == "", done.stderr
@@ -124,6 +128,14 @@ def test_output_is_reproducible_and_carries_no_timestamp(vanderpol_design) -> No
     second = render_model(again.model, again.timing, again.integrator, again.plan)
     assert first == second
     assert not re.search(r"20\d\d-\d\d-\d\d|\d\d:\d\d:\d\d", first["vanderpol.c"])
+
+
+def test_every_file_opens_with_an_spdx_line(tmp_path: Path, vanderpol_design) -> None:
+    # The SPDX specification's short-form identifier (an open standard; "MIT" is on the SPDX
+    # License List): the exact line, first in the file, where license scanners look.
+    for name, text in write_sources(tmp_path, vanderpol_design).items():
+        if name != "harness.c":
+            assert text.splitlines()[0] == "/* SPDX-License-Identifier: MIT */", name
 
 
 def test_every_constant_comment_shows_real_value_and_error(vanderpol_design) -> None:

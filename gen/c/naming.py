@@ -181,6 +181,23 @@ class CNames:
         return f"{self.macro_prefix}_TRACE_H_INCLUDED"
 
     @property
+    def selftest_header(self) -> str:
+        """The self-test pair: the first steps' expected states, checked on the target."""
+        return f"{self.prefix}_selftest.h"
+
+    @property
+    def selftest_source(self) -> str:
+        return f"{self.prefix}_selftest.c"
+
+    @property
+    def selftest_guard(self) -> str:
+        return f"{self.macro_prefix}_SELFTEST_H_INCLUDED"
+
+    @property
+    def selftest(self) -> str:
+        return f"{self.prefix}_selftest"
+
+    @property
     def state_type(self) -> str:
         return f"{self.prefix}_state_t"
 

@@ -94,6 +94,7 @@ class FixedPointPlan:
     signal_ranges: tuple[tuple[float, float], ...] = ()
     sure_bounds: tuple[tuple[float, float], ...] = ()
     box: tuple[tuple[float, float], ...] = ()
+    trim: str = ""  # what a period trim changed (gen/study/trim.py); empty when untrimmed
 
     def value_format(self, index: int) -> QFormat:
         return QFormat(self.program.word_bits, self.program.ops[index].fraction_bits)

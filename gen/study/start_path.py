@@ -22,7 +22,7 @@ design and are not counted.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -68,6 +68,9 @@ class StartPath:
     parting_state: str
     parting_step: int
     tolerance: float
+    # golden's whole state (the runtime parameters' fields too) at every step of the path, row k
+    # after k steps: the self-test's table is read off it (gen/c/selftest.py)
+    trajectory: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     @property
     def ok(self) -> bool:
@@ -118,6 +121,8 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
     floats = np.empty((steps + 1, n))
     fixed = np.empty((steps + 1, n))
     floats[0], fixed[0] = real[:n, 0], ints[:n, 0] / scale[:n]
+    trajectory = np.empty((steps + 1, ints.shape[0]), dtype=np.int64)
+    trajectory[0] = ints[:, 0]
     for k in range(1, steps + 1):
         saturated = np.zeros(1, dtype=bool)
         values = golden.evaluate(program, ints, saturated)
@@ -131,6 +136,7 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
         reals = evaluate_real(program, real)
         real = np.stack([reals[i] for i in program.next_state])
         floats[k], fixed[k] = real[:n, 0], ints[:n, 0] / scale[:n]
+        trajectory[k] = ints[:, 0]
     halves = _half_ranges(built, floats)
     for i in program.angle_states:
         halves[i] = 1.0
@@ -149,7 +155,7 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
     step = int(np.argmax(best))
     return StartPath(steps=steps, saturation=first, saturated_steps=saturated_steps,
                      parting=float(best[step]), parting_state=program.state_names[worst_state[step]],
-                     parting_step=step, tolerance=tolerance)
+                     parting_step=step, tolerance=tolerance, trajectory=trajectory)
 
 
 def _half_ranges(built: Design, floats: np.ndarray) -> np.ndarray:

@@ -85,6 +85,15 @@ def add_fixed_point_options(parser: argparse.ArgumentParser) -> None:
                        help="what a result outside the word does (default saturate)")
 
 
+def add_trim_option(parser: argparse.ArgumentParser, what: str) -> None:
+    """--trim: move the step constants by whole LSBs so the integer orbit's exact period matches
+    the wanted cycle as closely as the lattice allows (gen/study/trim.py)."""
+    parser.add_argument("--trim", action="store_true",
+                        help="trim the period: move the step constants by whole LSBs (formats kept) "
+                             "so the integer orbit's exact mean period from the initial state "
+                             f"matches the wanted cycle as closely as the lattice allows; {what}")
+
+
 def add_cycle_tolerances(parser: argparse.ArgumentParser, against: str) -> Any:
     """--max-period-error and --max-amplitude-error, one meaning and one sign on every verb."""
     group = parser.add_argument_group(f"how far the stepped cycle may stray from {against}")

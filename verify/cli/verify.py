@@ -19,6 +19,7 @@ from orbitfix.verify.cli.options import (
     add_fixed_point_options,
     add_junit_option,
     add_model_arguments,
+    add_trim_option,
     model_from_args,
     name_and_value,
     parse_box,
@@ -38,6 +39,8 @@ def register(verbs: Any) -> None:
                                              "its long-run drift within tolerance")
     add_model_arguments(parser)
     add_fixed_point_options(parser)
+    add_trim_option(parser, "verifies the trimmed design (give the same --trim to gen for "
+                            "--sources)")
     parser.add_argument("--sources", type=Path, metavar="DIR",
                         help="verify NAME.h and NAME.c already in DIR instead of generating them")
     parser.add_argument("--states", type=whole(1), default=1_000_000, metavar="N",
@@ -105,6 +108,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         design_json,
         design_lines,
         start_path_lines,
+        trim_json,
+        trim_lines,
     )
     from orbitfix.verify.report.drift import drift_json, drift_lines
     from orbitfix.verify.report.host import host_fields, host_lines
@@ -112,12 +117,20 @@ def run(args: argparse.Namespace, partial: dict) -> int:
 
     model = model_from_args(args)
     partial["model"] = model.name
+    if args.sources is not None and not args.trim:
+        refuse_trimmed_sources(args.sources, model.name)
     drift_steps = args.hours * 3600 * model.rhythm.loop_hz
     if not args.skip_drift and drift_steps >= MAX_DRIFT_STEPS:
         raise InputError(f"--hours {args.hours:g} at the model's {model.rhythm.loop_hz:g} Hz loop is "
                          f"{drift_steps:.3g} steps, beyond the drift run's step counter (below 2^63): "
                          "give fewer hours")
     built = design(model)
+    trim = None
+    if args.trim:
+        from orbitfix.gen.study.trim import trim_design
+
+        built, trim = trim_design(built)
+        partial["trim"] = trim_json(trim)
     partial.update(design_json(built))
     if built.plan.program.angle_states and not args.skip_drift:
         raise UnsupportedError(NO_ANGLES)
@@ -160,8 +173,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     if args.json:
         print(json_text(passed, {**partial, "caution": CAUTION}))
         return 0 if passed else 1
-    lines = (design_lines(built) + start_path_lines(start) + dead_zone_lines(zones, landed)
-             + host_lines(outcome))
+    lines = (design_lines(built) + (trim_lines(trim) if trim else []) + start_path_lines(start)
+             + dead_zone_lines(zones, landed) + host_lines(outcome))
     if drift is not None:
         lines += ["", *drift_lines(drift)]
     elif not args.skip_drift:
@@ -182,3 +195,18 @@ def parse_start(item: str) -> dict[str, float]:
             raise InputError(f"--start '{item}' gives the state '{name}' twice")
         start[name] = value
     return start
+
+
+def refuse_trimmed_sources(folder: Path, model_name: str) -> None:
+    """C that ``gen --trim`` wrote says so in its banner; verifying it against the untrimmed design
+    could only fail on its step constants, so say what to give instead."""
+    from orbitfix.gen.c.naming import CNames
+
+    source = folder / CNames(model_name).source
+    try:
+        trimmed = "Period trimmed" in source.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError):
+        return  # reading it is the proof's own job, with its own message
+    if trimmed:
+        raise InputError(f"--sources: {source} was written by 'gen --trim' (its step constants are "
+                         "trimmed); give --trim to verify it against the trimmed design")

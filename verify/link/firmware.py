@@ -1,5 +1,6 @@
-"""The board firmware's sources for one design: the generated step (NAME.h, NAME.c) and the
-harness that speaks the link (``templates/firmware/harness.c.j2``)."""
+"""The board firmware's sources for one design: the generated step (NAME.h, NAME.c), its self-test
+(NAME_selftest.h, NAME_selftest.c) and the harness that speaks the link
+(``templates/firmware/harness.c.j2``)."""
 
 from __future__ import annotations
 
@@ -8,8 +9,10 @@ from pathlib import Path
 from orbitfix.gen import __version__
 from orbitfix.gen.c.emit import environment, render_model
 from orbitfix.gen.c.naming import CNames
+from orbitfix.gen.c.selftest import render_selftest
 from orbitfix.gen.errors import UnsupportedError
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.study.start_path import check_start_path
 from orbitfix.verify.link.frames import MAX_BODY
 
 HARNESS_FILE = "orbitfix_board.c"
@@ -44,6 +47,8 @@ def write_firmware_sources(built: Design, folder: Path) -> list[Path]:
     """Write the step and the harness into ``folder``; returns the C files to compile."""
     folder.mkdir(parents=True, exist_ok=True)
     files = render_model(built.model, built.timing, built.integrator, built.plan)
+    files.update(render_selftest(built.model, built.timing, built.integrator, built.plan,
+                                 check_start_path(built).trajectory))
     files[HARNESS_FILE] = render_harness(built)
     for name, text in files.items():
         (folder / name).write_text(text)

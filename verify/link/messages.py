@@ -1,8 +1,8 @@
 """The messages carried in frames: their type bytes and bodies (little-endian integers).
 
-Host to board: HELLO, RESET, SET, RUN, COST, BYE. Board to host: OK, HELLO_REPLY, STATES, DONE,
-COST_REPLY, ERROR. PROTOCOL.md gives every body byte by byte; this module is its one reader and
-writer on the host.
+Host to board: HELLO, RESET, SET, RUN, COST, BYE, SELFTEST. Board to host: OK, HELLO_REPLY, STATES,
+DONE, COST_REPLY, SELFTEST_REPLY, ERROR. PROTOCOL.md gives every body byte by byte; this module is
+its one reader and writer on the host.
 """
 
 from __future__ import annotations
@@ -12,8 +12,9 @@ from dataclasses import dataclass
 
 PROTOCOL_VERSION = 1
 
-HELLO, RESET, SET, RUN, COST, BYE = 0x01, 0x02, 0x03, 0x04, 0x05, 0x06
-OK, HELLO_REPLY, STATES, DONE, COST_REPLY, ERROR = 0x80, 0x81, 0x82, 0x83, 0x84, 0xEE
+HELLO, RESET, SET, RUN, COST, BYE, SELFTEST = 0x01, 0x02, 0x03, 0x04, 0x05, 0x06, 0x07
+OK, HELLO_REPLY, STATES, DONE, COST_REPLY, SELFTEST_REPLY, ERROR = (0x80, 0x81, 0x82, 0x83, 0x84,
+                                                                   0x85, 0xEE)
 
 ERROR_CODES = {
     1: "damaged frame (COBS or CRC)",
@@ -145,6 +146,13 @@ def parse_cost(body: bytes) -> CostReply:
         raise MessageError("COST reply of the wrong length")
     steps, overhead, least, most, low, high = struct.unpack("<HIIIII", body)
     return CostReply(steps, overhead, least, most, high << 32 | low)
+
+
+def parse_selftest(body: bytes) -> int:
+    """The self-test's result: 0 passed, else the number of the first check that failed."""
+    if len(body) != 2:
+        raise MessageError("SELFTEST reply of the wrong length")
+    return int.from_bytes(body, "little")
 
 
 def parse_ok(body: bytes) -> tuple[int, int]:

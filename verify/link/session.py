@@ -208,6 +208,17 @@ class BoardSession:
         except msg.MessageError as exc:
             raise LinkError(f"the board's COST reply is malformed: {exc}") from None
 
+    def selftest(self) -> int:
+        """Run the firmware's generated self-test on the board: 0 passed, else the number of the
+        first check that failed (see NAME_selftest.h)."""
+        # the board steps the start-up path before it answers: allow it the silence timeout
+        frame = self.request(msg.SELFTEST, b"", msg.SELFTEST_REPLY,
+                             timeout=max(self.reply_timeout, self.silence_timeout))
+        try:
+            return msg.parse_selftest(frame.body)
+        except msg.MessageError as exc:
+            raise LinkError(f"the board's SELFTEST reply is malformed: {exc}") from None
+
     def bye(self) -> None:
         try:
             self._send(msg.BYE)

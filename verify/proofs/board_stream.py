@@ -56,6 +56,7 @@ class BoardStreamReport:
     conflicts: int = 0
     failure: str | None = None
     cost: dict | None = None
+    selftest: int | None = None  # the generated self-test's result on the board (0: passed)
     size: dict = field(default_factory=dict)
     throughput: dict = field(default_factory=dict)
     faults: dict | None = None
@@ -68,7 +69,8 @@ class BoardStreamReport:
 
     @property
     def ok(self) -> bool:
-        return self.bit_exact and self.failure is None and self.steps_compared == self.last_sample
+        return (self.bit_exact and self.failure is None and self.steps_compared == self.last_sample
+                and self.selftest == 0)
 
     @property
     def last_sample(self) -> int:
@@ -81,7 +83,8 @@ class BoardStreamReport:
             "states_compared": self.states_compared, "first_mismatch": self.first_mismatch,
             "frames": self.frames, "missing_states": self.missing_states,
             "conflicting_states": self.conflicts, "link_failure": self.failure,
-            "cost": self.cost, "size": self.size, "throughput": self.throughput,
+            "cost": self.cost, "selftest": self.selftest, "size": self.size,
+            "throughput": self.throughput,
             "firmware": self.hello, "faults": self.faults, "seconds": self.seconds,
         }
 
@@ -199,6 +202,7 @@ def stream_on_board(built: Design, profile: BoardProfile, steps: int = 100_000, 
             hello = session.say_hello()
             report.hello = hello.to_json()
             check_firmware(hello, program)
+            report.selftest = session.selftest()
             cost = session.cost(COST_STEPS)
             per_step = max(cost.total / max(cost.steps, 1) - cost.overhead, 0.0)
             report.cost = {"per_step": per_step, "least": max(cost.least - cost.overhead, 0),

@@ -15,6 +15,10 @@ def board_lines(report: BoardStreamReport) -> list[str]:
     if report.size:
         lines.append("  image: " + ", ".join(f"{k} {v} bytes" for k, v in report.size.items()
                                              if v is not None))
+    if report.selftest is not None:
+        lines.append("  self-test: " + (
+            "passed" if report.selftest == 0 else
+            f"FAILED at check {report.selftest}: this build does not compute the golden model's bits"))
     if report.cost:
         c = report.cost
         lines.append(f"  cost of one step: {c['per_step']:.1f} {c['unit']} (least {c['least']}, most "
@@ -52,6 +56,8 @@ def board_lines(report: BoardStreamReport) -> list[str]:
                      "deterministic")
     if report.ok:
         lines.append("result: bit-exact on the board: every received state is the golden model's")
+    elif report.bit_exact and report.selftest not in (0, None):
+        lines.append("result: NOT bit-exact on the board: its self-test failed")
     elif report.bit_exact:
         lines.append("result: NOT complete: every state received is bit-exact, but the run did not "
                      "finish")

@@ -8,6 +8,7 @@ from orbitfix.gen.study.dead_zones import DeadZone
 from orbitfix.gen.study.discrete_cycle import CycleTolerance
 from orbitfix.gen.study.plan_study import CoefficientEffect, SearchResult
 from orbitfix.gen.study.start_path import StartPath
+from orbitfix.gen.study.trim import ExactPeriod, Trim
 from orbitfix.gen.timing.integrators import INTEGRATORS
 
 
@@ -23,6 +24,7 @@ def design_json(built: Design) -> dict:
         "model_fingerprint": built.model.fingerprint(),
         "program_fingerprint": built.plan.program.fingerprint(),
         "warnings": list(built.plan.warnings),
+        "trimmed": built.plan.trim or None,
     }
 
 
@@ -41,6 +43,8 @@ def design_lines(built: Design) -> list[str]:
         "of headroom",
     ]
     lines += [f"  warning: {w}" for w in plan.warnings]
+    if plan.trim:
+        lines.append(f"  {plan.trim}")
     return lines
 
 
@@ -161,4 +165,35 @@ def dead_zone_lines(zones: tuple[DeadZone, ...], landed: tuple[int, DeadZone] | 
     if landed is not None:
         lines.append(f"  FAILS: the run from the initial state is inside it at step {landed[0]}: the "
                      "firmware would never start; move the initial state out of the zone")
+    return lines
+
+
+def trim_json(trim: Trim) -> dict:
+    """The period trim as data (JSON ``trim``): errors before and after, granularity, constants."""
+    return trim.to_json()
+
+
+def trim_lines(trim: Trim) -> list[str]:
+    """The period trim for people: the exact period before and after, the granularity, and every
+    step constant it moved (old and new stored integers)."""
+    def period(label: str, p: ExactPeriod) -> str:
+        return (f"  {label}: {p.cycle_steps:,} steps for {p.turns} period(s) = "
+                f"{float(p.mean):.6f} steps per period, {trim.error_ppm(p):+.1f} ppm "
+                f"(wanted {trim.wanted_period_steps:.6f}; positive when the orbit runs slow)")
+
+    lines = [f"period trim ({trim.seconds:.1f} s): exact cycle of the integer orbit from the initial "
+             "state",
+             period("before", trim.before), period("after ", trim.after),
+             f"  granularity: one LSB of the lead step constant v{trim.lead_index} ({trim.lead_note}) "
+             f"moves the step by {trim.granularity_ppm:.3g} ppm; the orbit locks onto lattice cycles, "
+             "so the errors met over "
+             f"{len(trim.tried)} shifts were: "
+             + ", ".join(f"{e:+.1f}" for e in trim.reachable_errors_ppm) + " ppm"]
+    if not trim.changed:
+        lines.append("  no constant changed: the untrimmed plan is already the best found")
+        return lines
+    lines.append(f"  {len(trim.changed)} step constants moved by {trim.lead_shift:+d} LSB of the lead "
+                 "constant (each rounded in its own format):")
+    lines += [f"    v{c.index:<4} {c.format:<8} {c.old:>12} -> {c.new:<12} ({c.new - c.old:+d} LSB)  "
+              f"{c.note}" for c in trim.changed]
     return lines

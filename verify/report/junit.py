@@ -89,8 +89,15 @@ def board_cases(data: dict) -> list[Case]:
         why = (f"{data.get('missing_states', 0)} states missing, "
                f"{data.get('conflicting_states', 0)} in conflict")
     seconds = sum(v for v in (data.get("seconds") or {}).values() if isinstance(v, (int, float)))
-    return [Case(f"bit-exact stream on {board}", "fail" if failed else "pass", why or "", seconds,
-                 f"{data.get('steps_compared', 0)} steps compared")]
+    stream_failed = failed and not (data.get("bit_exact") and data.get("selftest") not in (0, None)
+                                    and data.get("link_failure") is None)
+    cases = [Case(f"bit-exact stream on {board}", "fail" if stream_failed else "pass", why or "",
+                  seconds, f"{data.get('steps_compared', 0)} steps compared")]
+    if data.get("selftest") is not None:
+        code = data["selftest"]
+        cases.append(Case(f"self-test on {board}", "pass" if code == 0 else "fail",
+                          "" if code == 0 else f"the self-test failed at check {code}"))
+    return cases
 
 
 def _mismatch_text(mismatch: dict | None) -> str:
