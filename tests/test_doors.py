@@ -392,10 +392,10 @@ def test_verify_text_names_the_first_mismatch_and_its_operation(capsys, tmp_path
     assert main(["gen", "vanderpol", "-o", str(tmp_path)]) == 0
     source = tmp_path / "vanderpol.c"
     text = source.read_text()
-    product = re.search(r"mul_word\(v0, v0, (\d+)u\)", text)
+    product = re.search(r"mul_word\(v0, v0, (\d+)u\b", text)
     assert product
     source.write_text(text.replace(product.group(0),
-                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u)", 1))
+                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u", 1))
     capsys.readouterr()
     code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path), "--states", "500",
                        "--steps", "500", "--skip-drift")
