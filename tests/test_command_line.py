@@ -141,10 +141,10 @@ def test_verify_of_edited_sources_exits_1_naming_the_step(capsys, tmp_path: Path
     run(capsys, "gen", "vanderpol", "-o", str(tmp_path))
     source = tmp_path / "vanderpol.c"
     text = source.read_text()
-    product = re.search(r"mul_word\(v0, v0, (\d+)u\)", text)
+    product = re.search(r"mul_word\(v0, v0, (\d+)u\b", text)
     assert product
     source.write_text(text.replace(product.group(0),
-                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u)", 1))
+                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u", 1))
     code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path),
                        "--states", "5000", "--steps", "5000", "--json", "--hours", "0.01")
     assert code == 1

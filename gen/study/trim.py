@@ -43,6 +43,7 @@ from fractions import Fraction
 
 import numpy as np
 
+from orbitfix.gen import work_size
 from orbitfix.gen.errors import UnsupportedError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program import golden
@@ -52,7 +53,7 @@ from orbitfix.gen.program.lowering import lower_step
 from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.progress import tell
 
-TRIM_BUDGET_STEPS = 200_000  # golden steps allowed for the orbit to close into its exact cycle
+TRIM_SECONDS = 120.0         # the golden run allowed for one orbit to close into its exact cycle
 WINDOW_LSB = 3               # variants either side of the guess, in LSBs of the lead constant
 MOST_ROUNDS = 4              # windows measured after the first guess, at most
 MOST_SPAN_LSB = 48           # a guess this near is searched all the way from the untrimmed plan
@@ -194,7 +195,7 @@ def section_level(built: Design) -> int:
 
 
 def exact_periods(program: IntegerProgram, variants: list[dict[int, int]], start: tuple[int, ...],
-                  level: int, budget: int = TRIM_BUDGET_STEPS) -> list[ExactPeriod | None]:
+                  level: int, budget: int) -> list[ExactPeriod | None]:
     """The exact cycle of the orbit from ``start`` for each variant of ``program`` (a variant
     gives new stored values for some constants), all in one golden run: variant j is column j,
     its constants carried as one array per operation. Brent's algorithm per column finds each
@@ -242,13 +243,23 @@ def exact_periods(program: IntegerProgram, variants: list[dict[int, int]], start
             for j in range(count)]
 
 
-def trim_design(built: Design, budget: int = TRIM_BUDGET_STEPS,
+def cycle_budget(program: IntegerProgram) -> int:
+    """Golden steps allowed for an orbit to close into its exact cycle: TRIM_SECONDS of the
+    house's estimate of a golden step of ``program`` (gen/work_size.py), so a larger program gets
+    fewer steps and no trim runs for long before it finds it cannot close."""
+    one = work_size.golden_run("one golden step", len(program.ops), 1).seconds
+    return max(1, int(TRIM_SECONDS / one))
+
+
+def trim_design(built: Design, budget: int | None = None,
                 window: int = WINDOW_LSB) -> tuple[Design, Trim]:
     """The design with its step constants trimmed (see the module's docstring), and the record of
     what was done. Raises UnsupportedError (exit 2) where it cannot trim: angle states, no step
-    constant, an orbit that does not close into a cycle within ``budget`` steps or has no rhythm."""
+    constant, an orbit that does not close into a cycle within ``budget`` steps (default
+    :func:`cycle_budget`) or has no rhythm."""
     started = time.perf_counter()
     program = built.plan.program
+    budget = budget or cycle_budget(program)
     if program.angle_states:
         raise UnsupportedError(NO_ANGLES)
     carriers = step_constants(built)
@@ -285,8 +296,9 @@ def trim_design(built: Design, budget: int = TRIM_BUDGET_STEPS,
     before = measured[0]
     if before is None:
         raise UnsupportedError(f"the integer orbit from the initial state does not close into a "
-                               f"cycle within {budget:,} steps, so its exact period is not known; "
-                               "leave out --trim (verify's drift test still measures the period)")
+                               f"cycle within {budget:,} steps (about {TRIM_SECONDS:g} s of golden "
+                               "steps), so its exact period is not known to trim; leave out --trim "
+                               "(verify's drift test still measures the exact period, in C)")
     if before.mean is None:
         raise UnsupportedError("the integer orbit from the initial state settles without a rhythm "
                                "(no crossing of the section on its cycle); there is no period to "
