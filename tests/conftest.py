@@ -61,8 +61,8 @@ def slip_one_product(step_c: Path) -> None:
     """Seed a scaling slip into generated C: the first word product is shifted one place too few,
     the fingerprint left as it was. The proofs must catch it."""
     text = step_c.read_text()
-    changed = re.sub(r"(= mul_word\(v\d+, k\d+, )(\d+)u\)",
-                     lambda m: f"{m.group(1)}{int(m.group(2)) - 1}u)", text, count=1)
+    changed = re.sub(r"(= mul_word\(v\d+, k\d+, )(\d+)u\b",
+                     lambda m: f"{m.group(1)}{int(m.group(2)) - 1}u", text, count=1)
     assert changed != text, "no word product to seed a fault into"
     step_c.write_text(changed)
 

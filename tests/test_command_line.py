@@ -141,10 +141,10 @@ def test_verify_of_edited_sources_exits_1_naming_the_step(capsys, tmp_path: Path
     run(capsys, "gen", "vanderpol", "-o", str(tmp_path))
     source = tmp_path / "vanderpol.c"
     text = source.read_text()
-    product = re.search(r"mul_word\(v0, v0, (\d+)u\)", text)
+    product = re.search(r"mul_word\(v0, v0, (\d+)u\b", text)
     assert product
     source.write_text(text.replace(product.group(0),
-                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u)", 1))
+                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u", 1))
     code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path),
                        "--states", "5000", "--steps", "5000", "--json", "--hours", "0.01")
     assert code == 1
@@ -192,15 +192,14 @@ def test_plan_refuses_a_non_positive_tolerance(capsys) -> None:
     assert code == 2 and "positive" in err
 
 
-def test_models_with_angle_states_generate_and_verify_but_say_drift_is_not_built(capsys,
-                                                                                 tmp_path) -> None:
+def test_models_with_angle_states_generate_and_verify_with_their_drift_test(capsys,
+                                                                            tmp_path) -> None:
     code, _, _ = run(capsys, "gen", "phase_amplitude", "-o", str(tmp_path))
     assert code == 0 and (tmp_path / "phase_amplitude.c").exists()
-    code, _, err = run(capsys, "verify", "phase_amplitude", "--states", "100", "--steps", "100")
-    assert code == 2 and "--skip-drift" in err
-    code, out, _ = run(capsys, "verify", "phase_amplitude", "--states", "2000", "--steps", "2000",
-                       "--skip-drift")
+    code, out, _ = run(capsys, "verify", "phase_amplitude", "--states", "100", "--steps", "100",
+                       "--hours", "1")
     assert code == 0 and "bit-exact" in out
+    assert "theta passing the phase 0 turn forwards" in out and "horizon unbounded" in out
 
 
 @pytest.mark.slow

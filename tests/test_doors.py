@@ -194,8 +194,8 @@ def test_gen_json_lists_the_files_with_their_fingerprints(capsys, tmp_path: Path
     data = json.loads(out)
     assert next(iter(data)) == "ok" and data["ok"] is True
     paths = [Path(f["path"]) for f in data["files"]]
-    assert {p.name for p in paths} == {"vanderpol.h", "vanderpol.c", "vanderpol_selftest.h",
-                                       "vanderpol_selftest.c", "program.json"}
+    assert {p.name for p in paths} == {"vanderpol.h", "vanderpol.c", "vanderpol_units.h",
+                                       "vanderpol_selftest.h", "vanderpol_selftest.c", "program.json"}
     for entry in data["files"]:
         # SHA-256 of the bytes on disk, computed independently with hashlib (Python's standard library)
         assert entry["sha256"] == hashlib.sha256(Path(entry["path"]).read_bytes()).hexdigest()
@@ -238,7 +238,7 @@ def test_the_caution_is_printed_only_where_code_is_written_or_verified(capsys, t
 def test_the_generated_banner_carries_the_same_safety_text(capsys, tmp_path: Path) -> None:
     assert main(["gen", "vanderpol", "-o", str(tmp_path)]) == 0
     header = (tmp_path / "vanderpol.h").read_text()
-    banner = header.split("*/", 1)[0]
+    banner = header.split("\n", 1)[1].split("*/", 1)[0]  # after the SPDX line
     words = " ".join(line.strip().lstrip("/*").strip() for line in banner.splitlines())
     assert " ".join(SAFETY_NOTE.split()) in " ".join(words.split())
 
@@ -392,10 +392,10 @@ def test_verify_text_names_the_first_mismatch_and_its_operation(capsys, tmp_path
     assert main(["gen", "vanderpol", "-o", str(tmp_path)]) == 0
     source = tmp_path / "vanderpol.c"
     text = source.read_text()
-    product = re.search(r"mul_word\(v0, v0, (\d+)u\)", text)
+    product = re.search(r"mul_word\(v0, v0, (\d+)u\b", text)
     assert product
     source.write_text(text.replace(product.group(0),
-                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u)", 1))
+                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u", 1))
     capsys.readouterr()
     code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path), "--states", "500",
                        "--steps", "500", "--skip-drift")

@@ -132,9 +132,9 @@ def numpy_statistics(x: np.ndarray, program: IntegerProgram, settle: int, window
     k = np.arange(steps + 1)
     up = np.flatnonzero((x[:-1, 0] < level) & (x[1:, 0] >= level)) + 1
     settled_up = up[up > settle]
-    values = golden.evaluate(program, x[:-1].T)  # every intermediate of steps 1..steps
+    at_limit = np.zeros(steps, dtype=bool)  # golden's saturated steps (a clamp acted)
+    values = golden.evaluate(program, x[:-1].T, at_limit)  # every intermediate of steps 1..steps
     trace = np.stack(values)
-    at_limit = np.any((trace == program.word_max) | (trace == program.word_min), axis=0)
     outside = np.any(np.abs(trace) > np.array(limits, dtype=np.int64).reshape(-1, 1), axis=0)
     step_no = k[1:]
 

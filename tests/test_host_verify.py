@@ -172,10 +172,10 @@ def test_a_firmware_fault_is_still_named_by_operation_with_the_trace_outside(van
     # The firmware holds no trace: the mismatch is located with a traced copy of the firmware's
     # own step, so the edited multiplication is named although the trace file is correct.
     files = write_firmware(tmp_path, vanderpol_design)
-    product = re.search(r"mul_word\(v0, v0, (\d+)u\)", files["vanderpol.c"])
+    product = re.search(r"mul_word\(v0, v0, (\d+)u\b", files["vanderpol.c"])
     assert product
     (tmp_path / "vanderpol.c").write_text(files["vanderpol.c"].replace(
-        product.group(0), f"mul_word(v0, v0, {int(product.group(1)) - 1}u)", 1))
+        product.group(0), f"mul_word(v0, v0, {int(product.group(1)) - 1}u", 1))
     outcome = check_on_host(vanderpol_design, tmp_path, states=5000, steps=100)
     mismatch = outcome.report.first_mismatch
     assert mismatch is not None and mismatch.part == "random states"

@@ -84,8 +84,8 @@ def mutants(source: str, names: CNames) -> list[Mutant]:
                        ("a quarter LSB", "((int32_t)1 << (shift - 2u))"),
                        ("half an LSB less one (ties down)", f"({half} - 1)")):
         found.append(Mutant("rounding constant", where, source.replace(half, new, 1)))
-    upper = "    if (value > INT16_MAX) {\n        return INT16_MAX;\n    }\n"
-    lower = "    if (value < INT16_MIN) {\n        return INT16_MIN;\n    }\n"
+    upper = "    if (value > INT16_MAX) {\n        *saturated = 1u;\n        return INT16_MAX;\n    }\n"
+    lower = "    if (value < INT16_MIN) {\n        *saturated = 1u;\n        return INT16_MIN;\n    }\n"
     assert upper in source and lower in source
     found += [Mutant("saturation dropped", "upper", source.replace(upper, "", 1)),
               Mutant("saturation dropped", "lower", source.replace(lower, "", 1)),

@@ -70,6 +70,7 @@ def refused(tmp_path: Path, capsys: pytest.CaptureFixture, name: str = "pump", s
     ("HAVE_UNISTD_H", "pyconfig.h"),
     ("orbitfix_x", "orbitfix"),
     ("mu_target", "target of the runtime parameter 'mu'"),
+    ("saturated_steps", "count of saturated steps"),
 ])
 def test_unsafe_state_names_are_refused_with_the_reason(tmp_path: Path, capsys, state: str,
                                                         reason: str) -> None:

@@ -19,7 +19,7 @@ from orbitfix.gen import __version__
 from orbitfix.gen.c.naming import CNames, comment_text
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan
-from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.program.integer_program import SATURATION_COUNT_BITS, IntegerProgram, Op
 from orbitfix.gen.program.operations import KINDS, CSite, kind_of
 from orbitfix.gen.safety import SAFETY_NOTE
 from orbitfix.gen.timing.integrators import Integrator
@@ -35,10 +35,17 @@ def templates_folder() -> Path:
 # The harness's functions, declared once: in the harness C and in the verifier's cffi definitions.
 HARNESS_DECLARATIONS = """\
 void orbitfix_harness_init(int32_t *out);
+uint32_t orbitfix_harness_init_saturated(void);
 void orbitfix_harness_step_each(const int32_t *in, int32_t *out, size_t count);
+void orbitfix_harness_step_each_counted(const int32_t *in, const uint32_t *saturated_in,
+                                        int32_t *out, uint32_t *saturated_out, size_t count);
 void orbitfix_harness_run(int32_t *state_io, size_t steps, int32_t *record);
+void orbitfix_harness_run_counted(int32_t *state_io, uint32_t *saturated_io, size_t steps,
+                                  int32_t *record, uint32_t *saturated_record);
 void orbitfix_harness_trace(const int32_t *in, int32_t *out, int32_t *trace);
 void orbitfix_harness_trace_each(const int32_t *in, int32_t *out, int32_t *trace, size_t count);
+void orbitfix_harness_trace_each_counted(const int32_t *in, int32_t *out, int32_t *trace,
+                                         uint32_t *saturated, size_t count);
 void orbitfix_harness_set(const int32_t *in, int32_t *out, size_t which, int32_t target);
 size_t orbitfix_harness_setter_count(void);
 size_t orbitfix_harness_state_count(void);
@@ -88,6 +95,17 @@ def render_model(model: Model, timing: Timing, integrator: Integrator,
     }
 
 
+def render_units(model: Model, timing: Timing, integrator: Integrator,
+                 plan: FixedPointPlan) -> dict[str, str]:
+    """``NAME_units.h``: macros between real values and each state's and runtime parameter's
+    stored integers. They expand to floating point, so they live apart from ``NAME.h``: include
+    them where constants are written (they fold at compile time) or where floating point is at
+    hand, never in the step."""
+    names = CNames(model.name)
+    context = _context(model, timing, integrator, plan, traced=False)
+    return {names.units_header: environment().get_template("units.h.j2").render(context)}
+
+
 def _dead_zone_text(zone) -> dict:
     return {"where": ", ".join(f"{n} = {v:.6g}" for n, v in zip(zone.state_names, zone.equilibrium,
                                                                  strict=True)),
@@ -118,7 +136,7 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     step only those the next state depends on (and so only their constants and helpers)."""
     names = CNames(model.name)
     program = plan.program
-    kept = set(range(len(program.ops))) if traced else _live_values(program)
+    kept = set(range(len(program.ops))) if traced else set(program.kept_values)
     constants, constant_of = _constants(plan, kept)
     tables, table_of = _tables(program, kept)
     word_type, wide_type = f"int{program.word_bits}_t", f"int{program.product_bits}_t"
@@ -142,6 +160,14 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "wide_type": wide_type,
         "word_bits": program.word_bits,
         "states": _state_fields(model, plan, names),
+        "counts_saturation": program.counts_saturation,
+        # the traced step also computes values the next state does not use: their clamps go
+        # to a flag of their own, never counted
+        "unkept_clamps": any(i in kept and i not in program.kept_values and program.clamps(op)
+                             for i, op in enumerate(program.ops)),
+        "saturation_field": names.saturation_field,
+        "saturation_type": f"uint{SATURATION_COUNT_BITS}_t",
+        "saturation_max": f"UINT{SATURATION_COUNT_BITS}_MAX",
         "setters": [
             {"name": names.setter(p.name), "target": names.field(f"{p.name}_target"),
              "parameter": names.field(p.name), "low": p.low, "high": p.high, "rate": p.rate,
@@ -164,28 +190,20 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     }
 
 
-def _live_values(program: IntegerProgram) -> set[int]:
-    """The values the next state depends on; the firmware step computes only these (the traced
-    step computes every value)."""
-    live = set(program.next_state)
-    for index in range(len(program.ops) - 1, -1, -1):
-        if index in live:
-            live.update(program.ops[index].args)
-    return live
-
-
 def _helpers(program: IntegerProgram, ops: list[Op], word_type: str, wide_type: str) -> list[dict]:
     """The C helper functions the step calls, once each: the program's own overflow family
-    first, then the angles' wrapping family, each in the registry's order."""
+    first, then the angles' wrapping family, each in the registry's order. A helper whose result
+    the program clamps (``IntegerProgram.clamps``) takes the step's saturation flag."""
     unsigned = f"uint{program.word_bits}_t"
-    used = {(kind_of(op.kind).c_helper, "turns" if op.wraps else "word") for op in ops}
+    used = {(kind_of(op.kind).c_helper, "turns" if op.wraps else "word"): program.clamps(op)
+            for op in ops}
     helpers: dict[str, dict] = {}
     for family, fitter in (("word", "fit_word"), ("turns", "wrap_word")):
         for kind in KINDS.values():
             helper = kind.c_helper
             if helper is not None and (helper, family) in used:
-                helpers.setdefault(helper.function(family),
-                                   helper.render(family, fitter, word_type, wide_type, unsigned))
+                helpers.setdefault(helper.function(family), helper.render(
+                    family, fitter, word_type, wide_type, unsigned, used[helper, family]))
     return list(helpers.values())
 
 
@@ -196,6 +214,7 @@ def render_host_harness(model: Model, program: IntegerProgram) -> str:
     word_bits = program.word_bits
     return environment().get_template("host_harness.c.j2").render(
         names=names, fields=[names.field(n) for n in program.state_names],
+        saturation_field=names.saturation_field,
         count=len(program.state_names), version=__version__, word_type=f"int{word_bits}_t",
         declarations=HARNESS_DECLARATIONS,
         setters=[names.setter(p.name) for p in model.runtime_parameters])
@@ -214,9 +233,12 @@ def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dic
         reals += [p.value, p.value]
     return [{"field": names.field(name), "meaning": comment_text(meaning),
              "initial": int_literal(v, program.word_bits), "initial_real": real,
-             "format": f"Q{program.word_bits - f}.{f}"}
-            for name, meaning, v, real, f in zip(program.state_names, meanings, plan.initial_state,
-                                                 reals, program.state_fraction_bits, strict=True)]
+             "format": f"Q{program.word_bits - f}.{f}", "fraction_bits": f,
+             "macro": names.macro(name), "model_state": i < program.model_state_count,
+             "angle": i in program.angle_states}
+            for i, (name, meaning, v, real, f) in enumerate(zip(
+                program.state_names, meanings, plan.initial_state, reals,
+                program.state_fraction_bits, strict=True))]
 
 
 def _tables(program: IntegerProgram, kept: set[int]) -> tuple[list[dict], dict[int, str]]:
@@ -267,7 +289,9 @@ def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
                 symbol_of: dict[int, str]) -> dict:
     site = CSite(args=tuple(f"v{i}" for i in op.args), family="turns" if op.wraps else "word",
                  word_bits=program.word_bits, symbol=symbol_of.get(index, ""),
-                 field=names.field(program.state_names[op.state]) if op.kind == "state" else "")
+                 field=names.field(program.state_names[op.state]) if op.kind == "state" else "",
+                 saturated=(", &saturated" if index in program.counted_clamps else
+                            ", &unkept" if program.clamps(op) else ""))
     fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
     return {"name": f"v{index}", "index": index, "expression": kind_of(op.kind).c_call(op, site),
             "note": comment_text(f"{fmt}, {op.note}")}

@@ -110,12 +110,15 @@ def check_names(model_name: str, states: Sequence[str], parameters: Sequence[str
                          "name")
     names = CNames(model_name)
     made = {f"{p}_target": p for p in runtime}
+    reserved = {names.saturation_field: "the count of saturated steps"}
     seen: dict[str, str] = {}
     for name in [*states, *parameters]:
         problem = name_problem(name)
         if problem is None and name.upper().startswith(names.macro_prefix + "_"):
             problem = (f"it starts with {names.macro_prefix}_, the prefix of the macros made for "
                        f"model '{model_name}' (such as its header guard {names.guard})")
+        if problem is None and name in reserved and (name in states or name in runtime):
+            problem = f"the generated state already has a field {name} for {reserved[name]}"
         if problem is None and name in made:
             problem = (f"the generated state already has a field {name} for the target of the "
                        f"runtime parameter '{made[name]}'")
@@ -178,6 +181,15 @@ class CNames:
         return f"{self.macro_prefix}_TRACE_H_INCLUDED"
 
     @property
+    def units_header(self) -> str:
+        """Macros between real values and stored integers (floating point: kept out of NAME.h)."""
+        return f"{self.prefix}_units.h"
+
+    @property
+    def units_guard(self) -> str:
+        return f"{self.macro_prefix}_UNITS_H_INCLUDED"
+
+    @property
     def selftest_header(self) -> str:
         """The self-test pair: the first steps' expected states, checked on the target."""
         return f"{self.prefix}_selftest.h"
@@ -209,6 +221,11 @@ class CNames:
     @property
     def step_traced(self) -> str:
         return f"{self.prefix}_step_traced"
+
+    @property
+    def saturation_field(self) -> str:
+        """The state struct's field that counts saturated steps (a name no model may use)."""
+        return "saturated_steps"
 
     def setter(self, parameter: str) -> str:
         return f"{self.prefix}_set_{identifier(parameter)}"

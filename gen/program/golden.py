@@ -1,8 +1,9 @@
 """The golden interpreter (layer L2): runs the integer program in numpy, vectorised over a batch
 of states, and gives the bits that the C must reproduce exactly.
 
-Rounding and overflow live here once for the Python side (``round_shift``, ``fit_word``); the C
-side renders the same rules from ``templates/fixed_point.c.j2``. What each operation computes
+Rounding and overflow live here once for the Python side (``round_shift``, ``fit_word``, which
+also marks the states whose step a clamp changed: a saturated step); the C side renders the same
+rules from ``templates/fixed_point.c.j2``. What each operation computes
 before them is its kind's golden rule (``gen/program/operations.py``). Values are held in the
 integer type of the program's product width, like the C's. Both back ends are tested against
 exact rational arithmetic.
@@ -12,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.program.integer_program import IntegerProgram, next_saturation_count
 from orbitfix.gen.program.operations import kind_of
 
 
@@ -51,11 +52,16 @@ def round_shift(product: np.ndarray, shift: int, rounding: str) -> np.ndarray:
     raise ValueError(f"unknown rounding {rounding!r}")
 
 
-def fit_word(values: np.ndarray, word_bits: int, overflow: str) -> np.ndarray:
+def fit_word(values: np.ndarray, word_bits: int, overflow: str,
+             saturated: np.ndarray | None = None) -> np.ndarray:
     """Bring exact results into the word, in place: clamp (saturate) or reduce modulo 2**word_bits
-    (wrap)."""
+    (wrap). With ``saturated`` (bool, the values' shape), a clamp that changes a value marks its
+    place there; wrapping never does."""
     low, high = -(1 << (word_bits - 1)), (1 << (word_bits - 1)) - 1
     if overflow == "saturate":
+        if saturated is not None:
+            number = values.dtype.type
+            saturated |= (values < number(low)) | (values > number(high))
         return np.clip(values, low, high, out=values)
     if overflow == "wrap":
         number = values.dtype.type
@@ -73,9 +79,10 @@ class _Machine:
         self.wide = wide_type(program.product_bits)
         self.word_bits = program.word_bits
         self.rounding = program.rounding
-        self.overflow = program.overflow
+        self.program = program
         self.batch = states.shape[1:]
         self.states = states
+        self.saturated: np.ndarray | None = None  # where a clamp of this value marks its step
 
     def state(self, index: int) -> np.ndarray:
         return self.states[index]
@@ -84,13 +91,16 @@ class _Machine:
         return round_shift(exact, shift, self.rounding)
 
     def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray:
-        return fit_word(exact, self.word_bits, "wrap" if wraps else self.overflow)
+        return fit_word(exact, self.word_bits, self.program.fit_rule(wraps), self.saturated)
 
 
-def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
+def evaluate(program: IntegerProgram, states: np.ndarray,
+             saturated: np.ndarray | None = None) -> list[np.ndarray]:
     """Every value of one step, in the integer type of the program's product width.
 
     states : int ndarray, shape (n_states, batch), each a word of the program.
+    saturated : bool ndarray, shape (batch,), or None; set True where the step is saturated
+        (some clamp changed a value; see ``integer_program``), left alone elsewhere.
     """
     if not program.is_planned:
         raise ValueError("the program has no fixed-point plan yet")
@@ -98,8 +108,10 @@ def evaluate(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
     if states.size and (states.min() < program.word_min or states.max() > program.word_max):
         raise ValueError(f"a state is outside the {program.word_bits}-bit word")
     machine = _Machine(program, states.astype(wide_type(program.product_bits), copy=False))
+    counted = program.counted_clamps if saturated is not None else frozenset()
     values: list[np.ndarray] = []
-    for op in program.ops:
+    for index, op in enumerate(program.ops):
+        machine.saturated = saturated if index in counted else None
         values.append(kind_of(op.kind).golden(op, [values[i] for i in op.args], machine))
     return values
 
@@ -108,6 +120,38 @@ def step(program: IntegerProgram, states: np.ndarray) -> np.ndarray:
     """One step from each state of the batch. Returns int64 ndarray, shape (n_states, batch)."""
     values = evaluate(program, states)
     return np.stack([values[i] for i in program.next_state]).astype(np.int64, copy=False)
+
+
+def step_saturated(program: IntegerProgram, states: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """One step from each state of the batch, and whether it was saturated. Returns (int64
+    ndarray, shape (n_states, batch); bool ndarray, shape (batch,))."""
+    states = np.asarray(states)
+    saturated = np.zeros(states.shape[1:], dtype=bool)
+    values = evaluate(program, states, saturated)
+    return np.stack([values[i] for i in program.next_state]).astype(np.int64, copy=False), saturated
+
+
+def step_counted(program: IntegerProgram, states: np.ndarray,
+                 counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """One step from each state of the batch with its count of saturated steps, as the firmware
+    takes it. Returns (next states, int64 ndarray shape (n_states, batch); next counts, int64
+    ndarray shape (batch,))."""
+    after, saturated = step_saturated(program, states)
+    return after, next_saturation_count(np.asarray(counts, dtype=np.int64), saturated)
+
+
+def run_counted(program: IntegerProgram, initial: np.ndarray, steps: int,
+                count: int = 0) -> tuple[np.ndarray, np.ndarray]:
+    """``run`` with the firmware's count of saturated steps, starting at ``count``: (the
+    trajectory; int64 ndarray, shape (steps + 1,), the count after k steps in row k)."""
+    out = np.empty((steps + 1, len(program.state_names)), dtype=np.int64)
+    counts = np.empty(steps + 1, dtype=np.int64)
+    state = np.asarray(initial, dtype=np.int64).reshape(-1, 1)
+    out[0], counts[0] = state[:, 0], count
+    for k in range(steps):
+        state, saturated = step_saturated(program, state)
+        out[k + 1], counts[k + 1] = state[:, 0], next_saturation_count(int(counts[k]), saturated[0])
+    return out, counts
 
 
 def run(program: IntegerProgram, initial: np.ndarray, steps: int) -> np.ndarray:

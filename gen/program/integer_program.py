@@ -26,10 +26,19 @@ covers exactly one turn and wrapping modulo 2**word_bits is wrapping modulo a fu
 operation with ``wraps`` set brings its result into the word by wrapping, whatever the program's
 ``overflow`` (that is how angles add up without ever losing precision). ``sin`` and ``cos`` read
 an angle through a table, after adding the operation's ``offset`` (a quarter turn for ``cos``).
+
+Saturated steps. A step is *saturated* when the clamp of step 3 changed at least one of the values
+the next state depends on (an exact result outside the word; ``IntegerProgram.counted_clamps``).
+Wrapping (angles, and every value of a ``wrap`` program) never counts, nor does a value the next
+state does not use (the firmware does not compute it). Beside its states, the
+firmware keeps a count of saturated steps, an unsigned integer of ``SATURATION_COUNT_BITS`` that
+starts at 0 and sticks at its largest value (``next_saturation_count``). The count is not a state:
+no value of the step reads it.
 """
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 from dataclasses import dataclass, field
@@ -37,6 +46,20 @@ from dataclasses import dataclass, field
 WORD_SIZES = (16, 32)
 ROUNDINGS = ("truncate", "half-up", "half-even")
 OVERFLOWS = ("saturate", "wrap")
+SATURATION_COUNT_BITS = 32
+SATURATION_COUNT_MAX = (1 << SATURATION_COUNT_BITS) - 1
+
+
+def next_saturation_count(count, saturated):
+    """The count of saturated steps after one more step: one more if the step was saturated,
+    never past SATURATION_COUNT_MAX (it sticks there, it never wraps to zero). Works on Python
+    integers and on numpy arrays (count: unsigned or int64, saturated: bool)."""
+    if hasattr(count, "dtype"):  # a numpy array
+        import numpy as np
+
+        wide = np.asarray(count, dtype=np.int64) + np.asarray(saturated, dtype=np.int64)
+        return np.minimum(wide, SATURATION_COUNT_MAX)
+    return min(int(count) + int(bool(saturated)), SATURATION_COUNT_MAX)
 
 
 @dataclass(frozen=True)
@@ -126,6 +149,42 @@ class IntegerProgram:
     @property
     def word_max(self) -> int:
         return (1 << (self.word_bits - 1)) - 1
+
+    def fit_rule(self, wraps: bool) -> str:
+        """How a result enters the word: ``wrap`` for an operation that wraps (an angle) and for
+        every value of a ``wrap`` program, else ``saturate`` (a clamp). Only a ``saturate`` fit
+        that changes a value makes the step saturated."""
+        return "wrap" if wraps else self.overflow
+
+    def clamps(self, op: Op) -> bool:
+        """Whether ``op``'s result is clamped into the word, so that a clamp that changes it makes
+        the step saturated (its kind brings it into the word, see ``OperationKind.fit_wraps``,
+        and not by wrapping)."""
+        from orbitfix.gen.program.operations import kind_of
+
+        wraps = kind_of(op.kind).fit_wraps(op)
+        return wraps is not None and self.fit_rule(wraps) == "saturate"
+
+    @functools.cached_property
+    def kept_values(self) -> frozenset[int]:
+        """The values the next state depends on (the firmware's step computes only these)."""
+        kept = set(self.next_state)
+        for index in range(len(self.ops) - 1, -1, -1):
+            if index in kept:
+                kept.update(self.ops[index].args)
+        return frozenset(kept)
+
+    @functools.cached_property
+    def counted_clamps(self) -> frozenset[int]:
+        """The values whose clamp, when it changes the value, makes the step saturated: those the
+        next state depends on and that are clamped into the word."""
+        return frozenset(i for i in self.kept_values if self.clamps(self.ops[i]))
+
+    @property
+    def counts_saturation(self) -> bool:
+        """Whether any step can be saturated. False for a ``wrap`` program, whose count of
+        saturated steps stays 0."""
+        return bool(self.counted_clamps)
 
     @property
     def is_planned(self) -> bool:

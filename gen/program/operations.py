@@ -9,7 +9,10 @@ its own interval rule and the compiled C.
 
 Rounding and overflow are not a kind's business: the golden interpreter writes them once
 (``golden.round_shift``, ``golden.fit_word``) and the C once (``round_shift``, ``fit_word`` and
-``wrap_word`` in the helpers template); a kind only says what exact result they apply to.
+``wrap_word`` in the helpers template); a kind only says what exact result they apply to, and
+(``fit_wraps``) whether it brings that result into the word by wrapping. Whether a clamp makes the
+step saturated is the program's rule (``IntegerProgram.clamps``): a helper that clamps gets the
+step's flag (``CSite.saturated``) and sets it when its clamp changes the value.
 """
 
 from __future__ import annotations
@@ -42,7 +45,7 @@ class Machine(Protocol):
 
     def round_shift(self, exact: np.ndarray, shift: int) -> np.ndarray: ...
 
-    def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray: ...
+    def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray: ...  # marks a clamp, see golden
 
 
 @dataclass(frozen=True)
@@ -51,10 +54,12 @@ class CHelper:
 
     ``parameters``, ``prelude`` and ``exact`` are C text in which ``{word}``, ``{wide}`` and
     ``{unsigned}`` stand for the word type, the product type and the unsigned word type. Unless
-    the helper is ``whole``, the template adds a last parameter ``unsigned int shift`` and returns
+    the helper is ``whole``, the template adds a parameter ``unsigned int shift`` and returns
     the family's overflow rule of ``round_shift(exact, shift)``, so the helper's name gets the
     family (``add_word``, ``add_turns``); a ``whole`` helper returns ``exact`` as it stands and
-    is the same for every family.
+    is the same for every family. A helper whose result is clamped (``counts``) gets a last
+    parameter ``unsigned int *saturated``, the step's flag, which the clamp sets; in a whole
+    helper's text ``{saturated}`` stands for the flag as the last argument of ``fit_word``.
     """
 
     name: str
@@ -67,13 +72,15 @@ class CHelper:
     def function(self, family: str) -> str:
         return self.name if self.whole else f"{self.name}_{family}"
 
-    def render(self, family: str, fitter: str, word: str, wide: str, unsigned: str) -> dict:
+    def render(self, family: str, fitter: str, word: str, wide: str, unsigned: str,
+               counts: bool = False) -> dict:
         def fill(text: str) -> str:
-            return text.format(word=word, wide=wide, unsigned=unsigned)
+            return text.format(word=word, wide=wide, unsigned=unsigned,
+                               saturated=", saturated" if counts else "")
 
         return {"function": self.function(family), "parameters": fill(self.parameters),
                 "prelude": [fill(line) for line in self.prelude], "exact": fill(self.exact),
-                "whole": self.whole, "fitter": fitter, "comment": self.comment}
+                "whole": self.whole, "fitter": fitter, "comment": self.comment, "counts": counts}
 
 
 @dataclass(frozen=True)
@@ -82,7 +89,8 @@ class CSite:
 
     args -- the C names of its arguments' values; family -- ``word`` (the program's overflow
     rule) or ``turns`` (an angle: it wraps); field -- the state struct field a ``state`` reads;
-    symbol -- the C name of the operation's stored constant or table.
+    symbol -- the C name of the operation's stored constant or table; saturated -- the last
+    argument of a helper whose result is clamped (``", &saturated"``, the step's flag), else "".
     """
 
     args: tuple[str, ...]
@@ -90,6 +98,7 @@ class CSite:
     word_bits: int
     field: str = ""
     symbol: str = ""
+    saturated: str = ""
 
 
 class OperationKind:
@@ -115,9 +124,12 @@ class OperationKind:
        width as a fresh array (the interpreter rounds it in place), to which the interpreter
        applies the one rounding by ``op.shift`` and the one overflow rule; a kind that rounds
        elsewhere overrides ``golden`` and still uses ``machine.round_shift`` and
-       ``machine.fit``, never rules of its own.
+       ``machine.fit`` (with ``fit_wraps``), never rules of its own. ``fit_wraps`` says how the
+       result enters the word: by wrapping (True), by the program's overflow rule (False), or not
+       at all (None: a load or a constant).
     6. The C form: ``c_helper`` (the helper function, see ``CHelper``; None if the value needs
-       none) and ``c_call(op, site)``, the C expression of the value.
+       none) and ``c_call(op, site)``, the C expression of the value, ending with
+       ``site.saturated`` among a clamping helper's arguments.
     """
 
     name = ""
@@ -150,8 +162,12 @@ class OperationKind:
     def exact(self, op: Op, args: list[np.ndarray], machine: Machine) -> np.ndarray:
         raise NotImplementedError
 
+    def fit_wraps(self, op: Op) -> bool | None:
+        return op.wraps
+
     def golden(self, op: Op, args: list[np.ndarray], machine: Machine) -> np.ndarray:
-        return machine.fit(machine.round_shift(self.exact(op, args, machine), op.shift), op.wraps)
+        return machine.fit(machine.round_shift(self.exact(op, args, machine), op.shift),
+                           self.fit_wraps(op))
 
     def c_call(self, op: Op, site: CSite) -> str:
         raise NotImplementedError
@@ -194,6 +210,9 @@ class State(OperationKind):
     def forced_bits(self, op, word_bits, state_formats):
         return state_formats[op.state]
 
+    def fit_wraps(self, op):
+        return None
+
     def golden(self, op, args, machine):
         return machine.state(op.state)
 
@@ -226,6 +245,9 @@ class Const(OperationKind):
             raise InputError(f"the constant {op.real:.6g} ({op.note}) does not fit "
                              f"Q{word_bits - bits}.{bits}")
         return replace(op, constant=stored)
+
+    def fit_wraps(self, op):
+        return None
 
     def golden(self, op, args, machine):
         return np.full(machine.batch, op.constant, dtype=machine.wide)
@@ -264,7 +286,8 @@ class Aligned(OperationKind):
 
     def c_call(self, op, site):
         (a, b), (ka, kb) = site.args, op.align
-        return f"{self.c_helper.function(site.family)}({a}, {ka}u, {b}, {kb}u, {op.shift}u)"
+        return (f"{self.c_helper.function(site.family)}({a}, {ka}u, {b}, {kb}u, {op.shift}u"
+                f"{site.saturated})")
 
 
 @register
@@ -350,7 +373,7 @@ class Unary(OperationKind):
         return replace(op, shift=f_args[0] - bits)
 
     def c_call(self, op, site):
-        return f"{self.c_helper.function(site.family)}({site.args[0]}, {op.shift}u)"
+        return f"{self.c_helper.function(site.family)}({site.args[0]}, {op.shift}u{site.saturated})"
 
 
 @register
@@ -425,7 +448,7 @@ class Mul(OperationKind):
 
     def c_call(self, op, site):
         a, b = site.args
-        return f"{self.c_helper.function(site.family)}({a}, {b}, {op.shift}u)"
+        return f"{self.c_helper.function(site.family)}({a}, {b}, {op.shift}u{site.saturated})"
 
 
 @register
@@ -461,14 +484,15 @@ class Scale(OperationKind):
         return args[0] * machine.wide(op.constant)
 
     def c_call(self, op, site):
-        return f"{self.c_helper.function(site.family)}({site.args[0]}, {site.symbol}, {op.shift}u)"
+        return (f"{self.c_helper.function(site.family)}({site.args[0]}, {site.symbol}, "
+                f"{op.shift}u{site.saturated})")
 
 
 # --- sine and cosine of an angle in turns ----------------------------------------------------
 
 _SINE_LOOKUP = CHelper(
     "sine_lookup", "{word} angle, const {word} *table, unsigned int shift, {unsigned} offset",
-    "fit_word(low + round_shift(rise * ({wide})within, shift))",
+    "fit_word(low + round_shift(rise * ({wide})within, shift){saturated})",
     prelude=("const {unsigned} phase = ({unsigned})(({unsigned})angle + offset);",
              "const {unsigned} index = ({unsigned})(phase >> shift);",
              "const {unsigned} within = ({unsigned})(phase & ((({unsigned})1 << shift) - 1u));",
@@ -500,6 +524,9 @@ class TableSine(OperationKind):
     def forced_bits(self, op, word_bits, state_formats):
         return word_bits - 2
 
+    def fit_wraps(self, op):
+        return False  # a sine is never an angle: the program's overflow rule, even on a wrapped op
+
     def fill(self, op, bits, f_args, word_bits):
         index_bits = sine_table_bits(word_bits, bits)
         return replace(op, table=sine_table(index_bits, bits), shift=word_bits - index_bits,
@@ -513,11 +540,11 @@ class TableSine(OperationKind):
         within = phase & wide((1 << op.shift) - 1)
         low = table[index]
         return machine.fit(low + machine.round_shift((table[index + 1] - low) * within, op.shift),
-                           False)
+                           self.fit_wraps(op))
 
     def c_call(self, op, site):
         offset = f"UINT{site.word_bits}_C({op.offset})" if op.offset else "0u"
-        return f"sine_lookup({site.args[0]}, {site.symbol}, {op.shift}u, {offset})"
+        return f"sine_lookup({site.args[0]}, {site.symbol}, {op.shift}u, {offset}{site.saturated})"
 
 
 @register

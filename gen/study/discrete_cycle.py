@@ -2,9 +2,11 @@
 the continuous cycle's frequency and amplitude, and the lowest loop rate that still keeps it.
 
 Both maps are run from a batch of points spread along the continuous cycle, so one vectorised run
-measures many cycles at once. The period is the mean time between upward crossings of the first
-state through the middle of its range, each crossing placed between two steps by linear
-interpolation.
+measures many cycles at once. The period is the mean time between crossings of the section (the
+crossing rule of :mod:`.section`: the first swinging state passing the middle of its range going
+up, or, for a model with a phase, the phase passing a fixed angle, one crossing per turn), each
+crossing placed between two steps by linear interpolation. Amplitudes are those of the swinging
+states; an angle has none.
 """
 
 from __future__ import annotations
@@ -16,12 +18,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from orbitfix.gen import work_size
-from orbitfix.gen.errors import InputError, UnsupportedError
+from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.angles import radians_to_turns
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.pipeline import START_PATH_CYCLES, plan_step, program_states, start_path_steps
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import evaluate_real
+from orbitfix.gen.study.section import Section, amplitude_errors, resting, section_for
 from orbitfix.gen.timing.integrators import Integrator
 
 START_POINTS = 24
@@ -44,7 +48,9 @@ class CycleTolerance:
 
 @dataclass(frozen=True)
 class SteppedCycle:
-    """What a stepped map does from points on the continuous cycle."""
+    """What a stepped map does from points on the continuous cycle. ``amplitude`` holds the half
+    range of each swinging state (the model states that are not angles), in model order, and
+    ``middle`` the middle of its range (the level of a state at rest on the cycle)."""
 
     kept: bool
     verdict: str
@@ -52,6 +58,18 @@ class SteppedCycle:
     period_error_ppm: float | None
     amplitude: tuple[float, ...] | None
     amplitude_error: float | None
+    middle: tuple[float, ...] | None = None
+
+    def amplitude_shift(self, reference: SteppedCycle) -> float:
+        """The largest relative amplitude error of this cycle against another stepped cycle of the
+        same model (by the rule of ``gen/study/section.py``: swings relatively, the level of a
+        state at rest on the reference)."""
+        if not self.amplitude or not reference.amplitude:
+            return 0.0
+        a, m = np.asarray(self.amplitude), np.asarray(self.middle if self.middle else self.amplitude)
+        b, n = (np.asarray(reference.amplitude),
+                np.asarray(reference.middle if reference.middle else reference.amplitude))
+        return float(np.max(amplitude_errors(m - a, m + a, n - b, n + b)))
 
     def to_json(self) -> dict:
         return {"kept": self.kept, "verdict": self.verdict, "period_steps": self.period_steps,
@@ -60,44 +78,45 @@ class SteppedCycle:
                 "amplitude_error": self.amplitude_error}
 
 
-NO_ANGLES = ("the stepped-cycle measurements do not handle angle states (phases) yet: they time "
-             "the cycle by a state that swings rather than turns")
-
-
-def _refuse_angles(program: IntegerProgram) -> None:
-    if program.angle_states:
-        raise UnsupportedError(NO_ANGLES)
-
-
 def measure(step: Callable[[np.ndarray], np.ndarray], start: np.ndarray, steps: int,
             wanted_period_steps: float, cycle_min: np.ndarray, cycle_max: np.ndarray,
-            tolerance: CycleTolerance) -> SteppedCycle:
+            tolerance: CycleTolerance, section: Section | None = None) -> SteppedCycle:
     """Run ``step`` (a map on arrays of shape (n_states, batch)) from ``start`` and compare the
     cycle it settles on with the continuous one (given in the same units as the states). Only the
-    model's own states (the first ``len(cycle_min)`` rows) are compared; rows after them (runtime
-    parameters and their targets) are carried along."""
-    level = 0.5 * (cycle_min[0] + cycle_max[0])
-    half_range = 0.5 * (np.asarray(cycle_max) - np.asarray(cycle_min))
-    tracked = len(half_range)
+    model's own swinging states (among the first ``len(cycle_min)`` rows) are compared in
+    amplitude; rows after them (runtime parameters and their targets) are carried along.
+
+    section : the crossing rule that times the cycle (default: state 0 through the middle of its
+        range, for a model without angles); an angle section's state is in turns."""
+    if section is None:
+        section = Section(state=0, angle=False, level=0.5 * float(cycle_min[0] + cycle_max[0]),
+                          swinging=tuple(range(len(cycle_min))))
+    swinging = list(section.swinging)
+    cycle_low = np.asarray(cycle_min, dtype=float)[swinging]
+    cycle_high = np.asarray(cycle_max, dtype=float)[swinging]
+    half_range = 0.5 * (cycle_high - cycle_low)
     state = np.array(start)
     first = np.empty((steps + 1, state.shape[1]))
-    first[0] = state[0]
+    first[0] = state[section.state]
     tail = max(2, math.ceil(wanted_period_steps * 1.5))
-    low = np.full((tracked, state.shape[1]), np.inf)
-    high = np.full((tracked, state.shape[1]), -np.inf)
+    low = np.full((len(swinging), state.shape[1]), np.inf)
+    high = np.full((len(swinging), state.shape[1]), -np.inf)
     for k in range(steps):
         state = step(state)
-        first[k + 1] = state[0]
+        first[k + 1] = state[section.state]
         if k >= steps - tail:
-            low = np.minimum(low, state[:tracked])
-            high = np.maximum(high, state[:tracked])
+            low = np.minimum(low, state[swinging])
+            high = np.maximum(high, state[swinging])
         if not np.all(np.isfinite(state)):
             return SteppedCycle(False, "the stepped map grows without bound", None, None, None, None)
-    amplitude = np.mean(0.5 * (high - low), axis=1)
-    amplitude_error = float(np.max(np.abs(amplitude / half_range - 1)))
-    crossings = _crossing_periods(first, level)
+    low, high = np.mean(low, axis=1), np.mean(high, axis=1)
+    amplitude = 0.5 * (high - low)
+    errors = amplitude_errors(low, high, cycle_low, cycle_high)
+    amplitude_error = float(np.max(errors)) if swinging else 0.0
+    crossings = _crossing_periods(first, section)
     if crossings.size == 0 or amplitude_error > 0.5:
-        shrink = np.all(amplitude < 0.5 * half_range)
+        moving = ~resting(cycle_low, cycle_high)
+        shrink = bool(np.any(moving)) and np.all(amplitude[moving] < 0.5 * half_range[moving])
         verdict = ("the stepped map collapses toward an equilibrium or a small cycle" if shrink
                    else "the stepped map leaves the continuous cycle")
         return SteppedCycle(False, verdict, None, None, tuple(float(a) for a in amplitude),
@@ -109,21 +128,16 @@ def measure(step: Callable[[np.ndarray], np.ndarray], start: np.ndarray, steps: 
                f"keeps a cycle, but off by {error_ppm:+.0f} ppm in period and "
                f"{100 * amplitude_error:.2f} % in amplitude")
     return SteppedCycle(kept, verdict, period, error_ppm, tuple(float(a) for a in amplitude),
-                        amplitude_error)
+                        amplitude_error, tuple(float(v) for v in 0.5 * (high + low)))
 
 
-def _crossing_periods(first_state: np.ndarray, level: float) -> np.ndarray:
-    """Times between upward crossings of ``level``, skipping each trajectory's first crossing."""
-    below = first_state[:-1] < level
-    above = first_state[1:] >= level
+def _crossing_periods(values: np.ndarray, section: Section) -> np.ndarray:
+    """Periods between crossings of the section (steps per crossing times the turns per cycle),
+    skipping each trajectory's first crossing."""
     periods = []
-    for j in range(first_state.shape[1]):
-        steps = np.flatnonzero(below[:, j] & above[:, j])
-        if steps.size < 3:
-            continue
-        a, b = first_state[steps, j], first_state[steps + 1, j]
-        times = steps + (level - a) / (b - a)
-        periods.extend(np.diff(times[1:]))
+    for times in section.crossing_times(values):
+        if times.size >= 3:
+            periods.extend(section.turns * np.diff(times[1:]))
     return np.asarray(periods, dtype=float)
 
 
@@ -135,21 +149,28 @@ def start_points(samples: np.ndarray, count: int = START_POINTS) -> np.ndarray:
 
 def _program_samples(program: IntegerProgram, samples: np.ndarray) -> np.ndarray:
     """The samples as the program's whole state: a program with runtime parameters carries more
-    rows than the model has states (see :func:`orbitfix.gen.pipeline.program_states`)."""
-    samples = np.asarray(samples, dtype=float)
+    rows than the model has states (see :func:`orbitfix.gen.pipeline.program_states`). Angle
+    states come in radians (as the analysis gives them) and leave in turns (as the program holds
+    them)."""
+    samples = np.array(samples, dtype=float)
     if samples.shape[0] != len(program.state_names):
         raise ValueError(f"the samples have {samples.shape[0]} rows but the program steps "
                          f"{len(program.state_names)} states ({', '.join(program.state_names)}); "
                          "extend them with pipeline.program_states")
+    for i in program.angle_states:
+        samples[i] = radians_to_turns(samples[i])
     return samples
 
 
 def float_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_steps: float,
                 cycle_min: np.ndarray, cycle_max: np.ndarray, cycles: float = 6.0,
-                tolerance: CycleTolerance | None = None) -> SteppedCycle:
+                tolerance: CycleTolerance | None = None, turns: np.ndarray | None = None,
+                ) -> SteppedCycle:
     """The float step map's cycle (layer L1) against the continuous one (L0). ``samples`` hold
-    every state the program steps (see :func:`orbitfix.gen.pipeline.program_states`)."""
-    _refuse_angles(program)
+    every state the program steps (see :func:`orbitfix.gen.pipeline.program_states`); ``turns``
+    are the whole turns each angle state makes per cycle (the cycle's ``turns``; one when not
+    given)."""
+    section = section_for(program, cycle_min, cycle_max, turns)
     samples = _program_samples(program, samples)
 
     def step(x: np.ndarray) -> np.ndarray:
@@ -160,32 +181,35 @@ def float_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_step
     work_size.refuse_beyond_machine(stepped_cycle_work(program, wanted_period_steps, cycles,
                                                        START_POINTS, integer=False), STUDY_ADVICE)
     return measure(step, start_points(samples), steps, wanted_period_steps, cycle_min, cycle_max,
-                   tolerance or CycleTolerance())
+                   tolerance or CycleTolerance(), section)
 
 
 def integer_cycle(program: IntegerProgram, samples: np.ndarray, wanted_period_steps: float,
                   cycle_min: np.ndarray, cycle_max: np.ndarray, cycles: float = 6.0,
-                  tolerance: CycleTolerance | None = None, points: int = START_POINTS) -> SteppedCycle:
+                  tolerance: CycleTolerance | None = None, points: int = START_POINTS,
+                  turns: np.ndarray | None = None) -> SteppedCycle:
     """The integer program's cycle (layer L2) against the continuous one (L0), in real units.
-    ``samples`` hold every state the program steps, as for :func:`float_cycle`."""
-    _refuse_angles(program)
+    ``samples`` and ``turns`` as for :func:`float_cycle`."""
+    section = section_for(program, cycle_min, cycle_max, turns)
     samples = _program_samples(program, samples)
     scale = 2.0 ** np.array(program.state_fraction_bits, dtype=float).reshape(-1, 1)
     start = np.round(start_points(samples, points) * scale).astype(np.int64)
     word_max = program.word_max
+    plain = [i for i in range(len(program.state_names)) if i not in program.angle_states]
 
     def step(x: np.ndarray) -> np.ndarray:
         ints = golden.step(program, np.round(x * scale).astype(np.int64))
         out = ints / scale
-        if np.any(np.abs(ints) >= word_max):
-            out[:, np.any(np.abs(ints) >= word_max, axis=0)] = np.inf  # at the word's edge
+        edge = np.any(np.abs(ints[plain]) >= word_max, axis=0)  # angles wrap by design
+        if np.any(edge):
+            out[:, edge] = np.inf  # at the word's edge
         return out
 
     steps = math.ceil(cycles * wanted_period_steps)
     work_size.refuse_beyond_machine(stepped_cycle_work(program, wanted_period_steps, cycles,
                                                        points, integer=True), STUDY_ADVICE)
     return measure(step, start / scale, steps, wanted_period_steps, cycle_min, cycle_max,
-                   tolerance or CycleTolerance())
+                   tolerance or CycleTolerance(), section)
 
 
 def stepped_cycle_work(program: IntegerProgram, wanted_period_steps: float, cycles: float,

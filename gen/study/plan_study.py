@@ -126,7 +126,7 @@ def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -
     if exact.period_steps is None or quantised.period_steps is None:
         return CoefficientEffect(None, None, worst, "the float step map keeps no cycle to compare")
     period = (quantised.period_steps / exact.period_steps - 1) * 1e6  # positive: runs slow
-    amplitude = max(abs(q / e - 1) for q, e in zip(quantised.amplitude, exact.amplitude, strict=True))
+    amplitude = quantised.amplitude_shift(exact)
     warning = None
     if abs(period) > tolerance.period_ppm or amplitude > tolerance.amplitude:
         warning = (f"rounding the constants alone moves the cycle by {period:+.1f} ppm in "

@@ -13,9 +13,10 @@ The parting at a step is the distance, in units of each state's half range (the 
 states), from the integer state to the nearest float state within a slip of a few steps: a timing
 slip within the period tolerance (1000 ppm) is a period error, judged elsewhere, not a parting.
 
-A value is counted as saturated when a step leaves it at the smallest or largest integer of its
-word, the values the program's clamp produces (an exact result that lands there by chance is
-counted too: it is already at the edge). Angle sums wrap by design and are not counted.
+A step is counted as saturated by the program's own rule (``integer_program``: a clamp changed a
+value the next state depends on), which golden applies: so the count here is the count of
+saturated steps the firmware keeps in its state struct after the same steps. Angle sums wrap by
+design and are not counted.
 """
 
 from __future__ import annotations
@@ -114,7 +115,7 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
     real = real.reshape(-1, 1)
     ints = np.asarray(plan.initial_state, dtype=np.int64).reshape(-1, 1)
     edges = (program.word_min, program.word_max)
-    clamped = [i for i, op in enumerate(program.ops) if op.kind != "state" and not op.wraps]
+    counted = sorted(program.counted_clamps)
     first: Saturation | None = None
     saturated_steps = 0
     floats = np.empty((steps + 1, n))
@@ -123,12 +124,12 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
     trajectory = np.empty((steps + 1, ints.shape[0]), dtype=np.int64)
     trajectory[0] = ints[:, 0]
     for k in range(1, steps + 1):
-        values = golden.evaluate(program, ints)
-        hit = [i for i in clamped if int(values[i][0]) in edges]
-        if hit:
+        saturated = np.zeros(1, dtype=bool)
+        values = golden.evaluate(program, ints, saturated)
+        if saturated[0]:
             saturated_steps += 1
-            if first is None:
-                i = hit[0]
+            if first is None:  # a clamp leaves its value at the word's edge
+                i = next(i for i in counted if int(values[i][0]) in edges)
                 first = Saturation(i, program.ops[i].note, k, plan.value_format(i).name,
                                    int(values[i][0]))
         ints = np.stack([values[i] for i in program.next_state]).astype(np.int64)
@@ -172,16 +173,14 @@ def _half_ranges(built: Design, floats: np.ndarray) -> np.ndarray:
 def plan_warnings(built: Design, path: StartPath, tolerance: CycleTolerance | None = None,
                   ) -> tuple[SteppedCycle | None, list[str]]:
     """What ``gen`` warns about the plan it writes: the start-up path's problems, and the integer
-    map's cycle against the continuous one when it misses a tolerance (None for a model with
-    angle states, whose cycle the stepped-cycle study does not time)."""
+    map's cycle against the continuous one when it misses a tolerance (timed by the section rule of
+    ``gen/study/section.py``, so a phase model is timed per turn of its phase)."""
     tolerance = tolerance or CycleTolerance()
     found = path.problems()
-    if built.plan.program.angle_states:
-        return None, found
     cycle = built.analysis.cycle
     stepped = integer_cycle(built.plan.program, program_states(built.model, cycle.samples),
                             built.timing.steps_per_cycle, cycle.state_min, cycle.state_max,
-                            tolerance=tolerance)
+                            tolerance=tolerance, turns=cycle.turns)
     if not stepped.kept:
         found.append(f"the integer map {stepped.verdict} (tolerance {tolerance.period_ppm:g} ppm "
                      f"in period, {100 * tolerance.amplitude:g} % in amplitude): raise the loop rate "

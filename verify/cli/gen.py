@@ -1,5 +1,6 @@
-"""The ``gen`` verb: write the model's fixed-point C (NAME.h, NAME.c) and its self-test
-(NAME_selftest.h, NAME_selftest.c), and optionally its integer program as JSON.
+"""The ``gen`` verb: write the model's fixed-point C (NAME.h, NAME.c), the macros between real
+values and stored integers (NAME_units.h) and the self-test (NAME_selftest.h, NAME_selftest.c),
+and optionally its integer program as JSON.
 
 With --plan FILE the fixed-point choice comes from what ``plan --search --json`` chose; with --trim
 the step constants are trimmed first (gen/study/trim.py).
@@ -48,7 +49,7 @@ def register(verbs: Any) -> None:
 
 def run(args: argparse.Namespace, partial: dict) -> int:
     """Design, render and write the files; print what was written and the caution."""
-    from orbitfix.gen.c.emit import render_model
+    from orbitfix.gen.c.emit import render_model, render_units
     from orbitfix.gen.c.selftest import render_selftest
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.safety import CAUTION
@@ -76,6 +77,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     partial["start_path"] = start.to_json()
     zones = dead_zones(built)
     texts = {**render_model(built.model, built.timing, built.integrator, built.plan, zones),
+             **render_units(built.model, built.timing, built.integrator, built.plan),
              **render_selftest(built.model, built.timing, built.integrator, built.plan,
                                start.trajectory)}
     files = {args.output / name: text for name, text in texts.items()}

@@ -46,7 +46,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     """Show the plan and the integrators' studies; search when asked."""
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.study.dead_zones import dead_zones
-    from orbitfix.gen.study.discrete_cycle import NO_ANGLES, CycleTolerance
+    from orbitfix.gen.study.discrete_cycle import CycleTolerance
     from orbitfix.gen.study.plan_study import coefficient_effect, search, study_integrators
     from orbitfix.gen.study.start_path import check_start_path
     from orbitfix.verify.report.design import (
@@ -77,15 +77,6 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     zones = dead_zones(built)
     partial.update({"model": built.model.name, "plan": plan_json(built),
                     "start_path": start.to_json(), "dead_zones": dead_zone_json(zones)})
-    if built.plan.program.angle_states:
-        partial["note"] = NO_ANGLES
-        code = 2 if args.search else 0
-        if args.json:
-            print(json_text(code == 0, partial))
-        else:
-            print("\n".join(plan_lines(built) + start_path_lines(start)))
-            print(f"\nnote: {NO_ANGLES}; the plan above still holds")
-        return code
     effect = coefficient_effect(built, tolerance)
     partial["coefficients"] = effect.to_json()
     studies = study_integrators(built, tolerance)

@@ -84,7 +84,6 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     if args.sources is not None and not args.sources.is_dir():
         raise InputError(f"--sources '{args.sources}' is not a folder: give the folder gen wrote "
                          "NAME.h and NAME.c into")
-    from orbitfix.gen.errors import UnsupportedError
     from orbitfix.gen.pipeline import design
     from orbitfix.gen.progress import tell
     from orbitfix.gen.safety import CAUTION
@@ -93,7 +92,6 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     from orbitfix.gen.work_size import bit_exact_work, refuse_beyond_machine
     from orbitfix.verify.proofs.certificate import certify
     from orbitfix.verify.proofs.drift import (
-        NO_ANGLES,
         DriftTolerances,
         build_drift_module,
         drift_size,
@@ -132,8 +130,6 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         built, trim = trim_design(built)
         partial["trim"] = trim_json(trim)
     partial.update(design_json(built))
-    if built.plan.program.angle_states and not args.skip_drift:
-        raise UnsupportedError(NO_ANGLES)
     # Sized now, so work beyond the machine is refused before any proof starts.
     program = built.plan.program
     refuse_beyond_machine(bit_exact_work(len(program.ops), len(program.state_names), args.states,

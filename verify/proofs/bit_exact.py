@@ -8,7 +8,10 @@ states inside the word (spread over its whole range, near the cycle, at the edge
 the smallest values), and a long trajectory from the initial state in which every single step is
 compared. On the random states, the verification-only traced step (``NAME_trace.c``) is also
 compared with golden value by value, and the firmware's own step with the traced step, so a fault
-in either file is caught. ``compare_sanitized`` repeats the comparison on a build under the
+in either file is caught. The count of saturated steps the firmware keeps in its state struct is
+compared too, everywhere: the init function must set it to 0, every step must add one exactly
+when golden says the step saturated, and it must stick at its largest value (some random states
+start there). ``compare_sanitized`` repeats the comparison on a build under the
 undefined-behaviour sanitizer. A mismatch names the first failing step, the state before it, what
 was expected and got, and the operation of the integer program where the two part.
 """
@@ -25,7 +28,11 @@ import numpy as np
 
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.program import golden
-from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.program.integer_program import (
+    SATURATION_COUNT_MAX,
+    IntegerProgram,
+    next_saturation_count,
+)
 from orbitfix.gen.progress import tell
 from orbitfix.verify.targets.host_build import HostModule
 
@@ -105,6 +112,9 @@ class BitExactReport:
     setters_checked: int = 0
     ramp_steps: int = 0
     sanitized: list[SanitizedRun] = field(default_factory=list)
+    # the C's count of saturated steps at the end of the trajectory from the init state (None:
+    # the trajectory was not run to its end)
+    trajectory_saturated_steps: int | None = None
 
     @property
     def bit_exact(self) -> bool:
@@ -130,6 +140,41 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
     edges = np.clip(edges, low, high)
     small = rng.integers(-(1 << 10), 1 << 10, size=(n, quarter), endpoint=True)
     return np.hstack([spread, near_cycle, edges, small]).astype(np.int64)
+
+
+def random_counts(count: int, rng: np.random.Generator) -> np.ndarray:
+    """Counts of saturated steps to start the random states from: mostly 0, and every eighth
+    state at the largest count, one below it and anywhere between, so a count that wraps instead
+    of sticking is seen. Returns int64 ndarray, shape (count,)."""
+    counts = np.zeros(count, dtype=np.int64)
+    counts[1::8] = SATURATION_COUNT_MAX
+    counts[2::8] = SATURATION_COUNT_MAX - 1
+    counts[3::8] = rng.integers(1, SATURATION_COUNT_MAX, size=counts[3::8].size, endpoint=True)
+    return counts
+
+
+def _count_mismatch(program: IntegerProgram, part: str, step: int, before: np.ndarray,
+                    count_before: int, saturated: bool, want: int, got: int,
+                    values: list[np.ndarray] | None = None, j: int = 0) -> Mismatch:
+    """The count of saturated steps differs while the states agree."""
+    operation = None
+    if values is not None and saturated:  # name the first counted value golden clamped
+        edges = (program.word_min, program.word_max)
+        index = next((i for i in sorted(program.counted_clamps) if int(values[i][j]) in edges),
+                     None)
+        if index is not None:
+            op = program.ops[index]
+            operation = {"index": index, "kind": op.kind, "note": op.note, "args": list(op.args),
+                         "expected": int(values[index][j]), "got": None}
+    how = "the step did not saturate"
+    if saturated:
+        how = "the step saturated" + (f": operation {operation['index']} ({operation['kind']}: "
+                                      f"{operation['note']}) was clamped to {operation['expected']}"
+                                      if operation else "")
+    return Mismatch(part=part, step=step, state_before=[int(v) for v in before],
+                    expected=[want], got=[got], operation=operation, units=state_units(program),
+                    reason=f"the count of saturated steps is {got} after the step from the count "
+                           f"{count_before}, but golden says {want} ({how})")
 
 
 def _require_inside_word(program: IntegerProgram, states: np.ndarray, what: str) -> None:
@@ -173,12 +218,14 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
     rng = np.random.default_rng(seed)
     batch = random_states(program, states, typical, rng)
     _require_inside_word(program, batch, "a random state")
-    got = _c_step_each(host, batch)
+    counts = random_counts(states, rng)
+    got, got_counts = _c_step_each(host, batch, counts)
     chunk = min(CHUNK, max(1024, TRACE_BUDGET // len(program.ops)))
     for first in range(0, states, chunk):
         tell("comparing random states, C against golden", first, states)
         part = batch[:, first:first + chunk]
-        values = golden.evaluate(program, part)
+        saturated = np.zeros(part.shape[1], dtype=bool)
+        values = golden.evaluate(program, part, saturated)
         want = np.stack([values[i] for i in program.next_state])
         bad = np.flatnonzero(np.any(got[:, first:first + chunk] != want, axis=0))
         if bad.size:
@@ -188,7 +235,19 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
             report.first_mismatch = _locate(program, locator.host(), "random states", k,
                                             batch[:, k], want[:, int(bad[0])], got[:, k])
             return report
-        traced = _traced_mismatch(program, host, part, values, got[:, first:first + chunk])
+        want_counts = next_saturation_count(counts[first:first + chunk], saturated)
+        bad = np.flatnonzero(got_counts[first:first + chunk] != want_counts)
+        if bad.size:
+            j = int(bad[0])
+            k = first + j
+            report.states_compared = k + 1
+            report.seconds["random_states"] = time.perf_counter() - started
+            report.first_mismatch = _count_mismatch(
+                program, "random states", k, batch[:, k], int(counts[k]), bool(saturated[j]),
+                int(want_counts[j]), int(got_counts[k]), values, j)
+            return report
+        traced = _traced_mismatch(program, host, part, values, got[:, first:first + chunk],
+                                  saturated)
         if traced is not None:
             k = first + traced.step
             report.states_compared = k + 1
@@ -198,8 +257,10 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
     report.states_compared = states
     report.seconds["random_states"] = time.perf_counter() - started
     started = time.perf_counter()
-    report.steps_compared, report.first_mismatch = _trajectory(
+    report.steps_compared, report.first_mismatch, count = _trajectory(
         program, host, np.asarray(initial, dtype=np.int64), steps, segment, block, locator)
+    if report.first_mismatch is None:
+        report.trajectory_saturated_steps = count
     report.seconds["trajectory"] = time.perf_counter() - started
     return report
 
@@ -208,8 +269,14 @@ def _check_init(program: IntegerProgram, host: HostModule, initial: np.ndarray) 
     """The state the C's init function sets against the plan's initial state, bit for bit."""
     out = np.zeros(len(program.state_names), dtype=np.int32)
     host.lib.orbitfix_harness_init(host.ffi.from_buffer("int32_t[]", out))
+    count = int(host.lib.orbitfix_harness_init_saturated())
     if np.array_equal(out.astype(np.int64), initial):
-        return None
+        if count == 0:
+            return None
+        return Mismatch(part="init", step=0, state_before=[], expected=[0], got=[count],
+                        operation=None, units=state_units(program),
+                        reason=f"the init function leaves the count of saturated steps at "
+                               f"{count}, not 0")
     wrong = [program.state_names[i] for i in np.flatnonzero(out != initial)]
     return Mismatch(part="init", step=0, state_before=[], expected=[int(v) for v in initial],
                     got=[int(v) for v in out], operation=None, units=state_units(program),
@@ -306,15 +373,18 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
                       compiler: str = "cc") -> tuple[SanitizedRun, Mismatch | None]:
     """The stand-alone sanitized build (``host_build.build_sanitized_program``) on ``states``
     random states (drawn as in the main proof, the traced step too) and ``steps`` steps from its
-    own init state, every value against golden. Undefined behaviour stops the program: its report
-    is kept in the run."""
+    own init state, every value and every count of saturated steps against golden. Undefined
+    behaviour stops the program: its report is kept in the run."""
     started = time.perf_counter()
-    batch = random_states(program, states, typical, np.random.default_rng(seed))
+    rng = np.random.default_rng(seed)
+    batch = random_states(program, states, typical, rng)
     _require_inside_word(program, batch, "a random state")
+    counts_in = random_counts(states, rng)
     n, length = len(program.state_names), len(program.ops)
     traced = min(states, max(1024, TRACE_BUDGET // length))  # traces held in memory at once
     feed = np.concatenate([np.array([states, traced, steps], dtype=np.int32),
-                           np.ascontiguousarray(batch.T, dtype=np.int32).ravel()])
+                           np.ascontiguousarray(batch.T, dtype=np.int32).ravel(),
+                           counts_in.astype(np.uint32).view(np.int32)])
     done = subprocess.run([executable], input=feed.tobytes(), capture_output=True, check=False)
     if done.returncode != 0:
         text = done.stderr.decode(errors="replace").strip().splitlines()
@@ -322,11 +392,14 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
             f"exit code {done.returncode}"]
         return SanitizedRun(level, compiler, states, steps, time.perf_counter() - started,
                             undefined="\n".join(found[:3])), None
-    out = np.frombuffer(done.stdout, dtype=np.int32).astype(np.int64)
-    sizes = [n, states * n, traced * n, traced * length, steps * n]
-    if out.size != sum(sizes):
-        raise ValueError(f"the sanitized program wrote {out.size} values, not {sum(sizes)}")
-    init, stepped, traced_next, traces, record = np.split(out, np.cumsum(sizes)[:-1])
+    words = np.frombuffer(done.stdout, dtype=np.int32)
+    sizes = [n, 1, states * n, states, traced * n, traced * length, traced, steps * n, steps]
+    if words.size != sum(sizes):
+        raise ValueError(f"the sanitized program wrote {words.size} values, not {sum(sizes)}")
+    parts = np.split(words, np.cumsum(sizes)[:-1])
+    init, stepped, traced_next, traces, record = (parts[i].astype(np.int64) for i in (0, 2, 4, 5, 7))
+    init_count, stepped_counts, traced_counts, record_counts = (
+        parts[i].view(np.uint32).astype(np.int64) for i in (1, 3, 6, 8))
     run = SanitizedRun(level, compiler, states, steps, 0.0, None)
     units = state_units(program)
     part = f"sanitized build {compiler} {level}"
@@ -335,18 +408,34 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
         mismatch = Mismatch(part=part, step=0, state_before=[], expected=[int(v) for v in initial],
                             got=[int(v) for v in init], operation=None, units=units,
                             reason="the init function sets another state in this build")
+    elif int(init_count[0]) != 0:
+        mismatch = Mismatch(part=part, step=0, state_before=[], expected=[0],
+                            got=[int(init_count[0])], operation=None, units=units,
+                            reason="the init function leaves the count of saturated steps at "
+                                   f"{int(init_count[0])}, not 0, in this build")
     stepped, traced_next = stepped.reshape(states, n).T, traced_next.reshape(traced, n).T
     traces = traces.reshape(traced, length)
     chunk = min(CHUNK, max(1024, TRACE_BUDGET // length))
     for first in range(0, states if mismatch is None else 0, chunk):
-        values = golden.evaluate(program, batch[:, first:first + chunk])
+        saturated = np.zeros(min(chunk, states - first), dtype=bool)
+        values = golden.evaluate(program, batch[:, first:first + chunk], saturated)
         want = np.stack([values[i] for i in program.next_state])
         wrong = np.any(stepped[:, first:first + chunk] != want, axis=0)
         inside = max(0, min(traced - first, want.shape[1]))
         wrong[:inside] |= np.any(traced_next[:, first:first + inside] != want[:, :inside], axis=0)
         for index, value in enumerate(values):
             wrong[:inside] |= traces[first:first + inside, index] != value[:inside]
-        bad = np.flatnonzero(wrong)
+        want_counts = next_saturation_count(counts_in[first:first + chunk], saturated)
+        wrong_count = stepped_counts[first:first + chunk] != want_counts
+        wrong_count[:inside] |= traced_counts[first:first + inside] != saturated[:inside]
+        bad = np.flatnonzero(wrong | wrong_count)
+        if bad.size and not wrong[int(bad[0])]:
+            j = int(bad[0])
+            k = first + j
+            mismatch = _count_mismatch(program, part, k, batch[:, k], int(counts_in[k]),
+                                       bool(saturated[j]), int(want_counts[j]),
+                                       int(stepped_counts[k]), values, j)
+            break
         if bad.size:
             j = int(bad[0])
             k = first + j
@@ -364,15 +453,25 @@ def compare_sanitized(program: IntegerProgram, executable: str, level: str, init
     if mismatch is None and steps:
         record = record.reshape(steps, n)
         before = np.vstack([init.reshape(1, -1), record[:-1]])
-        expected = np.vstack([golden.step(program, before[first:first + chunk].T).T
-                              for first in range(0, steps, chunk)])
+        stepped_golden = [golden.step_saturated(program, before[first:first + chunk].T)
+                          for first in range(0, steps, chunk)]
+        expected = np.vstack([after.T for after, _ in stepped_golden])
+        flags = np.concatenate([flag for _, flag in stepped_golden])
+        counts_before = np.concatenate([[0], record_counts[:-1]])
+        want_counts = next_saturation_count(counts_before, flags)
         bad = np.flatnonzero(np.any(expected != record, axis=1))
+        bad_count = np.flatnonzero(want_counts != record_counts)
         if bad.size:
             k = int(bad[0])
             mismatch = Mismatch(part=part, step=k + 1, state_before=[int(v) for v in before[k]],
                                 expected=[int(v) for v in expected[k]],
                                 got=[int(v) for v in record[k]], operation=None, units=units,
                                 reason="a step of the trajectory from the init state differs")
+        elif bad_count.size:
+            k = int(bad_count[0])
+            mismatch = _count_mismatch(program, part, k + 1, before[k], int(counts_before[k]),
+                                       bool(flags[k]), int(want_counts[k]),
+                                       int(record_counts[k]))
     return replace(run, seconds=time.perf_counter() - started), mismatch
 
 
@@ -389,19 +488,25 @@ class _Locator:
 
 
 def _traced_mismatch(program: IntegerProgram, host: HostModule, part: np.ndarray,
-                     values: list[np.ndarray], shipped: np.ndarray) -> Mismatch | None:
-    """The traced step on a batch of states: every value against golden's, and its next state
-    against the firmware step's (``shipped``). The first state where either differs, with its
-    index in the batch as ``step``."""
-    out, trace = _c_trace_each(host, part)
+                     values: list[np.ndarray], shipped: np.ndarray,
+                     saturated: np.ndarray) -> Mismatch | None:
+    """The traced step on a batch of states: every value against golden's, its next state
+    against the firmware step's (``shipped``), and its count of saturated steps (from 0) against
+    golden's ``saturated``. The first state where any differs, with its index in the batch as
+    ``step``."""
+    out, trace, counts = _c_trace_each(host, part, counted=True)
     wrong_value = np.zeros(part.shape[1], dtype=bool)
     for index, value in enumerate(values):
         wrong_value |= trace[:, index] != value
     wrong_state = np.any(out != shipped, axis=0)
-    bad = np.flatnonzero(wrong_value | wrong_state)
+    wrong_count = counts != saturated
+    bad = np.flatnonzero(wrong_value | wrong_state | wrong_count)
     if not bad.size:
         return None
     j = int(bad[0])
+    if not wrong_value[j] and not wrong_state[j]:
+        return _count_mismatch(program, "traced step", j, part[:, j], 0, bool(saturated[j]),
+                               int(saturated[j]), int(counts[j]), values, j)
     operation = None
     if wrong_value[j]:
         index = next(i for i, v in enumerate(values) if int(trace[j, i]) != int(v[j]))
@@ -414,17 +519,22 @@ def _traced_mismatch(program: IntegerProgram, host: HostModule, part: np.ndarray
                     units=state_units(program))
 
 
-def _c_trace_each(host: HostModule, batch: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _c_trace_each(host: HostModule, batch: np.ndarray, counted: bool = False) -> tuple:
     """The traced step from each state: (next states, shape (n_states, count); every value,
-    shape (count, trace length))."""
+    shape (count, trace length)), and with ``counted`` the count of saturated steps after the
+    step from 0 (int64, shape (count,))."""
     ffi = host.ffi
     flat_in = np.ascontiguousarray(batch.T, dtype=np.int32)
     flat_out = np.empty_like(flat_in)
     length = int(host.lib.orbitfix_harness_trace_length())
     trace = np.empty((flat_in.shape[0], length), dtype=np.int32)
-    host.lib.orbitfix_harness_trace_each(ffi.from_buffer("int32_t[]", flat_in),
-                                         ffi.from_buffer("int32_t[]", flat_out),
-                                         ffi.from_buffer("int32_t[]", trace), flat_in.shape[0])
+    counts = np.zeros(flat_in.shape[0], dtype=np.uint32)
+    host.lib.orbitfix_harness_trace_each_counted(
+        ffi.from_buffer("int32_t[]", flat_in), ffi.from_buffer("int32_t[]", flat_out),
+        ffi.from_buffer("int32_t[]", trace),
+        ffi.from_buffer("uint32_t[]", counts) if counted else ffi.NULL, flat_in.shape[0])
+    if counted:
+        return flat_out.T.astype(np.int64), trace, counts.astype(np.int64)
     return flat_out.T.astype(np.int64), trace
 
 
@@ -440,55 +550,86 @@ def _check_shape(program: IntegerProgram, host: HostModule) -> None:
                          f"{len(program.ops)}; the trace files belong to another program")
 
 
-def _c_step_each(host: HostModule, batch: np.ndarray) -> np.ndarray:
+def _c_step_each(host: HostModule, batch: np.ndarray,
+                 counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """One C step from each state with its count of saturated steps: (next states, shape
+    (n_states, count); the counts after the step, int64 shape (count,))."""
     flat_in = np.ascontiguousarray(batch.T, dtype=np.int32)
     flat_out = np.empty_like(flat_in)
+    counts_in = np.ascontiguousarray(counts, dtype=np.uint32)
+    counts_out = np.empty_like(counts_in)
     ffi = host.ffi
-    host.lib.orbitfix_harness_step_each(ffi.from_buffer("int32_t[]", flat_in),
-                                         ffi.from_buffer("int32_t[]", flat_out), flat_in.shape[0])
-    return flat_out.T.astype(np.int64)
+    host.lib.orbitfix_harness_step_each_counted(
+        ffi.from_buffer("int32_t[]", flat_in), ffi.from_buffer("uint32_t[]", counts_in),
+        ffi.from_buffer("int32_t[]", flat_out), ffi.from_buffer("uint32_t[]", counts_out),
+        flat_in.shape[0])
+    return flat_out.T.astype(np.int64), counts_out.astype(np.int64)
 
 
 def _c_run(host: HostModule, state: np.ndarray, steps: int) -> tuple[np.ndarray, np.ndarray]:
+    end, _, record, _ = c_run_counted(host, state, 0, steps)
+    return end, record
+
+
+def c_run_counted(host: HostModule, state: np.ndarray, count: int,
+                  steps: int) -> tuple[np.ndarray, int, np.ndarray, np.ndarray]:
+    """``steps`` C steps from ``state`` and the count of saturated steps ``count``: (the last
+    state, the last count, the state after each step (shape (steps, n_states)), the count after
+    each step (shape (steps,)), all int64)."""
     ffi = host.ffi
     io = np.ascontiguousarray(state, dtype=np.int32).copy()
+    count_io = np.array([count], dtype=np.uint32)
     record = np.empty((steps, io.size), dtype=np.int32)
-    host.lib.orbitfix_harness_run(ffi.from_buffer("int32_t[]", io), steps,
-                                  ffi.from_buffer("int32_t[]", record))
-    return io.astype(np.int64), record.astype(np.int64)
+    counts = np.empty(steps, dtype=np.uint32)
+    host.lib.orbitfix_harness_run_counted(
+        ffi.from_buffer("int32_t[]", io), ffi.from_buffer("uint32_t[]", count_io), steps,
+        ffi.from_buffer("int32_t[]", record), ffi.from_buffer("uint32_t[]", counts))
+    return io.astype(np.int64), int(count_io[0]), record.astype(np.int64), counts.astype(np.int64)
 
 
 def _trajectory(program: IntegerProgram, host: HostModule, initial: np.ndarray, steps: int,
-                segment: int, block: int, locator: _Locator) -> tuple[int, Mismatch | None]:
+                segment: int, block: int, locator: _Locator) -> tuple[int, Mismatch | None, int]:
     """Run C in blocks; in each block golden runs freely from every ``segment``-th C state (the
     checkpoints) for ``segment`` steps, vectorised over the checkpoints, and every step is compared
-    with the C's record. Returns (steps compared, first mismatch or None)."""
+    with the C's record, its count of saturated steps too (from 0 at the start). Returns (steps
+    compared, first mismatch or None, the C's count at the end)."""
     block = max(segment, block - block % segment)
     state = initial
+    saturated_count = 0
     done = 0
     while done < steps:
         tell("comparing the trajectory, C against golden", done, steps)
         count = min(block, steps - done)
-        end_state, record = _c_run(host, state, count)
+        end_state, end_count, record, counts = c_run_counted(host, state, saturated_count, count)
         before = np.vstack([state.reshape(1, -1), record[:-1]])  # the state before each step
         starts = np.arange(0, count, segment)
         golden_state = before[starts].T
+        flags = np.zeros(count, dtype=bool)
         for i in range(segment):
             index = starts + i
             live = index < count
             if not live.all():
                 golden_state, index, starts = golden_state[:, live], index[live], starts[live]
-            golden_state = golden.step(program, golden_state)
+            golden_state, flags[index] = golden.step_saturated(program, golden_state)
             if np.any(golden_state != record[index].T):
                 # Segments advance together, so an earlier global step may also be wrong.
                 first = _earliest_wrong(program, before, record, int(index[-1]))
                 return done + first + 1, _locate(program, locator.host(), "trajectory",
                                                  done + first + 1,
                                                  before[first], _golden_one(program, before[first]),
-                                                 record[first])
+                                                 record[first]), saturated_count
+        counts_before = np.concatenate([[saturated_count], counts[:-1]])
+        want = next_saturation_count(counts_before, flags)
+        wrong = np.flatnonzero(want != counts)
+        if wrong.size:
+            k = int(wrong[0])
+            return done + k + 1, _count_mismatch(
+                program, "trajectory", done + k + 1, before[k], int(counts_before[k]),
+                bool(flags[k]), int(want[k]), int(counts[k]),
+                golden.evaluate(program, before[k].reshape(-1, 1)), 0), saturated_count
         done += count
-        state = end_state
-    return done, None
+        state, saturated_count = end_state, end_count
+    return done, None, saturated_count
 
 
 def _golden_one(program: IntegerProgram, state: np.ndarray) -> np.ndarray:

@@ -19,9 +19,12 @@ def drift_lines(report: DriftReport) -> list[str]:
              f"  references: continuous cycle {report.continuous_period_steps:.6f} steps per "
              "cycle, float step map " + _maybe(report.step_map.period_steps, lambda v: f"{v:.6f}",
                                                "has no cycle at this step size"),
-             "  amplitudes (continuous / float step map): " + ", ".join(
-                 f"{n} {a:.6g} / {b:.6g}" for n, a, b in
-                 zip(names, report.continuous_amplitude, report.step_map.amplitude, strict=True)),
+             "  amplitudes (continuous / float step map): " + ("; ".join(part for part in (", ".join(
+                 f"{n} {a:.6g} / {_number(b)}" for n, a, b, rests in
+                 zip(names, report.continuous_amplitude, report.step_map.amplitude, report.resting,
+                     strict=True) if a is not None and not rests), _rest_note(report),
+                 _angles_note(report)) if part)),
+             f"  section: {_section_text(report)}",
              f"  tolerances: amplitude {100 * report.tolerances.amplitude:g} %, period "
              f"{report.tolerances.period_ppm:g} ppm, phase drift "
              f"{report.tolerances.phase_drift_cycles:g} cycles over the run, return spread "
@@ -32,13 +35,19 @@ def drift_lines(report: DriftReport) -> list[str]:
         role = "decides the verdict" if run.decides else "robustness"
         lines.append(f"  from {run.start.name} ({run.start.why}; {role}): {run.outcome.upper()}, "
                      f"horizon {run.horizon}")
-        if run.horizon == "unbounded":
+        if run.horizon == "unbounded" and run.cycle_turns is not None:
+            modulo = " modulo a common turn of the angles" if report.turns_together else ""
+            lines.append(f"    on the integer cycle{modulo} from step {run.steps_to_cycle:,}: "
+                         f"{run.cycle_length:,} steps, in which {names[report.section.state]} turns "
+                         f"{run.cycle_turns:.9g} times"
+                         + _maybe(run.integer_period_steps,
+                                  lambda v: f" (the whole state repeats every {v:,} steps)"))
+        elif run.horizon == "unbounded":
             lines.append(f"    on the integer cycle from step {run.steps_to_cycle:,}: "
                          f"{run.cycle_length:,} steps, {run.crossings_per_cycle} crossings of the "
                          "section per turn")
         lines.append(f"    amplitude {'on the cycle' if run.horizon == 'unbounded' else 'at the end'}: "
-                     + ", ".join(
-            f"{n} {a:.6g}" for n, a in zip(names, run.amplitude, strict=True))
+                     + ", ".join(_run_amplitude(run, report))
             + _maybe(run.amplitude_error, lambda v: f"; worst error {100 * v:.4g} %"))
         if run.period_steps is not None:
             lines.append(f"    period {run.period_steps:.6f} steps: {run.period_error_ppm:+.4g} ppm "
@@ -47,6 +56,9 @@ def drift_lines(report: DriftReport) -> list[str]:
                              lambda v: f", {v:+.4g} ppm against the float step map") + _maybe(
                              run.phase_drift_cycles,
                              lambda v: f"; phase drift {v:+.4g} cycles over {report.hours:g} h"))
+        if run.return_spread_bound and run.return_spread is not None:
+            lines.append(f"    return spread at most {100 * max(run.return_spread):.3g} % (a sure bound: "
+                         "the crossings slide round the cycle from turn to turn)")
         if run.horizon == "unbounded":
             pass
         elif run.integer_period_steps is not None:
@@ -76,14 +88,17 @@ def drift_lines(report: DriftReport) -> list[str]:
 def drift_json(report: DriftReport) -> dict:
     """The ``drift`` object of ``verify --json``: plain Python types only."""
     scale = 2.0 ** -report.fraction_bits
+    section = report.section
     return {
         "steps": report.steps,
         "hours": report.hours,
         "loop_hz": report.loop_hz,
         "settle_steps": report.settle_steps,
         "window_steps": report.window_steps,
-        "section": {"state": report.state_names[0], "level": report.section_level,
-                    "level_real": report.section_level * scale, "direction": "upward"},
+        "section": ({**section.to_json(report.state_names, report.state_fraction_bits[section.state]),
+                     "modulo_common_turn": report.turns_together} if section is not None else
+                    {"state": report.state_names[0], "level": report.section_level,
+                     "level_real": report.section_level * scale, "direction": "upward"}),
         "planned_limits": report.planned_limits,
         "tolerances": tolerances_json(report.tolerances),
         "references": {
@@ -94,7 +109,8 @@ def drift_json(report: DriftReport) -> dict:
         },
         "cycle_budget_steps": report.cycle_budget,
         "seed": report.seed,
-        "runs": [run_json(run, report.fraction_bits, len(report.state_names)) for run in report.runs],
+        "runs": [run_json(run, report.fraction_bits, len(report.state_names),
+                          report.state_fraction_bits) for run in report.runs],
         "robustness": report.robustness,
         "notes": list(report.notes),
         "seconds": dict(report.seconds),
@@ -102,8 +118,11 @@ def drift_json(report: DriftReport) -> dict:
     }
 
 
-def run_json(run: DriftRun, fraction_bits: int, model_states: int) -> dict:
-    """One run as plain data."""
+def run_json(run: DriftRun, fraction_bits: int, model_states: int,
+             state_fraction_bits: tuple[int, ...] = ()) -> dict:
+    """One run as plain data (``state_fraction_bits``: each model state's, when they differ; an
+    angle's real value is in turns)."""
+    bits = list(state_fraction_bits) or [fraction_bits] * model_states
     return {
         "start": run.start.name,
         "why": run.start.why,
@@ -112,9 +131,10 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int) -> dict:
         "steps_to_cycle": run.steps_to_cycle,
         "cycle_length": run.cycle_length,
         "crossings_per_cycle": run.crossings_per_cycle,
+        "cycle_turns": run.cycle_turns,
         "initial_state": list(run.start.state),
-        "initial_state_real": [v / 2.0 ** fraction_bits
-                               for v in run.start.state[:model_states]],
+        "initial_state_real": [v / 2.0 ** b for v, b in zip(run.start.state[:model_states], bits,
+                                                             strict=True)],
         "amplitude": run.amplitude,
         "amplitude_first_window": run.amplitude_first,
         "amplitude_error": run.amplitude_error,
@@ -126,6 +146,8 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int) -> dict:
         "phase_drift_cycles_continuous": run.phase_drift_cycles_continuous,
         "phase_drift_cycles_per_hour": run.phase_drift_cycles_per_hour,
         "return_spread": run.return_spread,
+        "return_spread_is_bound": run.return_spread_bound,
+        "middle": run.middle,
         "crossings": run.crossings,
         "settled_crossings": run.settled_crossings,
         "integer_period_steps": run.integer_period_steps,
@@ -145,6 +167,46 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int) -> dict:
 def tolerances_json(tolerances: DriftTolerances) -> dict:
     """The tolerances as plain data."""
     return asdict(tolerances)
+
+
+def _number(value: float | None) -> str:
+    return "-" if value is None else f"{value:.6g}"
+
+
+def _rest_note(report: DriftReport) -> str:
+    rest = [f"{n} {0.5 * (lo + hi):.6g}" for n, lo, hi, rests, a in
+            zip(report.state_names, report.continuous_low, report.continuous_high, report.resting,
+                report.continuous_amplitude, strict=False) if rests and a is not None]
+    return f"at rest on the cycle (judged by level): {', '.join(rest)}" if rest else ""
+
+
+def _run_amplitude(run: DriftRun, report: DriftReport) -> list[str]:
+    parts = []
+    for i, (n, a) in enumerate(zip(report.state_names, run.amplitude, strict=True)):
+        if a is None:
+            continue
+        rests = report.resting[i] and i < len(run.middle) and run.middle[i] is not None
+        parts.append(f"{n} at {run.middle[i]:.9g}" if rests else f"{n} {a:.6g}")
+    return parts
+
+
+def _angles_note(report: DriftReport) -> str:
+    turning = [n for n, a in zip(report.state_names, report.continuous_amplitude, strict=True) if a is None]
+    return f"{', '.join(turning)}: angles, no amplitude" if turning else ""
+
+
+def _section_text(report: DriftReport) -> str:
+    section = report.section
+    if section is None:
+        return f"{report.state_names[0]} rising through {report.section_level}"
+    name = report.state_names[section.state]
+    if section.angle:
+        way = "forwards" if section.direction > 0 else "backwards"
+        return (f"{name} passing the phase {section.level:g} turn {way}, one crossing per turn, "
+                f"{section.turns} turn(s) per cycle"
+                + ("; states compared modulo a common turn of the angles" if report.turns_together
+                   else ""))
+    return f"{name} rising through {section.level:.6g} (the middle of its range on the cycle)"
 
 
 def _maybe(value: object, text, absent: str = "") -> str:

@@ -21,6 +21,9 @@ def host_fields(outcome: HostCheck) -> dict[str, Any]:
         "init_checked": report.init_checked,
         "setters_checked": report.setters_checked,
         "ramp_steps_compared": report.ramp_steps,
+        # the C's count of saturated steps (compared with golden's at every step) at the end of
+        # the trajectory from the initial state
+        "trajectory_saturated_steps": report.trajectory_saturated_steps,
         "sanitized": [{"compiler": run.compiler, "flags": [run.level, *SANITIZE_FLAGS],
                        "states_compared": run.states, "steps_compared": run.steps, "seconds": run.seconds,
                        "undefined_behaviour": run.undefined} for run in report.sanitized],
@@ -42,13 +45,17 @@ def host_lines(outcome: HostCheck) -> list[str]:
     if report.init_checked:
         ramps = (f"; {report.setters_checked} setter(s) and their ramps, "
                  f"{report.ramp_steps:,} steps compared" if report.setters_checked else "")
-        lines.append(f"init function: sets the plan's initial state bit for bit{ramps}"
+        lines.append(f"init function: sets the plan's initial state bit for bit and no saturated "
+                     f"step{ramps}"
                      + _seconds(report.seconds.get("init_and_setters")))
-    lines.append(f"random states: {report.states_compared:,} compared one step each"
+    lines.append(f"random states: {report.states_compared:,} compared one step each, with the "
+                 "count of saturated steps"
                  + _seconds(report.seconds.get("random_states")))
     if "trajectory" in report.seconds or report.steps_compared:
+        counted = ("" if report.trajectory_saturated_steps is None else
+                   f", saturated steps counted: {report.trajectory_saturated_steps:,}")
         lines.append(f"trajectory from the initial state: {report.steps_compared:,} steps compared"
-                     + _seconds(report.seconds.get("trajectory")))
+                     f"{counted}" + _seconds(report.seconds.get("trajectory")))
     for run in report.sanitized:
         verdict = (f"undefined behaviour: {run.undefined}" if run.undefined else
                    f"{run.states:,} states and {run.steps:,} steps compared")

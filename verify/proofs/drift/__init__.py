@@ -9,7 +9,6 @@ from orbitfix.verify.proofs.drift.harness import (
     integer_period,
 )
 from orbitfix.verify.proofs.drift.proof import (
-    NO_ANGLES,
     DriftReport,
     DriftRun,
     DriftTolerances,
@@ -18,6 +17,6 @@ from orbitfix.verify.proofs.drift.proof import (
 )
 from orbitfix.verify.proofs.drift.references import Start, choose_starts, given_starts
 
-__all__ = ["NO_ANGLES", "DriftReport", "DriftRun", "DriftTolerances", "Start", "build_drift_module",
+__all__ = ["DriftReport", "DriftRun", "DriftTolerances", "Start", "build_drift_module",
            "choose_starts", "cycle_start", "drift_size", "given_starts", "harness_statistics",
            "integer_period", "run_drift"]

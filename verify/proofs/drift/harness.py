@@ -1,6 +1,10 @@
 """The drift harness in C (``templates/drift_harness.c.j2``) and the calls into it: one streaming
 run from a start with its statistics kept in C, the exact integer period by Brent's algorithm, and
 the step from which the integer orbit is periodic.
+
+The harness times the cycle by the section of ``gen/study/section.py`` (:func:`drift_section`),
+rendered into it in integer arithmetic; for a model whose step commutes with a common turn of its
+angles, it compares states modulo that turn (:func:`turns_together`).
 """
 
 from __future__ import annotations
@@ -20,6 +24,7 @@ from orbitfix.gen.c.emit import (
 )
 from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.study.section import Section, section_for, turns_together
 from orbitfix.verify.targets.host_build import HostModule, build_host_module
 
 DRIFT_DECLARATIONS = """\
@@ -34,7 +39,7 @@ uint64_t orbitfix_drift_cycle_start(const int32_t *start, uint64_t period, uint6
 # Slots of the harness's counts array (the enum at the top of drift_harness.c.j2).
 COUNT_FIELDS = ("crossings", "settled_crossings", "first_settled_crossing", "last_crossing",
                 "limit_steps", "limit_first", "limit_settled", "range_steps", "range_first",
-                "range_settled", "period", "period_seen_at")
+                "range_settled", "period", "period_seen_at", "advance")
 RANGE_GROUPS = ("settled_low", "settled_high", "first_low", "first_high", "final_low",
                 "final_high", "return_low", "return_high")
 
@@ -53,17 +58,36 @@ class HarnessStatistics:
     seconds: float
 
 
+def drift_section(design: Design) -> Section:
+    """The section the drift proof times the cycle by (the rule of ``gen/study/section.py``; a
+    design built without an analysis, as tests build bare maps, gets it with no cycle known)."""
+    program = design.plan.program
+    if design.analysis is None:
+        return section_for(program, None, None)
+    cycle = design.analysis.cycle
+    return section_for(program, cycle.state_min, cycle.state_max, cycle.turns)
+
+
 def render_drift_harness(design: Design) -> str:
     """The drift harness C for one design."""
     model = design.model
     names = CNames(model.name)
     bits = design.plan.program.word_bits
     program = design.plan.program
+    section = drift_section(design)
+    angles = [i in program.angle_states for i in range(len(program.state_names))]
+    together = turns_together(program)
+    where = program.state_names[section.state]
+    text = (f"{where} passing a fixed phase {'forwards' if section.direction > 0 else 'backwards'}, "
+            "one crossing per turn" if section.angle else f"{where} rising through the level")
     return environment().get_template("drift_harness.c.j2").render(
         names=names, fields=[names.field(n) for n in program.state_names],
         count=len(program.state_names),
         version=__version__, word_type=f"int{bits}_t", word_bits=bits,
-        declarations=DRIFT_DECLARATIONS, limits=design.plan.planned_limits())
+        declarations=DRIFT_DECLARATIONS, limits=design.plan.planned_limits(),
+        angles=angles, section_state=section.state, section_angle=section.angle,
+        section_sign=section.direction, section_text=text, together=together,
+        reference=min(program.angle_states) if together else 0)
 
 
 def build_drift_module(design: Design, sources: dict[str, str] | None = None) -> HostModule:
@@ -137,8 +161,13 @@ def cycle_start(host: HostModule, start: tuple[int, ...], period: int, budget: i
 
 
 def crossing_time(before: list[int] | np.ndarray, after: list[int] | np.ndarray, step: int,
-                  level: float) -> float:
-    """The (fractional) step at which state 0 crossed ``level`` between steps step-1 and step."""
-    low, high = float(before[0]), float(after[0])
-    return step - 1 + (level - low) / (high - low)
+                  level: int, section: Section, word_bits: int) -> float:
+    """The (fractional) step at which the section state crossed the section between steps step-1
+    and step (the states the harness bracketed the crossing with, integer units)."""
+    found = section.integer_crossing(int(before[section.state]), int(after[section.state]), level,
+                                     word_bits)
+    if found is None:
+        raise ValueError(f"no crossing of the section between the bracketed steps {step - 1} and {step}")
+    num, den = found
+    return step - 1 + num / den
 

@@ -5,9 +5,13 @@ Every long run happens in C (``templates/drift_harness.c.j2``): the harness call
 traced step and keeps running statistics, so nothing per step is stored or touched by Python. What
 the harness measures, and what this module makes of it:
 
-- amplitude: each state's half peak-to-peak range over the last few cycles of the run;
-- period: upward crossings of state 0 through a section level (the middle of its range on the
-  cycle), with sub-step linear interpolation at the first crossing after settling and at the last;
+- amplitude: each swinging state's half peak-to-peak range over the last few cycles of the run (an
+  angle state has none; a state at rest on the cycle is judged by its level, see
+  ``gen/study/section.py``);
+- period: crossings of the section (the crossing rule of ``gen/study/section.py``: state 0 rising
+  through the middle of its range, or for a model with phases, the first turning phase passing a
+  fixed angle, one crossing per turn), with sub-step linear interpolation at the first crossing
+  after settling and at the last;
 - phase drift: the period error accumulated over the whole run, in cycles;
 - return spread: each state interpolated onto the section at every crossing after settling;
 - saturation events: steps where an intermediate sits at the word's limit (visible only when the
@@ -23,6 +27,15 @@ cycle; the traced step must close the cycle (the state one cycle past its entry 
 and amplitude, mean period (cycle length over the crossings in it), return spread and saturation are
 judged on the cycle itself: the verdict holds for unbounded time (``horizon = "unbounded"``). The
 phase drift is the exact rate times the --hours horizon (any period error drifts without bound).
+
+Angle models: when the step commutes with turning every angle by the same amount (decided exactly
+from the program, ``gen/study/section.py``), states are compared modulo that common turn, so the
+cycle found is that of the swinging states and the angles relative to one another (a few steps to a
+few cycles long, where the full state may take up to 2**word_bits steps to repeat). Over each turn
+of it the section angle advances by an exact number of word units, so the mean steps per turn
+(cycle length times a turn over that advance) is exact for all time. The return points then slide
+round the cycle from turn to turn, so their spread is judged by a sure bound: the range over the
+whole cycle of each swinging state and of each angle relative to the section angle.
 Only when no cycle is found within the budget is the orbit run for --hours (``horizon = "N hours"``).
 
 Which runs decide: the model's initial state and the corners of the runtime ranges. The other starts
@@ -43,14 +56,24 @@ from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
 
-from orbitfix.gen.errors import InputError, UnsupportedError
+from orbitfix.gen.errors import InputError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.plain_data import plain_number
+from orbitfix.gen.study.section import (
+    Section,
+    amplitude_errors,
+    full_period,
+    resting,
+    steps_per_turn,
+    turns_together,
+    wrap_word,
+)
 from orbitfix.gen.work_size import Work, drift_work, refuse_beyond_machine
 from orbitfix.verify.proofs.drift.harness import (
     build_drift_module,
     crossing_time,
     cycle_start,
+    drift_section,
     harness_statistics,
     integer_period,
 )
@@ -63,9 +86,6 @@ from orbitfix.verify.proofs.drift.references import (
     step_map_reference,
 )
 from orbitfix.verify.targets.host_build import HostModule
-
-NO_ANGLES = ("the long-run drift test does not handle angle states (phases) yet: its section and "
-             "amplitudes assume states that swing rather than turn; run verify with --skip-drift")
 
 LONGEST_RUN = 1 << 62
 CYCLE_BUDGET = 20_000_000  # steps of the plain step searched for the exact cycle before falling back
@@ -109,8 +129,8 @@ class DriftRun:
     """The outcome of one long run from one start."""
 
     start: Start
-    amplitude: list[float]
-    amplitude_first: list[float]
+    amplitude: list[float | None]
+    amplitude_first: list[float | None]
     amplitude_error: float | None
     amplitude_error_step_map: float | None
     period_steps: float | None
@@ -137,6 +157,9 @@ class DriftRun:
     decides: bool = True
     explanation: str | None = None
     equal_states: list[tuple[str, str]] = field(default_factory=list)
+    cycle_turns: float | None = None
+    return_spread_bound: bool = False
+    middle: list[float | None] = field(default_factory=list)  # each swinging state's mid-range
 
     @property
     def verdict(self) -> str:
@@ -166,18 +189,32 @@ class DriftReport:
     state_names: tuple[str, ...]
     tolerances: DriftTolerances
     continuous_period_steps: float
-    continuous_amplitude: list[float]
+    continuous_amplitude: list[float | None]
     step_map: StepMapReference
     runs: list[DriftRun]
     notes: list[str] = field(default_factory=list)
     seconds: dict[str, float] = field(default_factory=dict)
     seed: int | None = None
     cycle_budget: int = CYCLE_BUDGET
+    section: Section | None = None
+    state_fraction_bits: tuple[int, ...] = ()
+    word_bits: int = 32
+    turns_together: bool = False
+    continuous_low: list[float] = field(default_factory=list)
+    continuous_high: list[float] = field(default_factory=list)
+    equal_on_cycle: set[tuple[int, int]] = field(default_factory=set)  # equal on the designed cycle
 
     @property
     def verdict(self) -> str:
         """Decided by the runs from the model's initial state and the runtime corners only."""
         return "fail" if any(run.decides and run.reasons for run in self.runs) else "pass"
+
+    @property
+    def resting(self) -> list[bool]:
+        """Per model state: at rest on the continuous cycle (judged by its level, not its swing)."""
+        if not self.continuous_low:
+            return [False] * len(self.state_names)
+        return [bool(v) for v in resting(self.continuous_low, self.continuous_high)]
 
     @property
     def robustness(self) -> dict:
@@ -206,8 +243,6 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
     cycle_budget : plain steps searched for the exact integer cycle from each start before the
         run falls back to --hours.
     """
-    if design.plan.program.angle_states:
-        raise UnsupportedError(NO_ANGLES)
     refuse_beyond_machine(drift_size(design, hours, len(extra_starts)),
                           "give fewer --hours or a lower loop_hz")
     if host is None:
@@ -292,20 +327,23 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
     settle = round(settle_fraction * steps)
     window = max(1, round(WINDOW_CYCLES * spc))
     fraction = plan.signal_format.fraction_bits
-    scale = 2.0 ** fraction
     cycle = design.analysis.cycle
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
-    level = round(float(low[0] + high[0]) / 2 * scale)
+    section = drift_section(design)
+    n = program.model_state_count
+    bits = tuple(program.state_fraction_bits[:n])
+    level = section.integer_level(bits[section.state])
     starts, notes = choose_starts(design, equilibrium_offset, seed=seed, extra=extra_starts)
     if only_nominal:
         starts, notes = starts[:1], []
     seconds: dict[str, float] = {}
 
     started = time.perf_counter()
-    reference = step_map_reference(design, level / scale, starts, tolerances.amplitude)
+    reference = step_map_reference(design, section, starts, tolerances.amplitude)
     seconds["step_map_reference"] = time.perf_counter() - started
 
-    continuous_amplitude = [float(v) for v in (high - low) / 2]
+    continuous_amplitude = [None if i in program.angle_states else float((high[i] - low[i]) / 2)
+                            for i in range(n)]
     report = DriftReport(
         model=design.model.name, hours=float(hours), loop_hz=timing.loop_hz, steps=steps,
         settle_steps=settle, window_steps=window, section_level=level,
@@ -313,19 +351,59 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
         state_names=program.state_names[:program.model_state_count],
         tolerances=tolerances, continuous_period_steps=spc,
         continuous_amplitude=continuous_amplitude, step_map=reference, runs=[], notes=notes,
-        seconds=seconds, seed=None if only_nominal else seed, cycle_budget=cycle_budget)
+        seconds=seconds, seed=None if only_nominal else seed, cycle_budget=cycle_budget,
+        section=section, state_fraction_bits=bits, word_bits=program.word_bits,
+        turns_together=turns_together(program),
+        continuous_low=[float(v) for v in low], continuous_high=[float(v) for v in high],
+        equal_on_cycle=_equal_on_cycle(cycle.samples, program.angle_states))
     started = time.perf_counter()
     for start in starts:
         report.runs.append(_one_run(report, host, start, program.overflow))
+    nominal = report.runs[0]
+    for run in report.runs[1:]:
+        if run.explanation and nominal.reasons and _same_cycle(run, nominal):
+            run.explanation = ("the same integer cycle as the run from the model's initial state "
+                               "(same length, mean period and ranges): its reasons are that run's")
     seconds["runs"] = time.perf_counter() - started
     return report
+
+
+def _equal_on_cycle(samples: np.ndarray, angles: tuple[int, ...]) -> set[tuple[int, int]]:
+    """Pairs of model states (i < j) equal at every sample of the continuous cycle (angles modulo a
+    turn): a symmetric subspace the designed cycle itself lies on explains no finding."""
+    samples = np.asarray(samples, dtype=float)
+    n = samples.shape[0]
+    scale = float(np.max(np.abs(samples))) or 1.0
+    pairs = set()
+    for i in range(n):
+        for j in range(i + 1, n):
+            gap = samples[i] - samples[j]
+            if i in angles and j in angles:
+                gap = (gap + math.pi) % (2 * math.pi) - math.pi
+            elif i in angles or j in angles:
+                continue
+            if np.max(np.abs(gap)) <= 1e-9 * scale:
+                pairs.add((i, j))
+    return pairs
+
+
+def _same_cycle(run: DriftRun, other: DriftRun) -> bool:
+    """Both runs were judged on exact integer cycles of the same length, mean period and ranges."""
+    return (run.horizon == other.horizon == "unbounded" and run.cycle_length == other.cycle_length
+            and run.period_steps == other.period_steps and run.cycle_turns == other.cycle_turns
+            and run.amplitude == other.amplitude and run.middle == other.middle)
 
 
 def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str) -> DriftRun:
     """One run in C and its judgement against the references and the tolerances: on the exact
     integer cycle when one is found within the budget, else over --hours."""
     tol = report.tolerances
-    scale = 2.0 ** -report.fraction_bits
+    section = report.section
+    names = report.state_names
+    n = len(names)
+    word = report.word_bits
+    angles = [i for i in range(n) if i not in section.swinging]
+    scales = [2.0 ** -b for b in report.state_fraction_bits]
     started = time.perf_counter()
     budget = min(report.steps, report.cycle_budget)
     p, seen_at = integer_period(host, start.state, budget)
@@ -337,49 +415,70 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         steps, settle, window = report.steps, report.settle_steps, report.window_steps
     stats = harness_statistics(host, start.state, steps, settle, window, report.section_level)
     seconds = time.perf_counter() - started
-    names = report.state_names
     c = stats.counts
-    r = {group: values[:len(names)] for group, values in stats.ranges.items()}
-    amplitude = [(hi - lo) / 2 * scale for lo, hi in zip(r["final_low"], r["final_high"], strict=True)]
-    amplitude_first = [(hi - lo) / 2 * scale
-                       for lo, hi in zip(r["first_low"], r["first_high"], strict=True)]
+    advance = c["advance"] - (1 << 64) if c["advance"] >= 1 << 63 else c["advance"]
+    r = {group: values[:n] for group, values in stats.ranges.items()}
+
+    def swing(low: str, high: str) -> list[float | None]:
+        return [None if i in angles else (r[high][i] - r[low][i]) / 2 * scales[i] for i in range(n)]
+
+    amplitude, amplitude_first = swing("final_low", "final_high"), swing("first_low", "first_high")
+    middle = [None if i in angles else (r["final_high"][i] + r["final_low"][i]) / 2 * scales[i]
+              for i in range(n)]
     reasons: list[str] = []
-    if exact and stats.end_state != stats.settle_state:
+    if exact and not _closes(stats.settle_state[:len(start.state)], stats.end_state, angles,
+                             report.turns_together, word):
         reasons.append(f"the cycle found by Brent's algorithm ({p:,} steps from step {mu:,}) does not "
                        "close under the traced step: the plain and the traced step disagree, or the "
                        "harness is wrong; no verdict for all time can rest on it")
 
     reference_ok = report.step_map.period_steps is not None
-
-    def relative(reference: list[float]) -> list[float]:
-        return [abs(a - b) / b if b > 0 else math.inf for a, b in zip(amplitude, reference, strict=True)]
-
-    versus_l0 = relative(report.continuous_amplitude)
-    versus_l1 = relative(report.step_map.amplitude)
+    swinging = list(section.swinging)
+    rest = resting([report.continuous_low[i] for i in swinging],
+                   [report.continuous_high[i] for i in swinging])
+    final_low = [r["final_low"][i] * scales[i] for i in swinging]
+    final_high = [r["final_high"][i] * scales[i] for i in swinging]
+    versus_l0 = amplitude_errors(final_low, final_high, [report.continuous_low[i] for i in swinging],
+                                 [report.continuous_high[i] for i in swinging])
+    versus_l1 = (amplitude_errors(final_low, final_high, [report.step_map.low[i] for i in swinging],
+                                  [report.step_map.high[i] for i in swinging])
+                 if reference_ok and report.step_map.low is not None else np.zeros(len(swinging)))
     if not reference_ok:
         reasons.append("the float step map (L1) itself does not go round the cycle at this step "
                        "size (a discretisation failure, before any rounding): raise the loop rate "
                        "or choose a higher-order integrator")
     where = "on the integer cycle" if exact else "at the end"
     for label, errors in (("the continuous cycle", versus_l0), ("the float step map", versus_l1)):
-        bad = [f"{name} {value:.6g} ({100 * error:.3g} % off)"
-               for name, error, value in zip(names, errors, amplitude, strict=True)
-               if error > tol.amplitude]
+        bad = [(f"{names[i]} at rest at {middle[i]:.6g}" if rests else f"{names[i]} {amplitude[i]:.6g}")
+               + f" ({100 * error:.3g} % off)"
+               for i, error, rests in zip(swinging, errors, rest, strict=True) if error > tol.amplitude]
         if bad and (reference_ok or label == "the continuous cycle"):
             reasons.append(f"amplitude {where} against {label}: {', '.join(bad)} (tolerance "
                            f"{100 * tol.amplitude:g} %)")
 
     period = period_ppm = period_ppm_l1 = drift = drift_l0 = per_hour = None
     spread = None
+    spread_bound = False
     level = report.section_level
     crossings_per_cycle = c["settled_crossings"] if exact else None
-    if c["settled_crossings"] >= (1 if exact else 2):
-        if exact:
+    cycle_turns = advance / 2.0**word if section.angle and exact else None
+    whole_period = p
+    if exact and report.turns_together:
+        whole_period = full_period(p, advance, word)  # the full state, angles modulo the word
+    if exact and section.angle:
+        rhythm = advance > 0
+    else:
+        rhythm = c["settled_crossings"] >= (1 if exact else 2)
+    if rhythm:
+        if exact and section.angle:
+            period = steps_per_turn(p, advance, word) * section.turns  # exact for all time
+        elif exact:
             period = p / c["settled_crossings"]  # exact mean period for all time
         else:
-            t_first = crossing_time(*stats.first_bracket, c["first_settled_crossing"], level)
-            t_last = crossing_time(*stats.last_bracket, c["last_crossing"], level)
-            period = (t_last - t_first) / (c["settled_crossings"] - 1)
+            t_first = crossing_time(*stats.first_bracket, c["first_settled_crossing"], level, section,
+                                    word)
+            t_last = crossing_time(*stats.last_bracket, c["last_crossing"], level, section, word)
+            period = section.turns * (t_last - t_first) / (c["settled_crossings"] - 1)
         period_ppm = 1e6 * (period - report.continuous_period_steps) / report.continuous_period_steps
         drift_l0 = report.steps * (1 / report.continuous_period_steps - 1 / period)
         if reference_ok:
@@ -394,19 +493,33 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         if drift is not None and abs(drift) > tol.phase_drift_cycles:
             reasons.append(f"phase drifts {drift:+.4g} cycles over {report.hours:g} h against the "
                            f"float step map (tolerance {tol.phase_drift_cycles:g})")
-        ranges = [2 * a for a in report.continuous_amplitude]
-        spread = [(hi - lo) * scale / width if width > 0 else 0.0
-                  for lo, hi, width in zip(r["return_low"], r["return_high"], ranges, strict=True)]
+        # On a cycle found modulo a common turn that is not whole turns, the crossings slide round
+        # the cycle from turn to turn: bound the return points by the ranges over the whole cycle.
+        spread_bound = exact and report.turns_together and advance % (1 << word) != 0
+        low_group, high_group = ("settled_low", "settled_high") if spread_bound else ("return_low",
+                                                                                       "return_high")
+        spread = []
+        for i in range(n):
+            width = r[high_group][i] - r[low_group][i]
+            if i in angles:
+                spread.append(width * 2.0**-word)  # a share of the turn
+            else:
+                full = report.continuous_high[i] - report.continuous_low[i]
+                spread.append(width * scales[i] / full if full > 0 else 0.0)
         for name, value in zip(names, spread, strict=True):
             if value > tol.return_spread:
                 reasons.append(f"return points of {name} on the Poincare section spread over "
                                f"{100 * value:.3g} % of its range (tolerance "
                                f"{100 * tol.return_spread:g} %)")
+    elif exact and section.angle:
+        reasons.append(f"no rhythm on the integer cycle: the phase {names[section.state]} does not "
+                       f"turn {'forwards' if section.direction > 0 else 'backwards'} over its "
+                       f"{p:,} steps")
     elif exact:
-        reasons.append(f"no rhythm on the integer cycle: state {names[0]} never crosses the "
-                       f"section in its {p:,} steps")
+        reasons.append(f"no rhythm on the integer cycle: state {names[section.state]} never crosses "
+                       f"the section in its {p:,} steps")
     else:
-        reasons.append(f"no rhythm after settling: state {names[0]} crossed the section "
+        reasons.append(f"no rhythm after settling: state {names[section.state]} crossed the section "
                        f"{c['settled_crossings']} times in {report.steps - report.settle_steps:,} "
                        "steps")
 
@@ -414,13 +527,14 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         p = c["period"] or None
         if p is not None:
             mu = cycle_start(host, start.state, p, c["period_seen_at"])
-    if p is not None:
-        if p == 1:
+        whole_period = None if report.turns_together else p  # modulo a turn: advance unknown here
+    if whole_period is not None:
+        if whole_period == 1:
             reasons.append("the integer orbit settled to a fixed point (integer period 1 step)")
-        elif p < report.continuous_period_steps / 2:
-            reasons.append(f"the integer orbit locked into a short cycle of {p} steps, less than half "
-                           f"a period of the continuous cycle ({report.continuous_period_steps:.4g} "
-                           "steps): a spurious cycle")
+        elif whole_period < report.continuous_period_steps / 2:
+            reasons.append(f"the integer orbit locked into a short cycle of {whole_period} steps, less "
+                           f"than half a period of the continuous cycle "
+                           f"({report.continuous_period_steps:.4g} steps): a spurious cycle")
 
     if c["limit_settled"]:
         reasons.append(f"an intermediate sat at the word's limit on {c['limit_settled']:,} steps "
@@ -429,7 +543,8 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     if c["range_settled"]:
         reasons.append(f"an intermediate left the planned range on {c['range_settled']:,} steps "
                        f"{'of the integer cycle' if exact else 'after settling'}")
-    if any(a > 2 * b for a, b in zip(amplitude, report.continuous_amplitude, strict=True)):
+    moving = [i for i, rests in zip(swinging, rest, strict=True) if not rests]
+    if any(amplitude[i] > 2 * report.continuous_amplitude[i] for i in moving):
         reasons.append("the orbit grew to more than twice the cycle's amplitude")
     returns = report.step_map.reached[start.name]
     if reasons and reference_ok and not returns:
@@ -444,24 +559,38 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         "outside_planned_range": {"count": c["range_steps"], "first_step": c["range_first"] or None,
                                   "after_settling": c["range_settled"]},
     }
-    equal = [(names[i], names[j]) for i, j in stats.equal_pairs if j < len(names)]
+    equal = [(names[i], names[j]) for i, j in stats.equal_pairs
+             if j < len(names) and (i, j) not in report.equal_on_cycle]
     run = DriftRun(
         start=start, amplitude=amplitude, amplitude_first=amplitude_first,
-        amplitude_error=plain_number(max(versus_l0)),
-        amplitude_error_step_map=plain_number(max(versus_l1)) if reference_ok else None,
+        amplitude_error=plain_number(max(versus_l0, default=0.0)),
+        amplitude_error_step_map=plain_number(max(versus_l1, default=0.0)) if reference_ok else None,
         period_steps=period, period_error_ppm=period_ppm, period_error_ppm_step_map=period_ppm_l1,
         phase_drift_cycles=drift, phase_drift_cycles_continuous=drift_l0, return_spread=spread,
         crossings=c["crossings"], settled_crossings=c["settled_crossings"],
-        integer_period_steps=p, integer_period_seen_at=(seen_at if exact else c["period_seen_at"]) or None,
+        integer_period_steps=whole_period if exact else p,
+        integer_period_seen_at=(seen_at if exact else c["period_seen_at"]) or None,
         cycle_entered_at_step=mu, saturation_events=events, step_map_returns=returns,
         reasons=reasons, seconds=seconds,
         horizon="unbounded" if exact else f"{report.hours:g} hours",
         steps_to_cycle=mu if exact else None, cycle_length=p if exact else None,
         crossings_per_cycle=crossings_per_cycle, phase_drift_cycles_per_hour=per_hour,
-        decides=start.decides, equal_states=equal)
+        decides=start.decides, equal_states=equal, cycle_turns=cycle_turns,
+        return_spread_bound=spread_bound, middle=middle)
     if reasons and not start.decides:
         run.explanation = explain(run, names)
     return run
+
+
+def _closes(entry: list[int], end: list[int], angles: list[int], together: bool, word: int) -> bool:
+    """Whether the state one found cycle past its entry equals the entry: exactly, or, for a step
+    that commutes with a common turn of the angles, up to one (every angle moved by the same
+    amount modulo the word, every other state equal)."""
+    if not together:
+        return list(entry) == list(end)
+    plain = all(a == b for i, (a, b) in enumerate(zip(entry, end, strict=True)) if i not in angles)
+    turned = {wrap_word(end[i] - entry[i], word) for i in angles}
+    return plain and len(turned) <= 1
 
 
 def explain(run: DriftRun, names: tuple[str, ...]) -> str:

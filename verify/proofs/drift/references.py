@@ -12,8 +12,10 @@ import numpy as np
 
 from orbitfix.gen.analysis.near_rest import OFFSET, SEED, near_rest_starts
 from orbitfix.gen.errors import InputError
+from orbitfix.gen.model.angles import TURN, radians_to_turns
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.lowering import evaluate_real
+from orbitfix.gen.study.section import Section, amplitude_errors
 
 STEP_MAP_CYCLES = 40    # the float step map's reference run, in cycles
 STEP_MAP_MEASURED = 15  # of which the last this many are measured
@@ -32,15 +34,19 @@ class Start:
 @dataclass(frozen=True)
 class StepMapReference:
     """The float step map (L1) run from the continuous cycle's point: period and amplitudes
-    (``period_steps`` is None when the step map does not go round the cycle at all).
+    (``period_steps`` is None when the step map does not go round the cycle at all). ``amplitude``,
+    ``low`` and ``high`` hold one entry per model state, None for an angle state (it turns; it has
+    no amplitude).
 
     reached : for each start, whether the float step map from it is on the cycle after
-        STEP_MAP_CYCLES cycles (amplitudes within the amplitude tolerance of the reference).
+        STEP_MAP_CYCLES cycles (swinging states within the amplitude tolerance of the reference).
     """
 
     period_steps: float | None
-    amplitude: list[float]
+    amplitude: list[float | None]
     reached: dict[str, bool]
+    low: list[float | None] | None = None
+    high: list[float | None] | None = None
 
 
 def choose_starts(design: Design, equilibrium_offset: float = OFFSET, seed: int = SEED,
@@ -64,28 +70,34 @@ def choose_starts(design: Design, equilibrium_offset: float = OFFSET, seed: int 
     program = plan.program
     n = program.model_state_count
     scale = 2.0 ** np.asarray(program.state_fraction_bits[:n], dtype=float)
+    angles = np.isin(np.arange(n), program.angle_states)
     cycle = design.analysis.cycle
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
     centre, half = (low + high) / 2, (high - low) / 2
+    half[angles] = 0.5  # an angle, in turns: its range is the full turn
     word_max = program.word_max
     held = tuple(plan.initial_state[n:])  # runtime parameters stay at their nominal values
     starts = [Start("nominal", tuple(plan.initial_state), "the model's initial state", decides=True)]
     near, notes = near_rest_starts(design.analysis, equilibrium_offset, seed)
     for start in near:
-        step = np.round(start.offset * scale)
-        step = np.where(np.abs(step) < 2, 2 * np.sign(start.offset), step)
-        point = np.round((start.point - start.offset) * scale) + step
+        offset = np.where(angles, start.offset / TURN, start.offset)  # angles: radians to turns
+        step = np.round(offset * scale)
+        step = np.where(np.abs(step) < 2, 2 * np.sign(offset), step)
+        point = np.round(_in_turns(start.point - start.offset, angles) * scale) + step
         starts.append(Start(start.name, _fit(point, word_max) + held, start.why))
 
-    corner = centre + 0.95 * plan.margin * half
-    starts.append(Start("near the basin edge", _fit(np.round(corner * scale), word_max) + held,
+    corner = np.round((centre + 0.95 * plan.margin * half) * scale)
+    corner[angles] = np.asarray(plan.initial_state[:n])[angles]  # an angle has no edge
+    starts.append(Start("near the basin edge", _fit(corner, word_max) + held,
                         f"just inside the upper corner of the cycle's bounding box scaled by the "
-                        f"planner's margin of {plan.margin:g} (a stand-in for the basin's edge)"))
+                        f"planner's margin of {plan.margin:g} (a stand-in for the basin's edge)"
+                        + (", angles at their initial values" if angles.any() else "")))
     near = np.array(plan.initial_state, dtype=float)
-    near[0] = word_max - word_max // 64
+    first = int(np.flatnonzero(~angles)[0])  # an angle wraps: it has no limit to come near
+    near[first] = word_max - word_max // 64
     starts.append(Start("near saturation", _fit(near, word_max),
-                        f"{program.state_names[0]} at 63/64 of the word's limit, the other states "
-                        "at their initial values"))
+                        f"{program.state_names[first]} at 63/64 of the word's limit, the other "
+                        "states at their initial values"))
     for k, (given, point) in enumerate(zip(extra, given_starts(design, extra), strict=True), start=1):
         text = ", ".join(f"{name} = {value:g}" for name, value in given.items())
         starts.append(Start(f"given start {k}", point, f"given with --start: {text}"))
@@ -93,9 +105,9 @@ def choose_starts(design: Design, equilibrium_offset: float = OFFSET, seed: int 
 
 
 def given_starts(design: Design, extra: tuple[dict[str, float], ...]) -> list[tuple[int, ...]]:
-    """The user's starts (model units by state name) in integer units; a state not named keeps its
-    initial value. A name that is not a state of the model, or a value the state's word cannot
-    hold, is an input error."""
+    """The user's starts (model units by state name; an angle in radians, any number of turns) in
+    integer units; a state not named keeps its initial value. A name that is not a state of the
+    model, or a value the state's word cannot hold, is an input error."""
     plan = design.plan
     program = plan.program
     n = program.model_state_count
@@ -109,6 +121,10 @@ def given_starts(design: Design, extra: tuple[dict[str, float], ...]) -> list[tu
                 raise InputError(f"--start names '{name}', which is not a state of "
                                  f"'{design.model.name}'; its states are {', '.join(names)}")
             i = names.index(name)
+            if i in program.angle_states and math.isfinite(value):
+                turns = float(radians_to_turns(np.asarray(value)))
+                point[i] = max(program.word_min, min(program.word_max, round(turns * 2.0 ** bits[i])))
+                continue
             limit = program.word_max / 2.0 ** bits[i]
             if not (math.isfinite(value) and abs(value) <= limit):
                 raise InputError(f"--start {name}={value!r}: the state's word holds values from "
@@ -122,17 +138,27 @@ def _fit(point: np.ndarray, word_max: int) -> tuple[int, ...]:
     return tuple(int(min(max(v, -word_max), word_max)) for v in point)
 
 
-def step_map_reference(design: Design, level: float, starts: list[Start],
+def _in_turns(state: np.ndarray, angles: np.ndarray) -> np.ndarray:
+    """A model state (radians for its angles) with the angles in turns, as the program holds them."""
+    state = np.array(state, dtype=float)
+    state[angles] = radians_to_turns(state[angles])
+    return state
+
+
+def step_map_reference(design: Design, section: Section, starts: list[Start],
                        amplitude_tolerance: float) -> StepMapReference:
-    """Run the float step map (L1) from the cycle's point and from every start, vectorised."""
+    """Run the float step map (L1) from the cycle's point and from every start, vectorised, and
+    time it by ``section`` (the drift proof's crossing rule)."""
     program = design.plan.program
     n = program.model_state_count
+    angles = np.isin(np.arange(n), program.angle_states)
     scale = 2.0 ** -np.array(program.state_fraction_bits, dtype=float)
     spc = design.timing.steps_per_cycle
     total = round(STEP_MAP_CYCLES * spc)
     measured = round(STEP_MAP_MEASURED * spc)
     nominal = [v for p in design.model.runtime_parameters for v in (p.value, p.value)]
-    columns = [np.concatenate([np.asarray(design.analysis.cycle.point, dtype=float), nominal])]
+    point = _in_turns(design.analysis.cycle.point, angles)
+    columns = [np.concatenate([point, nominal])]
     columns += [np.array(s.state, dtype=float) * scale for s in starts]
     x = np.stack(columns, axis=1)
     record = np.empty((measured + 1, x.shape[0], x.shape[1]))
@@ -143,20 +169,26 @@ def step_map_reference(design: Design, level: float, starts: list[Start],
             values = evaluate_real(program, x)
             x = np.stack([values[i] for i in program.next_state])
         record[-1] = x
-    amplitude = (np.max(record, axis=0) - np.min(record, axis=0))[:n] / 2
-    first = record[:-1, 0, 0]
-    second = record[1:, 0, 0]
-    up = np.flatnonzero((first < level) & (second >= level))
-    reference = amplitude[:, 0]
-    if up.size < 2 or not np.all(np.isfinite(reference)):
-        return StepMapReference(period_steps=None, amplitude=[float("nan")] * len(reference),
+    swinging = list(section.swinging)
+    low, high = np.min(record, axis=0)[swinging], np.max(record, axis=0)[swinging]
+    times = section.crossing_times(record[:, section.state, :1])[0]
+    if times.size < 2 or not np.all(np.isfinite(low[:, 0])) or not np.all(np.isfinite(high[:, 0])):
+        return StepMapReference(period_steps=None, amplitude=[float("nan")] * n,
                                 reached={s.name: False for s in starts})
-    times = up + (level - first[up]) / (second[up] - first[up])
-    period = float((times[-1] - times[0]) / (up.size - 1))
+    period = float(section.turns * (times[-1] - times[0]) / (times.size - 1))
     reached = {}
     for index, start in enumerate(starts, start=1):
-        error = np.abs(amplitude[:, index] - reference) / reference
-        reached[start.name] = bool(np.all(np.isfinite(error)) and np.all(error <= amplitude_tolerance))
-    return StepMapReference(period_steps=period, amplitude=[float(v) for v in reference],
-                            reached=reached)
+        with np.errstate(all="ignore"):
+            error = amplitude_errors(low[:, index], high[:, index], low[:, 0], high[:, 0])
+        reached[start.name] = bool(np.all(np.isfinite(error)) and np.all(error <= amplitude_tolerance)
+                                   and np.all(np.isfinite(record[-1, :, index])))
+
+    def by_state(values: np.ndarray) -> list[float | None]:
+        out: list[float | None] = [None] * n
+        for i, v in zip(swinging, values, strict=True):
+            out[i] = float(v)
+        return out
+
+    return StepMapReference(period_steps=period, amplitude=by_state((high[:, 0] - low[:, 0]) / 2),
+                            reached=reached, low=by_state(low[:, 0]), high=by_state(high[:, 0]))
 
