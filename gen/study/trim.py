@@ -127,7 +127,8 @@ class Trim:
         """One line, for reports and the generated header."""
         if not self.changed:
             return (f"Period trim: no change (the integer orbit's period error "
-                    f"{self.error_before_ppm:+.1f} ppm is already the best within the lattice, "
+                    f"{self.error_before_ppm:+.1f} ppm is already the best of the {len(self.tried)} "
+                    "step-constant shifts tried, "
                     f"granularity {self.granularity_ppm:.3g} ppm per LSB).")
         return (f"Period trimmed: the step constants stand for a step {self.step_change_ppm:+.0f} ppm "
                 f"off the planned one ({self.lead_shift:+d} LSB of the lead constant, "
@@ -334,9 +335,8 @@ def trim_design(built: Design, budget: int | None = None,
                                            if (e := error(d)) is not None})),
         changed=changed, tried=tuple(sorted((d, error(d)) for d in measured)),
         seconds=time.perf_counter() - started)
-    if changed:
-        trimmed = replace(trimmed, trim=record.summary())
-    return replace(built, plan=trimmed if changed else built.plan), record
+    kept = trimmed if changed else built.plan  # unchanged: the same program, the same fingerprint
+    return replace(built, plan=replace(kept, trim=record.summary())), record
 
 
 def _best(measured: dict[int, ExactPeriod | None], error) -> int:
