@@ -15,6 +15,7 @@ from __future__ import annotations
 import re
 import shutil
 import subprocess
+import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -130,8 +131,11 @@ _CALL_GRAPH_SUPPORT: dict[str, bool] = {}
 def _writes_call_graph(cc: str) -> bool:
     """Whether this compiler understands -fcallgraph-info=su (gcc 10 and later)."""
     if cc not in _CALL_GRAPH_SUPPORT:
-        done = subprocess.run([cc, "-fcallgraph-info=su", "-x", "c", "-fsyntax-only", "-"],
-                              input="int x;\n", capture_output=True, text=True, check=False)
+        # in a folder of its own: the probe writes its call graph (a--.ci) where it runs
+        with tempfile.TemporaryDirectory() as folder:
+            done = subprocess.run([cc, "-fcallgraph-info=su", "-x", "c", "-fsyntax-only", "-"],
+                                  input="int x;\n", capture_output=True, text=True, check=False,
+                                  cwd=folder)
         _CALL_GRAPH_SUPPORT[cc] = done.returncode == 0
     return _CALL_GRAPH_SUPPORT[cc]
 
