@@ -52,6 +52,7 @@ from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import lower_step
 from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.progress import tell
+from orbitfix.gen.study.section import section_for
 
 TRIM_SECONDS = 120.0         # the golden run allowed for one orbit to close into its exact cycle
 WINDOW_LSB = 3               # variants either side of the guess, in LSBs of the lead constant
@@ -188,11 +189,16 @@ def scaled_constants(program: IntegerProgram, carriers: tuple[int, ...], lead: i
 
 
 def section_level(built: Design) -> int:
-    """The section of the first state, in its own integer units: the middle of its range on the
-    continuous cycle (the drift proof's section)."""
+    """The section's level in its state's integer units, from the one crossing rule
+    (gen/study/section.py: for a model without angles, state 0 rising through the middle of its
+    range on the continuous cycle, the drift proof's section)."""
     cycle = built.analysis.cycle
-    bits = built.plan.program.state_fraction_bits[0]
-    return round(float(cycle.state_min[0] + cycle.state_max[0]) / 2 * 2.0 ** bits)
+    program = built.plan.program
+    section = section_for(program, cycle.state_min, cycle.state_max, cycle.turns)
+    if section.angle or section.state != 0:
+        raise UnsupportedError("the trim times the orbit by its first state, and this model's "
+                               "section is another state or an angle; leave out --trim")
+    return section.integer_level(program.state_fraction_bits[0])
 
 
 def exact_periods(program: IntegerProgram, variants: list[dict[int, int]], start: tuple[int, ...],
