@@ -59,10 +59,11 @@ def fit_word(values: np.ndarray, word_bits: int, overflow: str,
     place there; wrapping never does."""
     low, high = -(1 << (word_bits - 1)), (1 << (word_bits - 1)) - 1
     if overflow == "saturate":
+        number = values.dtype.type
         if saturated is not None:
-            number = values.dtype.type
             saturated |= (values < number(low)) | (values > number(high))
-        return np.clip(values, low, high, out=values)
+        np.maximum(values, number(low), out=values)  # np.clip checks its limits on every call
+        return np.minimum(values, number(high), out=values)
     if overflow == "wrap":
         number = values.dtype.type
         values -= number(low)
