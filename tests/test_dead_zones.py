@@ -102,3 +102,14 @@ def test_verify_fails_a_model_that_starts_in_its_dead_zone(tmp_path, capsys) -> 
     assert data["initial_state_in_dead_zone"] is True
     zone = data["dead_zones"][0]
     assert zone["method"] == "exhaustive" and zone["radius_lsb"] == {"x": 219, "y": 85}
+
+
+def test_the_rest_search_of_a_large_network_is_a_bounded_sample() -> None:
+    # A 16-state network: the whole 5^16 cube would need over a terabyte (it crashed verify
+    # chain_wave); the search takes the centre, every one-coordinate neighbour and a sample.
+    from orbitfix.gen.study.dead_zones import MOST_REST_CANDIDATES, REST_SEARCH, _rest_offsets
+
+    offsets = _rest_offsets(16)
+    assert offsets.shape == (16, 1 + 16 * 2 * REST_SEARCH + MOST_REST_CANDIDATES)
+    assert not offsets[:, 0].any() and np.abs(offsets).max() == REST_SEARCH
+    assert _rest_offsets(2).shape == (2, (2 * REST_SEARCH + 1) ** 2)  # small models: every state

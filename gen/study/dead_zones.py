@@ -35,6 +35,7 @@ from orbitfix.gen.program.quantisation import quantise
 MOST_LATTICE_STATES = 1 << 21
 FIRST_HALF_WIDTH = 8     # LSB
 REST_SEARCH = 2          # LSB either side of the rounded equilibrium searched for a rest state
+MOST_REST_CANDIDATES = 1 << 14  # beyond this many in the search cube, a sample of it (networks)
 SAMPLES = 4_000
 SAMPLE_STEPS_CYCLES = 2.0
 SAMPLED_DOUBLINGS = 6
@@ -94,14 +95,15 @@ def dead_zones(built: Design) -> tuple[DeadZone, ...]:
 
 
 def _rest_state(plan: FixedPointPlan, equilibrium: np.ndarray) -> np.ndarray | None:
-    """A lattice state within REST_SEARCH LSB of the equilibrium that one step leaves in place."""
+    """A lattice state within REST_SEARCH LSB of the equilibrium that one step leaves in place:
+    every state of that cube when it has at most MOST_REST_CANDIDATES, else (a network's many
+    states) the centre, every state one coordinate away, and a seeded sample of the rest."""
     program = plan.program
     n = program.model_state_count
     bits = program.state_fraction_bits
     centre = [quantise(float(x), bits[i]) for i, x in enumerate(equilibrium)]
     tail = np.asarray(plan.initial_state[n:], dtype=np.int64)
-    offsets = np.array(np.meshgrid(*[np.arange(-REST_SEARCH, REST_SEARCH + 1)] * n,
-                                   indexing="ij")).reshape(n, -1)
+    offsets = _rest_offsets(n)
     order = np.argsort(np.abs(offsets).sum(axis=0), kind="stable")
     candidates = np.asarray(centre, dtype=np.int64).reshape(-1, 1) + offsets[:, order]
     if candidates.min() <= program.word_min or candidates.max() >= program.word_max:
@@ -110,6 +112,22 @@ def _rest_state(plan: FixedPointPlan, equilibrium: np.ndarray) -> np.ndarray | N
     moved = golden.step(program, whole)
     still = np.flatnonzero(np.all(moved == whole, axis=0))
     return whole[:, still[0]] if still.size else None
+
+
+def _rest_offsets(n: int) -> np.ndarray:
+    """The offsets (shape (n, k)) searched for a rest state round the rounded equilibrium."""
+    steps = np.arange(-REST_SEARCH, REST_SEARCH + 1)
+    if len(steps) ** n <= MOST_REST_CANDIDATES:
+        return np.array(np.meshgrid(*[steps] * n, indexing="ij")).reshape(n, -1)
+    single = [np.zeros((n, 1), dtype=np.int64)]
+    for i in range(n):
+        for d in steps[steps != 0]:
+            column = np.zeros((n, 1), dtype=np.int64)
+            column[i] = d
+            single.append(column)
+    generator = np.random.default_rng(SEED)
+    sample = generator.integers(-REST_SEARCH, REST_SEARCH + 1, size=(n, MOST_REST_CANDIDATES))
+    return np.hstack([*single, sample])
 
 
 def dead_zone(plan: FixedPointPlan, equilibrium: np.ndarray, sample_steps: int) -> DeadZone | None:
