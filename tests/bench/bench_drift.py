@@ -7,8 +7,8 @@ and for every built-in the default ``verify`` beside ``verify --skip-drift``, th
 share, and the drift proof before (the full hours, no cycle search) beside now; and the steps each
 built-in takes from its initial state to reach its integer cycle. Prints figures; asserts nothing.
 
-Run: python tests/bench/bench_drift.py [hours] [--quick]   (default 24; --quick: 32-bit words only,
-0.01 h and 100,000 steps, small verify runs, Van der Pol only)
+Run: python tests/bench/bench_drift.py [hours [MODEL ...]] [--quick]   (default 24 h and every
+built-in; --quick: 32-bit words only, 0.01 h and 100,000 steps, small verify runs, Van der Pol only)
 """
 
 from __future__ import annotations
@@ -38,6 +38,7 @@ from orbitfix.verify.proofs.drift import (
 def main() -> None:
     given = arguments()
     hours = float(given[0]) if given else pick(24.0, 0.01)
+    models = tuple(given[1:]) or pick(builtin_names(), ("vanderpol",))
     os.environ.setdefault("ORBITFIX_CACHE", tempfile.mkdtemp(prefix="orbitfix-bench-"))
     for word in pick((32, 16), (32,)):
         model = load_model("vanderpol").with_fixed_point(word_bits=word)
@@ -68,8 +69,8 @@ def main() -> None:
             print(f"    {run.start.name:<22} {run.seconds:6.2f} s  integer period "
                   f"{run.integer_period_steps} steps, entered at step {run.cycle_entered_at_step}")
     verify_side_by_side(hours)
-    verify_every_builtin(hours)
-    steps_to_cycle()
+    verify_every_builtin(hours, models)
+    steps_to_cycle(models)
 
 
 def timed_verify(*argv: str) -> tuple[float, int]:
@@ -102,14 +103,14 @@ def verify_side_by_side(hours: float) -> None:
           f"{(skip + old_drift) / skip:.1f}x --skip-drift (verdict then {before.verdict})")
 
 
-def verify_every_builtin(hours: float) -> None:
+def verify_every_builtin(hours: float, models: tuple[str, ...]) -> None:
     """Each built-in's default verify beside its --skip-drift run (fresh processes, cold caches),
     the drift test's share, and the drift proof alone now against the full hours without cycle
     search (before; full size only)."""
     size = list(pick((), ("--states", "10000", "--steps", "10000")))
     print(f"verify of every built-in ({hours:g} h; seconds; exit codes in brackets):")
     print(f"  {'model':<16} {'whole':>9} {'skip-drift':>12} {'drift share':>11}  drift proof now / before")
-    for name in pick(builtin_names(), ("vanderpol",)):
+    for name in models:
         whole, code = timed_verify("verify", name, "--hours", f"{hours:g}", *size)
         skip, skip_code = timed_verify("verify", name, "--skip-drift", *size)
         line = (f"  {name:<16} {whole:6.1f} ({code}) {skip:8.1f} ({skip_code}) "
@@ -134,8 +135,7 @@ def _drift_now_and_before(name: str, hours: float) -> str:
     return f"{now:6.2f} s / {before:7.2f} s"
 
 
-def steps_to_cycle() -> None:
-    names = pick(builtin_names(), ("vanderpol",))
+def steps_to_cycle(names: tuple[str, ...]) -> None:
     print("steps from the initial state to the integer cycle (32-bit words, plain step):")
     for name in names:
         model = load_model(name)
