@@ -102,8 +102,15 @@ def render_units(model: Model, timing: Timing, integrator: Integrator,
     them where constants are written (they fold at compile time) or where floating point is at
     hand, never in the step."""
     names = CNames(model.name)
-    context = _context(model, timing, integrator, plan, traced=False)
+    context = firmware_context(model, timing, integrator, plan)
     return {names.units_header: environment().get_template("units.h.j2").render(context)}
+
+
+def firmware_context(model: Model, timing: Timing, integrator: Integrator,
+                     plan: FixedPointPlan) -> dict:
+    """The templates' context for the firmware's files (names, banner, states, formats), for the
+    back-end rooms that render files beside NAME.h and NAME.c."""
+    return _context(model, timing, integrator, plan, traced=False)
 
 
 def _dead_zone_text(zone) -> dict:

@@ -16,13 +16,11 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from orbitfix.gen import __version__
-from orbitfix.gen.c.emit import environment, int_literal
-from orbitfix.gen.c.naming import CNames, comment_text
+from orbitfix.gen.c.emit import environment, firmware_context, int_literal
+from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import FixedPointPlan
-from orbitfix.gen.safety import SAFETY_NOTE
 from orbitfix.gen.timing.integrators import Integrator
 from orbitfix.gen.timing.step_size import Timing
 
@@ -133,11 +131,7 @@ def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: 
     probes = choose_probes(plan)
     literal = lambda row: [int_literal(int(v), program.word_bits) for v in row]  # noqa: E731
     context = {
-        "names": names, "version": __version__, "model": model,
-        "description": comment_text(model.description or model.name),
-        "model_fingerprint": model.fingerprint(), "program_fingerprint": program.fingerprint(),
-        "timing": timing, "integrator": integrator, "safety": SAFETY_NOTE,
-        "word_type": f"int{program.word_bits}_t",
+        **firmware_context(model, timing, integrator, plan),
         "fields": [names.field(n) for n in program.state_names],
         "last_step": table[-1][0],
         "checkpoints": [{"step": step, "state": literal(values)} for step, values in table],
