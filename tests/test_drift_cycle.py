@@ -80,7 +80,7 @@ def test_a_plain_step_with_another_cycle_fails(vanderpol_design) -> None:
     # Seeded C fault: the plain step's x increment uses one shift more (half the step), so Brent's
     # algorithm finds a cycle of another map (about a million steps long, so the budget is an
     # hour's steps); the traced step must refuse to close it.
-    host = faulty_plain_step(vanderpol_design, "34)", "35)")
+    host = faulty_plain_step(vanderpol_design, "34,", "35,")
     report = run_drift(vanderpol_design, hours=1, host=host)
     assert report.runs[0].horizon == "unbounded"
     assert report.verdict == "fail"

@@ -76,29 +76,25 @@ def mutants(source: str, names: CNames) -> list[Mutant]:
                 found.append(Mutant("shift +/-1", f"{value} alignment {number} -> {new}",
                                     _replace_span(source, base + align.start(1),
                                                   base + align.end(1), str(new))))
-        sign = re.search(r"\)v\d+(?: \* \d+)? ([+-]) \(int", expression)
+        sign = re.search(r" ([+-]) ", expression)  # the sum's or difference's own sign
         if sign:
             other = "-" if sign.group(1) == "+" else "+"
             found.append(Mutant("add/subtract swapped", f"{value} {sign.group(1)} -> {other}",
                                 _replace_span(source, base + sign.start(1), base + sign.end(1),
                                               other)))
-    half = "((int32_t)1 << ((s) - 1))"
+    half = "((t)1 << ((s) - 1))"
     assert half in source, "the 16-bit subject rounds half up: its rounding constant is a half"
-    for where, new in (("no half LSB", "0"), ("a whole LSB", "((int32_t)1 << (s))"),
-                       ("a quarter LSB", "((int32_t)1 << ((s) - 2))"),
+    for where, new in (("no half LSB", "0"), ("a whole LSB", "((t)1 << (s))"),
+                       ("a quarter LSB", "((t)1 << ((s) - 2))"),
                        ("half an LSB less one (ties down)", f"({half} - 1)")):
         found.append(Mutant("rounding constant", where, source.replace(half, new, 1)))
-    # The clamps of the step: each next state held in its proven range, and the count of a step
-    # that starts outside it.
+    # The clamps of the step: each state held in its proven range at the start.
     upper = "    if (value > high) {\n        *saturated = 1u;\n        return high;\n    }\n"
     lower = "    if (value < low) {\n        *saturated = 1u;\n        return low;\n    }\n"
-    check = "    *saturated |= (unsigned int)((value > high) | (value < low));\n"
-    assert upper in source and lower in source and check in source
+    assert upper in source and lower in source
     found += [Mutant("saturation dropped", "upper", source.replace(upper, "", 1)),
               Mutant("saturation dropped", "lower", source.replace(lower, "", 1)),
-              Mutant("saturation dropped", "both", source.replace(upper + lower, "", 1)),
-              Mutant("saturation dropped", "start check",
-                     source.replace(check, "    (void)low;\n    (void)high;\n    (void)saturated;\n", 1))]
+              Mutant("saturation dropped", "both", source.replace(upper + lower, "", 1))]
     init = source.index(f"void {names.init}(")
     init_end = source.index("\n}\n", init)
     for m in re.finditer(r"state->(\w+) = INT16_C\((-?\d+)\);", source[init:init_end]):
@@ -295,7 +291,7 @@ def test_the_exhaustive_comparison_can_tell_a_difference(subject, tmp_path) -> N
     assert differs_on_box(built, files, init.source, tmp_path / "init", small) == "init"
 
 
-UNDEFINED_SHIFT = ("(int32_t)v1 * 16", "((int32_t)v1 << 4)")  # every alignment of y
+UNDEFINED_SHIFT = ("(v0 * 2 + ", "((v0 << 1) + ")  # the first stage point of x
 
 
 def test_undefined_shift_that_passes_at_full_optimisation_is_caught(subject, tmp_path) -> None:

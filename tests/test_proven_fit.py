@@ -27,7 +27,7 @@ def planned(request, vanderpol_design):
 def test_nearly_every_value_is_proven_and_no_proof_is_refuted(planned) -> None:
     program = planned.plan.program
     kept = [program.ops[i] for i in program.kept_values if program.ops[i].kind not in
-            ("state", "const", "hold")]
+            ("state", "const")]
     assert sum(op.proven for op in kept) >= 0.9 * len(kept)
     states = range_corners_and_samples(program, 20_000, np.random.default_rng(1))
     assert refuted_fits(program, states) == []
@@ -60,24 +60,22 @@ def test_a_proof_for_ranges_it_was_not_made_for_is_refuted(planned) -> None:
     assert refuted_fits(wrong, states)
 
 
-def test_a_state_outside_its_range_is_counted_and_the_next_state_held() -> None:
+def test_a_state_outside_its_range_is_held_at_its_edge_and_counted() -> None:
     built = design(load_model("vanderpol"))
     program = built.plan.program
     load = next(op for op in program.ops if op.kind == "state" and op.state == 0)
     low, high = load.held
-    outside = np.array([[high + 1000, high, low], [0, 0, 0]], dtype=np.int64)
-    after, saturated = golden.step_saturated(program, outside)
-    assert saturated.tolist() == [True, False, False]
-    holds = [program.ops[v] for v in program.next_state]
-    assert [op.kind for op in holds] == ["hold", "hold"]
-    for op, row in zip(holds, after, strict=True):
-        assert np.all((op.held[0] <= row) & (row <= op.held[1]))
+    outside = np.array([[high + 1000, high, low - 1], [0, 0, 0]], dtype=np.int64)
+    _, saturated = golden.step_saturated(program, outside)
+    assert saturated.tolist() == [True, False, True]
+    values = golden.evaluate(program, outside)
+    assert values[program.ops.index(load)].tolist() == [high, high, low]
 
 
 def test_a_wrap_program_has_no_proofs_and_no_holds(vanderpol_design) -> None:
     model = vanderpol_design.model.with_fixed_point(overflow="wrap")
     program = design(model, analysis=vanderpol_design.analysis).plan.program
-    assert not any(op.proven or op.held or op.kind == "hold" for op in program.ops)
+    assert not any(op.proven or op.held for op in program.ops)
 
 
 def test_the_host_proof_fails_a_program_with_a_wrong_proof(vanderpol_design) -> None:

@@ -21,6 +21,7 @@ from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import SATURATION_COUNT_BITS, IntegerProgram, Op
 from orbitfix.gen.program.operations import KINDS, CSite, int_literal, kind_of
+from orbitfix.gen.program.proven_fit import value_bounds
 from orbitfix.gen.safety import SAFETY_NOTE
 from orbitfix.gen.timing.integrators import Integrator
 from orbitfix.gen.timing.step_size import Timing
@@ -140,6 +141,8 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     tables, table_of = _tables(program, kept)
     word_type, wide_type = f"int{program.word_bits}_t", f"int{program.product_bits}_t"
     ops = [op for i, op in enumerate(program.ops) if i in kept]
+    bounds = value_bounds(program, [op.held or (program.word_min, program.word_max)
+                                    for op in program.ops if op.kind == "state"])[0]
     return {
         "names": names,
         "version": __version__,
@@ -156,8 +159,7 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "uses_fit": any(kind_of(op.kind).c_helper is not None or
                         (kind_of(op.kind).c_exact(op, _SITE) is not None and
                          not kind_of(op.kind).fit_wraps(op)) for op in ops),
-        "uses_held": any(op.kind == "hold" for op in ops),
-        "uses_checked": any(op.kind == "state" and op.held for op in ops),
+        "uses_held": any(op.held for op in ops),
         "held_ranges": [{"field": names.field(program.state_names[op.state]), "low": op.held[0],
                          "high": op.held[1],
                          "low_real": op.held[0] / 2.0 ** program.state_fraction_bits[op.state],
@@ -186,7 +188,7 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
                             program.state_fraction_bits[program.model_state_count::2], strict=True)
         ],
         "constants": constants,
-        "values": [_value_line(i, op, names, program, {**constant_of, **table_of})
+        "values": [_value_line(i, op, names, program, {**constant_of, **table_of}, bounds)
                    for i, op in enumerate(program.ops) if i in kept],
         "value_count": len(program.ops),
         "next_state": [{"field": names.field(n), "value": f"v{i}"}
@@ -289,22 +291,26 @@ def _constants(plan: FixedPointPlan, kept: set[int]) -> tuple[list[CConstant], d
 
 
 def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
-                symbol_of: dict[int, str]) -> dict:
+                symbol_of: dict[int, str], bounds: list[tuple[int, int]]) -> dict:
     saturated = (", &saturated" if index in program.counted_clamps else
                  ", &unkept" if program.clamps(op) else "")
     site = CSite(args=tuple(f"v{i}" for i in op.args), word_bits=program.word_bits,
-                 wide=f"int{program.product_bits}_t", prefix=names.prefix,
+                 wide=f"int{program.product_bits}_t", word=f"int{program.word_bits}_t",
+                 prefix=names.prefix,
                  symbol=symbol_of.get(index, ""),
                  field=names.field(program.state_names[op.state]) if op.kind == "state" else "",
                  saturated=saturated)
     fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
     kind = kind_of(op.kind)
     exact = kind.c_exact(op, site)
-    if exact is None:
+    narrow = _sum_in_the_word(op, site, program, bounds, names) if op.proven else None
+    if narrow is not None:
+        expression = narrow
+    elif exact is None:
         expression = kind.c_call(op, site)
     else:
         if op.shift:
-            exact = f"{names.macro_prefix}_ROUND_SHIFT({exact}, {op.shift})"
+            exact = f"{names.macro_prefix}_ROUND_SHIFT({exact}, {op.shift}, {site.wide})"
         if kind.fit_wraps(op):  # an angle, or a result proven to fit
             expression = f"{names.prefix}_wrap_word({exact})"
         else:
@@ -312,6 +318,43 @@ def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
     why = ", proven to fit" if op.proven else ""
     return {"name": f"v{index}", "index": index, "expression": expression,
             "note": comment_text(f"{fmt}{why}, {op.note}")}
+
+
+def _sum_in_the_word(op: Op, site: CSite, program: IntegerProgram,
+                     bounds: list[tuple[int, int]], names: CNames) -> str | None:
+    """A proven sum or difference written in the word, not the product type, when the sure
+    integer bounds show no part of it can overflow the word: an argument aligned by k >= shift
+    contributes a * 2**(k - shift) exactly, outside the rounding (floor((a 2^k + b + r) / 2^s)
+    = a 2^(k-s) + floor((b + r) / 2^s) for k >= s); the other is rounded alone, by the same
+    rounding macro (a subtracted one is negated first: rounding -b is not minus the rounding of
+    b). Ties to even read the whole quotient's parity, so that rule keeps the wide form. None
+    where the wide form must stay."""
+    if op.kind not in ("add", "sub") or program.rounding == "half-even":
+        return None
+    word = (program.word_min, program.word_max)
+    fits = lambda low, high: word[0] <= low and high <= word[1]  # noqa: E731
+    terms = []
+    rounded = 0
+    subtract = op.kind == "sub"  # until the subtracted term is negated into the rounding
+    for place, (arg, value, k) in enumerate(zip(op.args, site.args, op.align, strict=True)):
+        low, high = bounds[arg]
+        if k >= op.shift:
+            factor = 1 << (k - op.shift)
+            if not fits(low * factor, high * factor):
+                return None
+            terms.append(value if factor == 1 else f"{value} * {factor}")
+            continue
+        negated = op.kind == "sub" and place == 1  # rounding -b is not minus the rounding of b
+        if negated:
+            low, high, value, subtract = -high, -low, f"-{value}", False
+        rounded += 1
+        shift = op.shift - k
+        if not fits(low, high + (1 << (shift - 1) if program.rounding == "half-up" else 0)):
+            return None
+        terms.append(f"{names.macro_prefix}_ROUND_SHIFT({value}, {shift}, {site.word})")
+    if rounded > 1:
+        return None
+    return f"({site.word})({terms[0]}{' - ' if subtract else ' + '}{terms[1]})"
 
 
 _SITE = CSite(args=("a", "b"), word_bits=32)  # to ask a kind whether it has an exact C form

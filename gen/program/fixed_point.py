@@ -257,8 +257,6 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
                       rounding=rounding, overflow=overflow, state_fraction_bits=tuple(formats))
     box = tuple(zip(low.tolist(), high.tolist(), strict=True))
     planned = prove_fits(planned, box)
-    holds = [op.args[0] for op in planned.ops[len(met):]]  # a held next state: its value's ranges
-    met, sure = (*met, *(met[i] for i in holds)), [*sure, *(sure[i] for i in holds)]
     state_met = [max(abs(met[i][0]), abs(met[i][1])) for i in states]
     worst = states[int(np.argmax(state_met))]
     return FixedPointPlan(signal_format=state_format, largest_signal=max(state_met),

@@ -102,12 +102,6 @@ class _Machine:
             self.saturated |= (values < number(low)) | (values > number(high))
         return np.minimum(np.maximum(values, number(low)), number(high))
 
-    def check(self, values: np.ndarray, low: int, high: int) -> np.ndarray:
-        """``values`` as they are; one outside [low, high] marks its step saturated."""
-        number = values.dtype.type
-        if self.saturated is not None:
-            self.saturated |= (values < number(low)) | (values > number(high))
-        return values
 
 
 def evaluate(program: IntegerProgram, states: np.ndarray,

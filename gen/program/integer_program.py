@@ -29,10 +29,10 @@ an angle through a table, after adding the operation's ``offset`` (a quarter tur
 
 Proven fits and held states. The planner proves, by interval arithmetic on the integers
 (``gen/program/proven_fit.py``), which results can never leave the word for a state within a range
-per state: such an operation is ``proven`` and enters the word as it is, with no clamp. Each state
-of a ``saturate`` program then carries that range (``held``, lowest and highest integer): the step
-first holds the state in it, a clamp like any other (it counts). So no step, from any state, meets
-an unproven overflow; and a state outside the proven range is a saturated step.
+per state: such an operation is ``proven`` and enters the word by wrapping, which never acts. Each
+state of a ``saturate`` program then carries that range (``held``, lowest and highest integer): the
+step first holds the state in it, a clamp like any other (it counts). So no step, from any state,
+meets an unproven overflow; and a state outside the proven range is a saturated step.
 
 Saturated steps. A step is *saturated* when the clamp of step 3 changed at least one of the values
 the next state depends on (an exact result outside the word; ``IntegerProgram.counted_clamps``).

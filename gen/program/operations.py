@@ -45,8 +45,6 @@ class Machine(Protocol):
 
     def hold(self, values: np.ndarray, low: int, high: int) -> np.ndarray: ...  # marks a clamp
 
-    def check(self, values: np.ndarray, low: int, high: int) -> np.ndarray: ...  # marks, no clamp
-
     def round_shift(self, exact: np.ndarray, shift: int) -> np.ndarray: ...
 
     def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray: ...  # marks a clamp, see golden
@@ -88,16 +86,17 @@ class CHelper:
 class CSite:
     """What the C form of one operation may refer to.
 
-    args -- the C names of its arguments' values; word_bits, wide -- the word size and the C
-    product type; prefix -- the model's C prefix (of every helper); field -- the state struct
-    field a ``state`` reads; symbol -- the C name of the operation's stored constant or table;
-    saturated -- the last argument of a helper whose result is clamped (``", &saturated"``, the
-    step's flag), else "".
+    args -- the C names of its arguments' values; word_bits, word, wide -- the word size, the C
+    word type and the C product type; prefix -- the model's C prefix (of every helper); field --
+    the state struct field a ``state`` reads; symbol -- the C name of the operation's stored
+    constant or table; saturated -- the last argument of a helper whose result is clamped
+    (``", &saturated"``, the step's flag), else "".
     """
 
     args: tuple[str, ...]
     word_bits: int
     wide: str = "int64_t"
+    word: str = "int32_t"
     prefix: str = "step"
     field: str = ""
     symbol: str = ""
@@ -246,60 +245,14 @@ class State(OperationKind):
 
     def golden(self, op, args, machine):
         if op.held:
-            return machine.check(machine.state(op.state), *op.held)
+            return machine.hold(machine.state(op.state), *op.held)
         return machine.state(op.state)
 
     def c_call(self, op, site):
         if op.held:
             low, high = (int_literal(v, site.word_bits) for v in op.held)
-            return f"{site.prefix}_checked(state->{site.field}, {low}, {high}{site.saturated})"
+            return f"{site.prefix}_held(state->{site.field}, {low}, {high}{site.saturated})"
         return f"state->{site.field}"
-
-
-@register
-class Hold(OperationKind):
-    """The argument held in the range ``op.held`` (lowest, highest stored integer): the next
-    value of a state, kept where the planner proved the step's results fit (see
-    ``gen/program/proven_fit.py``). A clamp that changes it makes the step saturated."""
-
-    name = "hold"
-    arity = 1
-    provable = False
-
-    def real(self, op, args, states):
-        if not op.held or op.fraction_bits is None:
-            return args[0]
-        low, high = (v / 2.0**op.fraction_bits for v in op.held)
-        return np.minimum(np.maximum(args[0], low), high)
-
-    def interval(self, op, args, box):
-        if not op.held or op.fraction_bits is None:
-            return args[0]
-        low, high = (v / 2.0**op.fraction_bits for v in op.held)
-        return min(max(args[0][0], low), high), max(min(args[0][1], high), low)
-
-    def first_bits(self, op, f_args, natural, word_bits):
-        return f_args[0]
-
-    def settle_bits(self, op, bits, f_args, word_bits):
-        return f_args[0]
-
-    def fill(self, op, bits, f_args, word_bits):
-        return replace(op, shift=0)
-
-    def fit_wraps(self, op):
-        return None
-
-    def golden(self, op, args, machine):
-        return machine.hold(args[0], *op.held)
-
-    def exact_bounds(self, op, args, word_bits):
-        (low, high), (lowest, highest) = args[0], op.held
-        return min(max(low, lowest), highest), max(min(high, highest), lowest)
-
-    def c_call(self, op, site):
-        low, high = (int_literal(v, site.word_bits) for v in op.held)
-        return f"{site.prefix}_held({site.args[0]}, {low}, {high}{site.saturated})"
 
 
 @register
@@ -587,7 +540,7 @@ class Scale(OperationKind):
 
 _SINE_LOOKUP = CHelper(
     "sine_lookup", "{word} angle, const {word} *table, unsigned int shift, {unsigned} offset",
-    "{prefix}_fit_word(low + {PREFIX}_ROUND_SHIFT(rise * ({wide})within, shift){saturated})",
+    "{prefix}_fit_word(low + {PREFIX}_ROUND_SHIFT(rise * ({wide})within, shift, {wide}){saturated})",
     prelude=("const {unsigned} phase = ({unsigned})(({unsigned})angle + offset);",
              "const {unsigned} index = ({unsigned})(phase >> shift);",
              "const {unsigned} within = ({unsigned})(phase & ((({unsigned})1 << shift) - 1u));",

@@ -5,11 +5,10 @@ Interval arithmetic on the stored integers themselves (each kind's ``exact_bound
 program's one rounding rule, which is monotone): for every state within its range, a result
 whose bounds lie inside the word is ``proven`` and enters the word by wrapping, which then never
 acts. The ranges are the planning box, widened about its centre as far as the same results stay
-proven. The step keeps its states there: it counts a step that starts outside as saturated
-(``held`` on the state's load) and holds each next state in its range (a ``hold`` operation after
-the last one), so only a state written from outside can be off the range, and never unseen. The
-formats already hold every sure bound over the box times the margin, so at the box itself nearly
-every result is proven; what is not keeps its clamp.
+proven. The step first holds each state in its range (``held`` on the state's load: a clamp, and
+a saturated step when it acts), so every result after it is as proven. The formats already hold
+every sure bound over the box times the margin, so at the box itself nearly every result is
+proven; what is not keeps its clamp.
 """
 
 from __future__ import annotations
@@ -20,7 +19,7 @@ from dataclasses import replace
 import numpy as np
 
 from orbitfix.gen.program import golden
-from orbitfix.gen.program.integer_program import IntegerProgram, Op
+from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.operations import kind_of
 
 WIDENINGS = 12  # halvings of the search for the widest ranges that keep the proofs
@@ -53,22 +52,12 @@ def prove_fits(program: IntegerProgram, box: tuple[tuple[float, float], ...]) ->
         if op.kind == "state" and ranges[op.state] != word:
             op = replace(op, held=ranges[op.state])
         ops.append(replace(op, proven=index in proven))
-    next_state = list(bare.next_state)
-    for state, value in enumerate(bare.next_state):
-        if ranges[state] != word:
-            ops.append(Op("hold", (value,), state=state, held=ranges[state],
-                          fraction_bits=ops[value].fraction_bits, shift=0,
-                          note=f"next {bare.state_names[state]}, held in its proven range"))
-            next_state[state] = len(ops) - 1
-    return replace(program, ops=tuple(ops), next_state=tuple(next_state))
+    return replace(program, ops=tuple(ops))
 
 
 def _without_holds(program: IntegerProgram) -> IntegerProgram:
     """``program`` as the planner filled it: no holds, no proofs."""
-    next_state = tuple(program.ops[v].args[0] if program.ops[v].kind == "hold" else v
-                       for v in program.next_state)
-    ops = tuple(replace(op, held=(), proven=False) for op in program.ops if op.kind != "hold")
-    return replace(program, ops=ops, next_state=next_state)
+    return replace(program, ops=tuple(replace(op, held=(), proven=False) for op in program.ops))
 
 
 def value_bounds(program: IntegerProgram,
