@@ -23,10 +23,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from orbitfix.gen.c.example_main import AVR_PRESCALERS, avr_prescaler
+from orbitfix.gen.c.example_main import AVR_PRESCALERS, EXAMPLE_TARGETS, avr_prescaler
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
+from orbitfix.verify.cli import gen as gen_verb
 from orbitfix.verify.cli.main import main
 from orbitfix.verify.targets.board_profiles import boards_folder
 
@@ -259,6 +260,10 @@ def test_the_avr_prescaler_fits_sixteen_bits() -> None:
 
 
 # ---- errors -------------------------------------------------------------------------------------
+
+def test_the_command_line_offers_the_targets_there_are_templates_for() -> None:
+    assert gen_verb.EXAMPLE_TARGETS == EXAMPLE_TARGETS
+
 
 def test_an_unknown_target_is_refused_with_exit_2(tmp_path: Path, capsys) -> None:
     assert main(["gen", "vanderpol", "-o", str(tmp_path), "--example", "pic"]) == 2

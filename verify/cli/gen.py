@@ -29,6 +29,10 @@ if TYPE_CHECKING:
     from orbitfix.gen.model.definition import Model
 
 
+# gen/c/example_main.EXAMPLE_TARGETS, kept here so the command line starts without jinja2
+EXAMPLE_TARGETS = ("cortex-m", "avr")
+
+
 def register(verbs: Any) -> None:
     """Add the ``gen`` verb to the command line."""
     parser = verbs.add_parser("gen", help="write NAME.h and NAME.c for the model, and its self-test")
@@ -45,7 +49,7 @@ def register(verbs: Any) -> None:
                         help="take the word size, integrator and states' format that 'orbitfix plan "
                              "MODEL --search --json > FILE' chose (instead of the fixed-point options)")
     add_trim_option(parser, "the header says it was trimmed and by how much")
-    parser.add_argument("--example", metavar="TARGET", choices=("cortex-m", "avr"),
+    parser.add_argument("--example", metavar="TARGET", choices=EXAMPLE_TARGETS,
                         help="also write NAME_example_main.c: a main whose timer interrupt calls the step "
                              "at the loop rate, for TARGET: cortex-m (SysTick) or avr (Timer1)")
     parser.set_defaults(handler=run)
