@@ -27,6 +27,7 @@ from orbitfix.gen.c.example_main import AVR_PRESCALERS, EXAMPLE_TARGETS, avr_pre
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
+from orbitfix.gen.safety import SAFETY_NOTE
 from orbitfix.verify.cli import gen as gen_verb
 from orbitfix.verify.cli.main import main
 from orbitfix.verify.targets.board_profiles import boards_folder
@@ -259,6 +260,16 @@ def test_the_avr_prescaler_fits_sixteen_bits() -> None:
         assert not smaller
 
 
+@pytest.mark.parametrize("target", EXAMPLE_TARGETS)
+def test_the_banner_has_the_licence_line_first_and_the_caution(target: str, generated,
+                                                               tmp_path: Path) -> None:
+    text = (generated(tmp_path, target, 32) / "vanderpol_example_main.c").read_text()
+    assert text.splitlines()[0] == "/* SPDX-License-Identifier: MIT */"
+    banner = " ".join(text[:text.index("*/", 40)].replace(" * ", " ").split())
+    assert SAFETY_NOTE in banner
+    assert "calling the step function 1000 times a second" in banner  # vanderpol.toml's loop_hz
+
+
 # ---- errors -------------------------------------------------------------------------------------
 
 def test_the_command_line_offers_the_targets_there_are_templates_for() -> None:
@@ -408,3 +419,14 @@ def test_a_saturated_step_stops_the_loop(target) -> None:
     # it stops at the first tick it sees after the first saturated step (an emulator paced by
     # the host's clock can run a tick or two before the main loop looks)
     assert 1 <= int(np.argmax(counts > 0)) <= ticks
+
+
+def test_a_period_off_by_one_clock_is_caught(target) -> None:
+    folder, build, run, period, built = target
+    source = folder / "vanderpol_example_main.c"
+    text = source.read_text()
+    minus_one = re.compile(r"(_CORE_CLOCK_HZ / VANDERPOL_EXAMPLE_LOOP_HZ|TIMER_COUNTS) - 1(u|UL)\)")
+    assert len(minus_one.findall(text)) == 1
+    source.write_text(minus_one.sub(r"\1)", text))  # clocks a tick, not clocks a tick - 1
+    _, halted, reported_period, _, _ = _fields(run(build(folder, built)))
+    assert halted == 0 and reported_period == period + 1

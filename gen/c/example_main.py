@@ -31,10 +31,9 @@ AVR_PRESCALERS = ((1, ("CS10",)), (8, ("CS11",)), (64, ("CS11", "CS10")), (256, 
 AVR_TIMER_COUNTS = 1 << 16  # OCR1A + 1 counts per period, OCR1A being 16 bits
 
 
-def loop_rate(model: Model) -> int:
-    """The model's loop rate as a whole number of Hz, which a timer divides its clock by; a
+def loop_rate(model: Model, hz: float) -> int:
+    """The loop rate ``hz`` as a whole number of Hz, which a timer divides its clock by; a
     fractional rate is refused (the timer could not keep it, and the rhythm would be off)."""
-    hz = model.rhythm.loop_hz
     if hz != int(hz) or hz < 1:
         raise InputError(f"model '{model.name}': --example needs a whole loop rate in Hz (a timer "
                          f"divides its clock by it), but loop_hz is {hz:g}; set [rhythm] loop_hz "
@@ -47,7 +46,7 @@ def check_example(model: Model, target: str) -> None:
     if target not in TEMPLATES:
         raise InputError(f"--example {target!r} is not a known target; choose one of "
                          f"{', '.join(EXAMPLE_TARGETS)}")
-    rate = loop_rate(model)
+    rate = loop_rate(model, model.rhythm.loop_hz)
     if target == "avr":
         avr_prescaler(rate)
 
@@ -69,7 +68,7 @@ def render_example_main(model: Model, timing: Timing, integrator: Integrator, pl
     """``NAME_example_main.c`` for ``target`` (one of EXAMPLE_TARGETS)."""
     check_example(model, target)
     names = CNames(model.name)
-    rate = loop_rate(model)
+    rate = loop_rate(model, timing.loop_hz)  # the rate the step was planned for
     context = {**firmware_context(model, timing, integrator, plan), "loop_hz": rate,
                "loop_period_us": 1e6 / rate}
     if target == "avr":
