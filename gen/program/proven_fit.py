@@ -139,3 +139,33 @@ def _widest_scale(program: IntegerProgram, box: tuple[tuple[float, float], ...])
         edge = (program.word_max + 1) / 2.0 ** bits
         widest = max(widest, (edge + abs(centre)) / half)
     return widest
+
+
+def refuted_fits(program: IntegerProgram, states: np.ndarray) -> list[tuple[int, int]]:
+    """The values marked ``proven`` whose result leaves the word from some of ``states`` (the
+    proof is wrong for them), each with the first such state's column, found by running golden
+    with and without the proofs: a clamp that acts where the proof said none was needed changes
+    that value. ``states``: int ndarray, shape (n_states, batch)."""
+    unproven = replace(program, ops=tuple(replace(op, proven=False) for op in program.ops))
+    proven = golden.evaluate(program, states)
+    clamped = golden.evaluate(unproven, states)
+    return [(i, int(np.flatnonzero(proven[i] != clamped[i])[0]))
+            for i, op in enumerate(program.ops)
+            if op.proven and not np.array_equal(proven[i], clamped[i])]
+
+
+def range_corners_and_samples(program: IntegerProgram, count: int,
+                              rng: np.random.Generator) -> np.ndarray:
+    """States to test the proofs on: random states within the proven ranges and, for up to 12
+    states, every corner of the ranges (else ``count`` more random corners). Shape (n_states, k)."""
+    ranges = [op.held or (program.word_min, program.word_max)
+              for op in program.ops if op.kind == "state"]
+    low = np.array([r[0] for r in ranges], dtype=np.int64)
+    high = np.array([r[1] for r in ranges], dtype=np.int64)
+    inside = rng.integers(low[:, None], high[:, None], size=(len(ranges), count), endpoint=True)
+    if len(ranges) <= 12:
+        picks = np.array(np.meshgrid(*([0, 1],) * len(ranges))).reshape(len(ranges), -1)
+    else:
+        picks = rng.integers(0, 2, size=(len(ranges), count))
+    corners = np.where(picks == 1, high[:, None], low[:, None])
+    return np.hstack([inside, corners])
