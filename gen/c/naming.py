@@ -207,6 +207,11 @@ class CNames:
         return f"{self.prefix}_selftest"
 
     @property
+    def example_source(self) -> str:
+        """The example firmware entry point: a timer interrupt calls the step at the loop rate."""
+        return f"{self.prefix}_example_main.c"
+
+    @property
     def state_type(self) -> str:
         return f"{self.prefix}_state_t"
 

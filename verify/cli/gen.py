@@ -1,6 +1,7 @@
 """The ``gen`` verb: write the model's fixed-point C (NAME.h, NAME.c), the macros between real
 values and stored integers (NAME_units.h) and the self-test (NAME_selftest.h, NAME_selftest.c),
-and optionally its integer program as JSON.
+optionally its integer program as JSON and, with --example TARGET, an example main that calls the
+step from a timer interrupt (NAME_example_main.c).
 
 With --plan FILE the fixed-point choice comes from what ``plan --search --json`` chose; with --trim
 the step constants are trimmed first (gen/study/trim.py).
@@ -28,6 +29,10 @@ if TYPE_CHECKING:
     from orbitfix.gen.model.definition import Model
 
 
+# gen/c/example_main.EXAMPLE_TARGETS, kept here so the command line starts without jinja2
+EXAMPLE_TARGETS = ("cortex-m", "avr")
+
+
 def register(verbs: Any) -> None:
     """Add the ``gen`` verb to the command line."""
     parser = verbs.add_parser("gen", help="write NAME.h and NAME.c for the model, and its self-test")
@@ -44,6 +49,9 @@ def register(verbs: Any) -> None:
                         help="take the word size, integrator and states' format that 'orbitfix plan "
                              "MODEL --search --json > FILE' chose (instead of the fixed-point options)")
     add_trim_option(parser, "the header says it was trimmed and by how much")
+    parser.add_argument("--example", metavar="TARGET", choices=EXAMPLE_TARGETS,
+                        help="also write NAME_example_main.c: a main whose timer interrupt calls the step "
+                             "at the loop rate, for TARGET: cortex-m (SysTick) or avr (Timer1)")
     parser.set_defaults(handler=run)
 
 
@@ -63,6 +71,10 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     model = model_from_args(args)
     if args.plan_file is not None:
         model = model_from_plan_file(args, model)
+    if args.example is not None:
+        from orbitfix.gen.c.example_main import check_example
+
+        check_example(model, args.example)
     built = design(model)
     trim = None
     if args.trim:
@@ -80,6 +92,11 @@ def run(args: argparse.Namespace, partial: dict) -> int:
              **render_units(built.model, built.timing, built.integrator, built.plan),
              **render_selftest(built.model, built.timing, built.integrator, built.plan,
                                start.trajectory)}
+    if args.example is not None:
+        from orbitfix.gen.c.example_main import render_example_main
+
+        texts.update(render_example_main(built.model, built.timing, built.integrator, built.plan,
+                                         args.example))
     files = {args.output / name: text for name, text in texts.items()}
     if args.program_json:
         files[args.program_json] = json.dumps(built.plan.program.to_json(), indent=2) + "\n"
