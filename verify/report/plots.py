@@ -55,7 +55,7 @@ def phase_portrait(side: SideBySide, cycle_samples: np.ndarray | None, shown: in
             if i in angles:
                 loop[row] = wrap_turns(radians_to_turns(loop[row]))
         axes.plot(np.append(loop[0], loop[0][:1]), np.append(loop[1], loop[1][:1]), **CONTINUOUS)
-    last = max(0, side.steps - int(round(side.steps_per_cycle)))
+    last = max(0, side.steps - round(side.steps_per_cycle))
     every = max(1, (side.steps - last) // shown)
     picked = slice(last, side.steps + 1, every)
     axes.scatter(side.floats[picked, a], side.floats[picked, b], **FLOAT)
