@@ -33,7 +33,7 @@ code, .eq { font-family: ui-monospace, monospace; }
 .bad { background: #f6d8d3; color: #7a1408; }
 .caution { border: 2px solid #b5651d; background: #fdf1e2; padding: 0.6em 0.9em; margin: 1em 0; }
 figure { margin: 1em 0 2em; }
-figure svg { max-width: 100%; height: auto; display: block; background: #ffffff; }
+figure svg { max-width: min(100%, 760px); height: auto; display: block; background: #ffffff; }
 figcaption { font-size: 0.9em; color: #444; margin-top: 0.3em; }
 .note { color: #555; font-size: 0.92em; }
 """
@@ -442,7 +442,9 @@ def _board(page: Page) -> None:
         if page.has("link_failure"):
             page.para(f"link failed: {page.val('link_failure')}")
         if page.has("selftest"):
-            page.para(f"self-test on the board: {page.val('selftest')} (0 passed)")
+            passed = page.get("selftest") == 0
+            page.para("self-test on the board: " + ("passed" if passed else "FAILED at check ")
+                      + ("" if passed else page.val("selftest")))
         _mismatch(page, "first_mismatch")
     rows = []
     for key in page.get("size") or {}:
