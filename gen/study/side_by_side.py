@@ -20,9 +20,11 @@ from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.lowering import evaluate_real
 from orbitfix.gen.study.section import Section, section_for
+from orbitfix.gen.work_size import GOLDEN_OP_SECONDS
 
 RUN_CYCLES = 6          # cycles of the wanted rhythm run side by side
-MOST_STEPS = 6_000      # golden steps at most (about 6 s for a two-state model)
+GOLDEN_SECONDS = 8.0    # golden's share at most (estimated as gen/work_size does), beyond the
+                        # start-up path it continues
 
 
 @dataclass(frozen=True, eq=False)
@@ -83,14 +85,17 @@ class SideBySide:
 
 
 def run_side_by_side(built: Design, start_trajectory: np.ndarray | None = None,
-                     cycles: float = RUN_CYCLES, most_steps: int = MOST_STEPS) -> SideBySide:
-    """Run golden and the float step map from the initial state for ``cycles`` cycles (at most
-    ``most_steps`` steps). ``start_trajectory``: golden's whole state at steps 0..k from the
-    initial state (the start-up path's), continued rather than run again."""
+                     cycles: float = RUN_CYCLES, seconds: float = GOLDEN_SECONDS) -> SideBySide:
+    """Run golden and the float step map from the initial state for ``cycles`` cycles, fewer when
+    golden would take more than about ``seconds`` (never fewer than ``start_trajectory`` holds).
+    ``start_trajectory``: golden's whole state at steps 0..k from the initial state (the start-up
+    path's), continued rather than run again."""
     plan, timing, model = built.plan, built.timing, built.model
     program = plan.program
     n = program.model_state_count
-    steps = max(2, min(most_steps, math.ceil(cycles * timing.steps_per_cycle)))
+    affordable = int(seconds / (len(program.ops) * GOLDEN_OP_SECONDS))
+    known_steps = 0 if start_trajectory is None else len(start_trajectory) - 1
+    steps = max(2, min(math.ceil(cycles * timing.steps_per_cycle), max(affordable, known_steps)))
     if start_trajectory is not None and len(start_trajectory) > 1:
         known = np.asarray(start_trajectory[: steps + 1], dtype=np.int64)
     else:

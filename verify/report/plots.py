@@ -17,6 +17,7 @@ from dataclasses import dataclass
 import matplotlib
 import numpy as np
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
 
 from orbitfix.gen.model.angles import radians_to_turns, wrap_turns
 from orbitfix.gen.study.side_by_side import SideBySide
@@ -47,14 +48,19 @@ def phase_portrait(side: SideBySide, cycle_samples: np.ndarray | None, shown: in
     states over the last cycle of the run as points (about ``shown`` of each)."""
     names, angles = side.state_names, side.angle_states
     a, b = 0, 1
-    figure = Figure(figsize=(6.4, 5.0))
+    figure = Figure(figsize=(6.4, 5.0), layout="constrained")
     axes = figure.add_subplot()
     if cycle_samples is not None:
         loop = np.asarray(cycle_samples, dtype=float)[[a, b]].copy()
         for row, i in enumerate((a, b)):
             if i in angles:
                 loop[row] = wrap_turns(radians_to_turns(loop[row]))
-        axes.plot(np.append(loop[0], loop[0][:1]), np.append(loop[1], loop[1][:1]), **CONTINUOUS)
+        loop = np.column_stack([loop, loop[:, :1]])
+        jumps = [k + 1 for k in range(loop.shape[1] - 1)
+                 if any(i in angles and abs(loop[row, k + 1] - loop[row, k]) > 0.5
+                        for row, i in enumerate((a, b)))]
+        loop = np.insert(loop, jumps, np.nan, axis=1)  # a wrapped angle's line breaks at the wrap
+        axes.plot(loop[0], loop[1], **CONTINUOUS)
     last = max(0, side.steps - round(side.steps_per_cycle))
     every = max(1, (side.steps - last) // shown)
     picked = slice(last, side.steps + 1, every)
@@ -66,20 +72,20 @@ def phase_portrait(side: SideBySide, cycle_samples: np.ndarray | None, shown: in
     axes.set_ylabel(f"{names[b]} ({unit_of(angles, b)})")
     axes.legend(loc="best", fontsize="small")
     axes.grid(alpha=0.3)
-    figure.tight_layout()
     return figure
 
 
 def errors_over_run(side: SideBySide) -> Figure:
     """Per cycle of the run: each swinging state's amplitude error (LSB), and the phase error at
     each crossing of the section (seconds at the loop rate), golden against the float step map."""
-    figure = Figure(figsize=(6.4, 5.4))
+    figure = Figure(figsize=(6.4, 5.4), layout="constrained")
     top, bottom = figure.subplots(2, 1)
     cycles = np.arange(1, side.amplitude_error_lsb.shape[0] + 1)
     for j, i in enumerate(side.swinging):
         top.plot(cycles, side.amplitude_error_lsb[:, j], marker="o", label=side.state_names[i])
     top.axhline(0.0, color="#888888", linewidth=0.6)
     top.set_xlabel("cycle of the run (cycles)")
+    top.xaxis.set_major_locator(MaxNLocator(integer=True))
     top.set_ylabel("amplitude error (LSB)")
     if side.swinging:
         top.legend(loc="best", fontsize="small")
@@ -89,8 +95,8 @@ def errors_over_run(side: SideBySide) -> Figure:
     bottom.axhline(0.0, color="#888888", linewidth=0.6)
     bottom.set_xlabel(f"crossing of the section by {side.state_names[side.section.state]} (cycles)")
     bottom.set_ylabel("phase error (s)")
+    bottom.xaxis.set_major_locator(MaxNLocator(integer=True))
     bottom.grid(alpha=0.3)
-    figure.tight_layout()
     return figure
 
 
@@ -99,7 +105,7 @@ def return_points(side: SideBySide) -> Figure:
     more other states, the first two against each other; with one, against the return's number)."""
     names, angles = side.state_names, side.angle_states
     others = [i for i in range(len(names)) if i != side.section.state]
-    figure = Figure(figsize=(6.4, 4.4))
+    figure = Figure(figsize=(6.4, 4.4), layout="constrained")
     axes = figure.add_subplot()
     if len(others) >= 2:
         a, b = others[:2]
@@ -116,10 +122,10 @@ def return_points(side: SideBySide) -> Figure:
                   marker="o", markerfacecolor="none", color=INTEGER["color"], label=INTEGER["label"],
                   linewidth=0.8)
         axes.set_xlabel("return to the section (cycles)")
+        axes.xaxis.set_major_locator(MaxNLocator(integer=True))
         axes.set_ylabel(f"{names[a]} at the section ({unit_of(angles, a)})")
     axes.legend(loc="best", fontsize="small")
     axes.grid(alpha=0.3)
-    figure.tight_layout()
     return figure
 
 
