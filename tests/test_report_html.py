@@ -185,6 +185,43 @@ def test_every_plot_axis_names_its_unit(vanderpol_report) -> None:
         assert all(f">{one.get_ylabel()}<" in page for one in axes)
 
 
+@pytest.mark.slow
+def test_the_side_by_side_series_are_golden_and_the_float_step_map() -> None:
+    """The plotted series against their sources run afresh: golden from the plan's initial state
+    (so continuing the start-up path's trajectory stitches nothing wrong), the float step map step
+    by step, and each upward crossing of the section found by linear interpolation between the two
+    steps around it (common practice)."""
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.gen.pipeline import design
+    from orbitfix.gen.program import golden
+    from orbitfix.gen.program.lowering import evaluate_real
+    from orbitfix.gen.study.side_by_side import run_side_by_side
+
+    built = design(load_model("vanderpol"))
+    program = built.plan.program
+    fresh = golden.run(program, np.asarray(built.plan.initial_state), 1500)
+    side = run_side_by_side(built, start_trajectory=fresh[:700], cycles=2.2)
+    assert side.steps == math.ceil(2.2 * built.timing.steps_per_cycle)
+    scale = 2.0 ** np.asarray(program.state_fraction_bits, dtype=float)
+    assert np.array_equal(side.integer, fresh[: side.steps + 1] / scale)
+    state = np.asarray(built.model.initial_state, dtype=float).reshape(-1, 1)
+    for k in range(1, side.steps + 1):
+        values = evaluate_real(program, state)
+        state = np.stack([values[i] for i in program.next_state])
+        assert np.allclose(side.floats[k], state[:, 0], rtol=0, atol=1e-15)
+    level = side.section.level
+
+    def upward(x: np.ndarray) -> list[float]:
+        return [k - 1 + (level - x[k - 1]) / (x[k] - x[k - 1]) for k in range(1, len(x))
+                if x[k - 1] < level <= x[k]]
+    ints, floats = upward(side.integer[:, 0]), upward(side.floats[:, 0])
+    assert np.allclose(side.integer_crossings, ints) and np.allclose(side.float_crossings, floats)
+    assert np.allclose(side.phase_error_steps, np.subtract(ints, floats)[: len(side.phase_error_steps)])
+    # a seeded slip of one step in golden's series shows as a phase error of about one step
+    slipped = run_side_by_side(built, start_trajectory=np.vstack([fresh[:1], fresh[:1500]]), cycles=2.2)
+    assert np.allclose(slipped.phase_error_steps, side.phase_error_steps + 1, atol=0.05)
+
+
 def unlabelled(figure) -> list[str]:
     """Axes whose x or y label does not end in a known unit in parentheses."""
     wrong = []
@@ -215,6 +252,20 @@ def test_the_page_from_a_small_object_tags_each_number() -> None:
     assert dict(tagged_numbers(page))["timing.steps_per_cycle"] == "250"
     assert mismatches(page, data) == []
     assert "Limit cycle" not in page  # no analysis ran: no section for it
+
+
+def test_a_network_page_shows_its_phase_lags() -> None:
+    from orbitfix.gen.analysis.summary import analyse
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.verify.report.report_folder import page_text, report_data
+
+    data = report_data("check", {"model": "vanderpol_pair"},
+                       {"analysis": analyse(load_model("vanderpol_pair"))}, None, 0)
+    page = page_text(data, {})
+    shown = dict(tagged_numbers(page))
+    assert "Network phase locking" in page and "analysis.network.lags.1" in shown
+    assert shown["analysis.network.wanted_lags.1"] == "0"
+    assert mismatches(page, data) == [] and "http" not in page
 
 
 def test_an_unknown_model_is_refused_and_its_error_written(tmp_path, capsys) -> None:

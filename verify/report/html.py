@@ -122,6 +122,7 @@ def report_html(data: dict, plots: Sequence[tuple[str, str, str, str]] = (),
     _model(page)
     _equilibria(page)
     _cycle(page)
+    _network(page)
     _timing(page)
     _plan(page)
     _trim(page)
@@ -133,6 +134,13 @@ def report_html(data: dict, plots: Sequence[tuple[str, str, str, str]] = (),
     _board(page)
     if plots or left_out:
         page.add("<h2>Plots</h2>")
+        if page.has("side_by_side"):
+            page.pairs([("side-by-side run from the initial state (steps)", page.val("side_by_side.steps")),
+                        ("cycles", page.val("side_by_side.cycles")),
+                        ("worst amplitude error, integer against float (LSB)",
+                         page.val("side_by_side.worst_amplitude_error_lsb")),
+                        ("worst phase error, integer against float (s)",
+                         page.val("side_by_side.worst_phase_error_seconds"))])
         for plot_name, title, caption, svg in plots:
             page.add(f'<figure id="plot-{esc(plot_name)}"><h3>{esc(title)}</h3>{svg}'
                      f"<figcaption>{esc(caption)}</figcaption></figure>")
@@ -252,6 +260,21 @@ def _cycle(page: Page) -> None:
     page.table(["multiplier", "what"],
                [[_complex_cell(page, f"{c}.floquet.{i}"), "trivial" if i == trivial else "nontrivial"]
                 for i in range(len(page.get(c + ".floquet") or []))], numeric=(0,))
+
+
+def _network(page: Page) -> None:
+    if not page.has("analysis.network"):
+        return
+    n = "analysis.network"
+    page.add("<h2>Network phase locking</h2>")
+    page.para(f"{esc(page.get(n + '.verdict', ''))}")
+    rows = [[esc(label), page.val(f"{n}.lags.{i}"), page.val(f"{n}.wanted_lags.{i}"),
+             page.val(f"{n}.lag_errors.{i}")] for i, label in enumerate(page.get(n + ".labels") or [])]
+    page.table(["oscillator", "lag after oscillator 1 (cycles)", "wanted (cycles)", "error (cycles)"],
+               rows, numeric=(1, 2, 3))
+    page.pairs([("tolerance (cycles)", page.val(n + ".lag_tolerance")),
+                ("common period (model time units)", page.val(n + ".common_period")),
+                ("cycles to lock from the initial state", page.val(n + ".cycles_to_lock"))])
 
 
 def _timing(page: Page) -> None:
