@@ -116,7 +116,8 @@ def test_the_page_shows_the_json_numbers(vanderpol_report) -> None:
     assert float(shown["analysis.cycle.period"]) == pytest.approx(data["analysis"]["cycle"]["period"],
                                                                  rel=1e-9)
     # the period at the wanted rhythm: one cycle at the model's cycle_hz
-    assert f"{1 / data['timing']['cycle_hz']:.10g}" in page
+    assert data["cycle_seconds"] == pytest.approx(1 / data["timing"]["cycle_hz"], rel=1e-15)
+    assert shown["cycle_seconds"] == f"{1 / data['timing']['cycle_hz']:.10g}"
     assert "bit-exact" in page and data["bit_exact"]
     assert "orbitfix claims no certification" in page and html.escape(data["caution"]) in page
 

@@ -10,6 +10,7 @@ for the stages that ran.
 from __future__ import annotations
 
 import html
+import json
 import math
 from collections.abc import Sequence
 from typing import Any
@@ -241,8 +242,7 @@ def _cycle(page: Page) -> None:
         return
     rows = [("period (model time units)", page.val(c + ".period"))]
     if page.has("timing.cycle_hz"):
-        seconds = 1.0 / page.get("timing.cycle_hz")
-        rows += [("period at the wanted rhythm (s)", html.escape(number_text(seconds))),
+        rows += [("period at the wanted rhythm (s)", page.val("cycle_seconds")),
                  ("wanted rhythm (Hz)", page.val("timing.cycle_hz")),
                  ("model time units per second", page.val("timing.time_scale")),
                  ("steps of the loop per cycle", page.val("timing.steps_per_cycle"))]
@@ -375,10 +375,22 @@ def _mismatch(page: Page, path: str) -> None:
         return
     mismatch = page.get(path)
     page.add("<h3>First mismatch</h3>")
-    page.pairs([(key.replace("_", " "), page.val(f"{path}.{key}")) for key, value in mismatch.items()
-                if not isinstance(value, (dict, list))]
-               + [(key.replace("_", " "), f"<code>{esc(value)}</code>") for key, value in mismatch.items()
-                  if isinstance(value, (dict, list))])
+    rows = []
+    for key, value in mismatch.items():
+        what = key.replace("_", " ")
+        if key == "operation" and isinstance(value, dict):
+            o = f"{path}.operation"
+            rows.append(("they part at operation",
+                         f"v{page.val(o + '.index')} ({page.val(o + '.kind')}: {page.val(o + '.note')}): "
+                         f"expected {page.val(o + '.expected')}, got {page.val(o + '.got')}"))
+        elif isinstance(value, list):
+            rows.append((what, "[" + ", ".join(page.val(f"{path}.{key}.{i}") for i in range(len(value)))
+                         + "]"))
+        elif isinstance(value, dict):
+            rows.append((what, f"<code>{esc(json.dumps(value))}</code>"))
+        elif value is not None:
+            rows.append((what, page.val(f"{path}.{key}")))
+    page.pairs(rows)
 
 
 def _layers(page: Page) -> None:

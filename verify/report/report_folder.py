@@ -59,6 +59,9 @@ def report_data(verb: str, partial: dict, computed: dict, error: str | None, cod
         side = computed.get("side_by_side")
         if side is not None:
             data["side_by_side"] = side.to_json()
+    timing = data.get("timing")
+    if isinstance(timing, dict) and timing.get("cycle_hz"):
+        data["cycle_seconds"] = 1.0 / timing["cycle_hz"]  # the period at the wanted rhythm
     data["caution"] = CAUTION
     return json_object(code == 0 and error is None, data)
 
