@@ -61,10 +61,18 @@ def slip_one_product(step_c: Path) -> None:
     """Seed a scaling slip into generated C: the first word product is shifted one place too few,
     the fingerprint left as it was. The proofs must catch it."""
     text = step_c.read_text()
-    changed = re.sub(r"(= mul_word\(v\d+, k\d+, )(\d+)u\b",
-                     lambda m: f"{m.group(1)}{int(m.group(2)) - 1}u", text, count=1)
+    changed = re.sub(r"(ROUND_SHIFT\(\(int\d+_t\)v\d+ \* k\d+, )(\d+)\)",
+                     lambda m: f"{m.group(1)}{int(m.group(2)) - 1})", text, count=1)
     assert changed != text, "no word product to seed a fault into"
     step_c.write_text(changed)
+
+
+def slip_the_square(text: str) -> str:
+    """Generated C with a seeded scaling slip: the square of the first state (the first product
+    of the step) shifted one place too few."""
+    product = re.search(r"(ROUND_SHIFT\(\(int\d+_t\)v0 \* v0, )(\d+)\)", text)
+    assert product, "no square of the first state to seed a fault into"
+    return text.replace(product.group(0), f"{product.group(1)}{int(product.group(2)) - 1})", 1)
 
 
 def brute_force_cycle(rows) -> tuple[int, int]:

@@ -4,12 +4,12 @@ user mistakes."""
 from __future__ import annotations
 
 import json
-import re
 import subprocess
 import sys
 from pathlib import Path
 
 import pytest
+from conftest import slip_the_square
 
 from orbitfix.verify.cli.main import main
 
@@ -141,10 +141,7 @@ def test_verify_of_edited_sources_exits_1_naming_the_step(capsys, tmp_path: Path
     run(capsys, "gen", "vanderpol", "-o", str(tmp_path))
     source = tmp_path / "vanderpol.c"
     text = source.read_text()
-    product = re.search(r"mul_word\(v0, v0, (\d+)u\b", text)
-    assert product
-    source.write_text(text.replace(product.group(0),
-                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u", 1))
+    source.write_text(slip_the_square(text))
     code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path),
                        "--states", "5000", "--steps", "5000", "--json", "--hours", "0.01")
     assert code == 1
@@ -177,7 +174,8 @@ def test_plan_json_has_signals_constants_and_integrators(capsys) -> None:
     assert code == 0
     data = json.loads(out)
     signals = data["plan"]["signals"]
-    assert len(signals) == len(data["plan"]["formats"]["constants"]) + 32  # 47 values, 15 constants
+    # 49 values: 47 and a hold of each next state; 15 of them constants
+    assert len(signals) == len(data["plan"]["formats"]["constants"]) + 34
     for row in signals:
         assert row["sure_min"] <= row["min"] <= row["max"] <= row["sure_max"]
         assert row["headroom_bits"] >= 1  # margin 2 = one bit over the sure bound

@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import slip_the_square
 
 from orbitfix.gen.progress import reporting, tell
 from orbitfix.gen.safety import CAUTION, SAFETY_NOTE
@@ -390,15 +391,11 @@ def test_pytest_m_slow_selects_the_marked_tests() -> None:
 
 def test_verify_text_names_the_first_mismatch_and_its_operation(capsys, tmp_path: Path) -> None:
     # a seeded fault: one product's shift made one smaller in the C (see test_command_line.py)
-    import re
 
     assert main(["gen", "vanderpol", "-o", str(tmp_path)]) == 0
     source = tmp_path / "vanderpol.c"
     text = source.read_text()
-    product = re.search(r"mul_word\(v0, v0, (\d+)u\b", text)
-    assert product
-    source.write_text(text.replace(product.group(0),
-                                   f"mul_word(v0, v0, {int(product.group(1)) - 1}u", 1))
+    source.write_text(slip_the_square(text))
     capsys.readouterr()
     code, out, _ = run(capsys, "verify", "vanderpol", "--sources", str(tmp_path), "--states", "500",
                        "--steps", "500", "--skip-drift")

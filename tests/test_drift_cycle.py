@@ -71,7 +71,7 @@ def faulty_plain_step(built, old: str, new: str):
     uses the plain step; the statistics and the closing check use the traced step)."""
     files = render_model(built.model, built.timing, built.integrator, built.plan)
     body = files["vanderpol.c"]
-    line = next(t for t in body.splitlines() if "const int32_t v7 = mul_word(" in t)
+    line = next(t for t in body.splitlines() if "const int32_t v7 = " in t)
     assert old in line
     return build_drift_module(built, {**files, "vanderpol.c": body.replace(line, line.replace(old, new))})
 
@@ -80,7 +80,7 @@ def test_a_plain_step_with_another_cycle_fails(vanderpol_design) -> None:
     # Seeded C fault: the plain step's x increment uses one shift more (half the step), so Brent's
     # algorithm finds a cycle of another map (about a million steps long, so the budget is an
     # hour's steps); the traced step must refuse to close it.
-    host = faulty_plain_step(vanderpol_design, "34u,", "35u,")
+    host = faulty_plain_step(vanderpol_design, "34)", "35)")
     report = run_drift(vanderpol_design, hours=1, host=host)
     assert report.runs[0].horizon == "unbounded"
     assert report.verdict == "fail"

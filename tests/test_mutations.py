@@ -62,34 +62,43 @@ def mutants(source: str, names: CNames) -> list[Mutant]:
                 source, m.start(2), m.end(2), str(int(m.group(2)) + delta))))
     step = source.index(f"void {names.step}(")
     body_end = source.index("\n}\n", step)
-    for line in re.finditer(r"const int16_t (v\d+) = (\w+)\((.*)\);", source[step:body_end]):
-        value, helper = line.group(1), line.group(2)
-        base = step + line.start(3)
-        for number, shift in enumerate(re.finditer(r"\b(\d+)u\b", line.group(3))):
+    for line in re.finditer(r"const int16_t (v\d+) = (.*);", source[step:body_end]):
+        value, expression = line.group(1), line.group(2)
+        base = step + line.start(2)
+        rounded = re.search(r"ROUND_SHIFT\((.*), (\d+)\)\)$", expression)
+        if rounded:  # the shift after the exact result
             for delta in (-1, 1):
-                new = int(shift.group(1)) + delta
-                if new < 0:
-                    continue
-                found.append(Mutant("shift +/-1", f"{value} {helper} shift {number} {delta:+d}",
-                                    _replace_span(source, base + shift.start(1),
-                                                  base + shift.end(1), str(new))))
-        if helper in ("add_word", "sub_word"):
-            other = "sub_word" if helper == "add_word" else "add_word"
-            at = step + line.start(2)
-            found.append(Mutant("add/subtract swapped", f"{value} {helper} -> {other}",
-                                _replace_span(source, at, at + len(helper), other)))
-    half = "((int32_t)1 << (shift - 1u))"
+                found.append(Mutant("shift +/-1", f"{value} shift {delta:+d}", _replace_span(
+                    source, base + rounded.start(2), base + rounded.end(2),
+                    str(int(rounded.group(2)) + delta))))
+        for number, align in enumerate(re.finditer(r"\* (\d+)\b", expression)):  # alignments
+            for new in (int(align.group(1)) // 2, int(align.group(1)) * 2):
+                found.append(Mutant("shift +/-1", f"{value} alignment {number} -> {new}",
+                                    _replace_span(source, base + align.start(1),
+                                                  base + align.end(1), str(new))))
+        sign = re.search(r"\)v\d+(?: \* \d+)? ([+-]) \(int", expression)
+        if sign:
+            other = "-" if sign.group(1) == "+" else "+"
+            found.append(Mutant("add/subtract swapped", f"{value} {sign.group(1)} -> {other}",
+                                _replace_span(source, base + sign.start(1), base + sign.end(1),
+                                              other)))
+    half = "((int32_t)1 << ((s) - 1))"
     assert half in source, "the 16-bit subject rounds half up: its rounding constant is a half"
-    for where, new in (("no half LSB", "0"), ("a whole LSB", "((int32_t)1 << shift)"),
-                       ("a quarter LSB", "((int32_t)1 << (shift - 2u))"),
+    for where, new in (("no half LSB", "0"), ("a whole LSB", "((int32_t)1 << (s))"),
+                       ("a quarter LSB", "((int32_t)1 << ((s) - 2))"),
                        ("half an LSB less one (ties down)", f"({half} - 1)")):
         found.append(Mutant("rounding constant", where, source.replace(half, new, 1)))
-    upper = "    if (value > INT16_MAX) {\n        *saturated = 1u;\n        return INT16_MAX;\n    }\n"
-    lower = "    if (value < INT16_MIN) {\n        *saturated = 1u;\n        return INT16_MIN;\n    }\n"
-    assert upper in source and lower in source
+    # The clamps of the step: each next state held in its proven range, and the count of a step
+    # that starts outside it.
+    upper = "    if (value > high) {\n        *saturated = 1u;\n        return high;\n    }\n"
+    lower = "    if (value < low) {\n        *saturated = 1u;\n        return low;\n    }\n"
+    check = "    *saturated |= (unsigned int)((value > high) | (value < low));\n"
+    assert upper in source and lower in source and check in source
     found += [Mutant("saturation dropped", "upper", source.replace(upper, "", 1)),
               Mutant("saturation dropped", "lower", source.replace(lower, "", 1)),
-              Mutant("saturation dropped", "both", source.replace(upper + lower, "", 1))]
+              Mutant("saturation dropped", "both", source.replace(upper + lower, "", 1)),
+              Mutant("saturation dropped", "start check",
+                     source.replace(check, "    (void)low;\n    (void)high;\n    (void)saturated;\n", 1))]
     init = source.index(f"void {names.init}(")
     init_end = source.index("\n}\n", init)
     for m in re.finditer(r"state->(\w+) = INT16_C\((-?\d+)\);", source[init:init_end]):
@@ -286,8 +295,7 @@ def test_the_exhaustive_comparison_can_tell_a_difference(subject, tmp_path) -> N
     assert differs_on_box(built, files, init.source, tmp_path / "init", small) == "init"
 
 
-UNDEFINED_SHIFT = ("    return (int32_t)value * ((int32_t)1 << k);\n",
-                   "    return (int32_t)((int32_t)value << k);\n")
+UNDEFINED_SHIFT = ("(int32_t)v1 * 16", "((int32_t)v1 << 4)")  # every alignment of y
 
 
 def test_undefined_shift_that_passes_at_full_optimisation_is_caught(subject, tmp_path) -> None:

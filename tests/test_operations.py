@@ -52,6 +52,8 @@ def plan_op(name: str, args: tuple[int, ...], f_args: list[int], w: int, natural
     op = Op(name, args, real=None if real is None else float(real), wraps=wraps, note=name)
     if kind.constant_role == "added":  # an added constant's format holds its value
         natural = min(natural, w - 1 - integer_bits_for(abs(op.real)))
+    if name == "hold":  # a range well inside the word, so that the hold acts
+        op = replace(op, held=(-(1 << (w - 3)), (1 << (w - 4)) + 5))
     forced = w if wraps else kind.forced_bits(op, w, f_args)
     bits = forced if forced is not None else kind.first_bits(op, f_args, natural, w)
     bits = kind.settle_bits(op, bits, f_args, w)
@@ -66,6 +68,8 @@ def operand_shapes(name: str, w: int) -> list[tuple[tuple[int, ...], bool]]:
         return [((2,), False)]
     if kind.arity == 0:
         return [((), False)]
+    if name == "hold":  # holds a plain next state only
+        return [((0,), False)]
     plain = (0, 1)[:kind.arity]
     return [(plain, False), ((2, 2)[:kind.arity], True)]
 

@@ -20,7 +20,7 @@ from orbitfix.gen.c.naming import CNames, comment_text
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import SATURATION_COUNT_BITS, IntegerProgram, Op
-from orbitfix.gen.program.operations import KINDS, CSite, kind_of
+from orbitfix.gen.program.operations import KINDS, CSite, int_literal, kind_of
 from orbitfix.gen.safety import SAFETY_NOTE
 from orbitfix.gen.timing.integrators import Integrator
 from orbitfix.gen.timing.step_size import Timing
@@ -71,14 +71,6 @@ def environment() -> jinja2.Environment:
     )
     env.filters["split_lines"] = str.splitlines
     return env
-
-
-def int_literal(value: int, word_bits: int) -> str:
-    """A literal of the word type that is right on every compiler, the most negative value too."""
-    macro = f"INT{word_bits}_C"
-    if value == -(1 << (word_bits - 1)):
-        return f"(-{macro}({(1 << (word_bits - 1)) - 1}) - 1)"
-    return f"{macro}({value})"
 
 
 def render_model(model: Model, timing: Timing, integrator: Integrator,
@@ -159,9 +151,18 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "integrator": integrator,
         "plan": plan,
         "program": program,
-        "helpers": _helpers(program, ops, word_type, wide_type),
-        "needs_aligned": any(kind_of(op.kind).aligns for op in ops),
-        "uses_wrap": any(op.wraps for op in ops),
+        "helpers": _helpers(program, ops, names.prefix, word_type, wide_type),
+        "uses_wrap": any(op.wraps or op.proven for op in ops),
+        "uses_fit": any(kind_of(op.kind).c_helper is not None or
+                        (kind_of(op.kind).c_exact(op, _SITE) is not None and
+                         not kind_of(op.kind).fit_wraps(op)) for op in ops),
+        "uses_held": any(op.kind == "hold" for op in ops),
+        "uses_checked": any(op.kind == "state" and op.held for op in ops),
+        "held_ranges": [{"field": names.field(program.state_names[op.state]), "low": op.held[0],
+                         "high": op.held[1],
+                         "low_real": op.held[0] / 2.0 ** program.state_fraction_bits[op.state],
+                         "high_real": op.held[1] / 2.0 ** program.state_fraction_bits[op.state]}
+                        for op in program.ops if op.kind == "state" and op.held],
         "tables": tables,
         "word_type": word_type,
         "wide_type": wide_type,
@@ -197,21 +198,16 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     }
 
 
-def _helpers(program: IntegerProgram, ops: list[Op], word_type: str, wide_type: str) -> list[dict]:
-    """The C helper functions the step calls, once each: the program's own overflow family
-    first, then the angles' wrapping family, each in the registry's order. A helper whose result
-    the program clamps (``IntegerProgram.clamps``) takes the step's saturation flag."""
+def _helpers(program: IntegerProgram, ops: list[Op], prefix: str, word_type: str,
+             wide_type: str) -> list[dict]:
+    """The C helper functions of the kinds that compute a value whole (a table lookup), once
+    each, in the registry's order. A helper whose result the program clamps
+    (``IntegerProgram.clamps``) takes the step's saturation flag."""
     unsigned = f"uint{program.word_bits}_t"
-    used = {(kind_of(op.kind).c_helper, "turns" if op.wraps else "word"): program.clamps(op)
-            for op in ops}
-    helpers: dict[str, dict] = {}
-    for family, fitter in (("word", "fit_word"), ("turns", "wrap_word")):
-        for kind in KINDS.values():
-            helper = kind.c_helper
-            if helper is not None and (helper, family) in used:
-                helpers.setdefault(helper.function(family), helper.render(
-                    family, fitter, word_type, wide_type, unsigned, used[helper, family]))
-    return list(helpers.values())
+    used = {kind_of(op.kind).c_helper: program.clamps(op) for op in ops}
+    helpers = dict.fromkeys(kind.c_helper for kind in KINDS.values()
+                            if kind.c_helper is not None and kind.c_helper in used)
+    return [helper.render(prefix, word_type, wide_type, unsigned, used[helper]) for helper in helpers]
 
 
 def render_host_harness(model: Model, program: IntegerProgram) -> str:
@@ -294,15 +290,31 @@ def _constants(plan: FixedPointPlan, kept: set[int]) -> tuple[list[CConstant], d
 
 def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
                 symbol_of: dict[int, str]) -> dict:
-    site = CSite(args=tuple(f"v{i}" for i in op.args), family="turns" if op.wraps else "word",
-                 word_bits=program.word_bits, symbol=symbol_of.get(index, ""),
+    saturated = (", &saturated" if index in program.counted_clamps else
+                 ", &unkept" if program.clamps(op) else "")
+    site = CSite(args=tuple(f"v{i}" for i in op.args), word_bits=program.word_bits,
+                 wide=f"int{program.product_bits}_t", prefix=names.prefix,
+                 symbol=symbol_of.get(index, ""),
                  field=names.field(program.state_names[op.state]) if op.kind == "state" else "",
-                 saturated=(", &saturated" if index in program.counted_clamps else
-                            ", &unkept" if program.clamps(op) else ""))
+                 saturated=saturated)
     fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
-    return {"name": f"v{index}", "index": index, "expression": kind_of(op.kind).c_call(op, site),
-            "note": comment_text(f"{fmt}, {op.note}")}
+    kind = kind_of(op.kind)
+    exact = kind.c_exact(op, site)
+    if exact is None:
+        expression = kind.c_call(op, site)
+    else:
+        if op.shift:
+            exact = f"{names.macro_prefix}_ROUND_SHIFT({exact}, {op.shift})"
+        if kind.fit_wraps(op):  # an angle, or a result proven to fit
+            expression = f"{names.prefix}_wrap_word({exact})"
+        else:
+            expression = f"{names.prefix}_fit_word({exact}{saturated})"
+    why = ", proven to fit" if op.proven else ""
+    return {"name": f"v{index}", "index": index, "expression": expression,
+            "note": comment_text(f"{fmt}{why}, {op.note}")}
 
+
+_SITE = CSite(args=("a", "b"), word_bits=32)  # to ask a kind whether it has an exact C form
 
 ROUNDING_WORDS = {
     "truncate": "toward minus infinity (an arithmetic shift right)",

@@ -21,6 +21,7 @@ from orbitfix.gen.model.definition import Parameter
 from orbitfix.gen.program.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
 from orbitfix.gen.program.lowering import evaluate_real
 from orbitfix.gen.program.operations import constant_fraction_bits, kind_of
+from orbitfix.gen.program.proven_fit import prove_fits
 from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.program.ranges import interval_ranges, planning_box
 
@@ -254,14 +255,17 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
                                                               program.state_names, strict=True)))
     planned = replace(program, ops=tuple(ops), word_bits=word_bits, product_bits=2 * word_bits,
                       rounding=rounding, overflow=overflow, state_fraction_bits=tuple(formats))
+    box = tuple(zip(low.tolist(), high.tolist(), strict=True))
+    planned = prove_fits(planned, box)
+    holds = [op.args[0] for op in planned.ops[len(met):]]  # a held next state: its value's ranges
+    met, sure = (*met, *(met[i] for i in holds)), [*sure, *(sure[i] for i in holds)]
     state_met = [max(abs(met[i][0]), abs(met[i][1])) for i in states]
     worst = states[int(np.argmax(state_met))]
     return FixedPointPlan(signal_format=state_format, largest_signal=max(state_met),
                           largest_signal_note=program.ops[worst].note, margin=margin,
                           program=planned, constants=tuple(constants),
                           initial_state=initial_ints, warnings=tuple(warnings),
-                          signal_ranges=met, sure_bounds=tuple(sure),
-                          box=tuple(zip(low.tolist(), high.tolist(), strict=True)))
+                          signal_ranges=met, sure_bounds=tuple(sure), box=box)
 
 
 def start_points(initial: np.ndarray, runtime: tuple[Parameter, ...],

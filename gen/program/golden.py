@@ -94,6 +94,21 @@ class _Machine:
     def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray:
         return fit_word(exact, self.word_bits, self.program.fit_rule(wraps), self.saturated)
 
+    def hold(self, values: np.ndarray, low: int, high: int) -> np.ndarray:
+        """A copy of ``values`` held in [low, high]; a clamp that changes a value marks its step
+        saturated (like ``fit``'s)."""
+        number = values.dtype.type
+        if self.saturated is not None:
+            self.saturated |= (values < number(low)) | (values > number(high))
+        return np.minimum(np.maximum(values, number(low)), number(high))
+
+    def check(self, values: np.ndarray, low: int, high: int) -> np.ndarray:
+        """``values`` as they are; one outside [low, high] marks its step saturated."""
+        number = values.dtype.type
+        if self.saturated is not None:
+            self.saturated |= (values < number(low)) | (values > number(high))
+        return values
+
 
 def evaluate(program: IntegerProgram, states: np.ndarray,
              saturated: np.ndarray | None = None) -> list[np.ndarray]:

@@ -27,6 +27,13 @@ operation with ``wraps`` set brings its result into the word by wrapping, whatev
 ``overflow`` (that is how angles add up without ever losing precision). ``sin`` and ``cos`` read
 an angle through a table, after adding the operation's ``offset`` (a quarter turn for ``cos``).
 
+Proven fits and held states. The planner proves, by interval arithmetic on the integers
+(``gen/program/proven_fit.py``), which results can never leave the word for a state within a range
+per state: such an operation is ``proven`` and enters the word as it is, with no clamp. Each state
+of a ``saturate`` program then carries that range (``held``, lowest and highest integer): the step
+first holds the state in it, a clamp like any other (it counts). So no step, from any state, meets
+an unproven overflow; and a state outside the proven range is a saturated step.
+
 Saturated steps. A step is *saturated* when the clamp of step 3 changed at least one of the values
 the next state depends on (an exact result outside the word; ``IntegerProgram.counted_clamps``).
 Wrapping (angles, and every value of a ``wrap`` program) never counts, nor does a value the next
@@ -78,6 +85,8 @@ class Op:
     wraps: bool = False
     table: tuple[int, ...] = ()
     offset: int | None = None
+    held: tuple[int, ...] = ()
+    proven: bool = False
 
     def __post_init__(self) -> None:
         from orbitfix.gen.program.operations import kind_of  # numpy: not needed to read options
@@ -98,6 +107,10 @@ class Op:
             data["wraps"] = True
         if self.table:
             data["table"] = list(self.table)
+        if self.held:
+            data["held"] = list(self.held)
+        if self.proven:
+            data["proven"] = True
         if self.note:
             data["note"] = self.note
         return data
@@ -157,13 +170,16 @@ class IntegerProgram:
         return "wrap" if wraps else self.overflow
 
     def clamps(self, op: Op) -> bool:
-        """Whether ``op``'s result is clamped into the word, so that a clamp that changes it makes
-        the step saturated (its kind brings it into the word, see ``OperationKind.fit_wraps``,
-        and not by wrapping)."""
+        """Whether ``op``'s result is clamped, so that a clamp that changes it makes the step
+        saturated: a state held in its range (``held``), or a result brought into the word by a
+        clamp (its kind brings it into the word, see ``OperationKind.fit_wraps``, not by
+        wrapping) that is not ``proven`` to fit."""
         from orbitfix.gen.program.operations import kind_of
 
+        if op.held:
+            return True
         wraps = kind_of(op.kind).fit_wraps(op)
-        return wraps is not None and self.fit_rule(wraps) == "saturate"
+        return wraps is not None and not op.proven and self.fit_rule(wraps) == "saturate"
 
     @functools.cached_property
     def kept_values(self) -> frozenset[int]:

@@ -10,9 +10,9 @@ its own interval rule and the compiled C.
 Rounding and overflow are not a kind's business: the golden interpreter writes them once
 (``golden.round_shift``, ``golden.fit_word``) and the C once (``round_shift``, ``fit_word`` and
 ``wrap_word`` in the helpers template); a kind only says what exact result they apply to, and
-(``fit_wraps``) whether it brings that result into the word by wrapping. Whether a clamp makes the
-step saturated is the program's rule (``IntegerProgram.clamps``): a helper that clamps gets the
-step's flag (``CSite.saturated``) and sets it when its clamp changes the value.
+(``fit_wraps``) whether it brings that result into the word by wrapping. Whether a result is
+clamped is the program's rule (``IntegerProgram.clamps``: not when the planner proved it fits),
+and the C back end renders the rounding and the fit around a kind's exact C expression.
 """
 
 from __future__ import annotations
@@ -43,6 +43,10 @@ class Machine(Protocol):
 
     def state(self, index: int) -> np.ndarray: ...
 
+    def hold(self, values: np.ndarray, low: int, high: int) -> np.ndarray: ...  # marks a clamp
+
+    def check(self, values: np.ndarray, low: int, high: int) -> np.ndarray: ...  # marks, no clamp
+
     def round_shift(self, exact: np.ndarray, shift: int) -> np.ndarray: ...
 
     def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray: ...  # marks a clamp, see golden
@@ -50,52 +54,51 @@ class Machine(Protocol):
 
 @dataclass(frozen=True)
 class CHelper:
-    """A ``static inline`` C function that computes one kind of value.
+    """A ``static inline`` C function that computes one kind of value whole (rounding and fit
+    included), for a kind with no single C expression.
 
-    ``parameters``, ``prelude`` and ``exact`` are C text in which ``{word}``, ``{wide}`` and
-    ``{unsigned}`` stand for the word type, the product type and the unsigned word type. Unless
-    the helper is ``whole``, the template adds a parameter ``unsigned int shift`` and returns
-    the family's overflow rule of ``round_shift(exact, shift)``, so the helper's name gets the
-    family (``add_word``, ``add_turns``); a ``whole`` helper returns ``exact`` as it stands and
-    is the same for every family. A helper whose result is clamped (``counts``) gets a last
-    parameter ``unsigned int *saturated``, the step's flag, which the clamp sets; in a whole
-    helper's text ``{saturated}`` stands for the flag as the last argument of ``fit_word``.
+    ``parameters``, ``prelude`` and ``exact`` are C text in which ``{word}``, ``{wide}``,
+    ``{unsigned}``, ``{prefix}`` and ``{PREFIX}`` stand for the word type, the product type, the
+    unsigned word type and the model's C prefix (of functions, and of macros). A helper whose
+    result is clamped (``counts``) gets a last parameter ``unsigned int *saturated``, the step's
+    flag, which its clamp sets; ``{saturated}`` stands for the flag as the last argument of the
+    clamp.
     """
 
     name: str
     parameters: str
     exact: str
     prelude: tuple[str, ...] = ()
-    whole: bool = False
     comment: str = ""
 
-    def function(self, family: str) -> str:
-        return self.name if self.whole else f"{self.name}_{family}"
+    def function(self, prefix: str) -> str:
+        return f"{prefix}_{self.name}"
 
-    def render(self, family: str, fitter: str, word: str, wide: str, unsigned: str,
-               counts: bool = False) -> dict:
+    def render(self, prefix: str, word: str, wide: str, unsigned: str, counts: bool) -> dict:
         def fill(text: str) -> str:
-            return text.format(word=word, wide=wide, unsigned=unsigned,
-                               saturated=", saturated" if counts else "")
+            return text.format(word=word, wide=wide, unsigned=unsigned, prefix=prefix,
+                               PREFIX=prefix.upper(), saturated=", saturated" if counts else "")
 
-        return {"function": self.function(family), "parameters": fill(self.parameters),
+        return {"function": self.function(prefix), "parameters": fill(self.parameters),
                 "prelude": [fill(line) for line in self.prelude], "exact": fill(self.exact),
-                "whole": self.whole, "fitter": fitter, "comment": self.comment, "counts": counts}
+                "comment": self.comment, "counts": counts}
 
 
 @dataclass(frozen=True)
 class CSite:
     """What the C form of one operation may refer to.
 
-    args -- the C names of its arguments' values; family -- ``word`` (the program's overflow
-    rule) or ``turns`` (an angle: it wraps); field -- the state struct field a ``state`` reads;
-    symbol -- the C name of the operation's stored constant or table; saturated -- the last
-    argument of a helper whose result is clamped (``", &saturated"``, the step's flag), else "".
+    args -- the C names of its arguments' values; word_bits, wide -- the word size and the C
+    product type; prefix -- the model's C prefix (of every helper); field -- the state struct
+    field a ``state`` reads; symbol -- the C name of the operation's stored constant or table;
+    saturated -- the last argument of a helper whose result is clamped (``", &saturated"``, the
+    step's flag), else "".
     """
 
     args: tuple[str, ...]
-    family: str
     word_bits: int
+    wide: str = "int64_t"
+    prefix: str = "step"
     field: str = ""
     symbol: str = ""
     saturated: str = ""
@@ -127,14 +130,19 @@ class OperationKind:
        ``machine.fit`` (with ``fit_wraps``), never rules of its own. ``fit_wraps`` says how the
        result enters the word: by wrapping (True), by the program's overflow rule (False), or not
        at all (None: a load or a constant).
-    6. The C form: ``c_helper`` (the helper function, see ``CHelper``; None if the value needs
-       none) and ``c_call(op, site)``, the C expression of the value, ending with
-       ``site.saturated`` among a clamping helper's arguments.
+    6. The C form: ``c_exact(op, site)``, the exact result as a C expression of the product
+       type, around which the C back end writes the one rounding and the one fit; or, for a
+       kind with no such expression (a load, a constant, a table), ``c_call(op, site)``, the C
+       expression of the whole value, with ``c_helper`` the helper function it calls, if any.
+    7. ``exact_bounds(op, args, word_bits)``: sure integer bounds of the exact result (before
+       rounding) from sure integer bounds of the arguments' stored values, which the planner's
+       proof of fits (``gen/program/proven_fit.py``) reads.
     """
 
     name = ""
     arity = 0
     aligns = False
+    provable = True  # whether the planner may prove its result fits (and drop its clamp)
     constant_role: str | None = None  # "added" or "multiplier" for a kind with a stored constant
     c_helper: CHelper | None = None
 
@@ -163,14 +171,37 @@ class OperationKind:
         raise NotImplementedError
 
     def fit_wraps(self, op: Op) -> bool | None:
-        return op.wraps
+        return op.wraps or op.proven  # a proven result never leaves the word from a held state
 
     def golden(self, op: Op, args: list[np.ndarray], machine: Machine) -> np.ndarray:
         return machine.fit(machine.round_shift(self.exact(op, args, machine), op.shift),
                            self.fit_wraps(op))
 
+    def exact_bounds(self, op: Op, args: list[tuple[int, int]],
+                     word_bits: int) -> tuple[int, int]:
+        return self.interval(op, args, None)
+
+    def c_exact(self, op: Op, site: CSite) -> str | None:
+        return None
+
     def c_call(self, op: Op, site: CSite) -> str:
         raise NotImplementedError
+
+
+def int_literal(value: int, word_bits: int) -> str:
+    """A C literal of the word type that is right on every compiler, the most negative too."""
+    macro = f"INT{word_bits}_C"
+    if value == -(1 << (word_bits - 1)):
+        return f"(-{macro}({(1 << (word_bits - 1)) - 1}) - 1)"
+    return f"{macro}({value})"
+
+
+def c_widened(value: str, site: CSite, align: int = 0) -> str:
+    """A word value in the product type, times 2**align (exact: a multiplication, since a left
+    shift of a negative value is undefined in C)."""
+    if align == 0:
+        return f"({site.wide}){value}"
+    return f"({site.wide}){value} * {1 << align}"
 
 
 KINDS: dict[str, OperationKind] = {}
@@ -214,10 +245,61 @@ class State(OperationKind):
         return None
 
     def golden(self, op, args, machine):
+        if op.held:
+            return machine.check(machine.state(op.state), *op.held)
         return machine.state(op.state)
 
     def c_call(self, op, site):
+        if op.held:
+            low, high = (int_literal(v, site.word_bits) for v in op.held)
+            return f"{site.prefix}_checked(state->{site.field}, {low}, {high}{site.saturated})"
         return f"state->{site.field}"
+
+
+@register
+class Hold(OperationKind):
+    """The argument held in the range ``op.held`` (lowest, highest stored integer): the next
+    value of a state, kept where the planner proved the step's results fit (see
+    ``gen/program/proven_fit.py``). A clamp that changes it makes the step saturated."""
+
+    name = "hold"
+    arity = 1
+    provable = False
+
+    def real(self, op, args, states):
+        if not op.held or op.fraction_bits is None:
+            return args[0]
+        low, high = (v / 2.0**op.fraction_bits for v in op.held)
+        return np.minimum(np.maximum(args[0], low), high)
+
+    def interval(self, op, args, box):
+        if not op.held or op.fraction_bits is None:
+            return args[0]
+        low, high = (v / 2.0**op.fraction_bits for v in op.held)
+        return min(max(args[0][0], low), high), max(min(args[0][1], high), low)
+
+    def first_bits(self, op, f_args, natural, word_bits):
+        return f_args[0]
+
+    def settle_bits(self, op, bits, f_args, word_bits):
+        return f_args[0]
+
+    def fill(self, op, bits, f_args, word_bits):
+        return replace(op, shift=0)
+
+    def fit_wraps(self, op):
+        return None
+
+    def golden(self, op, args, machine):
+        return machine.hold(args[0], *op.held)
+
+    def exact_bounds(self, op, args, word_bits):
+        (low, high), (lowest, highest) = args[0], op.held
+        return min(max(low, lowest), highest), max(min(high, highest), lowest)
+
+    def c_call(self, op, site):
+        low, high = (int_literal(v, site.word_bits) for v in op.held)
+        return f"{site.prefix}_held({site.args[0]}, {low}, {high}{site.saturated})"
 
 
 @register
@@ -252,15 +334,14 @@ class Const(OperationKind):
     def golden(self, op, args, machine):
         return np.full(machine.batch, op.constant, dtype=machine.wide)
 
+    def exact_bounds(self, op, args, word_bits):
+        return op.constant, op.constant
+
     def c_call(self, op, site):
         return site.symbol
 
 
 # --- sums, extremes and sign -----------------------------------------------------------------
-
-_ALIGNED_PARAMETERS = "{word} a, unsigned int ka, {word} b, unsigned int kb"
-_ALIGNED_PRELUDE = ("const {wide} x = aligned(a, ka);", "const {wide} y = aligned(b, kb);")
-
 
 class Aligned(OperationKind):
     """Two arguments, each first multiplied by 2**op.align[i] (exact in the product width, since
@@ -284,10 +365,16 @@ class Aligned(OperationKind):
                 for v, k in zip(args, op.align, strict=True))
         return self.combine(x, y)
 
-    def c_call(self, op, site):
-        (a, b), (ka, kb) = site.args, op.align
-        return (f"{self.c_helper.function(site.family)}({a}, {ka}u, {b}, {kb}u, {op.shift}u"
-                f"{site.saturated})")
+    def c_combine(self, x: str, y: str) -> str:
+        raise NotImplementedError
+
+    def exact_bounds(self, op, args, word_bits):
+        return self.interval(op, [(lo << k, hi << k) for (lo, hi), k in
+                                  zip(args, op.align, strict=True)], None)
+
+    def c_exact(self, op, site):
+        return self.c_combine(*(c_widened(a, site, k) for a, k in
+                                zip(site.args, op.align, strict=True)))
 
 
 @register
@@ -295,7 +382,6 @@ class Add(Aligned):
     """The sum of the aligned arguments."""
 
     name = "add"
-    c_helper = CHelper("add", _ALIGNED_PARAMETERS, "aligned(a, ka) + aligned(b, kb)")
 
     def real(self, op, args, states):
         return args[0] + args[1]
@@ -306,13 +392,15 @@ class Add(Aligned):
     def combine(self, x, y):
         return np.add(x, y)
 
+    def c_combine(self, x, y):
+        return f"{x} + {y}"
+
 
 @register
 class Sub(Aligned):
     """The first aligned argument less the second."""
 
     name = "sub"
-    c_helper = CHelper("sub", _ALIGNED_PARAMETERS, "aligned(a, ka) - aligned(b, kb)")
 
     def real(self, op, args, states):
         return args[0] - args[1]
@@ -323,13 +411,15 @@ class Sub(Aligned):
     def combine(self, x, y):
         return np.subtract(x, y)
 
+    def c_combine(self, x, y):
+        return f"{x} - {y}"
+
 
 @register
 class Min(Aligned):
     """The smaller aligned argument."""
 
     name = "min"
-    c_helper = CHelper("min", _ALIGNED_PARAMETERS, "x < y ? x : y", _ALIGNED_PRELUDE)
 
     def real(self, op, args, states):
         return np.minimum(args[0], args[1])
@@ -340,13 +430,15 @@ class Min(Aligned):
     def combine(self, x, y):
         return np.minimum(x, y)
 
+    def c_combine(self, x, y):
+        return f"({x} < {y} ? {x} : {y})"
+
 
 @register
 class Max(Aligned):
     """The larger aligned argument."""
 
     name = "max"
-    c_helper = CHelper("max", _ALIGNED_PARAMETERS, "x > y ? x : y", _ALIGNED_PRELUDE)
 
     def real(self, op, args, states):
         return np.maximum(args[0], args[1])
@@ -356,6 +448,9 @@ class Max(Aligned):
 
     def combine(self, x, y):
         return np.maximum(x, y)
+
+    def c_combine(self, x, y):
+        return f"({x} > {y} ? {x} : {y})"
 
 
 class Unary(OperationKind):
@@ -372,8 +467,6 @@ class Unary(OperationKind):
     def fill(self, op, bits, f_args, word_bits):
         return replace(op, shift=f_args[0] - bits)
 
-    def c_call(self, op, site):
-        return f"{self.c_helper.function(site.family)}({site.args[0]}, {op.shift}u{site.saturated})"
 
 
 @register
@@ -381,7 +474,6 @@ class Neg(Unary):
     """The negated argument."""
 
     name = "neg"
-    c_helper = CHelper("neg", "{word} a", "-({wide})a")
 
     def real(self, op, args, states):
         return -args[0]
@@ -392,13 +484,15 @@ class Neg(Unary):
     def exact(self, op, args, machine):
         return np.negative(args[0])
 
+    def c_exact(self, op, site):
+        return f"-{c_widened(site.args[0], site)}"
+
 
 @register
 class Abs(Unary):
     """The argument's absolute value."""
 
     name = "abs"
-    c_helper = CHelper("abs", "{word} a", "a < 0 ? -({wide})a : ({wide})a")
 
     def real(self, op, args, states):
         return np.abs(args[0])
@@ -410,11 +504,12 @@ class Abs(Unary):
     def exact(self, op, args, machine):
         return np.abs(args[0])
 
+    def c_exact(self, op, site):
+        a = site.args[0]
+        return f"({a} < 0 ? -{c_widened(a, site)} : {c_widened(a, site)})"
+
 
 # --- products --------------------------------------------------------------------------------
-
-_PRODUCT = CHelper("mul", "{word} a, {word} b", "({wide})a * ({wide})b")
-
 
 @register
 class Mul(OperationKind):
@@ -422,8 +517,6 @@ class Mul(OperationKind):
 
     name = "mul"
     arity = 2
-    c_helper = _PRODUCT
-
     def real(self, op, args, states):
         return args[0] * args[1]
 
@@ -446,9 +539,9 @@ class Mul(OperationKind):
     def exact(self, op, args, machine):
         return np.multiply(args[0], args[1])
 
-    def c_call(self, op, site):
+    def c_exact(self, op, site):
         a, b = site.args
-        return f"{self.c_helper.function(site.family)}({a}, {b}, {op.shift}u{site.saturated})"
+        return f"{c_widened(a, site)} * {b}"
 
 
 @register
@@ -458,7 +551,6 @@ class Scale(OperationKind):
     name = "scale"
     arity = 1
     constant_role = "multiplier"
-    c_helper = _PRODUCT
 
     def real(self, op, args, states):
         return args[0] * op.real
@@ -483,22 +575,24 @@ class Scale(OperationKind):
     def exact(self, op, args, machine):
         return args[0] * machine.wide(op.constant)
 
-    def c_call(self, op, site):
-        return (f"{self.c_helper.function(site.family)}({site.args[0]}, {site.symbol}, "
-                f"{op.shift}u{site.saturated})")
+    def exact_bounds(self, op, args, word_bits):
+        corners = [args[0][0] * op.constant, args[0][1] * op.constant]
+        return min(corners), max(corners)
+
+    def c_exact(self, op, site):
+        return f"{c_widened(site.args[0], site)} * {site.symbol}"
 
 
 # --- sine and cosine of an angle in turns ----------------------------------------------------
 
 _SINE_LOOKUP = CHelper(
     "sine_lookup", "{word} angle, const {word} *table, unsigned int shift, {unsigned} offset",
-    "fit_word(low + round_shift(rise * ({wide})within, shift){saturated})",
+    "{prefix}_fit_word(low + {PREFIX}_ROUND_SHIFT(rise * ({wide})within, shift){saturated})",
     prelude=("const {unsigned} phase = ({unsigned})(({unsigned})angle + offset);",
              "const {unsigned} index = ({unsigned})(phase >> shift);",
              "const {unsigned} within = ({unsigned})(phase & ((({unsigned})1 << shift) - 1u));",
              "const {wide} low = table[index];",
              "const {wide} rise = ({wide})table[index + 1u] - low;"),
-    whole=True,
     comment="sin of an angle in turns (a word is one turn) plus offset, from a table of "
             "2^(word - shift) + 1 entries with linear interpolation. The phase is read as an "
             "unsigned word, so it wraps for free.")
@@ -511,6 +605,7 @@ class TableSine(OperationKind):
     shift): linear interpolation. The offset is ``turn_offset`` quantised to the word."""
 
     arity = 1
+    provable = False  # its helper rounds and clamps inside
     turn_offset = Fraction(0)
     function = staticmethod(np.sin)
     c_helper = _SINE_LOOKUP
@@ -542,9 +637,13 @@ class TableSine(OperationKind):
         return machine.fit(low + machine.round_shift((table[index + 1] - low) * within, op.shift),
                            self.fit_wraps(op))
 
+    def exact_bounds(self, op, args, word_bits):
+        return min(op.table), max(op.table)  # interpolation stays between two entries
+
     def c_call(self, op, site):
         offset = f"UINT{site.word_bits}_C({op.offset})" if op.offset else "0u"
-        return f"sine_lookup({site.args[0]}, {site.symbol}, {op.shift}u, {offset}{site.saturated})"
+        return (f"{self.c_helper.function(site.prefix)}({site.args[0]}, {site.symbol}, "
+                f"{op.shift}u, {offset}{site.saturated})")
 
 
 @register

@@ -50,6 +50,7 @@ from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.proven_fit import prove_fits
 from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.progress import tell
 from orbitfix.gen.study.section import section_for
@@ -357,9 +358,10 @@ def _constant_format(plan: FixedPointPlan, index: int) -> str:
 
 def _trimmed_plan(plan: FixedPointPlan, constants: dict[int, int]) -> FixedPointPlan:
     """``plan`` with new stored values for some constants: the program's operations and the
-    constants' table both (formats, shifts and real values unchanged)."""
+    constants' table both (formats, shifts and real values unchanged), its fits proved again."""
     ops = tuple(replace(op, constant=constants[i]) if i in constants else op
                 for i, op in enumerate(plan.program.ops))
     reports = tuple(replace(c, stored=constants[c.index]) if c.index in constants else c
                     for c in plan.constants)
-    return replace(plan, program=replace(plan.program, ops=ops), constants=reports)
+    program = prove_fits(replace(plan.program, ops=ops), plan.box)
+    return replace(plan, program=program, constants=reports)

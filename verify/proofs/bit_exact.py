@@ -33,6 +33,7 @@ from orbitfix.gen.program.integer_program import (
     IntegerProgram,
     next_saturation_count,
 )
+from orbitfix.gen.program.proven_fit import range_corners_and_samples, refuted_fits
 from orbitfix.gen.progress import tell
 from orbitfix.verify.targets.host_build import HostModule
 
@@ -212,6 +213,8 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
         report.setters_checked, report.ramp_steps, report.first_mismatch = _check_ramps(
             program, host, ramps, locator)
     report.seconds["init_and_setters"] = time.perf_counter() - started
+    if report.first_mismatch is None:
+        report.first_mismatch = _check_proven_fits(program, min(states, 1 << 16), seed)
     if report.first_mismatch is not None:
         return report
     started = time.perf_counter()
@@ -263,6 +266,27 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
         report.trajectory_saturated_steps = count
     report.seconds["trajectory"] = time.perf_counter() - started
     return report
+
+
+def _check_proven_fits(program: IntegerProgram, count: int, seed: int) -> Mismatch | None:
+    """The plan's proofs of fits against golden: no value marked proven may leave the word from
+    a state in the proven ranges (random states and the ranges' corners). C and golden agree on
+    a wrong proof (both wrap), so this is its own check."""
+    states = range_corners_and_samples(program, count, np.random.default_rng(seed))
+    refuted = refuted_fits(program, states)
+    if not refuted:
+        return None
+    index, column = refuted[0]
+    before = states[:, column]
+    wrapped = golden.evaluate(program, before.reshape(-1, 1))[index][0]
+    op = program.ops[index]
+    return Mismatch(part="proven fits", step=0, state_before=[int(v) for v in before],
+                    expected=[], got=[int(wrapped)],
+                    operation={"index": index, "kind": op.kind, "note": op.note},
+                    units=state_units(program),
+                    reason=f"value {index} ({op.kind}, {op.note}) is marked proven to fit, yet from "
+                           "this state within the proven ranges it leaves the word: the program "
+                           "is wrong; regenerate the C with this version of orbitfix")
 
 
 def _check_init(program: IntegerProgram, host: HostModule, initial: np.ndarray) -> Mismatch | None:
