@@ -90,16 +90,16 @@ def mismatches(page: str, data: dict) -> list[str]:
 
 
 @pytest.fixture(scope="module")
-def vanderpol_report(tmp_path_factory) -> tuple[dict, str, int]:
+def vanderpol_report(tmp_path_factory) -> tuple:
     folder = tmp_path_factory.mktemp("report")
-    code = main(["report", "vanderpol", "-o", str(folder), *SMALL])
+    code = main(["report", "vanderpol", "-o", str(folder), *SMALL, "--junit", str(folder / "checks.xml")])
     data = json.loads((folder / "report.json").read_text())
-    return data, (folder / "report.html").read_text(encoding="utf-8"), code
+    return data, (folder / "report.html").read_text(encoding="utf-8"), code, folder
 
 
 @pytest.mark.slow
 def test_the_page_shows_the_json_numbers(vanderpol_report) -> None:
-    data, page, code = vanderpol_report
+    data, page, code, _ = vanderpol_report
     assert code == 0 and data["ok"] and data["verb"] == "report"
     shown = dict(tagged_numbers(page))
     assert len(shown) > 150
@@ -123,8 +123,21 @@ def test_the_page_shows_the_json_numbers(vanderpol_report) -> None:
 
 
 @pytest.mark.slow
+def test_report_with_junit_writes_verifys_cases(vanderpol_report) -> None:
+    import xml.etree.ElementTree as ElementTree
+
+    data, _, _, folder = vanderpol_report
+    suite = ElementTree.parse(folder / "checks.xml").getroot().find("testsuite")
+    names = [case.get("name") for case in suite.findall("testcase")]
+    assert suite.get("name") == "orbitfix report vanderpol" and suite.get("failures") == "0"
+    assert "bit-exact on the host" in names
+    assert [n for n in names if n.startswith("drift from ")] == [
+        f"drift from {run['start']}" for run in data["drift"]["runs"]]
+
+
+@pytest.mark.slow
 def test_a_changed_number_on_the_page_is_caught(vanderpol_report) -> None:
-    data, page, _ = vanderpol_report
+    data, page, _, _ = vanderpol_report
     period = data["analysis"]["cycle"]["period"]
     tag = f'<span data-json="analysis.cycle.period">{period:.10g}</span>'
     assert tag in page
@@ -137,7 +150,7 @@ def test_a_changed_number_on_the_page_is_caught(vanderpol_report) -> None:
 def test_the_reported_period_is_scipys(vanderpol_report) -> None:
     """The period of the report's JSON against the period measured with scipy's DOP853 on the Van
     der Pol equations (mu = 1): the time between upward crossings of x = 0 after the transient."""
-    data, _, _ = vanderpol_report
+    data, _, _, _ = vanderpol_report
     mu = data["analysis"]["params"]["mu"]
 
     def field(_t: float, s: np.ndarray) -> list[float]:
@@ -153,7 +166,7 @@ def test_the_reported_period_is_scipys(vanderpol_report) -> None:
 
 @pytest.mark.slow
 def test_the_page_holds_no_http_and_needs_nothing_from_elsewhere(vanderpol_report) -> None:
-    _, page, _ = vanderpol_report
+    _, page, _, _ = vanderpol_report
     assert "http" not in page.lower()
     assert "<script" not in page and "<link" not in page and "@import" not in page
     assert "src=" not in page
@@ -168,7 +181,7 @@ def test_every_plot_axis_names_its_unit(vanderpol_report) -> None:
     from orbitfix.gen.study.side_by_side import run_side_by_side
     from orbitfix.verify.report.plots import report_plots, svg_text
 
-    _, page, _ = vanderpol_report
+    _, page, _, _ = vanderpol_report
     built = design(load_model("vanderpol"))
     side = run_side_by_side(built, cycles=2.5)
     plots = report_plots(side, built.analysis.cycle.samples)
@@ -368,7 +381,7 @@ def test_chromium_opens_the_page_without_console_errors(vanderpol_report, tmp_pa
     browser = _chromium()
     if browser is None:
         pytest.skip("Debian's chromium is not installed (CI installs it)")
-    _, page, _ = vanderpol_report
+    _, page, _, _ = vanderpol_report
     page_path = tmp_path / "report.html"
     page_path.write_text(page, encoding="utf-8")
     shot = tmp_path / "shot.png"
