@@ -73,7 +73,8 @@ def test_one_word_for_one_idea_on_every_verb() -> None:
     for verb in VERBS:
         assert "--json" in names[verb]
     # report runs verify's checks under verify's options, and writes where gen writes: -o/--output
-    assert names["report"] == (names["verify"] - {"--report"}) | {"-o", "--output"}
+    assert names["report"] == (names["verify"] - {"--report"}) | {"-o", "--output", "--board",
+                                                                  "--board-steps"}
     assert {"-o", "--output"} <= names["gen"] and "--report" in names["verify"] & names["board"]
 
 

@@ -346,6 +346,34 @@ def test_board_on_the_host_reports_its_run_and_costs(tmp_path, capsys) -> None:
     assert "Board host" in page and mismatches(page, data) == [] and "http" not in page
 
 
+@pytest.mark.slow
+def test_report_streams_on_each_board_and_reports_it(tmp_path, capsys) -> None:
+    import xml.etree.ElementTree as ElementTree
+
+    folder = tmp_path / "report"
+    code = main(["report", "vanderpol", "-o", str(folder), "--skip-drift", *SMALL, "--board", "host",
+                 "--board-steps", "2000", "--junit", str(folder / "checks.xml")])
+    capsys.readouterr()
+    assert code == 0
+    data = json.loads((folder / "report.json").read_text())
+    page = (folder / "report.html").read_text()
+    (run,) = data["boards"]
+    assert run["board"] == "host" and run["ok"] and run["steps_compared"] == 2000
+    shown = dict(tagged_numbers(page))
+    assert shown["boards.0.steps_compared"] == "2000" and "boards.0.cost.per_step" in shown
+    assert "Board host" in page and mismatches(page, data) == []
+    cases = [c.get("name") for c in ElementTree.parse(folder / "checks.xml").getroot().iter("testcase")]
+    assert "bit-exact on the host" in cases and "bit-exact stream on host" in cases
+
+
+@pytest.mark.parametrize("board, why", [("nucleo-f401re", "real board"), ("no_such_board", "no_such_board")])
+def test_report_refuses_a_board_it_cannot_start_before_any_work(tmp_path, capsys, board, why) -> None:
+    err = refused(["report", "vanderpol", "-o", str(tmp_path / "out"), "--board", board], capsys)
+    assert why in err
+    data = json.loads((tmp_path / "out" / "report.json").read_text())
+    assert "analysis" not in data and why in data["error"]  # refused before the analysis ran
+
+
 # --- headless Chromium --------------------------------------------------------------------------
 
 def _chromium() -> str | None:

@@ -8,6 +8,7 @@ certificate); 2 bad input.
 from __future__ import annotations
 
 import argparse
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -86,8 +87,11 @@ def add_verify_arguments(parser: argparse.ArgumentParser) -> None:
     add_junit_option(parser)
 
 
-def run(args: argparse.Namespace, partial: dict) -> int:
-    """Run the proofs in order; each later one only on C that is bit-exact."""
+def run(args: argparse.Namespace, partial: dict, boards: Callable[[Any, dict], tuple[bool, list[str]]]
+        | None = None) -> int:
+    """Run the proofs in order; each later one only on C that is bit-exact. ``boards`` (the
+    ``report`` verb's --board): called with the design and ``partial`` after the host proofs, it
+    streams on each board and returns (all bit-exact, text lines)."""
     box = parse_box(args.box) or None  # checked before any work
     ready_report_folder(args)
     starts = tuple(parse_start(item) for item in args.start)
@@ -178,6 +182,12 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         partial["certificate"] = certificate_json(certificate)
     passed = (bit_exact and start.ok and landed is None and (drift is None or drift.verdict == "pass")
               and (certificate is None or certificate.proved))
+    streamed: list[str] = []
+    if boards is not None and bit_exact:
+        on_boards, streamed = boards(built, partial)
+        passed = passed and on_boards
+    elif boards is not None:
+        streamed = ["board runs: not run, since the C is not bit-exact on the host"]
     if args.json:
         print(json_text(passed, {**partial, "caution": CAUTION}))
         return 0 if passed else 1
@@ -189,6 +199,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         lines.append("long-run drift test: not run, since the C is not bit-exact")
     if certificate is not None:
         lines += ["", *certificate_lines(certificate)]
+    if streamed:
+        lines += ["", *streamed]
     print("\n".join(lines))
     print(CAUTION)
     return 0 if passed else 1

@@ -461,37 +461,45 @@ def _certificate(page: Page) -> None:
 
 
 def _board(page: Page) -> None:
-    if page.get("verb") != "board" or not page.has("board"):
-        return
-    board = page.get("board")
+    """The board verb's run (its fields at the top of the JSON), or each run of report --board
+    (``boards.N``)."""
+    if page.get("verb") == "board" and page.has("board"):
+        _board_run(page, "")
+    for i in range(len(page.get("boards") or [])):
+        _board_run(page, f"boards.{i}.")
+
+
+def _board_run(page: Page, at: str) -> None:
+    board = page.get(at + "board")
     page.add(f"<h2>Board {esc(board)}</h2>")
-    if page.has("bit_exact"):
+    if page.has(at + "bit_exact"):
         page.add("<h3>Bit-exact results per layer</h3>")
-        verdict = "bit-exact" if page.get("bit_exact") else "NOT bit-exact"
-        if page.get("bit_exact") and not page.get("ok"):
+        verdict = "bit-exact" if page.get(at + "bit_exact") else "NOT bit-exact"
+        if page.get(at + "bit_exact") and not page.get(at + "ok"):
             verdict += " on what arrived, but the run did not pass"
         page.table(["layers compared", "what", "result"],
                    [[f"golden (L2) against the C on {esc(board)} (L4)",
-                     f"{page.val('states_compared')} states covering {page.val('steps_compared')} of "
-                     f"{page.val('steps')} steps", verdict]])
-        if page.has("link_failure"):
-            page.para(f"link failed: {page.val('link_failure')}")
-        if page.has("selftest"):
-            passed = page.get("selftest") == 0
+                     f"{page.val(at + 'states_compared')} states covering "
+                     f"{page.val(at + 'steps_compared')} of {page.val(at + 'steps')} steps", verdict]])
+        if page.has(at + "link_failure"):
+            page.para(f"link failed: {page.val(at + 'link_failure')}")
+        if page.has(at + "selftest"):
+            passed = page.get(at + "selftest") == 0
             page.para("self-test on the board: " + ("passed" if passed else "FAILED at check ")
-                      + ("" if passed else page.val("selftest")))
-        _mismatch(page, "first_mismatch")
+                      + ("" if passed else page.val(at + "selftest")))
+        _mismatch(page, at + "first_mismatch")
     rows = []
-    for key in page.get("size") or {}:
-        if page.has(f"size.{key}"):
-            rows.append((f"image {key} (bytes)", page.val(f"size.{key}")))
-    if page.has("cost.per_step"):
-        unit = page.get("cost.unit", "")
-        rows += [(f"cost of one step ({unit})", page.val("cost.per_step")),
-                 (f"least ({unit})", page.val("cost.least")), (f"most ({unit})", page.val("cost.most")),
-                 ("how measured", page.val("cost.method"))]
-    if page.has("throughput.samples_per_second"):
-        rows.append(("states per second over the link", page.val("throughput.samples_per_second")))
+    for key in page.get(at + "size") or {}:
+        if page.has(f"{at}size.{key}"):
+            rows.append((f"image {key} (bytes)", page.val(f"{at}size.{key}")))
+    if page.has(at + "cost.per_step"):
+        unit = page.get(at + "cost.unit", "")
+        rows += [(f"cost of one step ({unit})", page.val(at + "cost.per_step")),
+                 (f"least ({unit})", page.val(at + "cost.least")),
+                 (f"most ({unit})", page.val(at + "cost.most")),
+                 ("how measured", page.val(at + "cost.method"))]
+    if page.has(at + "throughput.samples_per_second"):
+        rows.append(("states per second over the link", page.val(at + "throughput.samples_per_second")))
     if rows:
         page.add("<h3>Costs and sizes</h3>")
         page.pairs(rows)
