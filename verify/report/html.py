@@ -12,6 +12,7 @@ from __future__ import annotations
 import html
 import json
 import math
+import re
 from collections.abc import Sequence
 from typing import Any
 
@@ -99,8 +100,19 @@ class Page:
         self.add(f"<table><thead><tr>{cells}</tr></thead><tbody>{''.join(body)}</tbody></table>")
 
     def pairs(self, rows: list[tuple[str, str]]) -> None:
-        """A two-column table of what and value."""
-        self.table(["what", "value"], [[html.escape(k), v] for k, v in rows], numeric=(1,))
+        """A two-column table of what and value; a value that is a number aligns right."""
+        right = ' class="n"'
+        cells = "".join(f"<tr><td>{html.escape(k)}</td><td{right if _is_number(v) else ''}>{v}</td></tr>"
+                        for k, v in rows)
+        self.add(f"<table><thead><tr><th>what</th><th>value</th></tr></thead><tbody>{cells}</tbody></table>")
+
+
+def _is_number(cell: str) -> bool:
+    try:
+        float(re.sub(r"<[^>]*>", "", cell))
+    except ValueError:
+        return False
+    return True
 
 
 def esc(value: Any) -> str:
