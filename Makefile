@@ -21,7 +21,7 @@ $(STAMP): pyproject.toml
 demo: $(STAMP)
 	$(BIN)/orbitfix check vanderpol
 	$(BIN)/orbitfix gen vanderpol -o $(DEMO_DIR)
-	$(BIN)/orbitfix verify vanderpol
+	$(BIN)/orbitfix verify vanderpol --report $(DEMO_DIR)/report
 
 # On every core, a test file to a worker (its module fixtures are made once); the slowest tests
 # are listed at the end, to keep the suite's time in view.

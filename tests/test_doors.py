@@ -31,7 +31,7 @@ from orbitfix.verify.report.numbers import to_tolerance
 from orbitfix.verify.report.progress_bar import ProgressBar, bar_line, terminal_bar
 
 ROOT = Path(__file__).resolve().parents[1]
-VERBS = ("check", "gen", "verify", "plan", "sweep", "basin", "models", "boards", "board")
+VERBS = ("check", "gen", "verify", "report", "plan", "sweep", "basin", "models", "boards", "board")
 
 
 def run(capsys: pytest.CaptureFixture, *argv: str) -> tuple[int, str, str]:
@@ -72,6 +72,10 @@ def test_one_word_for_one_idea_on_every_verb() -> None:
     assert fixed <= names["gen"] & names["verify"] & names["plan"]
     for verb in VERBS:
         assert "--json" in names[verb]
+    # report runs verify's checks under verify's options, and writes where gen writes: -o/--output
+    assert names["report"] == (names["verify"] - {"--report"}) | {"-o", "--output", "--board",
+                                                                  "--board-steps"}
+    assert {"-o", "--output"} <= names["gen"] and "--report" in names["verify"] & names["board"]
 
 
 def test_the_period_error_help_states_the_sign() -> None:

@@ -14,8 +14,11 @@ from orbitfix.verify.cli.options import (
     add_fixed_point_options,
     add_junit_option,
     add_model_arguments,
+    add_report_option,
+    keep,
     model_from_args,
     number,
+    ready_report_folder,
 )
 
 TIMEOUT = number(0.05)
@@ -46,6 +49,7 @@ def register(verbs: Any) -> None:
                              "a run that cannot finish is saved in the cache folder anyway")
     add_fixed_point_options(parser)
     add_junit_option(parser)
+    add_report_option(parser)
     parser.set_defaults(handler=run)
 
 
@@ -74,6 +78,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
 
     if args.timeout > 600:
         raise InputError("--timeout: give between 0.05 and 600 seconds")
+    ready_report_folder(args)
     faults = parse_faults(args.faults) if args.faults else None
     profile = load_profile(args.board)
     if args.port is None and not profile.tools_installed():
@@ -82,6 +87,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     model = model_from_args(args)
     partial.update({"model": model.name, "board": profile.name})
     built = design(model)
+    keep(args, design=built)
     partial["program_fingerprint"] = built.plan.program.fingerprint()
     if args.port is None and profile.kind == "real":
         _refuse_without_port(built, profile, partial)

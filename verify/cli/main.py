@@ -19,9 +19,9 @@ from typing import Any, NoReturn
 
 from orbitfix.gen import __version__
 from orbitfix.gen.errors import OrbitfixError
-from orbitfix.verify.cli import basin, board, boards, check, gen, models, plan, sweep, verify
+from orbitfix.verify.cli import basin, board, boards, check, gen, models, plan, report, sweep, verify
 
-VERBS: tuple = (check, gen, verify, plan, sweep, basin, models, boards, board)
+VERBS: tuple = (check, gen, verify, report, plan, sweep, basin, models, boards, board)
 
 
 class UsageError(Exception):
@@ -47,6 +47,7 @@ def main(argv: list[str] | None = None) -> int:
     except SystemExit as exc:  # --help and --version print, then exit 0
         return exc.code if isinstance(exc.code, int) else 0
     partial: dict[str, Any] = {}
+    args.computed = {}
     from orbitfix.gen.progress import reporting
     from orbitfix.verify.report.progress_bar import ClearingStream, terminal_bar
 
@@ -58,12 +59,15 @@ def main(argv: list[str] | None = None) -> int:
             else:
                 with contextlib.redirect_stdout(ClearingStream(sys.stdout, bar)):
                     code = args.handler(args, partial)
-        return _junit(args, partial, None, code)
+        code = _junit(args, partial, None, code)
+        if bar is not None:
+            bar.close()  # the report is written after the bar's last line
+        return _report(args, partial, None, code)
     except OrbitfixError as exc:
         if bar is not None:
             bar.close()
             bar = None
-        return _junit(args, partial, exc, _fail(args, partial, exc))
+        return _report(args, partial, exc, _junit(args, partial, exc, _fail(args, partial, exc)))
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
@@ -90,6 +94,31 @@ def _junit(args: argparse.Namespace, partial: dict, exc: OrbitfixError | None, c
     except OrbitfixError as failed:
         print(f"orbitfix {args.verb}: {failed}", file=sys.stderr)
         return max(code, 2)
+    return code
+
+
+def _report(args: argparse.Namespace, partial: dict, exc: OrbitfixError | None, code: int) -> int:
+    """With --report DIR (or report's -o DIR), write report.json and report.html (after a failure
+    too, from what was computed); returns the exit code, 2 if the folder cannot be written."""
+    folder = getattr(args, "report", None)
+    if folder is None:
+        return code
+    from orbitfix.gen.pipeline import NoStableCycleError
+    from orbitfix.verify.report.report_folder import ReportFolderError, write_report
+
+    if isinstance(exc, ReportFolderError):
+        return code  # already said why; nothing can be written there
+    if isinstance(exc, NoStableCycleError):
+        args.computed.setdefault("analysis", exc.analysis)
+    data = {"model": getattr(args, "model", "?"), **partial}
+    try:
+        paths = write_report(folder, args.verb, data, args.computed, None if exc is None else str(exc),
+                             code)
+    except OrbitfixError as failed:
+        print(f"orbitfix {args.verb}: {failed}", file=sys.stderr)
+        return max(code, 2)
+    if not getattr(args, "json", False):
+        print(f"report written: {paths[1]} (its data: {paths[0]})")
     return code
 
 

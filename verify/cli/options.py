@@ -123,6 +123,27 @@ def add_junit_option(parser: argparse.ArgumentParser) -> None:
                              "systems (written when the run fails or stops too)")
 
 
+def add_report_option(parser: argparse.ArgumentParser) -> None:
+    """``--report DIR``: also write report.html and report.json into DIR (see main.py)."""
+    parser.add_argument("--report", type=Path, metavar="DIR",
+                        help="also write DIR/report.html (one self-contained page with plots) and "
+                             "DIR/report.json (written when the run fails or stops too)")
+
+
+def keep(args: argparse.Namespace, **computed: object) -> None:
+    """Keep what a verb computed (the design, the start-up path) for the report written after it
+    (main.py), beside the JSON fields it gathers in ``partial``."""
+    vars(args).setdefault("computed", {}).update(computed)
+
+
+def ready_report_folder(args: argparse.Namespace) -> None:
+    """With --report (or report's -o), check the folder can be written before any work starts."""
+    if getattr(args, "report", None) is not None:
+        from orbitfix.verify.report.report_folder import ready_folder
+
+        ready_folder(args.report)
+
+
 def model_from_args(args: argparse.Namespace) -> Model:
     """Load the model named on the command line, with --set and the fixed-point options applied."""
     from orbitfix.gen.model.model_file import load_model

@@ -8,6 +8,7 @@ certificate); 2 bad input.
 from __future__ import annotations
 
 import argparse
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -19,10 +20,13 @@ from orbitfix.verify.cli.options import (
     add_fixed_point_options,
     add_junit_option,
     add_model_arguments,
+    add_report_option,
     add_trim_option,
+    keep,
     model_from_args,
     name_and_value,
     parse_box,
+    ready_report_folder,
     whole,
 )
 
@@ -37,6 +41,13 @@ def register(verbs: Any) -> None:
     """Add the ``verify`` verb to the command line."""
     parser = verbs.add_parser("verify", help="prove the C bit-exact against the golden model, and "
                                              "its long-run drift within tolerance")
+    add_verify_arguments(parser)
+    add_report_option(parser)
+    parser.set_defaults(handler=run)
+
+
+def add_verify_arguments(parser: argparse.ArgumentParser) -> None:
+    """Every argument of ``verify`` but --report (``report`` takes them all, with -o DIR)."""
     add_model_arguments(parser)
     add_fixed_point_options(parser)
     add_trim_option(parser, "verifies the trimmed design (give the same --trim to gen for "
@@ -74,12 +85,15 @@ def register(verbs: Any) -> None:
     proof.add_argument("--exclude-radius", type=NOT_NEGATIVE, default=0.0, metavar="R",
                        help="leave out states this close to an equilibrium (normalised units)")
     add_junit_option(parser)
-    parser.set_defaults(handler=run)
 
 
-def run(args: argparse.Namespace, partial: dict) -> int:
-    """Run the proofs in order; each later one only on C that is bit-exact."""
+def run(args: argparse.Namespace, partial: dict, boards: Callable[[Any, dict], tuple[bool, list[str]]]
+        | None = None) -> int:
+    """Run the proofs in order; each later one only on C that is bit-exact. ``boards`` (the
+    ``report`` verb's --board): called with the design and ``partial`` after the host proofs, it
+    streams on each board and returns (all bit-exact, text lines)."""
     box = parse_box(args.box) or None  # checked before any work
+    ready_report_folder(args)
     starts = tuple(parse_start(item) for item in args.start)
     if args.sources is not None and not args.sources.is_dir():
         raise InputError(f"--sources '{args.sources}' is not a folder: give the folder gen wrote "
@@ -130,6 +144,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         built, trim = trim_design(built)
         partial["trim"] = trim_json(trim)
     partial.update(design_json(built))
+    keep(args, design=built)
     # Sized now, so work beyond the machine is refused before any proof starts.
     program = built.plan.program
     refuse_beyond_machine(bit_exact_work(len(program.ops), len(program.state_names), args.states,
@@ -143,6 +158,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
                                  phase_drift_cycles=args.max_phase_drift,
                                  return_spread=args.max_return_spread / 100)
     start = check_start_path(built)  # the integer map itself, from the initial state (L2 vs L1)
+    keep(args, start_path=start)
     zones = dead_zones(built)
     landed = path_lands_inside(built, zones, start.steps)
     partial.update({"start_path": start.to_json(), "dead_zones": dead_zone_json(zones),
@@ -166,6 +182,12 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         partial["certificate"] = certificate_json(certificate)
     passed = (bit_exact and start.ok and landed is None and (drift is None or drift.verdict == "pass")
               and (certificate is None or certificate.proved))
+    streamed: list[str] = []
+    if boards is not None and bit_exact:
+        on_boards, streamed = boards(built, partial)
+        passed = passed and on_boards
+    elif boards is not None:
+        streamed = ["board runs: not run, since the C is not bit-exact on the host"]
     if args.json:
         print(json_text(passed, {**partial, "caution": CAUTION}))
         return 0 if passed else 1
@@ -177,6 +199,8 @@ def run(args: argparse.Namespace, partial: dict) -> int:
         lines.append("long-run drift test: not run, since the C is not bit-exact")
     if certificate is not None:
         lines += ["", *certificate_lines(certificate)]
+    if streamed:
+        lines += ["", *streamed]
     print("\n".join(lines))
     print(CAUTION)
     return 0 if passed else 1

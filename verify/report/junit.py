@@ -110,7 +110,12 @@ def _mismatch_text(mismatch: dict | None) -> str:
 def junit_text(verb: str, data: dict, error: str | None = None) -> str:
     """The JUnit XML of one ``verify`` or ``board`` run; ``error`` is the message of an error that
     stopped it (a test case of its own, so CI shows why the run ended)."""
-    cases = verify_cases(data) if verb == "verify" else board_cases(data)
+    if verb == "board":
+        cases = board_cases(data)
+    else:  # report runs verify's checks, and streams on each board of --board
+        cases = verify_cases(data)
+        for run in data.get("boards") or []:
+            cases += board_cases(run)
     if error is not None:
         cases.append(Case(f"orbitfix {verb} ran to the end", "error", error))
     model = data.get("model", "?")
