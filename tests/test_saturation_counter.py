@@ -203,7 +203,7 @@ def test_clamps_of_values_the_step_does_not_keep_are_not_counted_in_either_step(
 
     built = design(load_model("phase_amplitude"))
     program = replace(built.plan.program, ops=tuple(replace(op, proven=False)
-                                                    for op in built.plan.program.ops))
+                                                    for op in built.plan.program.ops))  # clamps back
     built = replace(built, plan=replace(built.plan, program=program))
     unkept = [i for i, op in enumerate(program.ops)
               if i not in program.kept_values and program.clamps(op)]

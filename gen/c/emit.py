@@ -10,7 +10,7 @@ intermediate value), which host builds add and firmware never ships.
 from __future__ import annotations
 
 import importlib
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import jinja2
@@ -352,8 +352,17 @@ def _sum_in_the_word(op: Op, site: CSite, program: IntegerProgram,
         if not fits(low, high + (1 << (shift - 1) if program.rounding == "half-up" else 0)):
             return None
         terms.append(f"{names.macro_prefix}_ROUND_SHIFT({value}, {shift}, {site.word})")
-    if rounded > 1:
-        return None
+    if rounded > 1:  # both rounded: the whole exact sum in the word, when it fits with the half
+        low, high = kind_of(op.kind).exact_bounds(op, [bounds[a] for a in op.args],
+                                                  program.word_bits)
+        half = 1 << (op.shift - 1) if program.rounding == "half-up" else 0
+        aligned = [bounds[a][i] << k for a, k in zip(op.args, op.align, strict=True)
+                   for i in (0, 1)]
+        if not (fits(low, high + half) and fits(min(aligned), max(aligned))):
+            return None
+        exact = kind_of(op.kind).c_exact(op, replace(site, wide=site.word))
+        return (f"({site.word}){names.macro_prefix}_ROUND_SHIFT({exact}, {op.shift}, "
+                f"{site.word})")
     return f"({site.word})({terms[0]}{' - ' if subtract else ' + '}{terms[1]})"
 
 

@@ -73,6 +73,28 @@ def _terms(step: float, weights: tuple[Fraction, ...], slopes: list[list[int]], 
 TURN = Fraction(angles.TURN)  # radians in a turn (as the float nearest 2 pi)
 
 
+def _factored(terms: list[tuple[Fraction, int, str]],
+              ) -> tuple[Fraction, list[tuple[int, list[int]]], str, str] | None:
+    """(unit, [(multiple, values)], the unit's name, the sum's name) when two or more weights
+    are whole multiples of the smallest, all of one sign; None otherwise."""
+    if len(terms) < 2:
+        return None
+    unit = min((w for w, _, _ in terms), key=abs)
+    multiples = [w / unit for w, _, _ in terms]
+    if any(m.denominator != 1 or m < 1 for m in multiples):
+        return None
+    groups: dict[int, list[int]] = {}
+    parts = []
+    coefficient = "the smallest weight"
+    for m, (_, value, label) in zip(multiples, terms, strict=True):
+        groups.setdefault(int(m), []).append(value)
+        weight, _, what = label.rpartition(" times ")  # "h*1/6 times slope 1 of x"
+        if m == 1 and weight:
+            coefficient = weight
+        parts.append(what if m == 1 else f"{int(m)} {what}")
+    return unit, sorted(groups.items()), coefficient, "(" + " + ".join(parts) + ")"
+
+
 class _Builder:
     """Appends operations, sharing identical ones, and walks sympy expressions."""
 
@@ -112,14 +134,24 @@ class _Builder:
     def combine(self, base: int, terms: list[tuple[Fraction, int, str]], note: str,
                 angle: bool = False) -> int:
         """base + sum(weight * value), skipping zero weights. For an angle state the weighted
-        rates (radians) are turned into turns and the sums wrap at a full turn."""
-        total = base
-        for weight, value, label in terms:
-            if weight == 0:
-                continue
+        rates (radians) are turned into turns and the sums wrap at a full turn.
+
+        When every weight is a whole multiple of the smallest, with one sign (RK4's h/6 times
+        1, 2, 2, 1), the values are summed first, with whole multiples, and the sum is scaled
+        once: base + unit * (k1 + 2 k2 + 2 k3 + k4). One product and one rounding into the state
+        instead of one per term, so no increment under half an LSB is lost on its own."""
+        live = [(w, v, label) for w, v, label in terms if w != 0]
+        for _, value, _ in live:
             if value in self.angles:
                 raise UnsupportedError(f"model '{self.model.name}': {note} adds an angle as a "
                                        "rate; only sin and cos of an angle can enter a rate")
+        factored = _factored(live)
+        if factored is not None:
+            unit, groups, coefficient, label = factored
+            live = [(unit, self.weighted_sum(groups, f"{note}: {label}"),
+                     f"{coefficient} times {label}")]
+        total = base
+        for weight, value, label in live:
             kind = "sub" if weight < 0 else "add"
             if angle:
                 term = self.scaled(value, abs(weight) / TURN, f"{label}, in turns")
@@ -127,6 +159,22 @@ class _Builder:
             else:
                 total = self.add(Op(kind, (total, self.scaled(value, abs(weight), label)),
                                     note=note))
+        return total
+
+    def weighted_sum(self, groups: list[tuple[int, list[int]]], note: str) -> int:
+        """sum(multiple * sum(values)) over the groups, with whole multiples: a sum of each
+        group, doubled by adding it to itself for a power of two, scaled otherwise."""
+        total = None
+        for multiple, values in groups:
+            group = values[0]
+            for value in values[1:]:
+                group = self.add(Op("add", (group, value), note=note))
+            if multiple & (multiple - 1) == 0:
+                for _ in range(multiple.bit_length() - 1):
+                    group = self.add(Op("add", (group, group), note=note))
+            else:
+                group = self.scaled(group, Fraction(multiple), note)
+            total = group if total is None else self.add(Op("add", (total, group), note=note))
         return total
 
     def turns(self, value: int, note: str) -> int:

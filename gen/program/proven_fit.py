@@ -30,7 +30,7 @@ def prove_fits(program: IntegerProgram, box: tuple[tuple[float, float], ...]) ->
     (model units) for which the results proven at the box stay proven, and those results
     marked ``proven``. A ``wrap`` program is returned with no holds and no proofs (its results
     wrap, which needs no proof)."""
-    bare = _without_holds(program)
+    bare = without_proofs(program)
     if program.overflow != "saturate":
         return bare
     base = _state_ranges(bare, box, 1.0)
@@ -55,8 +55,9 @@ def prove_fits(program: IntegerProgram, box: tuple[tuple[float, float], ...]) ->
     return replace(program, ops=tuple(ops))
 
 
-def _without_holds(program: IntegerProgram) -> IntegerProgram:
-    """``program`` as the planner filled it: no holds, no proofs."""
+def without_proofs(program: IntegerProgram) -> IntegerProgram:
+    """``program`` as the planner filled it: no held states, no proven results (every result
+    clamped by the program's overflow rule)."""
     return replace(program, ops=tuple(replace(op, held=(), proven=False) for op in program.ops))
 
 

@@ -40,19 +40,25 @@ SLIP_PPM = 1000.0      # a timing slip this small (the default period tolerance)
 
 @dataclass(frozen=True)
 class Saturation:
-    """The first value of the step found at the edge of its word on the path."""
+    """The first clamp that acted on the path: a value at the edge of its word, or a state held
+    at the edge of the range the plan proved the step for (``held``)."""
 
     value: int
     note: str
     step: int
     format: str
     integer: int
+    held: bool = False
 
     def to_json(self) -> dict:
         return {"value_index": self.value, "note": self.note, "step": self.step,
                 "format": self.format, "integer": self.integer}
 
     def describe(self) -> str:
+        if self.held:
+            return (f"state v{self.value} ({self.note}) saturates at step {self.step} from the "
+                    f"initial state: it leaves the range the plan proved the step for and is held "
+                    f"at {self.integer}, that range's edge ({self.format})")
         return (f"value v{self.value} ({self.note}) saturates at step {self.step} from the initial "
                 f"state: {self.integer} is the edge of its format {self.format}")
 
@@ -128,10 +134,12 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
         values = golden.evaluate(program, ints, saturated)
         if saturated[0]:
             saturated_steps += 1
-            if first is None:  # a clamp leaves its value at the word's edge
-                i = next(i for i in counted if int(values[i][0]) in edges)
+            if first is None:  # a state held off its range, or a value clamped at the word's edge
+                i = next(i for i in counted if (not program.ops[i].held[0] <= int(ints[
+                    program.ops[i].state, 0]) <= program.ops[i].held[1]
+                    if program.ops[i].held else int(values[i][0]) in edges))
                 first = Saturation(i, program.ops[i].note, k, plan.value_format(i).name,
-                                   int(values[i][0]))
+                                   int(values[i][0]), held=bool(program.ops[i].held))
         ints = np.stack([values[i] for i in program.next_state]).astype(np.int64)
         reals = evaluate_real(program, real)
         real = np.stack([reals[i] for i in program.next_state])

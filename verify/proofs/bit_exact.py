@@ -125,13 +125,20 @@ class BitExactReport:
 
 def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
                   rng: np.random.Generator) -> np.ndarray:
-    """States spread over the word's whole range, the cycle's neighbourhood, the edges of
-    saturation and the smallest values. typical : ndarray, shape (n_states,), integer magnitudes
-    of the states on the cycle. Returns int64 ndarray, shape (n_states, count)."""
+    """States spread over each state's proven range (where the step holds it: see
+    ``gen/program/proven_fit.py``) and over the word's whole range, the cycle's neighbourhood, the
+    edges of saturation and the smallest values. typical : ndarray, shape (n_states,), integer
+    magnitudes of the states on the cycle. Returns int64 ndarray, shape (n_states, count)."""
     n = len(program.state_names)
     low, high = program.word_min, program.word_max
     quarter = count // 4
-    spread = rng.integers(low, high, size=(n, count - 3 * quarter), endpoint=True)
+    ranges = [op.held or (low, high) for op in program.ops if op.kind == "state"]
+    first = np.array([r[0] for r in ranges], dtype=np.int64).reshape(-1, 1)
+    last = np.array([r[1] for r in ranges], dtype=np.int64).reshape(-1, 1)
+    wide = (count - 3 * quarter) // 2
+    spread = np.hstack([rng.integers(low, high, size=(n, wide), endpoint=True),
+                        rng.integers(first, last, size=(n, count - 3 * quarter - wide),
+                                     endpoint=True)])
     # Twice the cycle's size, but never past the word: with under a bit of headroom, twice the
     # sure bound is beyond it, and a state the C cannot hold proves nothing.
     reach = np.minimum(np.maximum(2 * np.asarray(typical, dtype=np.int64), 16), high).reshape(-1, 1)
