@@ -144,7 +144,13 @@ def test_pump_verify_runs_as_written_and_drives_the_setter_through_the_c(capsys)
     # steps and two more (common practice: a rate limiter's travel time)
     assert data["ramp_steps_compared"] == 4 * (3500 + 2)
     assert data["drift"]["verdict"] == "pass"
-    assert {run["start"]["name"] for run in data["drift"]["runs"]} >= {"speed = 0.25", "speed = 2"}
+    # judged at both ends of the speed's range too: Hopf normal form, period 2 pi / omega exactly,
+    # so 1000 / speed steps (common practice)
+    corners = {run["start"]: run for run in data["drift"]["runs"] if run["start"].startswith("speed")}
+    assert set(corners) == {"speed = 0.25", "speed = 2"}
+    for name, steps in (("speed = 0.25", 4000), ("speed = 2", 500)):
+        assert corners[name]["decides_verdict"] and corners[name]["verdict"] == "pass"
+        assert corners[name]["period_steps"] == pytest.approx(steps, rel=1e-6)
 
 
 def _run(program, states: np.ndarray, steps: int) -> np.ndarray:
