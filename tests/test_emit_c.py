@@ -27,8 +27,9 @@ STRICT = ["-std=c99", "-pedantic", "-Werror", "-Wall", "-Wextra", "-Wconversion"
 def write_sources(folder: Path, built) -> dict[str, str]:
     files = render_model(built.model, built.timing, built.integrator, built.plan)
     files.update(render_trace(built.model, built.timing, built.integrator, built.plan))
+    path = check_start_path(built)
     files.update(render_selftest(built.model, built.timing, built.integrator, built.plan,
-                                 check_start_path(built).trajectory))
+                                 path.trajectory, path.counts))
     files["harness.c"] = render_host_harness(built.model, built.plan.program)
     for name, text in files.items():
         (folder / name).write_text(text)

@@ -64,8 +64,9 @@ def _run(folder: Path, sources: list[str], cc: str = "gcc",
 
 
 def _last_checkpoint(folder: Path) -> int:
-    steps = re.findall(r"UINT32_C\((\d+)\)", (folder / "vanderpol_selftest.c").read_text())
-    return int(steps[-1])
+    text = (folder / "vanderpol_selftest.c").read_text()
+    table = text[text.index("checkpoint_steps["):text.index("};", text.index("checkpoint_steps["))]
+    return int(re.findall(r"UINT32_C\((\d+)\)", table)[-1])
 
 
 @pytest.mark.parametrize("cc", compilers())
@@ -102,6 +103,22 @@ def test_it_fails_when_a_constant_changes_by_one_lsb(firmware) -> None:
                         " ".join((firmware / "vanderpol_selftest.h").read_text().split()))
     assert claimed is not None
     assert caught >= int(claimed.group(1)) >= 1
+
+
+@pytest.mark.parametrize(("old", "new"), [
+    ("state->saturated_steps = 0u;", "state->saturated_steps = 1u;"),           # init leaves 1
+    ("state->saturated_steps += 1u;", ""),                                    # never counts
+])
+def test_it_fails_when_the_count_of_saturated_steps_is_wrong(firmware, tmp_path, old, new) -> None:
+    # Seeded faults in the firmware's count: the checkpoints compare the count (0 on the path) and
+    # the probes the count after one step (1 from the probe just beyond a proven range).
+    source = (firmware / "vanderpol.c").read_text()
+    assert old in source
+    for name in ("vanderpol.h", "vanderpol_selftest.h", "vanderpol_selftest.c", "run_selftest.c"):
+        (tmp_path / name).write_text((firmware / name).read_text())
+    (tmp_path / "vanderpol.c").write_text(source.replace(old, new, 1))
+    done = _run(tmp_path, ["vanderpol.c", "vanderpol_selftest.c", "run_selftest.c"])
+    assert done.returncode != 0
 
 
 @pytest.mark.skipif(shutil.which("arm-none-eabi-gcc") is None, reason="arm-none-eabi-gcc is not installed")

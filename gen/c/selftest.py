@@ -36,6 +36,7 @@ class Probes:
     """One-step probes: states whose next state tells a one-LSB change of a constant apart.
 
     states, nexts : shape (k, n_states) -- each probe's state and golden's next state.
+    saturated : shape (k,) -- whether that step is saturated (the count goes from 0 to 1).
     changes : one-LSB changes (of each distinct constant of NAME.c, up and down) tried.
     samples : the random states of the planning box they were tried on.
     shown : of those, the changes that alter the next state of some sampled state; the probes
@@ -44,6 +45,7 @@ class Probes:
 
     states: np.ndarray
     nexts: np.ndarray
+    saturated: np.ndarray  # bool, shape (k,): whether golden's step from each probe saturates
     changes: int
     shown: int
     samples: int
@@ -54,7 +56,8 @@ def choose_probes(plan: FixedPointPlan, seed: int = SEED) -> Probes:
     of random states of the planning box (each distinct stored constant and format, as NAME.c
     holds it, moved up and down by one; golden runs each changed program once over the whole
     sample, of MOST_SAMPLES states or fewer within PROBE_WORK). States outside the box are not
-    sampled: the firmware never steps from there."""
+    sampled: the firmware never steps from there. One more probe starts just beyond a state's
+    proven range, so a step that does not hold it, or does not count, fails the test."""
     program = plan.program
     groups: dict[tuple[int, int], list[int]] = {}
     for report in plan.constants:
@@ -83,8 +86,26 @@ def choose_probes(plan: FixedPointPlan, seed: int = SEED) -> Probes:
         best = int(np.argmax(counts))
         chosen.append(best)
         left = [m for m in left if not shows[m][best]]
-    return Probes(states=batch[:, chosen].T, nexts=plain[:, chosen].T, changes=changes,
-                  shown=len(shows) - len(left), samples=samples)
+    states, nexts = batch[:, chosen], plain[:, chosen]
+    outside = _outside_probe(program, batch[:, 0])
+    if outside is not None:  # one step that must count: a state just beyond its proven range
+        states = np.hstack([states, outside])
+        nexts = np.hstack([nexts, _next_states(program, outside)])
+    _, saturated = golden.step_saturated(program, states)
+    return Probes(states=states.T, nexts=nexts.T, saturated=saturated,
+                  changes=changes, shown=len(shows) - len(left), samples=samples)
+
+
+def _outside_probe(program, inside: np.ndarray) -> np.ndarray | None:
+    """``inside`` with the first held state one LSB beyond its proven range (shape (n, 1)), so
+    the step holds it and counts a saturated step; None when no state is held or the range
+    reaches the word's edge."""
+    for op in program.ops:
+        if op.kind == "state" and op.held and op.held[1] < program.word_max:
+            state = inside.copy().reshape(-1, 1)
+            state[op.state, 0] = op.held[1] + 1
+            return state
+    return None
 
 
 def _next_states(program, states: np.ndarray) -> np.ndarray:
@@ -121,10 +142,11 @@ def checkpoints(trajectory: np.ndarray) -> list[tuple[int, list[int]]]:
 
 
 def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: FixedPointPlan,
-                    trajectory: np.ndarray) -> dict[str, str]:
+                    trajectory: np.ndarray, counts: np.ndarray) -> dict[str, str]:
     """The self-test files ``NAME_selftest.h`` and ``NAME_selftest.c`` for one planned model;
-    ``trajectory`` is golden's run from the plan's initial state (``StartPath.trajectory``, which
-    gen has computed anyway to check the start-up path)."""
+    ``trajectory`` and ``counts`` are golden's run from the plan's initial state and its count of
+    saturated steps after each step (``StartPath.trajectory`` and ``.counts``, which gen has
+    computed anyway to check the start-up path)."""
     names = CNames(model.name)
     program = plan.program
     table = checkpoints(np.asarray(trajectory))
@@ -134,9 +156,10 @@ def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: 
         **firmware_context(model, timing, integrator, plan),
         "fields": [names.field(n) for n in program.state_names],
         "last_step": table[-1][0],
-        "checkpoints": [{"step": step, "state": literal(values)} for step, values in table],
-        "probes": [{"state": literal(a), "next": literal(b)}
-                   for a, b in zip(probes.states, probes.nexts, strict=True)],
+        "checkpoints": [{"step": step, "state": literal(values), "count": int(counts[step])}
+                        for step, values in table],
+        "probes": [{"state": literal(a), "next": literal(b), "count": int(s)}
+                   for a, b, s in zip(probes.states, probes.nexts, probes.saturated, strict=True)],
         "probe_changes": probes.changes, "probe_shown": probes.shown,
         "probe_samples": probes.samples,
     }

@@ -77,6 +77,8 @@ class StartPath:
     # golden's whole state (the runtime parameters' fields too) at every step of the path, row k
     # after k steps: the self-test's table is read off it (gen/c/selftest.py)
     trajectory: np.ndarray | None = field(default=None, repr=False, compare=False)
+    # the firmware's count of saturated steps after k steps (row k), beside the trajectory
+    counts: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     @property
     def ok(self) -> bool:
@@ -129,6 +131,7 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
     floats[0], fixed[0] = real[:n, 0], ints[:n, 0] / scale[:n]
     trajectory = np.empty((steps + 1, ints.shape[0]), dtype=np.int64)
     trajectory[0] = ints[:, 0]
+    counts = np.zeros(steps + 1, dtype=np.int64)
     for k in range(1, steps + 1):
         saturated = np.zeros(1, dtype=bool)
         values = golden.evaluate(program, ints, saturated)
@@ -145,6 +148,7 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
         real = np.stack([reals[i] for i in program.next_state])
         floats[k], fixed[k] = real[:n, 0], ints[:n, 0] / scale[:n]
         trajectory[k] = ints[:, 0]
+        counts[k] = saturated_steps
     halves = _half_ranges(built, floats)
     for i in program.angle_states:
         halves[i] = 1.0
@@ -163,7 +167,8 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
     step = int(np.argmax(best))
     return StartPath(steps=steps, saturation=first, saturated_steps=saturated_steps,
                      parting=float(best[step]), parting_state=program.state_names[worst_state[step]],
-                     parting_step=step, tolerance=tolerance, trajectory=trajectory)
+                     parting_step=step, tolerance=tolerance, trajectory=trajectory,
+                     counts=counts)
 
 
 def _half_ranges(built: Design, floats: np.ndarray) -> np.ndarray:

@@ -91,7 +91,7 @@ def run(args: argparse.Namespace, partial: dict) -> int:
     texts = {**render_model(built.model, built.timing, built.integrator, built.plan, zones),
              **render_units(built.model, built.timing, built.integrator, built.plan),
              **render_selftest(built.model, built.timing, built.integrator, built.plan,
-                               start.trajectory)}
+                               start.trajectory, start.counts)}
     if args.example is not None:
         from orbitfix.gen.c.example_main import render_example_main
 

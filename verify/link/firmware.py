@@ -47,8 +47,9 @@ def write_firmware_sources(built: Design, folder: Path) -> list[Path]:
     """Write the step and the harness into ``folder``; returns the C files to compile."""
     folder.mkdir(parents=True, exist_ok=True)
     files = render_model(built.model, built.timing, built.integrator, built.plan)
+    path = check_start_path(built)
     files.update(render_selftest(built.model, built.timing, built.integrator, built.plan,
-                                 check_start_path(built).trajectory))
+                                 path.trajectory, path.counts))
     files[HARNESS_FILE] = render_harness(built)
     for name, text in files.items():
         (folder / name).write_text(text)
