@@ -174,7 +174,7 @@ def test_plan_json_has_signals_constants_and_integrators(capsys) -> None:
     assert code == 0
     data = json.loads(out)
     signals = data["plan"]["signals"]
-    assert len(signals) == len(data["plan"]["formats"]["constants"]) + 32  # 47 values, 15 constants
+    assert len(signals) == len(data["plan"]["formats"]["constants"]) + 34  # 43 values, 9 constants
     for row in signals:
         assert row["sure_min"] <= row["min"] <= row["max"] <= row["sure_max"]
         assert row["headroom_bits"] >= 1  # margin 2 = one bit over the sure bound

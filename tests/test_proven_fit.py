@@ -92,4 +92,25 @@ def test_the_host_proof_fails_a_program_with_a_wrong_proof(vanderpol_design) -> 
     outcome = check_on_host(wrong, states=5000, steps=100, sanitized_states=0)
     mismatch = outcome.report.first_mismatch
     assert mismatch is not None and mismatch.part == "proven fits"
-    assert "marked proven to fit" in mismatch.reason
+    assert "marked proven to fit" in mismatch.reason and "sure integer bounds" in mismatch.reason
+
+
+def test_the_bounds_of_a_table_lookup_are_its_value_and_a_slip_is_refuted(monkeypatch) -> None:
+    # sin and cos round inside their lookup, so their bounds are the table's own (interpolation
+    # stays between two entries). Seeded fault: those bounds rounded once more by the shift, as a
+    # plain kind's are; the bounds then fail on golden's values and the check says so.
+    from orbitfix.gen.program.operations import TableSine
+    from orbitfix.gen.program.proven_fit import prove_fits
+
+    from orbitfix.gen.model.definition import define_model
+
+    model = define_model("lurch", {"theta": 0.0, "r": 0.5},
+                         {"theta": "1 + 0.5*sin(theta)", "r": "1 - r"}, cycle_hz=1, loop_hz=200,
+                         angles=("theta",))
+    built = design(model)
+    program = built.plan.program
+    assert any(op.kind == "sin" for op in program.ops)
+    states = range_corners_and_samples(program, 20_000, np.random.default_rng(4))
+    assert refuted_fits(program, states) == []
+    monkeypatch.setattr(TableSine, "rounds_itself", False)
+    assert refuted_fits(prove_fits(program, built.plan.box), states)

@@ -134,14 +134,16 @@ class OperationKind:
        kind with no such expression (a load, a constant, a table), ``c_call(op, site)``, the C
        expression of the whole value, with ``c_helper`` the helper function it calls, if any.
     7. ``exact_bounds(op, args, word_bits)``: sure integer bounds of the exact result (before
-       rounding) from sure integer bounds of the arguments' stored values, which the planner's
-       proof of fits (``gen/program/proven_fit.py``) reads.
+       rounding by ``op.shift``; of the value itself for a kind that ``rounds_itself``) from sure
+       integer bounds of the arguments' stored values, which the planner's proof of fits
+       (``gen/program/proven_fit.py``) and the emitter's sums in the word read.
     """
 
     name = ""
     arity = 0
     aligns = False
     provable = True  # whether the planner may prove its result fits (and drop its clamp)
+    rounds_itself = False  # its golden rule rounds inside: exact_bounds bound the value itself
     constant_role: str | None = None  # "added" or "multiplier" for a kind with a stored constant
     c_helper: CHelper | None = None
 
@@ -559,6 +561,7 @@ class TableSine(OperationKind):
 
     arity = 1
     provable = False  # its helper rounds and clamps inside
+    rounds_itself = True
     turn_offset = Fraction(0)
     function = staticmethod(np.sin)
     c_helper = _SINE_LOOKUP

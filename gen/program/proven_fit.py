@@ -75,7 +75,7 @@ def value_bounds(program: IntegerProgram,
             bounds.append(state_ranges[op.state])
             continue
         low, high = (int(v) for v in kind.exact_bounds(op, args, program.word_bits))  # 0.0 -> 0
-        if op.shift:
+        if op.shift and not kind.rounds_itself:
             low, high = _rounded(low, op.shift, program.rounding), _rounded(high, op.shift,
                                                                             program.rounding)
         wraps = kind.fit_wraps(op)
@@ -132,16 +132,25 @@ def _widest_scale(program: IntegerProgram, box: tuple[tuple[float, float], ...])
 
 
 def refuted_fits(program: IntegerProgram, states: np.ndarray) -> list[tuple[int, int]]:
-    """The values marked ``proven`` whose result leaves the word from some of ``states`` (the
-    proof is wrong for them), each with the first such state's column, found by running golden
-    with and without the proofs: a clamp that acts where the proof said none was needed changes
-    that value. ``states``: int ndarray, shape (n_states, batch)."""
+    """The values whose sure integer bounds (``value_bounds``, which the proofs and the C's sums
+    in the word rest on) fail from some of ``states``, and the values marked ``proven`` whose
+    result leaves the word (found by running golden with and without the proofs: a clamp that
+    acts where the proof said none was needed changes that value); each with the first such
+    state's column. ``states``: int ndarray, shape (n_states, batch), within the ranges."""
     unproven = replace(program, ops=tuple(replace(op, proven=False) for op in program.ops))
     proven = golden.evaluate(program, states)
     clamped = golden.evaluate(unproven, states)
-    return [(i, int(np.flatnonzero(proven[i] != clamped[i])[0]))
-            for i, op in enumerate(program.ops)
-            if op.proven and not np.array_equal(proven[i], clamped[i])]
+    ranges = [op.held or (program.word_min, program.word_max)
+              for op in program.ops if op.kind == "state"]
+    bounds, _ = value_bounds(program, ranges)
+    found = []
+    for i, op in enumerate(program.ops):
+        wrong = (proven[i] < bounds[i][0]) | (proven[i] > bounds[i][1])
+        if op.proven:
+            wrong |= proven[i] != clamped[i]
+        if np.any(wrong):
+            found.append((i, int(np.flatnonzero(wrong)[0])))
+    return found
 
 
 def range_corners_and_samples(program: IntegerProgram, count: int,

@@ -291,9 +291,10 @@ def _check_proven_fits(program: IntegerProgram, count: int, seed: int) -> Mismat
                     expected=[], got=[int(wrapped)],
                     operation={"index": index, "kind": op.kind, "note": op.note},
                     units=state_units(program),
-                    reason=f"value {index} ({op.kind}, {op.note}) is marked proven to fit, yet from "
-                           "this state within the proven ranges it leaves the word: the program "
-                           "is wrong; regenerate the C with this version of orbitfix")
+                    reason=f"value {index} ({op.kind}, {op.note}) leaves its sure integer bounds "
+                           "or, marked proven to fit, the word, from this state within the proven "
+                           "ranges: the plan's proof is wrong (an orbitfix fault); do not ship this "
+                           "C, and report it with the model file")
 
 
 def _check_init(program: IntegerProgram, host: HostModule, initial: np.ndarray) -> Mismatch | None:
