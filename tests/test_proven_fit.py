@@ -13,7 +13,12 @@ import pytest
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
-from orbitfix.gen.program.proven_fit import range_corners_and_samples, refuted_fits, value_bounds
+from orbitfix.gen.program.proven_fit import (
+    held_ranges,
+    range_corners_and_samples,
+    refuted_fits,
+    value_bounds,
+)
 
 
 @pytest.fixture(scope="module", params=[32, 16])
@@ -36,9 +41,7 @@ def test_nearly_every_value_is_proven_and_no_proof_is_refuted(planned) -> None:
 def test_the_integer_bounds_enclose_every_golden_value(planned) -> None:
     # Interval arithmetic encloses every result (common practice); here against golden's bits.
     program = planned.plan.program
-    ranges = [op.held or (program.word_min, program.word_max)
-              for op in program.ops if op.kind == "state"]
-    bounds, _ = value_bounds(program, ranges)
+    bounds, _ = value_bounds(program, held_ranges(program))
     states = range_corners_and_samples(program, 20_000, np.random.default_rng(2))
     for index, value in enumerate(golden.evaluate(program, states)):
         assert bounds[index][0] <= int(value.min()) and int(value.max()) <= bounds[index][1], index

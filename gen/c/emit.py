@@ -21,7 +21,7 @@ from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import SATURATION_COUNT_BITS, IntegerProgram, Op
 from orbitfix.gen.program.operations import KINDS, CSite, int_literal, kind_of
-from orbitfix.gen.program.proven_fit import value_bounds
+from orbitfix.gen.program.proven_fit import held_ranges, value_bounds
 from orbitfix.gen.safety import SAFETY_NOTE
 from orbitfix.gen.timing.integrators import Integrator
 from orbitfix.gen.timing.step_size import Timing
@@ -141,8 +141,7 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     tables, table_of = _tables(program, kept)
     word_type, wide_type = f"int{program.word_bits}_t", f"int{program.product_bits}_t"
     ops = [op for i, op in enumerate(program.ops) if i in kept]
-    bounds = value_bounds(program, [op.held or (program.word_min, program.word_max)
-                                    for op in program.ops if op.kind == "state"])[0]
+    bounds = value_bounds(program, held_ranges(program))[0]
     return {
         "names": names,
         "version": __version__,
@@ -156,9 +155,8 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "program": program,
         "helpers": _helpers(program, ops, names.prefix, word_type, wide_type),
         "uses_wrap": any(op.wraps or op.proven for op in ops),
-        "uses_fit": any(kind_of(op.kind).c_helper is not None or
-                        (kind_of(op.kind).c_exact(op, _SITE) is not None and
-                         not kind_of(op.kind).fit_wraps(op)) for op in ops),
+        # a result brought into the word by the program's overflow rule, not by wrapping
+        "uses_fit": any(kind_of(op.kind).fit_wraps(op) is False for op in ops),
         "uses_held": any(op.held for op in ops),
         "held_ranges": [{"field": names.field(program.state_names[op.state]), "low": op.held[0],
                          "high": op.held[1],
@@ -365,8 +363,6 @@ def _sum_in_the_word(op: Op, site: CSite, program: IntegerProgram,
                 f"{site.word})")
     return f"({site.word})({terms[0]}{' - ' if subtract else ' + '}{terms[1]})"
 
-
-_SITE = CSite(args=("a", "b"), word_bits=32)  # to ask a kind whether it has an exact C form
 
 ROUNDING_WORDS = {
     "truncate": "toward minus infinity (an arithmetic shift right)",

@@ -103,7 +103,6 @@ class _Machine:
         return np.minimum(np.maximum(values, number(low)), number(high))
 
 
-
 def evaluate(program: IntegerProgram, states: np.ndarray,
              saturated: np.ndarray | None = None) -> list[np.ndarray]:
     """Every value of one step, in the integer type of the program's product width.

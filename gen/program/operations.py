@@ -423,7 +423,6 @@ class Unary(OperationKind):
         return replace(op, shift=f_args[0] - bits)
 
 
-
 @register
 class Neg(Unary):
     """The negated argument."""
@@ -466,12 +465,14 @@ class Abs(Unary):
 
 # --- products --------------------------------------------------------------------------------
 
+
 @register
 class Mul(OperationKind):
     """The product of two values, formed in the product width."""
 
     name = "mul"
     arity = 2
+
     def real(self, op, args, states):
         return args[0] * args[1]
 

@@ -61,6 +61,13 @@ def without_proofs(program: IntegerProgram) -> IntegerProgram:
     return replace(program, ops=tuple(replace(op, held=(), proven=False) for op in program.ops))
 
 
+def held_ranges(program: IntegerProgram) -> list[tuple[int, int]]:
+    """Each state's proven range (lowest, highest stored integer); the whole word for a state
+    that is not held (an angle, or any state of a ``wrap`` program)."""
+    return [op.held or (program.word_min, program.word_max)
+            for op in program.ops if op.kind == "state"]
+
+
 def value_bounds(program: IntegerProgram,
                  state_ranges: list[tuple[int, int]]) -> tuple[list[tuple[int, int]], set[int]]:
     """Sure integer bounds of every value of one step from any state within ``state_ranges``,
@@ -76,8 +83,7 @@ def value_bounds(program: IntegerProgram,
             continue
         low, high = (int(v) for v in kind.exact_bounds(op, args, program.word_bits))  # 0.0 -> 0
         if op.shift and not kind.rounds_itself:
-            low, high = _rounded(low, op.shift, program.rounding), _rounded(high, op.shift,
-                                                                            program.rounding)
+            low, high = _rounded((low, high), op.shift, program.rounding)
         wraps = kind.fit_wraps(op)
         if wraps is None:
             bounds.append((low, high))
@@ -96,10 +102,11 @@ def _proven(program: IntegerProgram, ranges: list[tuple[int, int]]) -> set[int]:
     return value_bounds(program, ranges)[1]
 
 
-def _rounded(value: int, shift: int, rounding: str) -> int:
-    """``value`` divided by 2**shift with the program's rounding (golden's own rule, exact on
+def _rounded(values: tuple[int, int], shift: int, rounding: str) -> tuple[int, int]:
+    """Both ends divided by 2**shift with the program's rounding (golden's own rule, exact on
     Python integers)."""
-    return int(golden.round_shift(np.array([value], dtype=object), shift, rounding)[0])
+    low, high = golden.round_shift(np.array(values, dtype=object), shift, rounding)
+    return int(low), int(high)
 
 
 def _state_ranges(program: IntegerProgram, box: tuple[tuple[float, float], ...],
@@ -140,9 +147,7 @@ def refuted_fits(program: IntegerProgram, states: np.ndarray) -> list[tuple[int,
     unproven = replace(program, ops=tuple(replace(op, proven=False) for op in program.ops))
     proven = golden.evaluate(program, states)
     clamped = golden.evaluate(unproven, states)
-    ranges = [op.held or (program.word_min, program.word_max)
-              for op in program.ops if op.kind == "state"]
-    bounds, _ = value_bounds(program, ranges)
+    bounds, _ = value_bounds(program, held_ranges(program))
     found = []
     for i, op in enumerate(program.ops):
         wrong = (proven[i] < bounds[i][0]) | (proven[i] > bounds[i][1])
@@ -157,8 +162,7 @@ def range_corners_and_samples(program: IntegerProgram, count: int,
                               rng: np.random.Generator) -> np.ndarray:
     """States to test the proofs on: random states within the proven ranges and, for up to 12
     states, every corner of the ranges (else ``count`` more random corners). Shape (n_states, k)."""
-    ranges = [op.held or (program.word_min, program.word_max)
-              for op in program.ops if op.kind == "state"]
+    ranges = held_ranges(program)
     low = np.array([r[0] for r in ranges], dtype=np.int64)
     high = np.array([r[1] for r in ranges], dtype=np.int64)
     inside = rng.integers(low[:, None], high[:, None], size=(len(ranges), count), endpoint=True)

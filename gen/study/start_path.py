@@ -105,6 +105,14 @@ class StartPath:
                 "tolerance": self.tolerance}
 
 
+def _clamp_acted(op, before: np.ndarray, value: int, edges: tuple[int, int]) -> bool:
+    """Whether a counted clamp changed its value: a held state outside its range before the
+    step, or a result left at the word's edge."""
+    if op.held:
+        return not op.held[0] <= int(before[op.state]) <= op.held[1]
+    return int(value) in edges
+
+
 def check_start_path(built: Design, cycles: float = PATH_CYCLES,
                      tolerance: float = PATH_TOLERANCE, plan: FixedPointPlan | None = None) -> StartPath:
     """Run golden and the float step map from the model's initial state for ``cycles`` cycles.
@@ -137,10 +145,9 @@ def check_start_path(built: Design, cycles: float = PATH_CYCLES,
         values = golden.evaluate(program, ints, saturated)
         if saturated[0]:
             saturated_steps += 1
-            if first is None:  # a state held off its range, or a value clamped at the word's edge
-                i = next(i for i in counted if (not program.ops[i].held[0] <= int(ints[
-                    program.ops[i].state, 0]) <= program.ops[i].held[1]
-                    if program.ops[i].held else int(values[i][0]) in edges))
+            if first is None:
+                i = next(i for i in counted if _clamp_acted(program.ops[i], ints[:, 0],
+                                                            values[i][0], edges))
                 first = Saturation(i, program.ops[i].note, k, plan.value_format(i).name,
                                    int(values[i][0]), held=bool(program.ops[i].held))
         ints = np.stack([values[i] for i in program.next_state]).astype(np.int64)

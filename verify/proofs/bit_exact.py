@@ -33,7 +33,7 @@ from orbitfix.gen.program.integer_program import (
     IntegerProgram,
     next_saturation_count,
 )
-from orbitfix.gen.program.proven_fit import range_corners_and_samples, refuted_fits
+from orbitfix.gen.program.proven_fit import held_ranges, range_corners_and_samples, refuted_fits
 from orbitfix.gen.progress import tell
 from orbitfix.verify.targets.host_build import HostModule
 
@@ -132,7 +132,7 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
     n = len(program.state_names)
     low, high = program.word_min, program.word_max
     quarter = count // 4
-    ranges = [op.held or (low, high) for op in program.ops if op.kind == "state"]
+    ranges = held_ranges(program)
     first = np.array([r[0] for r in ranges], dtype=np.int64).reshape(-1, 1)
     last = np.array([r[1] for r in ranges], dtype=np.int64).reshape(-1, 1)
     wide = (count - 3 * quarter) // 2
