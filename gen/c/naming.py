@@ -96,10 +96,10 @@ def name_problem(name: object) -> str | None:
 
 
 def check_names(model_name: str, states: Sequence[str], parameters: Sequence[str],
-                runtime: Sequence[str] = ()) -> None:
+                runtime: Sequence[str] = (), outputs: Sequence[str] = ()) -> None:
     """Refuse, with the reason, every name of a model that is not safe in its generated C: the
-    model's own name, its states' and parameters' names, and the names made from them (the fields
-    for runtime parameters' targets, the macros in capitals, the header guard)."""
+    model's own name, its states', parameters' and outputs' names, and the names made from them
+    (the fields for runtime parameters' targets, the macros in capitals, the header guard)."""
     problem = name_problem(model_name)
     if problem is None and model_name.lower() in SYSTEM_HEADERS:
         problem = (f"the model's files would be {model_name.lower()}.h and "
@@ -112,12 +112,13 @@ def check_names(model_name: str, states: Sequence[str], parameters: Sequence[str
     made = {f"{p}_target": p for p in runtime}
     reserved = {names.saturation_field: "the count of saturated steps"}
     seen: dict[str, str] = {}
-    for name in [*states, *parameters]:
+    for name in [*states, *parameters, *outputs]:
         problem = name_problem(name)
         if problem is None and name.upper().startswith(names.macro_prefix + "_"):
             problem = (f"it starts with {names.macro_prefix}_, the prefix of the macros made for "
                        f"model '{model_name}' (such as its header guard {names.guard})")
-        if problem is None and name in reserved and (name in states or name in runtime):
+        if problem is None and name in reserved and (name in states or name in runtime
+                                                     or name in outputs):
             problem = f"the generated state already has a field {name} for {reserved[name]}"
         if problem is None and name in made:
             problem = (f"the generated state already has a field {name} for the target of the "
@@ -126,6 +127,9 @@ def check_names(model_name: str, states: Sequence[str], parameters: Sequence[str
             problem = (f"it differs from the runtime parameter '{seen[name.upper()]}' only in "
                        "capitals, and each runtime parameter's macro is made in capitals")
         if problem:
+            if name in outputs:
+                raise InputError(f"model '{model_name}', [outputs] '{name}': it cannot be an "
+                                 f"output name: {problem}; rename it")
             raise InputError(f"model '{model_name}': {name!r} cannot be a state or parameter name: "
                              f"{problem}; rename it")
         if name in runtime:

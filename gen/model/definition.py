@@ -18,7 +18,7 @@ from orbitfix.gen.c.naming import check_names
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model import limits
 from orbitfix.gen.model.compiled import array_function
-from orbitfix.gen.model.expressions import FUNCTIONS, ExpressionError, parse_expression
+from orbitfix.gen.model.expressions import ACCEPTED, FUNCTIONS, ExpressionError, parse_expression
 
 NAME_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_]*", re.ASCII)
 RESERVED = set(FUNCTIONS) | {"t", "time"}
@@ -55,6 +55,31 @@ class Parameter:
     low: float | None = None
     high: float | None = None
     rate: float | None = None
+
+
+@dataclass(frozen=True)
+class Output:
+    """One output to an actuator: ``value``, an expression of the states and parameters, read
+    from the state after each step, brought to the actuator's unit as offset + scale * value,
+    clamped to [low, high] and, with a ``slew`` limit (actuator units per second), moved by at
+    most slew / loop_hz per step (see gen/program/integer_program.py for the exact semantics).
+    ``unit`` is text for people (comments, reports), e.g. "deg"."""
+
+    name: str
+    value: str
+    low: float
+    high: float
+    scale: float = 1.0
+    offset: float = 0.0
+    unit: str = ""
+    slew: float | None = None
+    meaning: str = ""
+
+
+OUTPUT_KEYS = ("value", "scale", "offset", "unit", "min", "max", "slew", "meaning")
+OUTPUT_HINT = ('hip = { value = "r * cos(theta)", scale = 30.0, offset = 90.0, unit = "deg", '
+               "min = 45.0, max = 135.0, slew = 200.0 } (value, min and max are needed; scale "
+               "defaults to 1, offset to 0; slew, in units per second, is optional)")
 
 
 @dataclass(frozen=True)
@@ -96,6 +121,7 @@ class Model:
     # for a network of coupled oscillators (gen/networks.py): which states belong to which
     # oscillator and the wanted phase lags; None for a single oscillator
     network: object | None = field(default=None, compare=False, repr=False)
+    outputs: tuple[Output, ...] = ()
 
     def __post_init__(self) -> None:
         _check_names(self)
@@ -105,6 +131,7 @@ class Model:
                              f"{len(self.equation_text)} equations; give one equation per state")
         _check_runtime(self)
         self.equations  # noqa: B018 -- parse now so a broken equation fails at construction
+        _check_outputs(self)
 
     # -- symbols and expressions ---------------------------------------------------------------
 
@@ -148,6 +175,15 @@ class Model:
         values = {sym: _number(p.value) for sym, p in zip(self.parameter_symbols,
                                                            self.parameters, strict=True)}
         return tuple(eq.xreplace(values) for eq in self.equations)
+
+    def output_expression(self, output: Output) -> sympy.Expr:
+        """An output's value with every parameter but the runtime ones replaced by its value (the
+        same symbols as ``fixed_equations``)."""
+        table = {s.name: s for s in self.state_symbols + self.parameter_symbols}
+        values = {sym: _number(p.value) for sym, p in zip(self.parameter_symbols,
+                                                           self.parameters, strict=True)
+                  if not p.runtime}
+        return parse_expression(output.value, table).xreplace(values)
 
     @property
     def runtime_parameters(self) -> tuple[Parameter, ...]:
@@ -223,7 +259,11 @@ class Model:
 
     def describe(self) -> dict:
         """A plain-data description (the model's canonical form, used for its fingerprint)."""
-        return {
+        outputs = {"outputs": {o.name: {"value": o.value, "scale": o.scale, "offset": o.offset,
+                                        "unit": o.unit, "min": o.low, "max": o.high,
+                                        "slew": o.slew, "meaning": o.meaning}
+                               for o in self.outputs}} if self.outputs else {}
+        return {**outputs,
             "name": self.name,
             "description": self.description,
             "states": [{"name": s.name, "initial": s.initial, "meaning": s.meaning,
@@ -262,11 +302,14 @@ def define_model(
     integrator: str = "rk4",
     angles: tuple[str, ...] | list[str] = (),
     runtime: Mapping[str, Mapping[str, float]] | None = None,
+    outputs: Mapping[str, Mapping[str, object]] | None = None,
 ) -> Model:
     """Build a model in Python: ``define_model("osc", {"x": 1, "y": 0}, {"x": "y", "y": "-x"}, ...)``.
 
     ``equations`` maps each state name to the text of its time derivative; ``angles`` names the
-    states that are angles in radians, living modulo 2 pi (phases).
+    states that are angles in radians, living modulo 2 pi (phases); ``outputs`` maps each output's
+    name to its ``value``, ``min``, ``max`` and optional ``scale``, ``offset``, ``unit``,
+    ``slew`` and ``meaning``, as the model file's [outputs] table.
     """
     unknown_angles = [a for a in angles if a not in states]
     if unknown_angles:
@@ -285,7 +328,81 @@ def define_model(
         equation_text=tuple(equations[n] for n in states),
         rhythm=Rhythm(float(cycle_hz), float(loop_hz)),
         fixed_point=FixedPointRequest(fraction_bits=fraction_bits, integrator=integrator),
+        outputs=tuple(make_output(name, entry, f"model '{name}'")
+                      for name, entry in (outputs or {}).items()),
     )
+
+
+def make_output(name: str, entry: Mapping[str, object], where: str) -> Output:
+    """An output from its table (the keys of the model file's [outputs] entries); what is missing,
+    unknown or of the wrong type is an input error naming ``where`` and the output."""
+    place = f"{where}, [outputs] '{name}'"
+    if not isinstance(entry, Mapping):
+        raise InputError(f"{place}: an output is a table of its value and limits; accepted: "
+                         f"{OUTPUT_HINT}")
+    unknown = sorted(set(entry) - set(OUTPUT_KEYS))
+    missing = [k for k in ("value", "min", "max") if k not in entry]
+    if unknown or missing:
+        raise InputError(f"{place}: unknown keys {unknown or 'none'}, missing keys "
+                         f"{missing or 'none'}; accepted: {OUTPUT_HINT}")
+    for key in ("value", "unit", "meaning"):
+        if key in entry and not isinstance(entry[key], str):
+            raise InputError(f"{place}: {key} must be a quoted string, got {entry[key]!r}; "
+                             f"accepted: {OUTPUT_HINT}")
+    numbers = {}
+    for key, default in (("min", None), ("max", None), ("scale", 1.0), ("offset", 0.0)):
+        numbers[key] = limits.check(entry.get(key, default), limits.OUTPUT_NUMBER,
+                                    f"{place}, {key}")
+    slew = entry.get("slew")
+    if slew is not None:
+        slew = limits.check(slew, limits.SLEW, f"{place}, slew")
+    return Output(name=name, value=str(entry["value"]), low=numbers["min"], high=numbers["max"],
+                  scale=numbers["scale"], offset=numbers["offset"], unit=str(entry.get("unit", "")),
+                  slew=slew, meaning=str(entry.get("meaning", "")))
+
+
+def _check_outputs(model: Model) -> None:
+    """Every output: a safe, unused name; finite numbers in range; min < max; a nonzero scale; a
+    positive slew; a value that parses and reads only the model's states and parameters."""
+    where = _where(model)
+    taken = {n.upper(): n for n in [*model.state_names, *(p.name for p in model.parameters)]}
+    taken.update({f"{p.name}_target".upper(): f"{p.name}_target" for p in model.runtime_parameters})
+    if model.outputs and model.network is not None:
+        raise InputError(f"{where}: outputs are not supported on networks yet; declare them on a "
+                         "single oscillator")
+    for output in model.outputs:
+        place = f"{where}, [outputs] '{output.name}'"
+        name = output.name
+        if (not isinstance(name, str) or not NAME_PATTERN.fullmatch(name) or keyword.iskeyword(name)
+                or name in RESERVED):
+            raise InputError(f"{place}: {name!r} cannot be an output name (use letters, digits and "
+                             "underscores, start with a letter, and avoid "
+                             f"{', '.join(sorted(RESERVED))} and Python keywords); rename it")
+        if name.upper() in taken:
+            raise InputError(f"{place}: the name is already taken by '{taken[name.upper()]}' (the "
+                             "state struct field or its macro in capitals); rename the output")
+        taken[name.upper()] = name
+        for key, value in (("min", output.low), ("max", output.high), ("scale", output.scale),
+                           ("offset", output.offset)):
+            limits.check(value, limits.OUTPUT_NUMBER, f"{place}, {key}")
+        if not output.low < output.high:
+            raise InputError(f"{place}: min ({output.low:g}) must be below max ({output.high:g}); "
+                             "give the actuator's lower limit as min and its upper limit as max")
+        if output.scale == 0:
+            raise InputError(f"{place}: scale is 0, so the output would never move; give the "
+                             "actuator's units per unit of the value (e.g. scale = 30.0)")
+        if output.slew is not None:
+            if not (math.isfinite(output.slew) and output.slew > 0):
+                raise InputError(f"{place}: slew must be a positive number of {output.unit or 'units'}"
+                                 f" per second, got {output.slew}; leave it out for no slew limit")
+            limits.check(output.slew, limits.SLEW, f"{place}, slew")
+        try:
+            model.output_expression(output)
+        except ExpressionError as exc:
+            raise InputError(f"{place}: value {exc.problem}: '{exc.offending}' (column "
+                             f"{exc.column + 1} of '{exc.text}'); accepted: {ACCEPTED}") from None
+    check_names(model.name, model.state_names, [p.name for p in model.parameters],
+                [p.name for p in model.runtime_parameters], [o.name for o in model.outputs])
 
 
 def _parameter(name: str, value: float, runtime: Mapping[str, float] | None) -> Parameter:

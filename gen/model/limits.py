@@ -88,6 +88,11 @@ FRACTION_BITS = Limit(1, 63, what="fraction_bits")
 OSCILLATORS = Limit(2, 64, what="the number of oscillators in a network")
 LAG = Limit(1e-9, 1e3, signed=True, zero=True, what="a lag in cycles")
 COUPLING = Limit(1e-6, 1e6, signed=True, zero=True, what="a coupling strength")
+# Outputs to actuators: the scale and offset to the actuator's unit and its limits, in that unit.
+OUTPUT_NUMBER = Limit(0.0, 1e6, signed=True, zero=True,
+                      what="an output's scale, offset or limit (in the actuator's unit)")
+# How fast an output may move, in the actuator's units per second.
+SLEW = Limit(1e-9, 1e9, unit="units per second", what="an output's slew limit (positive)")
 
 
 def check(value: object, limit: Limit, where: str) -> float:

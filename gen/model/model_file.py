@@ -13,7 +13,16 @@ from typing import Any
 
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model import limits
-from orbitfix.gen.model.definition import FixedPointRequest, Model, Parameter, Rhythm, State
+from orbitfix.gen.model.definition import (
+    OUTPUT_HINT,
+    FixedPointRequest,
+    Model,
+    Output,
+    Parameter,
+    Rhythm,
+    State,
+    make_output,
+)
 from orbitfix.gen.model.expressions import ACCEPTED, ExpressionError
 from orbitfix.gen.model.networks import (
     GAITS,
@@ -30,7 +39,8 @@ from orbitfix.gen.model.networks import (
 MODELS_FOLDER = Path(__file__).parent / "library"
 SHOWN_LINE = 160  # an offending line longer than this is shown shortened in messages
 
-TOP_KEYS = {"name", "description", "states", "parameters", "equations", "rhythm", "fixed_point"}
+TOP_KEYS = {"name", "description", "states", "parameters", "equations", "rhythm", "fixed_point",
+            "outputs"}
 STATE_KEYS = {"initial", "meaning", "angle"}
 PARAMETER_KEYS = {"value", "meaning", "runtime", "min", "max", "rate"}
 RHYTHM_KEYS = {"cycle_hz", "loop_hz"}
@@ -57,7 +67,7 @@ LAYOUT_HINT = (
     "a model file has: name = \"...\", description = \"...\", [states] x = { initial = 0.5 } "
     "(add angle = true for an angle in radians, modulo 2 pi), "
     "[parameters] mu = 1.0, [equations] x = \"...\", [rhythm] cycle_hz = ..., loop_hz = ..., "
-    "and optionally [fixed_point] fraction_bits, margin, integrator"
+    "and optionally [fixed_point] fraction_bits, margin, integrator, and [outputs] " + OUTPUT_HINT
 )
 
 
@@ -263,6 +273,7 @@ class _Reader:
         self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")
         request = self.fixed_point_request(fixed)
         description = data.get("description", "")
+        outputs = self.outputs(data)
         try:
             return Model(
                 name=name,
@@ -273,6 +284,7 @@ class _Reader:
                 rhythm=rhythm,
                 fixed_point=request,
                 source=str(self.path),
+                outputs=outputs,
             )
         except ExpressionError as exc:
             state = next((s for s in state_names if f"'{s}'" in exc.problem), None)
@@ -282,6 +294,18 @@ class _Reader:
         except InputError as exc:
             raise self.located(exc) from None
 
+    def outputs(self, data: dict) -> tuple[Output, ...]:
+        """The [outputs] table: one inline table per output (see definition.OUTPUT_HINT)."""
+        found = []
+        for name, entry in self.table(data, "outputs", required=False).items():
+            try:
+                found.append(make_output(name, entry, str(self.path)))
+            except InputError as exc:
+                problem, _, _ = str(exc).partition("; accepted: ")
+                problem = problem.removeprefix(f"{self.path}, ")
+                raise self.error(self.line_of("outputs", name), problem, OUTPUT_HINT) from None
+        return tuple(found)
+
     def located(self, exc: InputError) -> ModelFileError:
         """A model's own complaint, placed at the line of the section and key it names (as
         '[rhythm] loop_hz'), with what it accepts, or else the file's layout."""
@@ -289,7 +313,8 @@ class _Reader:
         problem, _, accepted = message.partition("; accepted: ")
         place = re.search(r"\[(\w+)\] '?(\w+)", problem)
         line = self.line_of(place.group(1), place.group(2)) if place else None
-        return self.error(line, problem, accepted or LAYOUT_HINT)
+        hint = OUTPUT_HINT if place and place.group(1) == "outputs" else LAYOUT_HINT
+        return self.error(line, problem, accepted or hint)
 
     def rhythm(self, data: dict) -> Rhythm:
         rhythm = self.table(data, "rhythm")
