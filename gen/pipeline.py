@@ -16,6 +16,7 @@ from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan, plan_fixed_point
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.outputs import plan_outputs
 from orbitfix.gen.program.plan_checks import refuse_vanished_constants
 from orbitfix.gen.timing.integrators import Integrator, get_integrator
 from orbitfix.gen.timing.step_size import Timing, plan_timing
@@ -105,7 +106,7 @@ def plan_step(model: Model, integrator: Integrator, step: float,
                             overflow=request.overflow, runtime=model.runtime_parameters,
                             path_steps=path_steps, extra_starts=extra_starts)
     refuse_vanished_constants(plan, model.name, model.rhythm.loop_hz / model.rhythm.cycle_hz)
-    return plan
+    return plan_outputs(model, plan, model.rhythm.loop_hz)
 
 
 def _refuse_slow_path(model: Model, operations: int, path_steps: int, extra: int = 0) -> None:

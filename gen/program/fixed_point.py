@@ -96,6 +96,10 @@ class FixedPointPlan:
     sure_bounds: tuple[tuple[float, float], ...] = ()
     box: tuple[tuple[float, float], ...] = ()
     trim: str = ""  # what a period trim changed (gen/study/trim.py); empty when untrimmed
+    # outputs to actuators (gen/program/outputs.py): the memory the init function gives each
+    # output, and the constants of the outputs' operations (indices into program.output_program)
+    initial_outputs: tuple[int, ...] = ()
+    output_constants: tuple[ConstantReport, ...] = ()
 
     def value_format(self, index: int) -> QFormat:
         return QFormat(self.program.word_bits, self.program.ops[index].fraction_bits)

@@ -172,3 +172,55 @@ def run(program: IntegerProgram, initial: np.ndarray, steps: int) -> np.ndarray:
         state = step(program, state)
         out[k + 1] = state[:, 0]
     return out
+
+
+def output_values(program: IntegerProgram, states: np.ndarray,
+                  memory: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The outputs from each NEW state of the batch and each output's memory (its last value):
+    (the new values y_k, clamp(u, min, max)), each int64 ndarray, shape (n_outputs, batch).
+    states : shape (n_states, batch); memory : shape (n_outputs, batch), each a word."""
+    section = program.output_program
+    states = np.asarray(states, dtype=np.int64)
+    memory = np.asarray(memory, dtype=np.int64).reshape(len(program.outputs), -1)
+    if section is None:
+        empty = np.zeros((0, states.shape[1]), dtype=np.int64)
+        return empty, empty
+    values = evaluate(section, np.vstack([states, memory]))
+    pick = lambda which: np.stack([values[getattr(o, which)] for o in program.outputs]).astype(  # noqa: E731
+        np.int64, copy=False)
+    return pick("value"), pick("limited")
+
+
+def initial_outputs(program: IntegerProgram, state: np.ndarray) -> np.ndarray:
+    """The memory the init function gives each output: clamp(u, min, max) of ``state`` (the
+    initial state), int64 ndarray, shape (n_outputs,)."""
+    state = np.asarray(state, dtype=np.int64).reshape(-1, 1)
+    return output_values(program, state, np.zeros((len(program.outputs), 1), dtype=np.int64))[1][:, 0]
+
+
+def step_with_outputs(program: IntegerProgram, states: np.ndarray, memory: np.ndarray,
+                      counts: np.ndarray | None = None
+                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """One step from each state of the batch as the firmware takes it: the next states, the
+    outputs' new values from them (and from ``memory``, each output's last value, shape
+    (n_outputs, batch)), and, given ``counts``, the counts of saturated steps after the step."""
+    if counts is None:
+        after = step(program, states)
+        counted = None
+    else:
+        after, counted = step_counted(program, states, counts)
+    return after, output_values(program, after, memory)[0], counted
+
+
+def run_with_outputs(program: IntegerProgram, initial: np.ndarray, memory: np.ndarray,
+                     steps: int) -> tuple[np.ndarray, np.ndarray]:
+    """``run`` with the outputs: (the states, shape (steps + 1, n_states); the outputs, shape
+    (steps + 1, n_outputs)), row k after k steps (row 0: ``initial`` and ``memory``)."""
+    states = run(program, initial, steps)
+    outputs = np.empty((steps + 1, len(program.outputs)), dtype=np.int64)
+    outputs[0] = np.asarray(memory, dtype=np.int64)
+    last = outputs[0].reshape(-1, 1)
+    for k in range(steps):
+        last = output_values(program, states[k + 1].reshape(-1, 1), last)[0]
+        outputs[k + 1] = last[:, 0]
+    return states, outputs

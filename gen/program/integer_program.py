@@ -41,6 +41,27 @@ state does not use (the firmware does not compute it). Beside its states, the
 firmware keeps a count of saturated steps, an unsigned integer of ``SATURATION_COUNT_BITS`` that
 starts at 0 and sticks at its largest value (``next_saturation_count``). The count is not a state:
 no value of the step reads it.
+
+Outputs to actuators. A program may carry outputs (``outputs``, one ``OutputSlot`` each) and
+their operations, ``output_program``: a program of its own that loads the step's states and
+then one memory per output, and whose ``next_state`` is the states unchanged and then each
+output's new value. After each step, from the NEW state x and the outputs' memories y_{k-1}
+(the values the last step left), each output computes, in its own format covering [min, max]
+in the actuator's unit:
+
+    u_k = offset + scale * value(x)
+    without a slew limit:  y_k = clamp(u_k, min, max)
+    with slew s (actuator units per second) at the loop period dt (s):
+        y_k = clamp(y_{k-1} + clamp(u_k - y_{k-1}, -s*dt, +s*dt), min, max)
+
+where the memory y_{k-1} is first held in [min, max] (it always is, unless written by hand), and
+every clamp is a ``max`` then a ``min`` operation with stored limits: always computed, never
+proven away. The firmware keeps y_k beside the state, as the output's field; the init function
+sets it to clamp(u, min, max) of the initial state (``OutputSlot.limited``), so the first step
+does not ramp from zero. Every other result of the outputs is proven to fit the word from the
+range the step's next state can take (the planner refuses outputs it cannot prove), so no
+output's arithmetic clamps at the word, and a limit that acts is the intended behaviour, never a
+saturated step: the outputs leave the next state and the count of saturated steps alone.
 """
 
 from __future__ import annotations
@@ -117,6 +138,30 @@ class Op:
 
 
 @dataclass(frozen=True)
+class OutputSlot:
+    """One output of the program: where its values are in ``output_program`` and its format.
+
+    limited -- the value clamp(u, min, max) (the memory the init function sets); value -- the
+    output's new value y_k; low, high -- the sure integer range of y_k (its limits as stored);
+    slew_step -- the largest change per step in real actuator units (None: no slew limit).
+    """
+
+    name: str
+    unit: str
+    fraction_bits: int
+    limited: int
+    value: int
+    low: int
+    high: int
+    slew_step: float | None = None
+
+    def to_json(self) -> dict:
+        return {"name": self.name, "unit": self.unit, "fraction_bits": self.fraction_bits,
+                "limited": self.limited, "value": self.value, "low": self.low, "high": self.high,
+                "slew_step": self.slew_step}
+
+
+@dataclass(frozen=True)
 class IntegerProgram:
     """A step function x[k+1] = F(x[k]) as straight-line integer operations.
 
@@ -136,6 +181,8 @@ class IntegerProgram:
     state_fraction_bits: tuple[int, ...] = field(default=())
     model_states: int = 0
     angle_states: tuple[int, ...] = ()
+    outputs: tuple[OutputSlot, ...] = ()
+    output_program: IntegerProgram | None = None
 
     def __post_init__(self) -> None:
         if self.word_bits not in WORD_SIZES:
@@ -213,7 +260,10 @@ class IntegerProgram:
         return [(i, op) for i, op in enumerate(self.ops) if kind_of(op.kind).constant_role]
 
     def to_json(self) -> dict:
+        outputs = {"outputs": [o.to_json() for o in self.outputs],
+                   "output_program": self.output_program.to_json()} if self.outputs else {}
         return {
+            **outputs,
             "name": self.name,
             "state_names": list(self.state_names),
             "word_bits": self.word_bits,

@@ -335,3 +335,72 @@ def evaluate_real(program: IntegerProgram, states: np.ndarray) -> list[np.ndarra
         value = kind_of(op.kind).real(op, [values[i] for i in op.args], states)
         values.append(angles.wrap_turns(value) if op.wraps else value)
     return values
+
+
+def lower_outputs(model: Model, program: IntegerProgram,
+                  loop_hz: float) -> tuple[IntegerProgram, list[tuple[int, int]]]:
+    """The outputs of ``model`` as their own straight-line program (see ``integer_program``): it
+    loads the states of ``program`` (read as the NEW state) and one memory per output, and its
+    ``next_state`` is the states unchanged, each output's new value y_k, then each output's
+    clamp(u, min, max) (that last part only for the planner, which gives it the output's format;
+    ``gen/program/outputs.py`` drops it). Returns the section and, per output, the indices of
+    (clamp(u, min, max), y_k)."""
+    builder = _Builder(model)
+    names = program.state_names
+    loads = [builder.add(Op("state", state=i, note=f"{name}, after the step"))
+             for i, name in enumerate(names)]
+    builder.angles.update(loads[i] for i in program.angle_states)
+    runtime = model.runtime_parameters
+    n = program.model_state_count
+    builder.parameters = {sympy.Symbol(p.name, real=True): loads[n + 2 * k]
+                          for k, p in enumerate(runtime)}
+    memories = [builder.add(Op("state", state=len(names) + j, note=f"{o.name}, its last value"))
+                for j, o in enumerate(model.outputs)]
+    table = {**builder.parameters, **dict(zip(builder.symbols, loads[:n], strict=True))}
+    found = []
+    for output, memory in zip(model.outputs, memories, strict=True):
+        name = output.name
+        first = len(builder.ops)
+        value = builder.expression(model.output_expression(output), table, {}, 0, name)
+        for index in range(first, len(builder.ops)):
+            op = builder.ops[index]
+            builder.ops[index] = replace(op, note=op.note.replace("stage 0:", f"output {name}:", 1))
+        if value in builder.angles:
+            raise UnsupportedError(f"model '{model.name}', [outputs] '{name}': the value is an "
+                                   "angle itself, which wraps at a full turn; give the actuator "
+                                   "sin or cos of it, or another state")
+        unit = f" {output.unit}" if output.unit else ""
+        scaled = builder.scaled(value, Fraction(output.scale), f"{name}: scale * value, in{unit}")
+        if output.offset:
+            offset = builder.constant(Fraction(output.offset), f"{name}: offset")
+            scaled = builder.add(Op("add", (scaled, offset),
+                                    note=f"{name}: u = offset + scale * value, in{unit}"))
+        low = builder.constant(Fraction(output.low), f"{name}: min")
+        high = builder.constant(Fraction(output.high), f"{name}: max")
+
+        def clamp(x: int, what: str, limits: tuple[int, int] = (low, high), name: str = name) -> int:
+            held = builder.add(Op("max", (x, limits[0]), note=f"{name}: {what}, at least min"))
+            return builder.add(Op("min", (held, limits[1]), note=f"{name}: {what}, at most max"))
+
+        limited = clamp(scaled, "u")
+        if output.slew is None:
+            found.append((limited, limited))
+            continue
+        step = Fraction(output.slew) / Fraction(loop_hz)
+        last = clamp(memory, "last value")
+        change = builder.add(Op("sub", (scaled, last), note=f"{name}: u less its last value"))
+        change = builder.add(Op("max", (change, builder.constant(-step, f"{name}: largest fall per "
+                                                                         "step")),
+                                note=f"{name}: change, at least the largest fall"))
+        change = builder.add(Op("min", (change, builder.constant(step, f"{name}: largest rise per "
+                                                                        "step")),
+                                note=f"{name}: change, at most the largest rise"))
+        moved = builder.add(Op("add", (last, change), note=f"{name}: last value plus the change"))
+        found.append((limited, clamp(moved, "new value")))
+    next_state = (*loads, *(y for _, y in found), *(c for c, _ in found))
+    section = IntegerProgram(name=f"{model.name} outputs",
+                             state_names=names + tuple(f"{o.name}_memory" for o in model.outputs),
+                             ops=tuple(builder.ops), next_state=next_state,
+                             model_states=program.model_state_count,
+                             angle_states=program.angle_states)
+    return section, found
