@@ -21,6 +21,7 @@ from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import SATURATION_COUNT_BITS, IntegerProgram, Op
 from orbitfix.gen.program.operations import KINDS, CSite, int_literal, kind_of
+from orbitfix.gen.program.outputs import output_bounds
 from orbitfix.gen.program.proven_fit import held_ranges, value_bounds
 from orbitfix.gen.safety import SAFETY_NOTE
 from orbitfix.gen.timing.integrators import Integrator
@@ -48,6 +49,12 @@ void orbitfix_harness_trace_each(const int32_t *in, int32_t *out, int32_t *trace
 void orbitfix_harness_trace_each_counted(const int32_t *in, int32_t *out, int32_t *trace,
                                          uint32_t *saturated, size_t count);
 void orbitfix_harness_set(const int32_t *in, int32_t *out, size_t which, int32_t target);
+void orbitfix_harness_outputs_init(int32_t *memory);
+void orbitfix_harness_step_outputs(const int32_t *in, const int32_t *memory_in, int32_t *out,
+                                   int32_t *memory_out, size_t count);
+void orbitfix_harness_run_outputs(int32_t *state_io, int32_t *memory_io, size_t steps,
+                                  int32_t *record, int32_t *memory_record);
+size_t orbitfix_harness_output_count(void);
 size_t orbitfix_harness_setter_count(void);
 size_t orbitfix_harness_state_count(void);
 size_t orbitfix_harness_trace_length(void);
@@ -59,6 +66,8 @@ class CConstant:
     name: str
     literal: str
     comment: str
+    stored: int = 0
+    fraction_bits: int = 0
 
 
 def environment() -> jinja2.Environment:
@@ -137,11 +146,21 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     names = CNames(model.name)
     program = plan.program
     kept = set(range(len(program.ops))) if traced else set(program.kept_values)
-    constants, constant_of = _constants(plan, kept)
+    constants, constant_of = _constants(plan.constants, kept, program.word_bits)
     tables, table_of = _tables(program, kept)
     word_type, wide_type = f"int{program.word_bits}_t", f"int{program.product_bits}_t"
     ops = [op for i, op in enumerate(program.ops) if i in kept]
     bounds = value_bounds(program, held_ranges(program))[0]
+    section = program.output_program
+    output_kept = _output_values(program)
+    output_symbols = {}
+    if section is not None:
+        output_symbols = _constants(plan.output_constants, output_kept, program.word_bits,
+                                    constants)[1]
+        output_symbols.update(_tables(section, output_kept, tables)[1])
+    output_ops = [section.ops[i] for i in sorted(output_kept)] if section is not None else []
+    section_bounds = output_bounds(program) if section is not None else []
+    all_ops = ops + output_ops
     return {
         "names": names,
         "version": __version__,
@@ -153,10 +172,10 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "integrator": integrator,
         "plan": plan,
         "program": program,
-        "helpers": _helpers(program, ops, names.prefix, word_type, wide_type),
-        "uses_wrap": any(op.wraps or op.proven for op in ops),
+        "helpers": _helpers(program, ops, names.prefix, word_type, wide_type, output_ops),
+        "uses_wrap": any(op.wraps or op.proven for op in all_ops),
         # a result brought into the word by the program's overflow rule, not by wrapping
-        "uses_fit": any(kind_of(op.kind).fit_wraps(op) is False for op in ops),
+        "uses_fit": any(kind_of(op.kind).fit_wraps(op) is False for op in all_ops),
         "uses_held": any(op.held for op in ops),
         "held_ranges": [{"field": names.field(program.state_names[op.state]), "low": op.held[0],
                          "high": op.held[1],
@@ -191,6 +210,16 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "value_count": len(program.ops),
         "next_state": [{"field": names.field(n), "value": f"v{i}"}
                        for n, i in zip(program.state_names, program.next_state, strict=True)],
+        "outputs": _output_fields(model, plan, names),
+        "output_values": [] if section is None else [
+            _value_line(i, section.ops[i], names, section, output_symbols,
+                        section_bounds, prefix="o", counted=frozenset(),
+                        spare="outputs_clamped")
+            for i in sorted(output_kept)],
+        # an output's table lookup clamps inside its helper (never acting: a table's entries are
+        # words); the flag it sets is not counted
+        "outputs_clamp_flag": section is not None and any(section.clamps(section.ops[i])
+                                                           for i in output_kept),
         "safety": SAFETY_NOTE,
         "rounding_words": ROUNDING_WORDS[program.rounding],
         "overflow_words": OVERFLOW_WORDS[program.overflow].format(bits=program.word_bits),
@@ -199,12 +228,15 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
 
 
 def _helpers(program: IntegerProgram, ops: list[Op], prefix: str, word_type: str,
-             wide_type: str) -> list[dict]:
+             wide_type: str, output_ops: list[Op] = ()) -> list[dict]:
     """The C helper functions of the kinds that compute a value whole (a table lookup), once
     each, in the registry's order. A helper whose result the program clamps
-    (``IntegerProgram.clamps``) takes the step's saturation flag."""
+    (``IntegerProgram.clamps``) takes the step's saturation flag (or the outputs' own flag)."""
     unsigned = f"uint{program.word_bits}_t"
     used = {kind_of(op.kind).c_helper: program.clamps(op) for op in ops}
+    for op in output_ops:
+        helper = kind_of(op.kind).c_helper
+        used[helper] = used.get(helper, False) or program.output_program.clamps(op)
     helpers = dict.fromkeys(kind.c_helper for kind in KINDS.values()
                             if kind.c_helper is not None and kind.c_helper in used)
     return [helper.render(prefix, word_type, wide_type, unsigned, used[helper]) for helper in helpers]
@@ -220,7 +252,41 @@ def render_host_harness(model: Model, program: IntegerProgram) -> str:
         saturation_field=names.saturation_field,
         count=len(program.state_names), version=__version__, word_type=f"int{word_bits}_t",
         declarations=HARNESS_DECLARATIONS,
-        setters=[names.setter(p.name) for p in model.runtime_parameters])
+        setters=[names.setter(p.name) for p in model.runtime_parameters],
+        outputs=[names.field(o.name) for o in program.outputs])
+
+
+def _output_values(program: IntegerProgram) -> set[int]:
+    """The values of the outputs' program each output's new value depends on (all but the loads
+    nothing reads): what the step computes for the outputs."""
+    section = program.output_program
+    if section is None:
+        return set()
+    kept = {o.value for o in program.outputs}
+    for index in range(len(section.ops) - 1, -1, -1):
+        if index in kept:
+            kept.update(section.ops[index].args)
+    return kept
+
+
+def _output_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dict]:
+    """The state struct's output fields: each output's latest value, in its own format."""
+    program = plan.program
+    declared = {o.name: o for o in model.outputs}
+    fields = []
+    for slot, initial in zip(program.outputs, plan.initial_outputs, strict=True):
+        output = declared[slot.name]
+        f = slot.fraction_bits
+        unit = output.unit or "the actuator's unit"
+        fields.append({
+            "field": names.field(slot.name), "value": f"o{slot.value}", "macro": names.macro(slot.name),
+            "fraction_bits": f, "format": f"Q{program.word_bits - f}.{f}", "unit": comment_text(unit),
+            "meaning": comment_text(output.meaning or f"output {slot.name}"),
+            "expression": comment_text(f"{output.offset:g} + {output.scale:g} * ({output.value})"),
+            "low": slot.low, "high": slot.high, "low_real": output.low, "high_real": output.high,
+            "slew": output.slew, "initial": int_literal(initial, program.word_bits),
+            "initial_real": initial / 2.0 ** f})
+    return fields
 
 
 def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dict]:
@@ -244,10 +310,12 @@ def _state_fields(model: Model, plan: FixedPointPlan, names: CNames) -> list[dic
                 program.state_fraction_bits, strict=True))]
 
 
-def _tables(program: IntegerProgram, kept: set[int]) -> tuple[list[dict], dict[int, str]]:
-    """One C array per distinct sine table of the kept values, in order of first use."""
-    tables: list[dict] = []
-    by_content: dict[tuple[int, ...], str] = {}
+def _tables(program: IntegerProgram, kept: set[int], tables: list[dict] | None = None
+            ) -> tuple[list[dict], dict[int, str]]:
+    """One C array per distinct sine table of the kept values, in order of first use; appended to
+    ``tables`` (sharing an equal table) when given."""
+    tables = [] if tables is None else tables
+    by_content: dict[tuple[int, ...], str] = {t["content"]: t["name"] for t in tables}
     table_of: dict[int, str] = {}
     for index, op in enumerate(program.ops):
         if not op.table or index not in kept:
@@ -256,7 +324,7 @@ def _tables(program: IntegerProgram, kept: set[int]) -> tuple[list[dict], dict[i
             name = f"sine_table{len(tables)}"
             by_content[op.table] = name
             fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
-            tables.append({"name": name, "length": len(op.table),
+            tables.append({"name": name, "length": len(op.table), "content": op.table,
                            "entries": [int_literal(v, program.word_bits) for v in op.table],
                            "comment": f"sin at {len(op.table) - 1} points of one turn (and the "
                                       f"first again), {fmt}, each rounded once"})
@@ -264,14 +332,14 @@ def _tables(program: IntegerProgram, kept: set[int]) -> tuple[list[dict], dict[i
     return tables, table_of
 
 
-def _constants(plan: FixedPointPlan, kept: set[int]) -> tuple[list[CConstant], dict[int, str]]:
+def _constants(reports: tuple, kept: set[int], bits: int, constants: list[CConstant] | None = None
+               ) -> tuple[list[CConstant], dict[int, str]]:
     """One C constant per distinct stored value and format of the kept values, in order of first
-    use."""
-    constants: list[CConstant] = []
-    by_key: dict[tuple[int, int], str] = {}
+    use; appended to ``constants`` (sharing an equal one) when given."""
+    constants = [] if constants is None else constants
+    by_key: dict[tuple[int, int], str] = {(c.stored, c.fraction_bits): c.name for c in constants}
     constant_of: dict[int, str] = {}
-    bits = plan.program.word_bits
-    for report in plan.constants:
+    for report in reports:
         if report.index not in kept:
             continue
         key = (report.stored, report.format.fraction_bits)
@@ -281,7 +349,8 @@ def _constants(plan: FixedPointPlan, kept: set[int]) -> tuple[list[CConstant], d
             exact = "exact" if report.error == 0 else (
                 f"stands for {report.represents:.17g}, error {report.error:+.3g}")
             constants.append(CConstant(
-                name=name, literal=int_literal(report.stored, bits),
+                name=name, literal=int_literal(report.stored, bits), stored=report.stored,
+                fraction_bits=report.format.fraction_bits,
                 comment=comment_text(f"{report.real:.17g} in {report.format.name} "
                                      f"({report.role}, first use: {report.note}); {exact}")))
         constant_of[report.index] = by_key[key]
@@ -289,10 +358,15 @@ def _constants(plan: FixedPointPlan, kept: set[int]) -> tuple[list[CConstant], d
 
 
 def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
-                symbol_of: dict[int, str], bounds: list[tuple[int, int]]) -> dict:
-    saturated = (", &saturated" if index in program.counted_clamps else
-                 ", &unkept" if program.clamps(op) else "")
-    site = CSite(args=tuple(f"v{i}" for i in op.args), word_bits=program.word_bits,
+                symbol_of: dict[int, str], bounds: list[tuple[int, int]], prefix: str = "v",
+                counted: frozenset[int] | None = None, spare: str = "unkept") -> dict:
+    """One value's C line: ``prefix`` names the values (v for the step's, o for the outputs');
+    a clamp of a value in ``counted`` (default: the program's counted clamps) sets the step's
+    flag, any other clamp the flag called ``spare``."""
+    counted = program.counted_clamps if counted is None else counted
+    saturated = (", &saturated" if index in counted else
+                 f", &{spare}" if program.clamps(op) else "")
+    site = CSite(args=tuple(f"{prefix}{i}" for i in op.args), word_bits=program.word_bits,
                  wide=f"int{program.product_bits}_t", word=f"int{program.word_bits}_t",
                  prefix=names.prefix,
                  symbol=symbol_of.get(index, ""),
@@ -314,7 +388,7 @@ def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
         else:
             expression = f"{names.prefix}_fit_word({exact}{saturated})"
     why = ", proven to fit" if op.proven else ""
-    return {"name": f"v{index}", "index": index, "expression": expression,
+    return {"name": f"{prefix}{index}", "index": index, "expression": expression,
             "note": comment_text(f"{fmt}{why}, {op.note}")}
 
 

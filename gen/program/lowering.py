@@ -399,7 +399,7 @@ def lower_outputs(model: Model, program: IntegerProgram,
         found.append((limited, clamp(moved, "new value")))
     next_state = (*loads, *(y for _, y in found), *(c for c, _ in found))
     section = IntegerProgram(name=f"{model.name} outputs",
-                             state_names=names + tuple(f"{o.name}_memory" for o in model.outputs),
+                             state_names=names + tuple(o.name for o in model.outputs),
                              ops=tuple(builder.ops), next_state=next_state,
                              model_states=program.model_state_count,
                              angle_states=program.angle_states)

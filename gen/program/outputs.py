@@ -18,7 +18,7 @@ from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import FixedPointPlan, _fill, integer_bits_for
-from orbitfix.gen.program.integer_program import OutputSlot
+from orbitfix.gen.program.integer_program import IntegerProgram, OutputSlot
 from orbitfix.gen.program.lowering import lower_outputs
 from orbitfix.gen.program.operations import kind_of
 from orbitfix.gen.program.proven_fit import held_ranges, value_bounds
@@ -36,8 +36,7 @@ def plan_outputs(model: Model, plan: FixedPointPlan, loop_hz: float) -> FixedPoi
     w, margin = program.word_bits, plan.margin
     section, found = lower_outputs(model, program, loop_hz)
     n, m = len(program.state_names), len(model.outputs)
-    bounds, _ = value_bounds(program, held_ranges(program))
-    reached = [bounds[i] for i in program.next_state]  # the next state's sure integer range
+    reached = next_state_ranges(program)
     low = [-0.5 if i in program.angle_states else lo / 2.0 ** f
            for i, ((lo, _), f) in enumerate(zip(reached, program.state_fraction_bits, strict=True))]
     high = [0.5 if i in program.angle_states else hi / 2.0 ** f
@@ -63,8 +62,8 @@ def plan_outputs(model: Model, plan: FixedPointPlan, loop_hz: float) -> FixedPoi
                       rounding=program.rounding, overflow=program.overflow,
                       state_fraction_bits=tuple(state_formats[:n + m]),
                       next_state=section.next_state[:n + m])
-    ranges = [*reached, *([(program.word_min, program.word_max)] * m)]
-    checked, proven = value_bounds(replace(planned, overflow="saturate"), ranges)
+    checked, proven = value_bounds(replace(planned, overflow="saturate"),
+                                   _section_ranges(program, reached, m))
     for index, op in enumerate(planned.ops):
         kind = kind_of(op.kind)
         if kind.fit_wraps(op) is None or op.wraps or not kind.provable or index in proven:
@@ -96,3 +95,23 @@ def plan_outputs(model: Model, plan: FixedPointPlan, loop_hz: float) -> FixedPoi
     initial = golden.initial_outputs(program, np.asarray(plan.initial_state, dtype=np.int64))
     return replace(plan, program=program, initial_outputs=tuple(int(v) for v in initial),
                    output_constants=tuple(constants))
+
+
+def next_state_ranges(program: IntegerProgram) -> list[tuple[int, int]]:
+    """The sure integer range of each state after one step from the held ranges: what the
+    outputs may read."""
+    bounds, _ = value_bounds(program, held_ranges(program))
+    return [bounds[i] for i in program.next_state]
+
+
+def _section_ranges(program: IntegerProgram, reached: list[tuple[int, int]],
+                    outputs: int) -> list[tuple[int, int]]:
+    return [*reached, *([(program.word_min, program.word_max)] * outputs)]
+
+
+def output_bounds(program: IntegerProgram) -> list[tuple[int, int]]:
+    """Sure integer bounds of every value of ``program.output_program`` (each output's memory
+    anywhere in the word), which the C's sums in the word read."""
+    section = program.output_program
+    ranges = _section_ranges(program, next_state_ranges(program), len(program.outputs))
+    return value_bounds(section, ranges)[0]
