@@ -116,6 +116,10 @@ class BitExactReport:
     # the C's count of saturated steps at the end of the trajectory from the init state (None:
     # the trajectory was not run to its end)
     trajectory_saturated_steps: int | None = None
+    # outputs to actuators: random states (each with random memories) and trajectory steps whose
+    # every output value the C and golden agreed on
+    output_states_compared: int = 0
+    output_steps_compared: int = 0
 
     @property
     def bit_exact(self) -> bool:
@@ -272,7 +276,104 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
     if report.first_mismatch is None:
         report.trajectory_saturated_steps = count
     report.seconds["trajectory"] = time.perf_counter() - started
+    if report.first_mismatch is None and program.outputs:
+        started = time.perf_counter()
+        report.first_mismatch = _check_outputs(program, host, initial, typical, states, steps,
+                                               block, seed, report)
+        report.seconds["outputs"] = time.perf_counter() - started
     return report
+
+
+def random_memories(program: IntegerProgram, count: int, rng: np.random.Generator) -> np.ndarray:
+    """Memories (last values) of the outputs to step from: mostly inside each output's limits,
+    some anywhere in the word and at its edges (a memory written by hand), some at the limits
+    themselves. Returns int64 ndarray, shape (n_outputs, count)."""
+    low = np.array([o.low for o in program.outputs], dtype=np.int64).reshape(-1, 1)
+    high = np.array([o.high for o in program.outputs], dtype=np.int64).reshape(-1, 1)
+    m = len(program.outputs)
+    inside = rng.integers(low, high, size=(m, count), endpoint=True)
+    anywhere = rng.integers(program.word_min, program.word_max, size=(m, count), endpoint=True)
+    at_limits = np.where(rng.random((m, count)) < 0.5, low, high)
+    pick = rng.random((1, count))
+    return np.where(pick < 0.6, inside, np.where(pick < 0.8, anywhere, at_limits)).astype(np.int64)
+
+
+def _output_mismatch(program: IntegerProgram, part: str, step: int, state: np.ndarray,
+                     memory: np.ndarray, want: np.ndarray, got: np.ndarray, why: str) -> Mismatch:
+    wrong = [o.name for o, a, b in zip(program.outputs, want, got, strict=True) if a != b]
+    return Mismatch(part=part, step=step, state_before=[int(v) for v in state],
+                    expected=[int(v) for v in want], got=[int(v) for v in got], operation=None,
+                    units=state_units(program),
+                    reason=f"output {', '.join(wrong) or '?'} differs ({why}; memories before: "
+                           f"{[int(v) for v in memory]}): expected {[int(v) for v in want]}, got "
+                           f"{[int(v) for v in got]}")
+
+
+def _check_outputs(program: IntegerProgram, host: HostModule, initial: np.ndarray,
+                   typical: np.ndarray, states: int, steps: int, block: int, seed: int,
+                   report: BitExactReport) -> Mismatch | None:
+    """Every output value of the C against golden: the memories the init function sets; one step
+    from random states each with random memories (the next state and every output compared);
+    and the run from the initial state, every step's outputs compared with golden's from the
+    C's own state and memories (the states themselves are compared by the trajectory part)."""
+    ffi, m, n = host.ffi, len(program.outputs), len(program.state_names)
+    count = int(host.lib.orbitfix_harness_output_count())
+    if count != m:
+        raise InputError(f"the C has {count} outputs but the model has {m}; the sources belong to "
+                         "another model")
+    got = np.zeros(m, dtype=np.int32)
+    host.lib.orbitfix_harness_outputs_init(ffi.from_buffer("int32_t[]", got))
+    want = golden.initial_outputs(program, initial)
+    if not np.array_equal(got.astype(np.int64), want):
+        return _output_mismatch(program, "init", 0, initial, want, want, got,
+                                "the init function must set clamp(u, min, max) of the initial state")
+    rng = np.random.default_rng(seed + 1)
+    for first in range(0, states, CHUNK):
+        tell("comparing the outputs from random states, C against golden", first, states)
+        size = min(CHUNK, states - first)
+        batch = random_states(program, size, typical, rng)
+        memory = random_memories(program, size, rng)
+        flat_in = np.ascontiguousarray(batch.T, dtype=np.int32)
+        flat_memory = np.ascontiguousarray(memory.T, dtype=np.int32)
+        out, out_memory = np.empty_like(flat_in), np.empty_like(flat_memory)
+        host.lib.orbitfix_harness_step_outputs(
+            ffi.from_buffer("int32_t[]", flat_in), ffi.from_buffer("int32_t[]", flat_memory),
+            ffi.from_buffer("int32_t[]", out), ffi.from_buffer("int32_t[]", out_memory), size)
+        after, outputs, _ = golden.step_with_outputs(program, batch, memory)
+        wrong = np.any(out.T != after, axis=0) | np.any(out_memory.T != outputs, axis=0)
+        if np.any(wrong):
+            j = int(np.flatnonzero(wrong)[0])
+            return _output_mismatch(program, "outputs, random states", first + j, batch[:, j],
+                                    memory[:, j], outputs[:, j], out_memory[j],
+                                    "one step from a random state and random memories")
+        report.output_states_compared = first + size
+    state, memory = initial.copy(), want.copy()
+    done = 0
+    while done < steps:
+        tell("comparing the outputs along the trajectory, C against golden", done, steps)
+        size = min(block, steps - done)
+        io = np.ascontiguousarray(state, dtype=np.int32).copy()
+        memory_io = np.ascontiguousarray(memory, dtype=np.int32).copy()
+        record = np.empty((size, n), dtype=np.int32)
+        memory_record = np.empty((size, m), dtype=np.int32)
+        host.lib.orbitfix_harness_run_outputs(
+            ffi.from_buffer("int32_t[]", io), ffi.from_buffer("int32_t[]", memory_io), size,
+            ffi.from_buffer("int32_t[]", record), ffi.from_buffer("int32_t[]", memory_record))
+        record, memory_record = record.astype(np.int64), memory_record.astype(np.int64)
+        before = np.vstack([memory.reshape(1, -1), memory_record[:-1]])
+        for first in range(0, size, CHUNK):
+            part = slice(first, min(size, first + CHUNK))
+            expected = golden.output_values(program, record[part].T, before[part].T)[0]
+            wrong = np.flatnonzero(np.any(expected != memory_record[part].T, axis=0))
+            if wrong.size:
+                k = first + int(wrong[0])
+                return _output_mismatch(program, "outputs, trajectory", done + k + 1, record[k],
+                                        before[k], expected[:, int(wrong[0])], memory_record[k],
+                                        "after this step of the run from the initial state")
+        done += size
+        report.output_steps_compared = done
+        state, memory = io.astype(np.int64), memory_io.astype(np.int64)
+    return None
 
 
 def _check_proven_fits(program: IntegerProgram, count: int, seed: int) -> Mismatch | None:

@@ -24,6 +24,8 @@ def host_fields(outcome: HostCheck) -> dict[str, Any]:
         # the C's count of saturated steps (compared with golden's at every step) at the end of
         # the trajectory from the initial state
         "trajectory_saturated_steps": report.trajectory_saturated_steps,
+        "output_states_compared": report.output_states_compared,
+        "output_steps_compared": report.output_steps_compared,
         "sanitized": [{"compiler": run.compiler, "flags": [run.level, *SANITIZE_FLAGS],
                        "states_compared": run.states, "steps_compared": run.steps, "seconds": run.seconds,
                        "undefined_behaviour": run.undefined} for run in report.sanitized],
@@ -56,6 +58,10 @@ def host_lines(outcome: HostCheck) -> list[str]:
                    f", saturated steps counted: {report.trajectory_saturated_steps:,}")
         lines.append(f"trajectory from the initial state: {report.steps_compared:,} steps compared"
                      f"{counted}" + _seconds(report.seconds.get("trajectory")))
+    if "outputs" in report.seconds:
+        lines.append(f"outputs: {report.output_states_compared:,} random states (with random "
+                     f"memories) and {report.output_steps_compared:,} trajectory steps compared, "
+                     "every output value" + _seconds(report.seconds.get("outputs")))
     for run in report.sanitized:
         verdict = (f"undefined behaviour: {run.undefined}" if run.undefined else
                    f"{run.states:,} states and {run.steps:,} steps compared")
