@@ -21,7 +21,10 @@ from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
 from orbitfix.verify.cli.main import main
 from orbitfix.verify.proofs.bit_exact import random_memories
+from orbitfix.verify.proofs.drift import run_drift
+from orbitfix.verify.proofs.drift.harness import build_drift_module
 from orbitfix.verify.proofs.host_check import check_on_host
+from orbitfix.verify.report.drift import drift_json, drift_lines
 
 HOPF = dict(states={"x": 0.5, "y": 0.0},
             equations={"x": "(1 - x^2 - y^2) * x - 6.283185307179586 * y",
@@ -291,3 +294,75 @@ def test_an_edited_output_init_literal_is_caught(fin_drive, tmp_path: Path) -> N
     assert outcome.report.first_mismatch is not None
     assert outcome.report.first_mismatch.part == "init"
     assert "clamp(u, min, max)" in outcome.report.first_mismatch.reason
+
+
+# --- drift: ranges and limits over the long runs, at every runtime corner ----------------------
+
+
+@pytest.fixture(scope="module")
+def hip(tmp_path_factory):
+    """The shared runtime-parameter model with an output whose limits and slew act every cycle."""
+    path = tmp_path_factory.mktemp("hip") / "hip.toml"
+    path.write_text(HIP + HIP_OUTPUT)
+    return design(read_model_file(path))
+
+
+def test_outputs_stay_in_their_limits_over_drift_runs_at_every_runtime_corner(hip) -> None:
+    report = run_drift(hip, hours=0.02)
+    corners = [run for run in report.runs if "omega =" in run.start.name]
+    assert len(corners) == 2 ** len(hip.model.runtime_parameters)
+    slot = hip.plan.program.outputs[0]
+    for run in report.runs:
+        assert run.verdict == "pass" or not run.decides, run.reasons
+        (output,) = run.outputs
+        # C over the whole run, from every start: never outside [min, max]
+        assert slot.low <= output["low"] and output["high"] <= slot.high
+    by_start = {run.start.name: run.outputs[0] for run in report.runs}
+    # u swings from 60 to 120 deg, so both limits act every cycle where the output can follow;
+    # at omega = 9 the slew limit keeps it from swinging down to its lower limit (72.5 deg)
+    for name in ("nominal", "omega = 3"):
+        assert by_start[name]["at_min_steps"] > 0 and by_start[name]["at_max_steps"] > 0
+    assert by_start["omega = 9"]["at_min_steps"] == 0 < by_start["omega = 9"]["low"] - slot.low
+    # the slew limit (100 deg/s) acts where the swing moves faster: at omega = 6.28 and 9 rad/s
+    # (30 deg * omega at the middle), not at 3 rad/s (90 deg/s)
+    slewed = {run.start.name: run.outputs[0]["at_slew_steps"] for run in report.runs}
+    assert slewed["nominal"] > 0 and slewed["omega = 9"] > 0 and slewed["omega = 3"] == 0
+    lines = "\n".join(drift_lines(report))
+    assert "output hip: 70 to 110 deg" in lines and "moved by its slew step on" in lines
+    assert drift_json(report)["runs"][0]["outputs"][0]["name"] == "hip"
+
+
+def test_golden_outputs_keep_limits_and_slew_at_every_runtime_corner(hip) -> None:
+    # Golden from the initial state at each corner of omega's range (held there): the output never
+    # leaves its stored limits and never moves by more than slew / loop_hz plus one LSB of its
+    # format (common practice: a slew limiter's bound, one rounding step of slack).
+    plan, program = hip.plan, hip.plan.program
+    slot = program.outputs[0]
+    n = program.model_state_count
+    bits = program.state_fraction_bits[n]
+    lsb = 2.0 ** -slot.fraction_bits
+    for omega in (3.0, 9.0):
+        start = list(plan.initial_state[:n]) + [round(omega * 2 ** bits)] * 2
+        memory = golden.initial_outputs(program, np.array(start))
+        _, outputs = golden.run_with_outputs(program, start, memory, 1500)
+        assert outputs.min() >= slot.low and outputs.max() <= slot.high
+        moves = np.abs(np.diff(outputs[:, 0])) * lsb
+        assert moves.max() <= slot.slew_step + lsb
+        assert np.sum(outputs[:, 0] == slot.high) > 0
+
+
+def test_drift_catches_an_output_that_leaves_its_limits(hip) -> None:
+    # Seeded fault: the C's upper limit moved out by 1000 steps of the output's format; the
+    # drift runs in C must see the output above its declared limit and fail.
+    files = render_model(hip.model, hip.timing, hip.integrator, hip.plan)
+    report = next(c for c in hip.plan.output_constants if c.note == "hip: max")
+    source = files["hip.c"]
+    literal = f"INT32_C({report.stored})"
+    shift = max(0, report.format.fraction_bits - hip.plan.program.outputs[0].fraction_bits)
+    assert literal in source
+    files["hip.c"] = source.replace(literal, f"INT32_C({report.stored + (1000 << shift)})", 1)
+    host = build_drift_module(hip, files)
+    outcome = run_drift(hip, hours=0.02, host=host)
+    assert outcome.verdict == "fail"
+    assert any("output hip left its limits" in reason for run in outcome.runs
+               for reason in run.reasons)

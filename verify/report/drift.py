@@ -72,6 +72,7 @@ def drift_lines(report: DriftReport) -> list[str]:
                      + _maybe(events["first_step"], lambda v: f" (first at step {v:,})")
                      + f"; outside the planned range on "
                      f"{events['outside_planned_range']['count']:,} steps")
+        lines += [_output_line(output) for output in run.outputs]
         lines += [f"    reason: {reason}" for reason in run.reasons]
         if run.explanation:
             lines.append(f"    finding: {run.explanation}")
@@ -159,6 +160,7 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int,
         "reasons": list(run.reasons),
         "explanation": run.explanation,
         "equal_states": [list(pair) for pair in run.equal_states],
+        "outputs": [dict(output) for output in run.outputs],
         "seconds": run.seconds,
         **({"references": run.against} if run.against else {}),
     }
@@ -167,6 +169,17 @@ def run_json(run: DriftRun, fraction_bits: int, model_states: int,
 def tolerances_json(tolerances: DriftTolerances) -> dict:
     """The tolerances as plain data."""
     return asdict(tolerances)
+
+
+def _output_line(output: dict) -> str:
+    """One output over one run: its range and how often it met each limit."""
+    unit = f" {output['unit']}" if output["unit"] else ""
+    slew = ("" if output["at_slew_steps"] is None else
+            f", moved by its slew step on {output['at_slew_steps']:,}")
+    return (f"    output {output['name']}: {output['low_real']:.6g} to {output['high_real']:.6g}{unit}"
+            f" (stored {output['low']} to {output['high']}; limits {output['min']:.6g} to "
+            f"{output['max']:.6g}) over {output['steps']:,} steps; at min on "
+            f"{output['at_min_steps']:,}, at max on {output['at_max_steps']:,}{slew}")
 
 
 def _number(value: float | None) -> str:

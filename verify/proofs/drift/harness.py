@@ -9,6 +9,7 @@ angles, it compares states modulo that turn (:func:`turns_together`).
 
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass
 
@@ -34,6 +35,8 @@ void orbitfix_drift_run(const int32_t *start, uint64_t steps, uint64_t settle, u
                         int32_t *settle_state, uint8_t *apart);
 uint64_t orbitfix_drift_period(const int32_t *start, uint64_t budget, uint64_t *seen_at);
 uint64_t orbitfix_drift_cycle_start(const int32_t *start, uint64_t period, uint64_t budget);
+void orbitfix_drift_outputs(const int32_t *start, const int32_t *memory, uint64_t steps,
+                            int32_t *low, int32_t *high, uint64_t *hits);
 """
 
 # Slots of the harness's counts array (the enum at the top of drift_harness.c.j2).
@@ -87,7 +90,10 @@ def render_drift_harness(design: Design) -> str:
         declarations=DRIFT_DECLARATIONS, limits=design.plan.planned_limits(),
         angles=angles, section_state=section.state, section_angle=section.angle,
         section_sign=section.direction, section_text=text, together=together,
-        reference=min(program.angle_states) if together else 0)
+        reference=min(program.angle_states) if together else 0,
+        outputs=[{"field": names.field(o.name), "low": o.low, "high": o.high,
+                  "slew": 0 if o.slew_step is None else max(1, math.floor(
+                      o.slew_step * 2.0 ** o.fraction_bits))} for o in program.outputs])
 
 
 def build_drift_module(design: Design, sources: dict[str, str] | None = None) -> HostModule:
@@ -171,3 +177,38 @@ def crossing_time(before: list[int] | np.ndarray, after: list[int] | np.ndarray,
     num, den = found
     return step - 1 + num / den
 
+
+
+@dataclass(frozen=True)
+class OutputStatistics:
+    """One output over one run in C: its least and largest value (stored integers) and the steps
+    at which it sat at its lower limit, at its upper limit, and moved by its slew step (a move
+    of at least the slew step rounded down to whole LSBs; 0 without a slew limit)."""
+
+    name: str
+    low: int
+    high: int
+    at_min: int
+    at_max: int
+    at_slew: int
+
+
+def output_statistics(host: HostModule, program, start: tuple[int, ...], memory: tuple[int, ...],
+                      steps: int) -> list[OutputStatistics]:
+    """The outputs over ``steps`` plain steps in C from ``start`` and the outputs' ``memory``."""
+    m = len(program.outputs)
+    if not m:
+        return []
+    ffi = host.ffi
+    begin = np.array(start, dtype=np.int32)
+    last = np.array(memory, dtype=np.int32)
+    low, high = np.zeros(m, dtype=np.int32), np.zeros(m, dtype=np.int32)
+    hits = np.zeros(3 * m, dtype=np.uint64)
+    host.lib.orbitfix_drift_outputs(ffi.from_buffer("int32_t[]", begin),
+                                    ffi.from_buffer("int32_t[]", last), steps,
+                                    ffi.from_buffer("int32_t[]", low),
+                                    ffi.from_buffer("int32_t[]", high),
+                                    ffi.from_buffer("uint64_t[]", hits))
+    return [OutputStatistics(o.name, int(low[j]), int(high[j]), int(hits[3 * j]),
+                             int(hits[3 * j + 1]), int(hits[3 * j + 2]))
+            for j, o in enumerate(program.outputs)]

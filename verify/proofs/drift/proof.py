@@ -59,6 +59,8 @@ import numpy as np
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.plain_data import plain_number
+from orbitfix.gen.program import golden
+from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.study.section import (
     Section,
     amplitude_errors,
@@ -76,6 +78,7 @@ from orbitfix.verify.proofs.drift.harness import (
     drift_section,
     harness_statistics,
     integer_period,
+    output_statistics,
 )
 from orbitfix.verify.proofs.drift.references import (
     STEP_MAP_CYCLES,
@@ -160,6 +163,8 @@ class DriftRun:
     cycle_turns: float | None = None
     return_spread_bound: bool = False
     middle: list[float | None] = field(default_factory=list)  # each swinging state's mid-range
+    # per output to an actuator, over the run in C: its range and how often it met a limit
+    outputs: list[dict] = field(default_factory=list)
 
     @property
     def verdict(self) -> str:
@@ -358,7 +363,7 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
         equal_on_cycle=_equal_on_cycle(cycle.samples, program.angle_states))
     started = time.perf_counter()
     for start in starts:
-        report.runs.append(_one_run(report, host, start, program.overflow))
+        report.runs.append(_one_run(report, host, start, program.overflow, program))
     nominal = report.runs[0]
     for run in report.runs[1:]:
         if run.explanation and nominal.reasons and _same_cycle(run, nominal):
@@ -394,7 +399,8 @@ def _same_cycle(run: DriftRun, other: DriftRun) -> bool:
             and run.amplitude == other.amplitude and run.middle == other.middle)
 
 
-def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str) -> DriftRun:
+def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str,
+             program: IntegerProgram | None = None) -> DriftRun:
     """One run in C and its judgement against the references and the tolerances: on the exact
     integer cycle when one is found within the budget, else over --hours."""
     tol = report.tolerances
@@ -414,6 +420,8 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
     else:
         steps, settle, window = report.steps, report.settle_steps, report.window_steps
     stats = harness_statistics(host, start.state, steps, settle, window, report.section_level)
+    outputs, output_reasons = ([], []) if program is None else _outputs(
+        program, host, start, steps + (p if exact else 0))
     seconds = time.perf_counter() - started
     c = stats.counts
     advance = c["advance"] - (1 << 64) if c["advance"] >= 1 << 63 else c["advance"]
@@ -536,6 +544,7 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
                            f"than half a period of the continuous cycle "
                            f"({report.continuous_period_steps:.4g} steps): a spurious cycle")
 
+    reasons += output_reasons
     if c["limit_settled"]:
         reasons.append(f"an intermediate sat at the word's limit on {c['limit_settled']:,} steps "
                        f"{'of the integer cycle' if exact else 'after settling'} (saturation on the "
@@ -576,10 +585,37 @@ def _one_run(report: DriftReport, host: HostModule, start: Start, overflow: str)
         steps_to_cycle=mu if exact else None, cycle_length=p if exact else None,
         crossings_per_cycle=crossings_per_cycle, phase_drift_cycles_per_hour=per_hour,
         decides=start.decides, equal_states=equal, cycle_turns=cycle_turns,
-        return_spread_bound=spread_bound, middle=middle)
+        return_spread_bound=spread_bound, middle=middle, outputs=outputs)
     if reasons and not start.decides:
         run.explanation = explain(run, names)
     return run
+
+
+def _outputs(program: IntegerProgram, host: HostModule, start: Start,
+             steps: int) -> tuple[list[dict], list[str]]:
+    """Each output over ``steps`` plain steps in C from ``start``, its memory starting as the init
+    function sets it (clamp(u, min, max) of the start): its range, real and stored, and the steps
+    at its limits and its slew step; and a reason for every output that left its limits."""
+    if not program.outputs:
+        return [], []
+    memory = golden.initial_outputs(program, np.asarray(start.state, dtype=np.int64))
+    found, reasons = [], []
+    for slot, stats in zip(program.outputs,
+                           output_statistics(host, program, start.state, tuple(memory), steps),
+                           strict=True):
+        unit = 2.0 ** -slot.fraction_bits
+        found.append({"name": slot.name, "unit": slot.unit, "steps": steps,
+                      "low": stats.low, "high": stats.high, "low_real": stats.low * unit,
+                      "high_real": stats.high * unit, "min": slot.low * unit,
+                      "max": slot.high * unit, "at_min_steps": stats.at_min,
+                      "at_max_steps": stats.at_max,
+                      "at_slew_steps": stats.at_slew if slot.slew_step is not None else None})
+        if stats.low < slot.low or stats.high > slot.high:
+            reasons.append(f"output {slot.name} left its limits [{slot.low * unit:.6g}, "
+                           f"{slot.high * unit:.6g}] {slot.unit}: it reached {stats.low * unit:.6g} to "
+                           f"{stats.high * unit:.6g} (stored {stats.low} to {stats.high}, limits "
+                           f"{slot.low} to {slot.high}); do not ship this C")
+    return found, reasons
 
 
 def _closes(entry: list[int], end: list[int], angles: list[int], together: bool, word: int) -> bool:
