@@ -366,3 +366,22 @@ def test_drift_catches_an_output_that_leaves_its_limits(hip) -> None:
     assert outcome.verdict == "fail"
     assert any("output hip left its limits" in reason for run in outcome.runs
                for reason in run.reasons)
+
+
+@pytest.mark.slow
+def test_a_trimmed_design_replans_its_outputs_and_stays_bit_exact(tmp_path: Path) -> None:
+    # 16-bit Van der Pol rounding toward minus infinity is trimmed (its constants move), so the
+    # proven ranges of its next state may move too: the outputs are planned again on them.
+    from orbitfix.gen.study.trim import trim_design
+
+    (tmp_path / "hip.toml").write_text(HIP + HIP_OUTPUT)
+    model = replace(load_model("vanderpol").with_fixed_point(word_bits=16, rounding="truncate"),
+                    outputs=read_model_file(tmp_path / "hip.toml").outputs)
+    built = design(model)
+    trimmed, record = trim_design(built)
+    assert record.changed
+    assert trimmed.plan.program.outputs
+    assert trimmed.plan.program.output_program is not built.plan.program.output_program
+    outcome = check_on_host(trimmed, states=20_000, steps=20_000, sanitized_states=0)
+    assert outcome.report.bit_exact and outcome.report.output_steps_compared == 20_000
+

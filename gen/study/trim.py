@@ -50,6 +50,7 @@ from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.outputs import plan_outputs
 from orbitfix.gen.program.proven_fit import prove_fits
 from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.progress import tell
@@ -331,6 +332,8 @@ def trim_design(built: Design, budget: int | None = None,
         measure(list(range(max(low, -reach), min(high, reach) + 1)))
     best = _best(measured, error)
     trimmed = _trimmed_plan(built.plan, scaled_constants(program, carriers, lead, lead_stored + best))
+    # the outputs read the next state, whose proven ranges the new constants may move: re-plan them
+    trimmed = plan_outputs(built.model, trimmed, built.timing.loop_hz)
     changed = tuple(ChangedConstant(i, program.ops[i].note, _constant_format(built.plan, i),
                                     program.ops[i].constant, trimmed.program.ops[i].constant)
                     for i in carriers if trimmed.program.ops[i].constant != program.ops[i].constant)
