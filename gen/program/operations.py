@@ -278,6 +278,9 @@ class Const(OperationKind):
 
     def fill(self, op, bits, f_args, word_bits):
         stored = quantise(op.real, bits)
+        if op.wraps:  # an angle: it enters the word by wrapping, a whole turn is the same angle
+            half = 1 << (word_bits - 1)
+            return replace(op, constant=(stored + half) % (2 * half) - half)
         if abs(stored) > (1 << (word_bits - 1)) - 1:
             raise InputError(f"the constant {op.real:.6g} ({op.note}) does not fit "
                              f"Q{word_bits - bits}.{bits}")
@@ -547,8 +550,8 @@ _SINE_LOOKUP = CHelper(
     prelude=("const {unsigned} phase = ({unsigned})(({unsigned})angle + offset);",
              "const {unsigned} index = ({unsigned})(phase >> shift);",
              "const {unsigned} within = ({unsigned})(phase & ((({unsigned})1 << shift) - 1u));",
-             "const {wide} low = table[index];",
-             "const {wide} rise = ({wide})table[index + 1u] - low;"),
+             "const {wide} low = {PREFIX}_TABLE_ENTRY(table, index);",
+             "const {wide} rise = ({wide}){PREFIX}_TABLE_ENTRY(table, index + 1u) - low;"),
     comment="sin of an angle in turns (a word is one turn) plus offset, from a table of "
             "2^(word - shift) + 1 entries with linear interpolation. The phase is read as an "
             "unsigned word, so it wraps for free.")
