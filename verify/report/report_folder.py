@@ -94,7 +94,8 @@ def page_text(data: dict, computed: dict) -> str:
     left_out: list[str] = []
     built = computed.get("design")
     analysis = built.analysis if built is not None else computed.get("analysis")
-    model = analysis.model if analysis is not None else None
+    ran = analysis or computed.get("basin") or computed.get("sweep")
+    model = ran.model if ran is not None else None
     side = computed.get("side_by_side")
     if side is not None:
         from orbitfix.verify.report.plots import report_plots
@@ -104,7 +105,7 @@ def page_text(data: dict, computed: dict) -> str:
             left_out.append("No phase portrait: the model has one state.")
     else:
         left_out.append("No plots of the stepped run: the run stopped before the design was made.")
-    if model is not None and model.network is not None:
+    if analysis is not None and model.network is not None:
         plots += _network_plot(data, analysis, left_out)
     plots += _drawn_on_request(data, computed, model, left_out)
     from orbitfix.verify.report.plots import svg_text
