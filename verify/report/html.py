@@ -155,12 +155,12 @@ def report_html(data: dict, plots: Sequence[tuple[str, str, str, str]] = (),
                         ("worst phase error, integer against float (s)",
                          page.val("side_by_side.worst_phase_error_seconds"))])
         for plot_name, title, caption, svg in plots:
+            page.add(f'<figure id="plot-{esc(plot_name)}"><h3>{esc(title)}</h3>{svg}'
+                     f"<figcaption>{esc(caption)}</figcaption></figure>")
             if plot_name == "sweep":
                 _sweep_marks(page)
             elif plot_name == "basin":
                 _basin_outcomes(page)
-            page.add(f'<figure id="plot-{esc(plot_name)}"><h3>{esc(title)}</h3>{svg}'
-                     f"<figcaption>{esc(caption)}</figcaption></figure>")
         for sentence in left_out:
             page.para(esc(sentence), "note")
     page.add("<h2>Cautions</h2>")
@@ -526,10 +526,9 @@ SWEEP_MARKS = (("hopf", "H", "Hopf point"), ("folds", "F", "fold of cycles"),
 
 
 def _sweep_marks(page: Page) -> None:
-    """The sweep's labelled points (H1, F1, B1 as on its plot), before the plot."""
-    page.add("<h3>Parameter sweep</h3>")
+    """The sweep's labelled points (H1, F1, B1 as on its plot), under the plot."""
     name = esc(page.get("sweep.parameter"))
-    page.para(f"{name} from {page.val('sweep.from')} to {page.val('sweep.to')}; followed to the end: "
+    page.para(f"Swept {name} from {page.val('sweep.from')} to {page.val('sweep.to')}; followed to the end: "
               f"{page.val('sweep.complete')}" + (f" ({esc(page.get('sweep.reason'))})"
                                                   if page.get("sweep.reason") else ""))
     rows = []
@@ -549,8 +548,7 @@ def _sweep_marks(page: Page) -> None:
 
 
 def _basin_outcomes(page: Page) -> None:
-    """The basin sample's outcomes, before its plot."""
-    page.add("<h3>Basin sample</h3>")
+    """The basin sample's outcomes, under its plot."""
     box = ", ".join(f"{esc(n)} from {page.val(f'basin.box.{n}.0')} to {page.val(f'basin.box.{n}.1')}"
                     for n in page.get("basin.box") or {})
     page.para(f"{page.val('basin.starts')} starts with {box}; share reaching the cycle "
