@@ -32,7 +32,7 @@ SMALL = ["--states", "2000", "--steps", "2000"]
 ON_REQUEST = ["--sweep", "mu=0.5:1.5", "--sweep-samples", "5", "--basin", "x=-3:3", "--basin", "y=-3:3",
               "--basin-samples", "4"]
 UNITS = {"state units", "turns", "LSB", "s", "cycles", "model time units", "parameter units",
-         "per model time unit"}
+         "per model time unit", "radians"}
 
 
 class _Tagged(HTMLParser):
@@ -588,7 +588,7 @@ def test_a_network_page_draws_its_waveforms_with_the_jsons_lags() -> None:
     data = report_data("check", {"model": "quadruped_walk"}, {"analysis": analysis}, None, 0)
     page = page_text(data, {"analysis": analysis})
     network = data["analysis"]["network"]
-    assert 'id="plot-network-waveforms"' in page
+    assert 'id="plot-network-waveforms"' in page and "http" not in page
     for label, lag in zip(network["labels"], network["lags"], strict=True):
         assert f">{label}: lag {lag:.4f} cycles" in page  # the JSON's lag, written on its row
     model = analysis.model
@@ -623,3 +623,19 @@ def test_a_bad_sweep_or_basin_is_refused_before_any_work(tmp_path, capsys, argv,
     assert message in err
     data = json.loads((tmp_path / "out" / "report.json").read_text())
     assert "analysis" not in data and "sweep" not in data and message in data["error"]
+
+
+def test_a_model_without_a_stable_cycle_still_gets_its_sweep_and_says_why_it_has_no_basin(
+        tmp_path, capsys) -> None:
+    folder = tmp_path / "report"
+    code = main(["report", "vanderpol", "--set", "mu=-1", "-o", str(folder), "--sweep", "mu=-1:1",
+                 "--sweep-samples", "5", "--basin", "x=-1:1", "--basin-samples", "3"])
+    capsys.readouterr()
+    assert code == 1  # no stable cycle: the checks stop after the analysis
+    data = json.loads((folder / "report.json").read_text())
+    page = (folder / "report.html").read_text()
+    assert data["basin"] == {"error": f"no basin to sample: {data['analysis']['cycle']['verdict']}"}
+    assert len(data["sweep"]["hopf"]) == 1 and data["sweep"]["hopf"][0]["param_value"] == pytest.approx(
+        0.0, abs=1e-8)  # Van der Pol's rest state: eigenvalues (mu +- sqrt(mu^2 - 4)) / 2 (common practice)
+    assert 'id="plot-sweep"' in page and 'id="plot-basin"' not in page and "No basin plot" in page
+    assert "STOPPED" in page and mismatches(page, data) == [] and "http" not in page

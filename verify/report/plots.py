@@ -228,7 +228,7 @@ def sweep_plot(sweep: dict, angles: tuple[int, ...] = ()) -> Figure:
         _draw_runs(bottom, points, shown, "cycle")
     if not sweep.get("branches"):
         bottom.text(0.5, 0.5, "no cycle followed", transform=bottom.transAxes, ha="center", va="center")
-    bottom.set_ylabel(f"cycle amplitude of {first} ({unit_of(angles, 0)})")
+    bottom.set_ylabel(f"cycle amplitude of {first} ({'radians' if 0 in angles else STATE_UNITS})")
     for axes in (top, bottom):
         axes.set_xlabel(f"{name} ({PARAMETER_UNITS})")
     what = {"hopf": "Hopf point", "folds": "fold of cycles", "branch_points": "branch point"}
