@@ -578,26 +578,28 @@ def lags_off(figure) -> list[str]:
     return wrong
 
 
-def test_a_network_page_draws_its_waveforms_with_the_jsons_lags() -> None:
+@pytest.mark.parametrize("name", ["quadruped_walk", "phase_chain"])  # first states; phase states
+def test_a_network_page_draws_its_waveforms_with_the_jsons_lags(name) -> None:
     from orbitfix.gen.analysis.summary import analyse
     from orbitfix.gen.model.model_file import load_model
     from orbitfix.verify.report.plots import network_waveforms
     from orbitfix.verify.report.report_folder import page_text, report_data
 
-    analysis = analyse(load_model("quadruped_walk"))
-    data = report_data("check", {"model": "quadruped_walk"}, {"analysis": analysis}, None, 0)
+    analysis = analyse(load_model(name))
+    data = report_data("check", {"model": name}, {"analysis": analysis}, None, 0)
     page = page_text(data, {"analysis": analysis})
     network = data["analysis"]["network"]
     assert 'id="plot-network-waveforms"' in page and "http" not in page
     for label, lag in zip(network["labels"], network["lags"], strict=True):
         assert f">{label}: lag {lag:.4f} cycles" in page  # the JSON's lag, written on its row
     model = analysis.model
-    figure = network_waveforms(analysis.cycle.samples, model.network, model.state_names, (), network)
-    assert unlabelled(figure) == [] and len(figure.get_axes()) == 4
+    angles = tuple(i for i, s in enumerate(model.states) if s.angle)
+    figure = network_waveforms(analysis.cycle.samples, model.network, model.state_names, angles, network)
+    assert unlabelled(figure) == [] and len(figure.get_axes()) == len(network["labels"])
     assert lags_off(figure) == []
     # a wrong lag in the JSON is drawn away from where that oscillator rises, and is caught
     wrong = {**network, "lags": [network["lags"][0], network["lags"][1] + 0.05, *network["lags"][2:]]}
-    assert lags_off(network_waveforms(analysis.cycle.samples, model.network, model.state_names, (),
+    assert lags_off(network_waveforms(analysis.cycle.samples, model.network, model.state_names, angles,
                                       wrong)) != []
 
 

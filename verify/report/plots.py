@@ -14,6 +14,7 @@ import io
 import math
 import re
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import matplotlib
 import numpy as np
@@ -22,6 +23,11 @@ from matplotlib.ticker import MaxNLocator
 
 from orbitfix.gen.model.angles import radians_to_turns, wrap_turns
 from orbitfix.gen.study.side_by_side import SideBySide
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+
+    from orbitfix.gen.model.networks import NetworkLayout
 
 STATE_UNITS = "state units"  # the model files give states a meaning but no unit
 INTEGER = {"color": "#b8336a", "marker": "o", "s": 9, "label": "integer program (golden)"}
@@ -163,7 +169,7 @@ def _runs(points: list[tuple[float, float, bool]]) -> list[tuple[bool, list[floa
     return runs
 
 
-def _draw_runs(axes, points: list[tuple[float, float, bool]], shown: set, what: str) -> None:
+def _draw_runs(axes: Axes, points: list[tuple[float, float, bool]], shown: set, what: str) -> None:
     for stable, xs, ys in _runs(points):
         style = STABLE if stable else UNSTABLE
         name = f"stable {what}" if stable else f"unstable {what}"
@@ -289,7 +295,7 @@ def basin_plot(basin: dict, names: tuple[str, ...], angles: tuple[int, ...],
     return figure
 
 
-def phase_signal(layout, index: int) -> int:
+def phase_signal(layout: NetworkLayout, index: int) -> int:
     """The state an oscillator's phase is read from: its phase state when it has one, else its
     first state (whose upward crossings of its mean mark its phase)."""
     return layout.phases[index] if layout.phases is not None else layout.members[index][0]
@@ -317,8 +323,8 @@ def _first_rise(row: np.ndarray, angle: bool) -> float:
     return (k + before / (before - after)) / row.size
 
 
-def network_waveforms(cycle_samples: np.ndarray, layout, names: tuple[str, ...], angles: tuple[int, ...],
-                      network: dict) -> Figure:
+def network_waveforms(cycle_samples: np.ndarray, layout: NetworkLayout, names: tuple[str, ...],
+                      angles: tuple[int, ...], network: dict) -> Figure:
     """Each oscillator's phase-marking state over two cycles of the network's continuous cycle,
     stacked, time 0 at oscillator 1's rise; each oscillator's measured lag (from the network's JSON)
     marked where it should rise and written beside its wanted lag."""
