@@ -1,7 +1,7 @@
 """The report folder that ``orbitfix report MODEL -o DIR`` and ``--report DIR`` write: ``report.json``
 (the verb's own JSON object with the stages that ran inside it: the model, its analysis, the plan's
-tables, the side-by-side run the plots are drawn from) and ``report.html`` (the page made from that
-object, with the plots inline).
+tables, the side-by-side run the plots are drawn from, and the sweep and basin sample when the
+report ran them) and ``report.html`` (the page made from that object, with the plots inline).
 
 Written after a failed or stopped run too, from whatever was computed before it stopped; the JSON
 is written first, so a page that cannot be drawn loses no number.
