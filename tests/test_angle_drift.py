@@ -116,6 +116,18 @@ def test_the_c_harness_crosses_where_the_python_rule_does(fin, fin_host) -> None
         assert last == pytest.approx(times[-1], abs=1e-6)
 
 
+def test_an_angle_at_minus_a_half_turn_is_inside_the_planned_range(fin, fin_host) -> None:
+    # The word's most negative value is an angle like any other (minus a half turn, the same
+    # point as plus a half turn: common practice): a step from it leaves no value outside the
+    # planned range (the harness counted it as outside, and failed a two-joint chain whose phase
+    # sums met it).
+    program = fin.plan.program
+    start = list(fin.plan.initial_state)
+    start[program.angle_states[0]] = -(1 << 31)
+    stats = harness_statistics(fin_host, tuple(start), 1, settle=0, window=1, section_level=0)
+    assert stats.counts["range_steps"] == 0
+
+
 def test_drift_of_a_pure_rotation_is_exactly_a_turn_over_its_increment(fin, fin_host) -> None:
     # Closed form (common practice): an integer rotation by c word units per step makes a turn
     # (2**32 units) every 2**32 / c steps, for all time; the float rotation by w dt = 1/250 turn

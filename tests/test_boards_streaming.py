@@ -24,10 +24,12 @@ from __future__ import annotations
 
 import functools
 import time
+from pathlib import Path
 
 import pytest
 from test_boards_emulated import tools_or_skip
 
+import orbitfix.gen.model as model_package
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import Design, design
 from orbitfix.verify.proofs.board_stream import stream_on_board
@@ -104,3 +106,21 @@ def test_the_stream_is_bit_exact(board: str, model: str, word_bits: int, steps: 
           f"(stream {report.seconds['stream']:.1f} s); {report.cost['per_step']:,.0f} "
           f"{report.cost['unit']} a step; text {report.size['text']:,} bytes, stack "
           f"{report.size['stack']} bytes")
+
+
+@pytest.mark.slow
+def test_a_sine_table_is_read_from_flash_on_the_atmega328p(tmp_path) -> None:
+    """A step with a sine table (phase_chain cut to two joints: sine coupling, and a half-turn
+    phase bias that must wrap into the word) streams bit-exact from the ATmega328P, and its table
+    stays out of RAM: the image's initialised data is smaller than the table alone."""
+    profile = tools_or_skip("atmega328p")
+    text = (Path(model_package.__file__).parent / "library" / "phase_chain.toml").read_text()
+    text = text.replace("count = 8", "count = 2")
+    text = "\n".join('labels = ["head", "tail"]' if line.startswith("labels") else line
+                     for line in text.splitlines())
+    (tmp_path / "two_joints.toml").write_text(text)
+    built = design(load_model(tmp_path / "two_joints.toml").with_fixed_point(word_bits=16))
+    table = max(len(op.table) for op in built.plan.program.ops if op.table)
+    report = stream_on_board(built, profile, steps=10_000, every=10)
+    assert report.ok and report.bit_exact, report.to_json()
+    assert report.size["data"] < 2 * table, report.size

@@ -72,9 +72,12 @@ def test_one_word_for_one_idea_on_every_verb() -> None:
     assert fixed <= names["gen"] & names["verify"] & names["plan"]
     for verb in VERBS:
         assert "--json" in names[verb]
-    # report runs verify's checks under verify's options, and writes where gen writes: -o/--output
+    # report runs verify's checks under verify's options, and writes where gen writes: -o/--output;
+    # the sweep and basin sample it draws on request say which with their option's first word
     assert names["report"] == (names["verify"] - {"--report"}) | {"-o", "--output", "--board",
-                                                                  "--board-steps"}
+                                                                  "--board-steps", "--sweep",
+                                                                  "--sweep-samples", "--basin",
+                                                                  "--basin-samples"}
     assert {"-o", "--output"} <= names["gen"] and "--report" in names["verify"] & names["board"]
 
 

@@ -155,3 +155,19 @@ def test_sine_table_size_follows_the_stated_error() -> None:
         lsb = 2.0 ** -(word - 2)
         assert (2 * math.pi / 2**bits) ** 2 / 8 <= lsb or bits == 12
         assert bits == 4 or (2 * math.pi / 2 ** (bits - 1)) ** 2 / 8 > lsb
+
+
+@pytest.mark.parametrize("word", [16, 32])
+@pytest.mark.parametrize(("turns", "wanted"), [(0.5, -0.5), (0.75, -0.25), (-0.5, -0.5), (1.25, 0.25)])
+def test_an_angle_constant_wraps_into_the_word(word: int, turns: float, wanted: float) -> None:
+    """An angle constant is stored as the same angle within [-1/2, 1/2) turns (angles are equal
+    modulo one turn, common practice): a half-turn phase bias is not refused as too large, and a
+    plain constant of the same size still is."""
+    from orbitfix.gen.errors import InputError
+    from orbitfix.gen.program.operations import kind_of
+
+    const = kind_of("const")
+    angle = const.fill(Op("const", real=turns, wraps=True), word, [], word)
+    assert angle.constant == round(wanted * 2**word)
+    with pytest.raises(InputError, match="does not fit"):
+        const.fill(Op("const", real=0.5 * max(1.0, abs(turns)) + 0.5, note="plain"), word, [], word)

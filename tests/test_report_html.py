@@ -29,7 +29,10 @@ from orbitfix.verify.cli.main import main
 from orbitfix.verify.report.html import lookup, report_html
 
 SMALL = ["--states", "2000", "--steps", "2000"]
-UNITS = {"state units", "turns", "LSB", "s", "cycles", "model time units"}
+ON_REQUEST = ["--sweep", "mu=0.5:1.5", "--sweep-samples", "5", "--basin", "x=-3:3", "--basin", "y=-3:3",
+              "--basin-samples", "4"]
+UNITS = {"state units", "turns", "LSB", "s", "cycles", "model time units", "parameter units",
+         "per model time unit", "radians"}
 
 
 class _Tagged(HTMLParser):
@@ -92,7 +95,8 @@ def mismatches(page: str, data: dict) -> list[str]:
 @pytest.fixture(scope="module")
 def vanderpol_report(tmp_path_factory) -> tuple:
     folder = tmp_path_factory.mktemp("report")
-    code = main(["report", "vanderpol", "-o", str(folder), *SMALL, "--junit", str(folder / "checks.xml")])
+    code = main(["report", "vanderpol", "-o", str(folder), *SMALL, "--junit", str(folder / "checks.xml"),
+                 *ON_REQUEST])
     data = json.loads((folder / "report.json").read_text())
     return data, (folder / "report.html").read_text(encoding="utf-8"), code, folder
 
@@ -170,8 +174,7 @@ def test_the_page_holds_no_http_and_needs_nothing_from_elsewhere(vanderpol_repor
     assert "http" not in page.lower()
     assert "<script" not in page and "<link" not in page and "@import" not in page
     assert "src=" not in page
-    assert page.count("<svg") == 3 and "xmlns" not in page
-    assert "sweep" in page and "basin" in page  # says which plots are left out, and why
+    assert page.count("<svg") == 5 and "xmlns" not in page  # the three of the run, sweep and basin
 
 
 @pytest.mark.slow
@@ -359,6 +362,9 @@ def test_report_streams_on_each_board_and_reports_it(tmp_path, capsys) -> None:
     page = (folder / "report.html").read_text()
     (run,) = data["boards"]
     assert run["board"] == "host" and run["ok"] and run["steps_compared"] == 2000
+    # no sweep and no basin sample unless asked for: neither ran, neither is drawn, the page says so
+    assert "sweep" not in data and "basin" not in data
+    assert 'id="plot-sweep"' not in page and 'id="plot-basin"' not in page and "only on request" in page
     shown = dict(tagged_numbers(page))
     assert shown["boards.0.steps_compared"] == "2000" and "boards.0.cost.per_step" in shown
     assert "Board host" in page and mismatches(page, data) == []
@@ -430,3 +436,208 @@ def test_chromium_console_errors_are_caught(tmp_path) -> None:
                          "</body></html>")
     code, from_page = open_in_chromium(browser, page_path, tmp_path / "bad.png")
     assert code == 0 and any("Uncaught" in line for line in from_page)
+
+
+# --- plots drawn on request (sweep, basin) and a network's output waveforms ------------------------
+
+@pytest.mark.slow
+def test_the_sweep_and_basin_asked_for_are_drawn(vanderpol_report) -> None:
+    from orbitfix.verify.report.plots import basin_plot, sweep_plot
+
+    data, page, _, _ = vanderpol_report
+    assert data["sweep"]["parameter"] == "mu" and len(data["sweep"]["samples"]) == 5
+    assert data["basin"]["starts"] == 16 and len(data["basin"]["each_start"]) == 16
+    assert 'id="plot-sweep"' in page and 'id="plot-basin"' in page and "only on request" not in page
+    shown = dict(tagged_numbers(page))
+    assert shown["basin.fraction_on_cycle"] == number_text(data["basin"]["fraction_on_cycle"])
+    for figure in (sweep_plot(data["sweep"]), basin_plot(data["basin"], ("x", "y"), (), None)):
+        assert unlabelled(figure) == []
+        assert all(f">{one.get_ylabel()}<" in page and f">{one.get_xlabel()}<" in page
+                   for one in figure.get_axes())
+
+
+def number_text(value) -> str:
+    from orbitfix.verify.report.html import number_text as shown
+
+    return shown(value)
+
+
+def styled_lines(axes) -> dict[tuple[str, str], list]:
+    """The plotted lines of an axes by (line style, marker), each as an (n, 2) array of points."""
+    found: dict[tuple[str, str], list] = {}
+    for line in axes.get_lines():
+        if line.get_marker() in ("None", None, ""):
+            continue  # the zero line
+        found.setdefault((line.get_linestyle(), line.get_marker()), []).append(line.get_xydata())
+    return found
+
+
+@pytest.fixture(scope="module")
+def bautin_sweep() -> dict:
+    """vibration_drive (the Bautin normal form r' = r (mu + 2 r^2 - r^4), theta' = omega) swept
+    over mu from -1.5 to 0.5 on nine values."""
+    from orbitfix.gen.analysis.sweep import sweep
+    from orbitfix.gen.model.model_file import load_model
+
+    return sweep(load_model("vibration_drive"), "mu", -1.5, 0.5, samples=9, workers=1).to_json()
+
+
+def test_the_sweep_plot_draws_the_branches_of_the_closed_form(bautin_sweep) -> None:
+    """Held to the Bautin normal form's closed form (Kuznetsov, "Elements of Applied Bifurcation
+    Theory", 3rd ed. 2004, sec. 8.3): the rest state's eigenvalues are mu +- i omega, so the leading
+    real part is mu, stable below 0; the cycles have r^2 = 1 +- sqrt(1 + mu), the larger stable, the
+    smaller unstable; they meet at the fold mu = -1, r = 1; the Hopf point is mu = 0."""
+    from orbitfix.verify.report.plots import STABLE, UNSTABLE, sweep_plot
+
+    figure = sweep_plot(bautin_sweep)
+    assert unlabelled(figure) == []
+    top, bottom = figure.get_axes()[:2]
+    stable, unstable = (STABLE["linestyle"], STABLE["marker"]), (UNSTABLE["linestyle"], UNSTABLE["marker"])
+    assert stable[0] != unstable[0] and stable[1] != unstable[1]  # not colour alone
+    for axes in (top, bottom):
+        assert set(styled_lines(axes)) == {stable, unstable}
+    for style, lines in styled_lines(top).items():
+        for points in lines:
+            assert np.allclose(points[:, 1], points[:, 0], atol=1e-9)  # leading real part = mu
+            inner = points[1:-1] if len(points) > 2 else points[:0]
+            assert np.all(inner[:, 0] < 0) if style == stable else np.all(inner[:, 0] > 0)
+    for style, lines in styled_lines(bottom).items():
+        sign = 1.0 if style == stable else -1.0
+        for points in lines:  # a line ends on the first point of the next (one unbroken curve)
+            mu, r = points[:-1, 0], points[:-1, 1]
+            assert np.allclose(r ** 2, 1 + sign * np.sqrt(np.clip(1 + mu, 0, None)), atol=2e-3)
+    labels = {text.get_text(): text.xy for axes in (top, bottom) for text in axes.texts}
+    assert labels["H1"] == pytest.approx((0.0, 0.0), abs=1e-6)
+    assert labels["F1"] == pytest.approx((-1.0, 1.0), abs=1e-5)
+    # the labels are the JSON's own points
+    assert labels["F1"] == (bautin_sweep["folds"][0]["param_value"], bautin_sweep["folds"][0]["amplitude"])
+
+
+def test_the_sweep_on_the_page_lists_its_labelled_points(bautin_sweep) -> None:
+    from orbitfix.verify.report.report_folder import page_text
+
+    data = {"ok": True, "verb": "report", "model": "vibration_drive", "exit_code": 0, "error": None,
+            "sweep": bautin_sweep}
+    page = page_text(data, {})
+    assert 'id="plot-sweep"' in page and 'id="plot-basin"' not in page and "no basin sample" in page
+    shown = dict(tagged_numbers(page))
+    assert shown["sweep.hopf.0.param_value"] == number_text(bautin_sweep["hopf"][0]["param_value"])
+    assert shown["sweep.folds.0.amplitude"] == number_text(bautin_sweep["folds"][0]["amplitude"])
+    assert mismatches(page, data) == [] and "http" not in page
+    assert ">H1<" in page and ">F1<" in page  # on the plot, as text, as in the table
+    # absent when no sweep ran
+    del data["sweep"]
+    assert 'id="plot-sweep"' not in page_text(data, {}) and "Parameter sweep" not in page_text(data, {})
+
+
+def test_the_basin_plot_marks_each_start_by_the_closed_forms_outcome() -> None:
+    """vibration_drive at mu = -0.5: the rest state is stable and the unstable cycle at
+    r^2 = 1 - sqrt(1 + mu) (Kuznetsov 2004, sec. 8.3) bounds its basin: starts inside settle, starts
+    outside reach the stable cycle at r^2 = 1 + sqrt(1 + mu)."""
+    from orbitfix.gen.analysis.basin import box_starts, sample_basin
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.verify.report.report_folder import page_text
+
+    model = load_model("vibration_drive")
+    box = {"x": (-1.0, 1.0), "y": (-1.0, 1.0)}
+    found = sample_basin(model, box_starts(model, box, grid=5), box)
+    data = {"ok": True, "verb": "report", "model": model.name, "exit_code": 0, "error": None,
+            "basin": found.to_json(every_start=True)}
+    page = page_text(data, {"basin": found})
+    assert 'id="plot-basin"' in page and 'id="plot-sweep"' not in page and "no sweep" in page
+    assert mismatches(page, data) == []
+    from orbitfix.verify.report.plots import basin_plot
+
+    figure = basin_plot(data["basin"], model.state_names, (), found.cycle.samples)
+    assert unlabelled(figure) == []
+    (axes,) = figure.get_axes()
+    edge = math.sqrt(1 - math.sqrt(0.5))
+    drawn = {c.get_label(): c.get_offsets() for c in axes.collections}
+    assert set(drawn) == {"reaches the cycle", "settles at the stable focus (0, 0)"}
+    assert np.all(np.hypot(*drawn["reaches the cycle"].T) > edge)
+    assert np.all(np.hypot(*drawn["settles at the stable focus (0, 0)"].T) < edge)
+    assert sum(len(v) for v in drawn.values()) == 25
+    (cycle,) = [line for line in axes.get_lines() if line.get_label() == "continuous cycle"]
+    assert np.allclose(np.hypot(*cycle.get_xydata().T), math.sqrt(1 + math.sqrt(0.5)), rtol=1e-6)
+
+
+def lags_off(figure) -> list[str]:
+    """Rows of the waveform plot whose dotted lag lines are not where the drawn signal rises through
+    its mean (linear interpolation between samples, common practice), to 1e-3 cycles."""
+    wrong = []
+    for number, axes in enumerate(figure.get_axes()):
+        (signal,) = [line for line in axes.get_lines() if line.get_linestyle() == "-"]
+        t, y = signal.get_xdata(), signal.get_ydata()
+        level = np.nanmean(y)
+        rises = [t[k] + (level - y[k]) / (y[k + 1] - y[k]) * (t[k + 1] - t[k]) for k in range(len(t) - 1)
+                 if y[k] < level <= y[k + 1]]
+        marks = [line.get_xdata()[0] for line in axes.get_lines() if line.get_linestyle() == ":"]
+        for mark in marks:
+            if mark <= 2.0 and min(abs(mark - r) for r in [*rises, 0.0, 2.0]) > 1e-3:
+                wrong.append(f"row {number}: lag line at {mark:.4f}, rises at {rises}")
+    return wrong
+
+
+@pytest.mark.parametrize("name", ["quadruped_walk", "phase_chain"])  # first states; phase states
+def test_a_network_page_draws_its_waveforms_with_the_jsons_lags(name) -> None:
+    from orbitfix.gen.analysis.summary import analyse
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.verify.report.plots import network_waveforms
+    from orbitfix.verify.report.report_folder import page_text, report_data
+
+    analysis = analyse(load_model(name))
+    data = report_data("check", {"model": name}, {"analysis": analysis}, None, 0)
+    page = page_text(data, {"analysis": analysis})
+    network = data["analysis"]["network"]
+    assert 'id="plot-network-waveforms"' in page and "http" not in page
+    for label, lag in zip(network["labels"], network["lags"], strict=True):
+        assert f">{label}: lag {lag:.4f} cycles" in page  # the JSON's lag, written on its row
+    model = analysis.model
+    angles = tuple(i for i, s in enumerate(model.states) if s.angle)
+    figure = network_waveforms(analysis.cycle.samples, model.network, model.state_names, angles, network)
+    assert unlabelled(figure) == [] and len(figure.get_axes()) == len(network["labels"])
+    assert lags_off(figure) == []
+    # a wrong lag in the JSON is drawn away from where that oscillator rises, and is caught
+    wrong = {**network, "lags": [network["lags"][0], network["lags"][1] + 0.05, *network["lags"][2:]]}
+    assert lags_off(network_waveforms(analysis.cycle.samples, model.network, model.state_names, angles,
+                                      wrong)) != []
+
+
+def test_a_single_oscillator_page_has_no_waveforms() -> None:
+    from orbitfix.gen.analysis.summary import analyse
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.verify.report.report_folder import page_text, report_data
+
+    analysis = analyse(load_model("vanderpol"))
+    data = report_data("check", {"model": "vanderpol"}, {"analysis": analysis}, None, 0)
+    assert "plot-network-waveforms" not in page_text(data, {"analysis": analysis})
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["--sweep", "mu"], "--sweep 'mu': write NAME=LOW:HIGH"),
+    (["--sweep", "mu=2:1"], "LOW below HIGH"),
+    (["--sweep", "no_such=0:1"], "no_such"),
+    (["--basin", "z=0:1"], "'z'"),
+    (["--basin", "x=0:1", "--basin", "x=1:2"], "--basin gives 'x' twice"),
+])
+def test_a_bad_sweep_or_basin_is_refused_before_any_work(tmp_path, capsys, argv, message) -> None:
+    err = refused(["report", "vanderpol", "-o", str(tmp_path / "out"), *argv], capsys)
+    assert message in err
+    data = json.loads((tmp_path / "out" / "report.json").read_text())
+    assert "analysis" not in data and "sweep" not in data and message in data["error"]
+
+
+def test_a_model_without_a_stable_cycle_still_gets_its_sweep_and_says_why_it_has_no_basin(
+        tmp_path, capsys) -> None:
+    folder = tmp_path / "report"
+    code = main(["report", "vanderpol", "--set", "mu=-1", "-o", str(folder), "--sweep", "mu=-1:1",
+                 "--sweep-samples", "5", "--basin", "x=-1:1", "--basin-samples", "3"])
+    capsys.readouterr()
+    assert code == 1  # no stable cycle: the checks stop after the analysis
+    data = json.loads((folder / "report.json").read_text())
+    page = (folder / "report.html").read_text()
+    assert data["basin"] == {"error": f"no basin to sample: {data['analysis']['cycle']['verdict']}"}
+    assert len(data["sweep"]["hopf"]) == 1 and data["sweep"]["hopf"][0]["param_value"] == pytest.approx(
+        0.0, abs=1e-8)  # Van der Pol's rest state: eigenvalues (mu +- sqrt(mu^2 - 4)) / 2 (common practice)
+    assert 'id="plot-sweep"' in page and 'id="plot-basin"' not in page and "No basin plot" in page
+    assert "STOPPED" in page and mismatches(page, data) == [] and "http" not in page

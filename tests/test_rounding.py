@@ -130,3 +130,24 @@ def test_scale_uses_the_constants_own_shift() -> None:
     got = golden.step(program, states)[0]
     want = [half_up(Fraction(a * (3 << 29), 1 << 31)) for a in states[0]]
     assert got.tolist() == want
+
+
+@pytest.mark.parametrize("overflow", ["saturate", "wrap"])
+@pytest.mark.parametrize("bits", [16, 32])
+def test_one_value_fits_the_word_as_it_does_in_a_batch(overflow: str, bits: int) -> None:
+    """fit_word's short cut for a single value: the same result and the same mark as the value
+    gets inside a batch, at the word's edges and just beyond them (the rule: clamp to, or reduce
+    modulo 2**bits into, [-2**(bits-1), 2**(bits-1) - 1], common practice for two's complement)."""
+    top = 1 << (bits - 1)
+    edges = np.array([-top - 1, -top, -top + 1, -1, 0, 1, top - 2, top - 1, top, 3 * top],
+                     dtype=np.int64)
+    marks = np.zeros(edges.size, dtype=bool)
+    batch = golden.fit_word(edges.copy(), bits, overflow, marks)
+    for value, fitted, marked in zip(edges, batch, marks, strict=True):
+        mark = np.zeros(1, dtype=bool)
+        one = golden.fit_word(np.array([value]), bits, overflow, mark)
+        assert (int(one[0]), bool(mark[0])) == (int(fitted), bool(marked))
+        wanted = (min(max(int(value), -top), top - 1) if overflow == "saturate"
+                  else (int(value) + top) % (2 * top) - top)
+        assert int(one[0]) == wanted
+        assert bool(mark[0]) == (overflow == "saturate" and wanted != value)

@@ -124,7 +124,8 @@ class FixedPointPlan:
     def planned_limits(self) -> list[int]:
         """Per value, the largest magnitude (in its own integer units) the plan allows for: its
         sure bound times the margin, capped at the word. A value beyond it in a run means the
-        run left the planned box."""
+        run left the planned box; a limit of the word's largest value is the whole word (its most
+        negative value too)."""
         word_max = self.program.word_max
         if not self.sure_bounds:
             return [word_max] * len(self.program.ops)

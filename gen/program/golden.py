@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from orbitfix.gen.program.integer_program import IntegerProgram, next_saturation_count
+from orbitfix.gen.program.integer_program import OVERFLOWS, IntegerProgram, next_saturation_count
 from orbitfix.gen.program.operations import kind_of
 
 
@@ -58,6 +58,8 @@ def fit_word(values: np.ndarray, word_bits: int, overflow: str,
     (wrap). With ``saturated`` (bool, the values' shape), a clamp that changes a value marks its
     place there; wrapping never does."""
     low, high = -(1 << (word_bits - 1)), (1 << (word_bits - 1)) - 1
+    if values.size == 1 and low <= values.item() <= high and overflow in OVERFLOWS:
+        return values  # in the word: neither rule changes or marks it (one state: a short cut)
     if overflow == "saturate":
         number = values.dtype.type
         if saturated is not None:

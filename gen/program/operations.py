@@ -278,6 +278,9 @@ class Const(OperationKind):
 
     def fill(self, op, bits, f_args, word_bits):
         stored = quantise(op.real, bits)
+        if op.wraps:  # an angle: it enters the word by wrapping, a whole turn is the same angle
+            half = 1 << (word_bits - 1)
+            return replace(op, constant=(stored + half) % (2 * half) - half)
         if abs(stored) > (1 << (word_bits - 1)) - 1:
             raise InputError(f"the constant {op.real:.6g} ({op.note}) does not fit "
                              f"Q{word_bits - bits}.{bits}")
@@ -547,8 +550,8 @@ _SINE_LOOKUP = CHelper(
     prelude=("const {unsigned} phase = ({unsigned})(({unsigned})angle + offset);",
              "const {unsigned} index = ({unsigned})(phase >> shift);",
              "const {unsigned} within = ({unsigned})(phase & ((({unsigned})1 << shift) - 1u));",
-             "const {wide} low = table[index];",
-             "const {wide} rise = ({wide})table[index + 1u] - low;"),
+             "const {wide} low = {PREFIX}_TABLE_ENTRY(table, index);",
+             "const {wide} rise = ({wide}){PREFIX}_TABLE_ENTRY(table, index + 1u) - low;"),
     comment="sin of an angle in turns (a word is one turn) plus offset, from a table of "
             "2^(word - shift) + 1 entries with linear interpolation. The phase is read as an "
             "unsigned word, so it wraps for free.")
@@ -587,7 +590,7 @@ class TableSine(OperationKind):
     def golden(self, op, args, machine):
         wide, bits = machine.wide, machine.word_bits
         phase = (args[0] + wide(op.offset)) & wide((1 << bits) - 1)  # an unsigned word
-        table = np.asarray(op.table, dtype=wide)
+        table = _table_array(op.table, wide)
         index = phase >> wide(op.shift)
         within = phase & wide((1 << op.shift) - 1)
         low = table[index]
@@ -617,6 +620,24 @@ class Cos(TableSine):
     name = "cos"
     turn_offset = Fraction(1, 4)
     function = staticmethod(np.cos)
+
+
+_TABLE_ARRAYS: dict[tuple[int, type], tuple[tuple[int, ...], np.ndarray]] = {}
+
+
+def _table_array(table: tuple[int, ...], wide: type) -> np.ndarray:
+    """The table as a read-only numpy array of ``wide``, made once per table: a golden run reads
+    it at every step, and converting up to 4097 entries each time was a large part of a
+    network's run time."""
+    key = (id(table), wide)  # the entry holds its table, so the id stays its own
+    held = _TABLE_ARRAYS.get(key)
+    if held is None:
+        if len(_TABLE_ARRAYS) >= 256:
+            _TABLE_ARRAYS.clear()
+        array = np.asarray(table, dtype=wide)
+        array.flags.writeable = False
+        held = _TABLE_ARRAYS[key] = (table, array)
+    return held[1]
 
 
 # --- format rules shared by several kinds ----------------------------------------------------
@@ -657,6 +678,7 @@ def sine_table_bits(word_bits: int, fraction_bits: int) -> int:
     return bits
 
 
+@functools.lru_cache(maxsize=64)
 def sine_table(index_bits: int, fraction_bits: int) -> tuple[int, ...]:
     """sin over one turn at 2**index_bits + 1 points (the last repeats the first), each rounded
     once in the result's format."""

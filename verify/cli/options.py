@@ -177,21 +177,22 @@ def parse_settings(items: list[str]) -> dict[str, float]:
     return dict(name_and_value("--set", item, item, "--set mu=2.5") for item in items)
 
 
-def parse_box(items: list[str]) -> dict[str, tuple[float, float]]:
-    """'x=-3:3' items to {'x': (-3.0, 3.0)}; a malformed item is an input error."""
+def parse_box(items: list[str], option: str = "--box") -> dict[str, tuple[float, float]]:
+    """'x=-3:3' items to {'x': (-3.0, 3.0)}; a malformed item is an input error naming ``option``
+    (``--box`` of basin and verify, and report's ``--basin`` and ``--sweep``)."""
     box: dict[str, tuple[float, float]] = {}
     for item in items:
         name, sep, span = item.partition("=")
         low_text, colon, high_text = span.partition(":")
         if not sep or not colon or not name.strip():
-            raise InputError(f"--box '{item}': write NAME=LOW:HIGH, e.g. --box x=-3:3")
+            raise InputError(f"{option} '{item}': write NAME=LOW:HIGH, e.g. {option} x=-3:3")
         try:
             low, high = float(low_text), float(high_text)
         except ValueError:
-            raise InputError(f"--box '{item}': '{low_text}' and '{high_text}' must be numbers") from None
+            raise InputError(f"{option} '{item}': '{low_text}' and '{high_text}' must be numbers") from None
         if not (math.isfinite(low) and math.isfinite(high) and low < high):
-            raise InputError(f"--box '{item}': give finite numbers with LOW below HIGH")
+            raise InputError(f"{option} '{item}': give finite numbers with LOW below HIGH")
         if name.strip() in box:
-            raise InputError(f"--box gives the state '{name.strip()}' twice")
+            raise InputError(f"{option} gives '{name.strip()}' twice")
         box[name.strip()] = (low, high)
     return box

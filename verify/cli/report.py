@@ -4,6 +4,10 @@ optionally stream the firmware on emulated boards or the host board (--board), a
 DIR/report.html, one self-contained page with plots, and DIR/report.json, the data behind it
 (verify/report/report_folder.py).
 
+On request only (they cost more than the rest of a quick report), a parameter sweep (--sweep,
+as the ``sweep`` verb runs it) and a basin sample (--basin, as the ``basin`` verb runs it) run
+first, so their plots are drawn even when the design cannot be made.
+
 Exit codes: as ``verify`` (0 every check passed, 1 one failed, on the host or on a board; the
 report is written either way); 2 bad input, or a folder that cannot be written.
 """
@@ -15,8 +19,8 @@ from pathlib import Path
 from typing import Any
 
 from orbitfix.gen.errors import InputError
-from orbitfix.verify.cli import verify
-from orbitfix.verify.cli.options import whole
+from orbitfix.verify.cli import basin, sweep, verify
+from orbitfix.verify.cli.options import keep, model_from_args, parse_box, ready_report_folder, whole
 
 
 def register(verbs: Any) -> None:
@@ -33,13 +37,32 @@ def register(verbs: Any) -> None:
                              "step (the host board or an emulated one; repeatable)")
     boards.add_argument("--board-steps", type=whole(1), default=20_000, metavar="N",
                         help="steps to stream and compare on each board (default 20000)")
+    drawn = parser.add_argument_group("analyses drawn on request")
+    drawn.add_argument("--sweep", metavar="NAME=FROM:TO",
+                       help="also sweep this parameter from FROM to TO as 'orbitfix sweep' does, and "
+                            "draw the equilibria's eigenvalues and the cycle's amplitude against it")
+    drawn.add_argument("--sweep-samples", type=whole(2), default=sweep.DEFAULT_SAMPLES, metavar="N",
+                       help=f"evenly spaced values of the swept parameter (default "
+                            f"{sweep.DEFAULT_SAMPLES})")
+    drawn.add_argument("--basin", action="append", default=[], metavar="NAME=LOW:HIGH",
+                       help="also sample the cycle's basin over this range of a state's starting "
+                            "values as 'orbitfix basin --box' does, and draw the starts "
+                            "(repeatable, one per state)")
+    drawn.add_argument("--basin-samples", type=whole(2), default=basin.DEFAULT_SAMPLES, metavar="N",
+                       help=f"evenly spaced starting values per state given to --basin (default "
+                            f"{basin.DEFAULT_SAMPLES})")
     parser.set_defaults(handler=run)
 
 
 def run(args: argparse.Namespace, partial: dict) -> int:
-    """The checks of ``verify`` and the board runs; main.py writes the report from what they
-    computed."""
+    """The sweep and basin sample when asked for, the checks of ``verify`` and the board runs;
+    main.py writes the report from what they computed."""
+    swept = parse_box([args.sweep], "--sweep") if args.sweep is not None else {}
+    box = parse_box(args.basin, "--basin")
     profiles = [board_profile(name) for name in args.boards]  # checked before any work
+    ready_report_folder(args)
+    if swept or box:
+        drawn_on_request(args, partial, swept, box)
     if not profiles:
         return verify.run(args, partial)
 
@@ -80,3 +103,41 @@ def stream_on_boards(built: Any, profiles: list, steps: int, partial: dict) -> t
         lines += ["", *board_lines(report)]
         passed = passed and report.ok
     return passed, lines
+
+
+def drawn_on_request(args: argparse.Namespace, partial: dict, swept: dict[str, tuple[float, float]],
+                     box: dict[str, tuple[float, float]]) -> None:
+    """Run the sweep and the basin sample asked for; each one's JSON joins ``partial`` (the basin's
+    with every start, which its plot is drawn from) and the objects join what the report keeps.
+    A model with no stable cycle has no basin: that is said in the JSON, and the checks go on."""
+    from orbitfix.gen.analysis.basin import NoCycleError, box_starts, sample_basin
+    from orbitfix.gen.analysis.sweep import sweep as run_sweep
+    from orbitfix.gen.progress import tell
+
+    model = model_from_args(args)
+    partial["model"] = model.name
+    starts = box_starts(model, box, grid=args.basin_samples) if box else None  # checked first
+    if swept:
+        ((name, (start, stop)),) = swept.items()
+        tell(f"sweeping {name} from {start:g} to {stop:g}", 0, 1)
+        result = run_sweep(model, name, start, stop, samples=args.sweep_samples)
+        partial["sweep"] = result.to_json()
+        keep(args, sweep=result)
+        if not args.json:
+            print(f"sweep of {name} from {start:g} to {stop:g}: {len(result.hopf)} Hopf point(s), "
+                  f"{len(result.folds)} fold(s) of cycles"
+                  + ("" if result.complete else f"; INCOMPLETE: {result.reason or 'out of time'}"))
+    if starts is not None:
+        tell(f"sampling the basin from {len(starts):,} starts", 0, 1)
+        try:
+            found = sample_basin(model, starts, box)
+        except NoCycleError as exc:
+            partial["basin"] = {"error": f"no basin to sample: {exc.cycle.verdict}"}
+            if not args.json:
+                print(f"basin: {partial['basin']['error']}")
+            return
+        partial["basin"] = found.to_json(every_start=True)
+        keep(args, basin=found)
+        if not args.json:
+            print(f"basin: {100.0 * found.fraction_on_cycle:.2f} % of {len(starts):,} starts reach "
+                  "the cycle")

@@ -157,6 +157,10 @@ def report_html(data: dict, plots: Sequence[tuple[str, str, str, str]] = (),
         for plot_name, title, caption, svg in plots:
             page.add(f'<figure id="plot-{esc(plot_name)}"><h3>{esc(title)}</h3>{svg}'
                      f"<figcaption>{esc(caption)}</figcaption></figure>")
+            if plot_name == "sweep":
+                _sweep_marks(page)
+            elif plot_name == "basin":
+                _basin_outcomes(page)
         for sentence in left_out:
             page.para(esc(sentence), "note")
     page.add("<h2>Cautions</h2>")
@@ -515,3 +519,43 @@ def _board_run(page: Page, at: str) -> None:
     if rows:
         page.add("<h3>Costs and sizes</h3>")
         page.pairs(rows)
+
+
+SWEEP_MARKS = (("hopf", "H", "Hopf point"), ("folds", "F", "fold of cycles"),
+               ("branch_points", "B", "branch point: a multiplier passes 1, the branch goes on"))
+
+
+def _sweep_marks(page: Page) -> None:
+    """The sweep's labelled points (H1, F1, B1 as on its plot), under the plot."""
+    name = esc(page.get("sweep.parameter"))
+    page.para(f"Swept {name} from {page.val('sweep.from')} to {page.val('sweep.to')}; followed to the end: "
+              f"{page.val('sweep.complete')}" + (f" ({esc(page.get('sweep.reason'))})"
+                                                  if page.get("sweep.reason") else ""))
+    rows = []
+    for key, letter, what in SWEEP_MARKS:
+        for k in range(len(page.get(f"sweep.{key}") or [])):
+            at = f"sweep.{key}.{k}"
+            amplitude = "0" if key == "hopf" else page.val(at + ".amplitude")
+            extra = (f"{esc(page.get(at + '.kind'))}, frequency {page.val(at + '.frequency')} radians "
+                     "per model time unit" if key == "hopf" else f"period {page.val(at + '.period')}")
+            rows.append([f"{letter}{k + 1}", esc(what), page.val(at + ".param_value"), amplitude, extra])
+    if rows:
+        page.table(["label", "what", f"{name}", "amplitude", "more"], rows, numeric=(2, 3))
+    else:
+        page.para("No Hopf point and no fold of cycles in the range.", "note")
+    for note in page.get("sweep.notes") or []:
+        page.para(f"note: {esc(note)}", "note")
+
+
+def _basin_outcomes(page: Page) -> None:
+    """The basin sample's outcomes, under its plot."""
+    box = ", ".join(f"{esc(n)} from {page.val(f'basin.box.{n}.0')} to {page.val(f'basin.box.{n}.1')}"
+                    for n in page.get("basin.box") or {})
+    page.para(f"{page.val('basin.starts')} starts with {box}; share reaching the cycle "
+              f"{page.val('basin.fraction_on_cycle')}.")
+    page.table(["where the start goes", "starts", "share"],
+               [[esc(o["outcome"]), page.val(f"basin.outcomes.{i}.count"),
+                 page.val(f"basin.outcomes.{i}.fraction")]
+                for i, o in enumerate(page.get("basin.outcomes") or [])], numeric=(1, 2))
+    for note in page.get("basin.notes") or []:
+        page.para(f"note: {esc(note)}", "note")
