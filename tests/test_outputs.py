@@ -385,3 +385,19 @@ def test_a_trimmed_design_replans_its_outputs_and_stays_bit_exact(tmp_path: Path
     outcome = check_on_host(trimmed, states=20_000, steps=20_000, sanitized_states=0)
     assert outcome.report.bit_exact and outcome.report.output_steps_compared == 20_000
 
+
+
+def test_an_output_through_a_cosine_of_an_angle_is_bit_exact() -> None:
+    # The issue's own example: hip = r * cos(theta), with theta an angle state (a table lookup
+    # in the output, its table shared with the step's when equal).
+    model = define_model(
+        "polar", {"r": 0.5, "theta": 0.0},
+        {"r": "2 * r * (1 - r^2)", "theta": "6.283185307179586 * (1 + 0.1 * sin(theta))"},
+        cycle_hz=1.0, loop_hz=400, angles=["theta"],
+        outputs={"hip": {"value": "r * cos(theta)", "scale": 30.0, "offset": 90.0, "unit": "deg",
+                         "min": 45.0, "max": 135.0, "slew": 200.0}})
+    built = design(model)
+    assert any(op.kind == "cos" for op in built.plan.program.output_program.ops)
+    outcome = check_on_host(built, states=20_000, steps=20_000)
+    assert outcome.report.bit_exact, outcome.report.first_mismatch
+    assert outcome.report.output_steps_compared == 20_000
