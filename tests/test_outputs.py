@@ -5,6 +5,7 @@ and never moving faster than their slew limit; bad declarations are refused with
 from __future__ import annotations
 
 import re
+import subprocess
 from dataclasses import replace
 from fractions import Fraction
 from pathlib import Path
@@ -401,3 +402,32 @@ def test_an_output_through_a_cosine_of_an_angle_is_bit_exact() -> None:
     outcome = check_on_host(built, states=20_000, steps=20_000)
     assert outcome.report.bit_exact, outcome.report.first_mismatch
     assert outcome.report.output_steps_compared == 20_000
+
+
+def test_the_self_test_checks_the_outputs_and_fails_on_an_output_constant(fin_drive,
+                                                                         tmp_path: Path) -> None:
+    # The self-test compares the outputs' fields at its checkpoints: it passes on its own C and
+    # fails when the output's offset is one LSB of its format off.
+    assert main(["gen", "fin_drive", "-o", str(tmp_path)]) == 0
+    (tmp_path / "run.c").write_text('#include "fin_drive_selftest.h"\n'
+                                    "int main(void) { return fin_drive_selftest(); }\n")
+    assert "and every output" in (tmp_path / "fin_drive_selftest.h").read_text()
+    flags = ["-std=c99", "-Wall", "-Wextra", "-Wconversion", "-Wsign-conversion", "-pedantic",
+             "-Werror", "-O2"]
+
+    def run() -> int:
+        subprocess.run(["gcc", *flags, "fin_drive.c", "fin_drive_selftest.c", "run.c", "-o", "run"],
+                       cwd=tmp_path, check=True)
+        return subprocess.run([str(tmp_path / "run")], check=False).returncode
+
+    assert run() == 0
+    report = next(c for c in fin_drive.plan.output_constants if c.note == "fin_angle: offset")
+    shift = max(0, report.format.fraction_bits - fin_drive.plan.program.outputs[0].fraction_bits)
+    source = (tmp_path / "fin_drive.c").read_text()
+    literal = f"INT32_C({report.stored})"
+    assert literal in source
+    (tmp_path / "fin_drive.c").write_text(
+        source.replace(literal, f"INT32_C({report.stored + (1 << shift)})", 1))
+    # a checkpoint fails (u is one LSB coarser than the output, so the change shows where the
+    # rounding turns, within the first checkpoints)
+    assert 1 <= run() <= 16

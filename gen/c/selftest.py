@@ -141,6 +141,20 @@ def checkpoints(trajectory: np.ndarray) -> list[tuple[int, list[int]]]:
     return [(step, [int(v) for v in trajectory[step]]) for step in wanted]
 
 
+def _outputs_along(program, trajectory: np.ndarray, initial: tuple[int, ...],
+                   last: int) -> np.ndarray:
+    """Golden's outputs after each of the first ``last`` steps of ``trajectory`` (row k after k
+    steps; row 0 the memories the init function sets), shape (last + 1, n_outputs)."""
+    found = np.zeros((last + 1, len(program.outputs)), dtype=np.int64)
+    if not program.outputs:
+        return found
+    found[0] = initial
+    for k in range(1, last + 1):
+        found[k] = golden.output_values(program, trajectory[k].reshape(-1, 1),
+                                        found[k - 1].reshape(-1, 1))[0][:, 0]
+    return found
+
+
 def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: FixedPointPlan,
                     trajectory: np.ndarray, counts: np.ndarray) -> dict[str, str]:
     """The self-test files ``NAME_selftest.h`` and ``NAME_selftest.c`` for one planned model;
@@ -152,14 +166,23 @@ def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: 
     table = checkpoints(np.asarray(trajectory))
     probes = choose_probes(plan)
     literal = lambda row: [int_literal(int(v), program.word_bits) for v in row]  # noqa: E731
+    # The outputs' fields are checked beside the states: golden's outputs along the run from the
+    # initial state, and after each probe's step from the memories the init function sets.
+    outputs = _outputs_along(program, np.asarray(trajectory), plan.initial_outputs, table[-1][0])
+    memory = np.array(plan.initial_outputs, dtype=np.int64).reshape(-1, 1)
+    probe_memory = np.repeat(memory, len(probes.states), axis=1)
+    probe_outputs = (golden.output_values(program, probes.nexts.T, probe_memory)[0]
+                     if program.outputs else probe_memory)
     context = {
         **firmware_context(model, timing, integrator, plan),
-        "fields": [names.field(n) for n in program.state_names],
+        "fields": [names.field(n) for n in (*program.state_names, *(o.name for o in program.outputs))],
         "last_step": table[-1][0],
-        "checkpoints": [{"step": step, "state": literal(values), "count": int(counts[step])}
-                        for step, values in table],
-        "probes": [{"state": literal(a), "next": literal(b), "count": int(s)}
-                   for a, b, s in zip(probes.states, probes.nexts, probes.saturated, strict=True)],
+        "checkpoints": [{"step": step, "state": literal([*values, *outputs[step]]),
+                         "count": int(counts[step])} for step, values in table],
+        "probes": [{"state": literal([*a, *probe_memory[:, k]]),
+                    "next": literal([*b, *probe_outputs[:, k]]), "count": int(s)}
+                   for k, (a, b, s) in enumerate(zip(probes.states, probes.nexts, probes.saturated,
+                                                     strict=True))],
         "probe_changes": probes.changes, "probe_shown": probes.shown,
         "probe_samples": probes.samples,
     }
