@@ -183,10 +183,10 @@ def output_values(program: IntegerProgram, states: np.ndarray,
     states : shape (n_states, batch); memory : shape (n_outputs, batch), each a word."""
     section = program.output_program
     states = np.asarray(states, dtype=np.int64)
-    memory = np.asarray(memory, dtype=np.int64).reshape(len(program.outputs), -1)
     if section is None:
         empty = np.zeros((0, states.shape[1]), dtype=np.int64)
         return empty, empty
+    memory = np.asarray(memory, dtype=np.int64).reshape(len(program.outputs), -1)
     values = evaluate(section, np.vstack([states, memory]))
     pick = lambda which: np.stack([values[getattr(o, which)] for o in program.outputs]).astype(  # noqa: E731
         np.int64, copy=False)
