@@ -157,10 +157,19 @@ def test_broken_network_files_exit_2_with_a_clear_message(tmp_path: Path, capsys
     assert "Traceback" not in capsys.readouterr().err
 
 
-def test_runtime_parameters_in_network_files_are_refused_not_dropped(tmp_path: Path) -> None:
-    # Regression: a runtime declaration in a network file was silently ignored.
+def test_a_runtime_parameter_of_a_network_file_is_carried_not_dropped(tmp_path: Path) -> None:
+    # Regression: a runtime declaration in a network file was once silently ignored; a Hopf or
+    # phase network now carries it (the firmware may change k between steps), while a network of
+    # single built-in models, which cannot yet, refuses it.
     path = tmp_path / "fins.toml"
-    path.write_text(NETWORK_FILE.replace("k = 0.8",
-                                         "k = { value = 0.8, runtime = true, min = 0.5, max = 1 }"))
-    with pytest.raises(InputError, match="network files do not support runtime parameters"):
+    path.write_text(NETWORK_FILE.replace("k = 0.8", "k = { value = 0.8, runtime = true, min = 0.5, "
+                                         "max = 1, rate = 0.25 }"))
+    (k,) = [p for p in load_model(str(path)).parameters if p.name == "k"]
+    assert (k.value, k.runtime, k.low, k.high, k.rate) == (0.8, True, 0.5, 1.0, 0.25)
+    pair = (Path(__file__).parent.parent / "gen" / "model" / "library" / "vanderpol_pair.toml")
+    path.write_text(pair.read_text().replace("mu = 1.0", "mu = { value = 1.0, runtime = true, "
+                                             "min = 0.5, max = 2 }"))
+    with pytest.raises(InputError, match="has no runtime parameters yet"):
         load_model(str(path))
+
+

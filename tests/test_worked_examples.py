@@ -57,8 +57,9 @@ def test_the_section_shows_one_command_per_step_of_each_example() -> None:
         ["report", "fin_drive", "-o", "build/fin_drive", "--board", "microbit"],
         ["gen", PUMP, "-o", "build/pump"],
         ["verify", PUMP],
+        ["report", "walking_platform", "-o", "build/walking_platform", "--hours", "1"],
     ]
-    assert {"fin_drive", PUMP} <= set(builtin_names())  # shipped in the package, so the wheel has them
+    assert {"fin_drive", PUMP, "walking_platform"} <= set(builtin_names())  # shipped in the package, so the wheel has them
 
 
 # -- the model files --------------------------------------------------------------------------------
@@ -204,7 +205,9 @@ def test_pump_speed_ramps_toward_each_setting_at_the_declared_rate(pump_design) 
 
 
 def _snippet() -> str:
-    (block,) = re.findall(r"```c\n(.*?)```", SECTION, flags=re.S)
+    """The pump's firmware snippet (the one C block of the pump's subsection)."""
+    pump = SECTION.split("\n### A peristaltic pump")[1].split("\n### ")[0]
+    (block,) = re.findall(r"```c\n(.*?)```", pump, flags=re.S)
     return block
 
 

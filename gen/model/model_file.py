@@ -47,7 +47,7 @@ RHYTHM_KEYS = {"cycle_hz", "loop_hz"}
 FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator", "word_bits", "rounding", "overflow"}
 NETWORK_TOP_KEYS = {"name", "description", "network", "parameters", "rhythm", "fixed_point"}
 NETWORK_KEYS = {"oscillator", "pattern", "count", "waves", "lags", "links", "labels", "coupling",
-                "coupled_state"}
+                "coupled_state", "switch_to", "switch_rate"}
 
 RUNTIME_HINT = ("{name} = {{ value = 1.0, runtime = true, min = 0.5, max = 2.0, rate = 0.25 }} "
                 "(rate: the fastest change per second; leave it out to change in one step)")
@@ -388,16 +388,42 @@ class _Reader:
         else:
             raise self.error(self.line_of("network", "pattern"), f"unknown pattern {pattern!r}",
                              ", ".join(PATTERNS))
+        switch = self.pattern_switch(spec, pattern, oscillator)
         parameters, request, rhythm = self.network_common(data, labels, len(lags),
                                                           "labels = [\"head\", \"tail\"]")
+        runtime = {n: self.parameter(data, n, v, m) for n, v, m in
+                   self.entries(data, "parameters", "value", PARAMETER_KEYS)}
         try:
             return build_network(name, lags=lags, cycle_hz=rhythm.cycle_hz, loop_hz=rhythm.loop_hz,
                                  oscillator=oscillator, links=links, parameters=parameters,
                                  labels=labels, pattern=pattern,
                                  description=str(data.get("description", "")),
-                                 fixed_point=request, source=str(self.path))
+                                 fixed_point=request, source=str(self.path),
+                                 runtime={n: p for n, p in runtime.items() if p.runtime}, **switch)
         except InputError as exc:
             raise self.error(None, str(exc), NETWORK_HINT) from None
+
+    def pattern_switch(self, spec: dict, pattern: str, oscillator: str) -> dict:
+        """switch_to (a gait) and switch_rate (per second) of a Hopf gait network that switches
+        pattern at run time, as build_network's keywords; {} when it has none."""
+        if "switch_to" not in spec and "switch_rate" not in spec:
+            return {}
+        example = "pattern = \"walk\", switch_to = \"trot\", switch_rate = 0.5"
+        if oscillator != "hopf" or pattern not in GAITS:
+            raise self.error(self.line_of("network", "switch_to") or self.line_of("network"),
+                             "only a hopf network with a gait pattern switches pattern at run "
+                             "time", example)
+        target = spec.get("switch_to")
+        if target not in GAITS or target == pattern:
+            raise self.error(self.line_of("network", "switch_to") or self.line_of("network"),
+                             f"switch_to must name another gait than {pattern!r}, got {target!r}",
+                             f"{example} (gaits: {', '.join(GAITS)})")
+        if "switch_rate" not in spec:
+            raise self.error(self.line_of("network"), "switching pattern needs switch_rate, the "
+                             "fraction of the change made per second", example)
+        rate = self.number(spec["switch_rate"], "network", "switch_rate", "switch_rate",
+                           limits.RATE)
+        return {"switch_to": gait_lags(target), "switch_pattern": target, "switch_rate": rate}
 
     def build_diffusive(self, data: dict, name: str, spec: dict, oscillator: str) -> Model:
         """N copies of a single built-in model with a diffusive coupling matrix on one state."""
@@ -432,6 +458,12 @@ class _Reader:
                                  "of cycles, one per oscillator", "lags = [0, 0]")
             lags = [self.number(v, "network", "lags", "every lag", limits.LAG) for v in lags]
         labels = spec.get("labels")
+        for key, entry in self.table(data, "parameters", required=False).items():
+            if isinstance(entry, dict) and entry.get("runtime", False):
+                raise self.error(self.line_of("parameters", key), f"'{key}' is declared runtime, "
+                                 "but a network of single built-in models has no runtime "
+                                 "parameters yet (hopf and phase_amplitude networks have)",
+                                 f"{key} = 1.0")
         parameters, request, rhythm = self.network_common(data, labels, len(coupling),
                                                           "labels = [\"left\", \"right\"]")
         try:
@@ -447,16 +479,11 @@ class _Reader:
     def network_common(self, data: dict, labels: object, count: int, example: str
                        ) -> tuple[dict[str, float], FixedPointRequest, Rhythm]:
         """What every network file shares: labels (checked), parameter values, the fixed-point
-        request and the rhythm. Runtime parameters are refused: networks do not carry them."""
+        request and the rhythm."""
         if labels is not None and (not isinstance(labels, list | tuple) or len(labels) != count
                                    or not all(isinstance(v, str) for v in labels)):
             raise self.error(self.line_of("network", "labels"),
                              f"labels must be a list of {count} names, one per oscillator", example)
-        for name, entry in self.table(data, "parameters", required=False).items():
-            if isinstance(entry, dict) and entry.get("runtime", False):
-                raise self.error(self.line_of("parameters", name),
-                                 f"'{name}' is declared runtime, but network files do not support "
-                                 "runtime parameters yet", f"{name} = 1.0")
         parameters = {n: v for n, v, _ in self.entries(data, "parameters", "value", PARAMETER_KEYS)}
         fixed = self.table(data, "fixed_point", required=False)
         self.check_keys(fixed, FIXED_POINT_KEYS, "fixed_point")

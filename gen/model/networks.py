@@ -46,7 +46,7 @@ from __future__ import annotations
 import ast
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.definition import FixedPointRequest, Model, Parameter, Rhythm, State
@@ -79,6 +79,7 @@ PHASE_PARAMETERS = {
     "w": (2.0, "coupling weight: how hard each phase is pulled to its wanted lags"),
 }
 PARAMETERS = {"hopf": HOPF_PARAMETERS, "phase_amplitude": PHASE_PARAMETERS}
+MIX = "pattern_mix"  # the runtime parameter of a network that switches pattern
 # the start is the wanted pattern moved off by these fractions of a cycle, in turn, so that the
 # analysis can show the network locking by itself (oscillator 1 is the reference, never moved)
 START_OFFSETS = (0.0, 0.12, -0.1, 0.08, -0.06, 0.1, -0.12, 0.05)
@@ -97,6 +98,9 @@ class NetworkLayout:
     links : tuple of (int, int) -- (i, j): oscillator i is pulled by oscillator j (0-based).
     phases : tuple of int or None -- for oscillators with a phase state (an angle), its index in
         each oscillator; the lags are then read from the phases directly.
+    switch_lags, switch_pattern : the second pattern's lags and name, for a network that can be
+        switched to it at run time (the runtime parameter ``pattern_mix``: 0 holds the first
+        pattern, 1 the second); None for a network with one pattern.
     """
 
     pattern: str
@@ -106,6 +110,8 @@ class NetworkLayout:
     wanted_lags: tuple[float, ...]
     links: tuple[tuple[int, int], ...]
     phases: tuple[int, ...] | None = None
+    switch_lags: tuple[float, ...] | None = None
+    switch_pattern: str | None = None
 
     @property
     def count(self) -> int:
@@ -140,10 +146,21 @@ def build_network(
     description: str = "",
     fixed_point: FixedPointRequest | None = None,
     source: str = "python",
+    runtime: Mapping[str, Parameter] | None = None,
+    switch_to: Sequence[float] | None = None,
+    switch_pattern: str = "custom",
+    switch_rate: float | None = None,
 ) -> Model:
     """N coupled copies of one oscillator as a single model, with the wanted lags enforced by
     rotation coupling (Hopf) or phase biases (phase_amplitude). ``links`` is 'all' (every pair,
-    both ways) or 'neighbours' (a chain)."""
+    both ways) or 'neighbours' (a chain).
+
+    runtime : parameters the firmware may change between steps (each a runtime
+        :class:`Parameter` of the oscillator's own, e.g. omega to change the frequency).
+    switch_to, switch_rate : a second pattern's lags (Hopf networks): each rotation of the
+        coupling becomes (1 - m) R(theta_ij) + m R(theta'_ij), m the runtime parameter
+        ``pattern_mix`` in [0, 1] that ramps toward its setting at ``switch_rate`` per second, so
+        the firmware switches pattern with a setter, never resetting the state."""
     count = len(lags)
     if oscillator not in OSCILLATORS:
         raise InputError(f"network '{name}': unknown oscillator '{oscillator}' "
@@ -171,11 +188,33 @@ def build_network(
         pairs = tuple((i, j) for i in range(count) for j in range(count) if i != j)
     else:
         pairs = tuple((i, j) for i in range(count) for j in (i - 1, i + 1) if 0 <= j < count)
+    runtime = dict(runtime or {})
+    for key, parameter in runtime.items():
+        if key not in values or not parameter.runtime:
+            raise InputError(f"network '{name}': '{key}' is not a runtime parameter of a "
+                             f"{oscillator} network (its parameters are: {', '.join(table)})")
+    second = None
+    if switch_to is not None:
+        if oscillator != "hopf":
+            raise InputError(f"network '{name}': only hopf networks switch pattern at run time "
+                             "(a phase oscillator's bias enters a sine, which has no fixed-point "
+                             "form with a runtime weight)")
+        if len(switch_to) != count:
+            raise InputError(f"network '{name}': the pattern to switch to has {len(switch_to)} "
+                             f"lags for {count} oscillators")
+        if switch_rate is None or not switch_rate > 0:
+            raise InputError(f"network '{name}': switching pattern needs a positive switch_rate "
+                             "(the fraction of the change made per second)")
+        second = tuple((float(v) - float(switch_to[0])) % 1.0 for v in switch_to)
+        runtime[MIX] = Parameter(MIX, 0.0, f"gait mix, 0 the {pattern} and 1 the "
+                                 f"{switch_pattern}; set it to switch, the step ramps it at "
+                                 f"{switch_rate:g} per second", runtime=True, low=0.0, high=1.0,
+                                 rate=float(switch_rate))
     if oscillator == "phase_amplitude":
         states, equations, layout = _phase_amplitude(wanted, pairs, values, names, pattern)
         return _network_model(name, description or f"{count} coupled phase oscillators "
                               f"({pattern})", states, equations, values, table, cycle_hz,
-                              loop_hz, fixed_point, source, layout)
+                              loop_hz, fixed_point, source, layout, runtime)
 
     states, equations = [], []
     radius = math.sqrt(values["mu"]) if values["mu"] > 0 else 1.0
@@ -190,9 +229,10 @@ def build_network(
         for a, b in pairs:
             if a != i:
                 continue
-            theta = -2 * math.pi * (wanted[i] - wanted[b])
-            c, s = _tidy(math.cos(theta)), _tidy(math.sin(theta))
-            x_terms += [(c, f"x{b + 1}"), (-s, f"y{b + 1}")]
+            c, s = _rotation(wanted, i, b)
+            if second is not None:
+                c, s = _blend(c, _rotation(second, i, b)[0]), _blend(s, _rotation(second, i, b)[1])
+            x_terms += [(c, f"x{b + 1}"), (_negated(s), f"y{b + 1}")]
             y_terms += [(s, f"x{b + 1}"), (c, f"y{b + 1}")]
         n = i + 1
         growth = f"gamma * (mu - x{n}^2 - y{n}^2)"
@@ -201,23 +241,30 @@ def build_network(
 
     layout = NetworkLayout(pattern=pattern, oscillator=oscillator, labels=names,
                            members=tuple((2 * i, 2 * i + 1) for i in range(count)),
-                           wanted_lags=wanted, links=pairs)
+                           wanted_lags=wanted, links=pairs, switch_lags=second,
+                           switch_pattern=switch_pattern if second is not None else None)
     return _network_model(name, description or f"{count} coupled {oscillator} oscillators "
                           f"({pattern})", states, equations, values, HOPF_PARAMETERS, cycle_hz,
-                          loop_hz, fixed_point, source, layout)
+                          loop_hz, fixed_point, source, layout, runtime)
 
 
 def _network_model(name: str, description: str, states: list[State], equations: list[str],
                    values: Mapping[str, float], table: Mapping[str, tuple[float, str]],
                    cycle_hz: float, loop_hz: float, fixed_point: FixedPointRequest | None,
-                   source: str, layout: NetworkLayout) -> Model:
-    """The flattened model of a network, its parameters described by ``table``."""
+                   source: str, layout: NetworkLayout,
+                   runtime: Mapping[str, Parameter]) -> Model:
+    """The flattened model of a network, its parameters described by ``table`` (a runtime one
+    keeps its range and rate; ``pattern_mix`` comes last)."""
+    parameters = [replace(runtime[key], value=values[key], meaning=runtime[key].meaning or meaning)
+                  if key in runtime else Parameter(key, values[key], meaning)
+                  for key, (_, meaning) in table.items()]
+    if MIX in runtime:
+        parameters.append(runtime[MIX])
     return Model(
         name=name,
         description=description,
         states=tuple(states),
-        parameters=tuple(Parameter(key, values[key], meaning)
-                         for key, (_, meaning) in table.items()),
+        parameters=tuple(parameters),
         equation_text=tuple(equations),
         rhythm=Rhythm(float(cycle_hz), float(loop_hz)),
         fixed_point=fixed_point or FixedPointRequest(),
@@ -384,10 +431,32 @@ def _tidy(value: float) -> float:
     return nearest if abs(value - nearest) < 1e-12 else value
 
 
-def _coupling(terms: list[tuple[float, str]]) -> str:
-    """' + k * (c1 * s1 + c2 * s2 ...)' with zero coefficients left out and unit ones unwritten."""
+def _rotation(lags: tuple[float, ...], i: int, j: int) -> tuple[float, float]:
+    """cos and sin of the rotation that carries oscillator j's state onto i's on the pattern."""
+    theta = -2 * math.pi * (lags[i] - lags[j])
+    return _tidy(math.cos(theta)), _tidy(math.sin(theta))
+
+
+def _blend(first: float, second: float) -> float | str:
+    """A coupling coefficient that moves from ``first`` to ``second`` as pattern_mix goes 0 -> 1
+    (a number when the two patterns agree on it)."""
+    if first == second:
+        return first
+    return f"({first!r} + {_tidy(second - first)!r} * {MIX})"
+
+
+def _negated(coefficient: float | str) -> float | str:
+    return -coefficient if isinstance(coefficient, float) else f"(-{coefficient})"
+
+
+def _coupling(terms: list[tuple[float | str, str]]) -> str:
+    """' + k * (c1 * s1 + c2 * s2 ...)' with zero coefficients left out and unit ones unwritten
+    (a coefficient that is an expression is written as it is)."""
     parts = []
     for coefficient, state in terms:
+        if isinstance(coefficient, str):
+            parts.append(f"+ {coefficient} * {state}")
+            continue
         if coefficient == 0.0:
             continue
         sign = "-" if coefficient < 0 else "+"
