@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from conftest import HIP
 
-from orbitfix.gen.c.emit import render_model, render_units
+from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace, render_units
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.definition import define_model
 from orbitfix.gen.model.model_file import ModelFileError, load_model, read_model_file
@@ -26,6 +26,7 @@ from orbitfix.verify.proofs.drift import run_drift
 from orbitfix.verify.proofs.drift.harness import build_drift_module
 from orbitfix.verify.proofs.host_check import check_on_host
 from orbitfix.verify.report.drift import drift_json, drift_lines
+from orbitfix.verify.targets.host_build import build_host_module
 
 HOPF = dict(states={"x": 0.5, "y": 0.0},
             equations={"x": "(1 - x^2 - y^2) * x - 6.283185307179586 * y",
@@ -431,3 +432,43 @@ def test_the_self_test_checks_the_outputs_and_fails_on_an_output_constant(fin_dr
     # a checkpoint fails (u is one LSB coarser than the output, so the change shows where the
     # rounding turns, within the first checkpoints)
     assert 1 <= run() <= 16
+
+
+@pytest.mark.slow
+def test_switching_the_gait_keeps_every_output_within_its_limits_and_slew(tmp_path: Path) -> None:
+    # The check: switching pattern (walk to trot, at run time, through the ramped
+    # pattern_mix) keeps every output's step within its slew limit, in golden and in the C.
+    from orbitfix.gen.model.model_file import MODELS_FOLDER
+
+    path = tmp_path / "platform.toml"
+    path.write_text((MODELS_FOLDER / "walking_platform.toml").read_text() + (
+        '\n[outputs]\n'
+        'hip1 = { value = "x1", scale = 20.0, offset = 90.0, unit = "deg", min = 65.0, max = 115.0, '
+        'slew = 150.0 }\n'
+        'hip2 = { value = "x2", scale = 20.0, offset = 90.0, unit = "deg", min = 65.0, max = 115.0, '
+        'slew = 150.0 }\n'))
+    built = design(read_model_file(path))
+    program, plan = built.plan.program, built.plan
+    n = program.model_state_count
+    start = np.array(plan.initial_state, dtype=np.int64)
+    start[n + 1] = 1 << program.state_fraction_bits[n + 1]  # pattern_mix's target: the trot
+    states, outputs = golden.run_with_outputs(program, start, plan.initial_outputs, 2000)
+    mix = states[:, n] / 2.0 ** program.state_fraction_bits[n]
+    assert mix[0] == 0 and mix[-1] == pytest.approx(1.0, abs=1e-3)  # the switch happened
+    for j, slot in enumerate(program.outputs):
+        lsb = 2.0 ** -slot.fraction_bits
+        assert outputs[:, j].min() >= slot.low and outputs[:, j].max() <= slot.high
+        assert np.abs(np.diff(outputs[:, j])).max() * lsb <= slot.slew_step + lsb
+    # the C through the same switch: every state and output at every step, bit for bit
+    sources = render_model(built.model, built.timing, built.integrator, plan)
+    traced = render_trace(built.model, built.timing, built.integrator, plan)
+    host = build_host_module({**sources, **traced}, render_host_harness(built.model, program),
+                             "walking_platform.h")
+    io, memory = start.astype(np.int32), np.array(plan.initial_outputs, dtype=np.int32)
+    record = np.empty((2000, io.size), dtype=np.int32)
+    memory_record = np.empty((2000, memory.size), dtype=np.int32)
+    ffi = host.ffi
+    host.lib.orbitfix_harness_run_outputs(
+        ffi.from_buffer("int32_t[]", io), ffi.from_buffer("int32_t[]", memory), 2000,
+        ffi.from_buffer("int32_t[]", record), ffi.from_buffer("int32_t[]", memory_record))
+    assert np.array_equal(record, states[1:]) and np.array_equal(memory_record, outputs[1:])

@@ -367,9 +367,6 @@ def _check_outputs(model: Model) -> None:
     where = _where(model)
     taken = {n.upper(): n for n in [*model.state_names, *(p.name for p in model.parameters)]}
     taken.update({f"{p.name}_target".upper(): f"{p.name}_target" for p in model.runtime_parameters})
-    if model.outputs and model.network is not None:
-        raise InputError(f"{where}: outputs are not supported on networks yet; declare them on a "
-                         "single oscillator")
     for output in model.outputs:
         place = f"{where}, [outputs] '{output.name}'"
         name = output.name

@@ -45,7 +45,8 @@ STATE_KEYS = {"initial", "meaning", "angle"}
 PARAMETER_KEYS = {"value", "meaning", "runtime", "min", "max", "rate"}
 RHYTHM_KEYS = {"cycle_hz", "loop_hz"}
 FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator", "word_bits", "rounding", "overflow"}
-NETWORK_TOP_KEYS = {"name", "description", "network", "parameters", "rhythm", "fixed_point"}
+NETWORK_TOP_KEYS = {"name", "description", "network", "parameters", "rhythm", "fixed_point",
+                    "outputs"}
 NETWORK_KEYS = {"oscillator", "pattern", "count", "waves", "lags", "links", "labels", "coupling",
                 "coupled_state", "switch_to", "switch_rate"}
 
@@ -243,7 +244,14 @@ class _Reader:
 
     def build(self, data: dict) -> Model:
         if "network" in data:
-            return self.build_network(data)
+            network = self.build_network(data)
+            outputs = self.outputs(data)
+            if not outputs:
+                return network
+            try:
+                return replace(network, outputs=outputs)
+            except InputError as exc:
+                raise self.located(exc) from None
         self.check_keys(data, TOP_KEYS, None)
         name = data.get("name")
         if not isinstance(name, str):
