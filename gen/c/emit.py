@@ -280,6 +280,9 @@ def _constants(plan: FixedPointPlan, kept: set[int]) -> tuple[list[CConstant], d
             by_key[key] = name
             exact = "exact" if report.error == 0 else (
                 f"stands for {report.represents:.17g}, error {report.error:+.3g}")
+            if report.represents - report.real != report.error:  # an angle, a whole turn round
+                exact = (f"stands for {report.represents:.17g}, the same angle a whole turn "
+                         f"round, error {report.error:+.3g}")
             constants.append(CConstant(
                 name=name, literal=int_literal(report.stored, bits),
                 comment=comment_text(f"{report.real:.17g} in {report.format.name} "
