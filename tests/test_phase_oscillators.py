@@ -234,10 +234,20 @@ def test_phase_network_file_keys_and_errors(tmp_path: Path, capsys) -> None:
     assert "no parameter 'omega'" in err and "nu, R, a, w" in err and "Traceback" not in err
 
 
-def test_gen_writes_the_phase_chain(tmp_path: Path, capsys) -> None:
-    # Phases are held as wrapping words of turns and sin comes from a table (tests/test_phases.py).
-    assert main(["gen", "phase_chain", "-o", str(tmp_path / "out")]) == 0
-    assert "sine_lookup" in (tmp_path / "out" / "phase_chain.c").read_text()
+def test_gen_writes_a_phase_network_with_a_half_turn_bias(tmp_path: Path, capsys) -> None:
+    # Phases are held as wrapping words of turns and sin comes from a table (tests/test_phases.py);
+    # two fins half a cycle apart have a bias of half a turn, stored as the word's most negative
+    # value (minus a half turn: the same angle), not refused as too large. (A two-oscillator
+    # network keeps this test short; tests/test_angle_drift.py verifies the eight-joint chain.)
+    path = tmp_path / "fins.toml"
+    path.write_text('name = "fins"\n[network]\noscillator = "phase_amplitude"\nlags = [0, 0.5]\n'
+                    '[rhythm]\ncycle_hz = 1\nloop_hz = 100\n')
+    assert main(["gen", str(path), "-o", str(tmp_path / "out")]) == 0
+    source = (tmp_path / "out" / "fins.c").read_text()
+    assert "sine_lookup" in source
+    (line,) = [t for t in source.splitlines() if "rad, in turns" in t and "static const" in t]
+    assert "(-INT32_C(2147483647) - 1);" in line
+    assert "stands for -0.5, the same angle a whole turn round, error +0" in line
 
 
 # -- diffusive networks of a single built-in: two Van der Pol oscillators ---------------------------

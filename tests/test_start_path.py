@@ -73,11 +73,17 @@ def _critically_damped(r0: float, target: float, a: float, t: np.ndarray) -> np.
     return target + (r0 - target) * (1.0 + w * t) * np.exp(-w * t)
 
 
+@pytest.fixture(scope="module")
+def phase_chain():
+    """The eight-joint chain's design, made once for the tests that read it."""
+    return design(load_model("phase_chain"))
+
+
 @pytest.mark.slow
-def test_phase_chain_amplitude_follows_the_closed_form_solution() -> None:
+def test_phase_chain_amplitude_follows_the_closed_form_solution(phase_chain) -> None:
     """The generated 32-bit step (golden; verify proves the C gives its bits) from the model's
     own initial state against the closed-form solution, and the old cycle-only plan against it."""
-    built = design(load_model("phase_chain"))
+    built = phase_chain
     program = built.plan.program
     r = program.state_names.index("r1")
     params = built.model.parameter_values
@@ -105,14 +111,14 @@ def _critically_damped_from(x0: float, v0: float, target: float, a: float, t: np
 
 
 @pytest.mark.slow
-def test_phase_chain_compiled_c_follows_the_critically_damped_closed_form() -> None:
+def test_phase_chain_compiled_c_follows_the_critically_damped_closed_form(phase_chain) -> None:
     """The generated 32-bit C itself, started by its own init function, against the closed form
     for every joint's amplitude r_i and rate r_dot_i (the coupling does not enter r's equation).
     The tolerance is the start-up path's: 1e-4 of the set point here, far inside the 5 % parting
     verify allows."""
     from orbitfix.verify.proofs.drift import build_drift_module
 
-    built = design(load_model("phase_chain"))
+    built = phase_chain
     program = built.plan.program
     host = build_drift_module(built)
     ffi, lib = host.ffi, host.lib

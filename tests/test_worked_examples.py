@@ -59,7 +59,8 @@ def test_the_section_shows_one_command_per_step_of_each_example() -> None:
         ["verify", PUMP],
         ["report", "walking_platform", "-o", "build/walking_platform", "--hours", "1"],
     ]
-    assert {"fin_drive", PUMP, "walking_platform"} <= set(builtin_names())  # shipped in the package, so the wheel has them
+    # shipped in the package, so the wheel has them
+    assert {"fin_drive", PUMP, "walking_platform"} <= set(builtin_names())
 
 
 # -- the model files --------------------------------------------------------------------------------

@@ -348,6 +348,9 @@ def _constants(reports: tuple, kept: set[int], bits: int, constants: list[CConst
             by_key[key] = name
             exact = "exact" if report.error == 0 else (
                 f"stands for {report.represents:.17g}, error {report.error:+.3g}")
+            if report.represents - report.real != report.error:  # an angle, a whole turn round
+                exact = (f"stands for {report.represents:.17g}, the same angle a whole turn "
+                         f"round, error {report.error:+.3g}")
             constants.append(CConstant(
                 name=name, literal=int_literal(report.stored, bits), stored=report.stored,
                 fraction_bits=report.format.fraction_bits,

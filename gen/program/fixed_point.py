@@ -56,6 +56,7 @@ class ConstantReport:
     stored: int
     format: QFormat
     role: str
+    wraps: bool = False  # an angle: stored modulo the word's span, a whole turn is the same angle
 
     @property
     def represents(self) -> float:
@@ -63,7 +64,12 @@ class ConstantReport:
 
     @property
     def error(self) -> float:
-        return self.represents - self.real
+        """What is stored minus the real value (for an angle, the nearest way round)."""
+        difference = self.represents - self.real
+        if not self.wraps:
+            return difference
+        span = 2.0 ** (self.format.word_bits - self.format.fraction_bits)
+        return (difference + span / 2) % span - span / 2
 
     def to_json(self) -> dict:
         return {"value_index": self.index, "note": self.note, "real": self.real,
@@ -343,7 +349,7 @@ def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float]
         if kind.constant_role:
             constants.append(ConstantReport(index, op.note, op.real, op.constant,
                                             QFormat(w, kind.constant_bits(op, f, w)),
-                                            kind.constant_role))
+                                            kind.constant_role, wraps=op.wraps))
         filled.append(op)
     return filled, constants
 
