@@ -472,3 +472,18 @@ def test_switching_the_gait_keeps_every_output_within_its_limits_and_slew(tmp_pa
         ffi.from_buffer("int32_t[]", io), ffi.from_buffer("int32_t[]", memory), 2000,
         ffi.from_buffer("int32_t[]", record), ffi.from_buffer("int32_t[]", memory_record))
     assert np.array_equal(record, states[1:]) and np.array_equal(memory_record, outputs[1:])
+
+
+def test_an_output_whose_arithmetic_is_not_proven_is_refused(monkeypatch) -> None:
+    # Seeded fault: the formats of the outputs' values sized from ranges a hundred times too
+    # small (as a wrong interval rule would); the integer proof from the next state's sure range
+    # must then find a result that can leave the word, and the planner refuses the output.
+    from orbitfix.gen.program import outputs as planning
+
+    real = planning.interval_ranges
+    monkeypatch.setattr(planning, "interval_ranges", lambda program, low, high: [
+        (a / 100, b / 100) for a, b in real(program, low, high)])
+    model = define_model("osc", **HOPF, outputs={"a": {"value": "x", "scale": 30.0, "offset": 90.0,
+                                                       "min": 60.0, "max": 120.0}})
+    with pytest.raises(InputError, match=r"\[outputs\] 'a'.*can leave the 32-bit word"):
+        design(model)
