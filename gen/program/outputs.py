@@ -70,10 +70,10 @@ def plan_outputs(model: Model, plan: FixedPointPlan, loop_hz: float) -> FixedPoi
             continue
         owner = next((o.name for o in model.outputs if op.note.startswith(f"output {o.name}:")
                       or op.note.startswith(f"{o.name}:")), "an output")
-        raise InputError(f"model '{model.name}', [outputs] '{owner}': '{op.note}' can leave the "
-                         f"{w}-bit word for some state the step can reach (its sure bounds are "
-                         f"{checked[index][0]} to {checked[index][1]} of Q{w - op.fraction_bits}."
-                         f"{op.fraction_bits}); narrow the output's scale or offset or its value")
+        raise InputError(f"model '{model.name}', [outputs] '{owner}': '{op.note}' (Q"
+                         f"{w - op.fraction_bits}.{op.fraction_bits}) can leave the {w}-bit word for "
+                         "some state the step can reach, by interval arithmetic on the stored "
+                         "integers; narrow the output's scale or offset or its value")
     planned = replace(planned, ops=tuple(replace(op, proven=i in proven)
                                          for i, op in enumerate(planned.ops)))
     slots = []
