@@ -641,3 +641,30 @@ def test_a_model_without_a_stable_cycle_still_gets_its_sweep_and_says_why_it_has
         0.0, abs=1e-8)  # Van der Pol's rest state: eigenvalues (mu +- sqrt(mu^2 - 4)) / 2 (common practice)
     assert 'id="plot-sweep"' in page and 'id="plot-basin"' not in page and "No basin plot" in page
     assert "STOPPED" in page and mismatches(page, data) == [] and "http" not in page
+
+
+@pytest.mark.slow
+def test_the_page_shows_each_output_with_its_limits_and_its_runs(tmp_path) -> None:
+    # fin_drive's fin angle (gen/model/library/fin_drive.toml): declared, planned, and seen by
+    # every drift run inside its end stops; each number from its place in the JSON.
+    folder = tmp_path / "fin"
+    assert main(["report", "fin_drive", "-o", str(folder), *SMALL, "--hours", "0.01"]) == 0
+    data = json.loads((folder / "report.json").read_text())
+    page = (folder / "report.html").read_text(encoding="utf-8")
+    assert "Outputs to actuators" in page and mismatches(page, data) == []
+    shown = dict(tagged_numbers(page))
+    for path in ("model_definition.outputs.fin_angle.min", "model_definition.outputs.fin_angle.slew",
+                 "outputs.0.format", "outputs.0.slew_step", "output_steps_compared",
+                 "drift.runs.0.outputs.0.low_real", "drift.runs.0.outputs.0.at_max_steps"):
+        assert path in shown, path
+    assert shown["outputs.0.format"] == data["outputs"][0]["format"]
+    for run in data["drift"]["runs"]:
+        (fin,) = run["outputs"]
+        assert 55.0 <= fin["low_real"] <= fin["high_real"] <= 125.0
+
+
+def test_a_model_without_outputs_has_no_outputs_section() -> None:
+    data = {"ok": True, "verb": "verify", "model": "demo", "exit_code": 0, "error": None,
+            "model_definition": {"name": "demo", "states": [], "equations": {}, "parameters": [],
+                                 "rhythm": {"cycle_hz": 1.0, "loop_hz": 100.0}}}
+    assert "Outputs to actuators" not in report_html(data)

@@ -4,6 +4,7 @@ what ``gen``, ``verify`` and ``plan`` print about the plan they use."""
 from __future__ import annotations
 
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.program.integer_program import OutputSlot
 from orbitfix.gen.study.dead_zones import DeadZone
 from orbitfix.gen.study.discrete_cycle import CycleTolerance
 from orbitfix.gen.study.plan_study import CoefficientEffect, SearchResult
@@ -25,7 +26,20 @@ def design_json(built: Design) -> dict:
         "program_fingerprint": built.plan.program.fingerprint(),
         "warnings": list(built.plan.warnings),
         "trimmed": built.plan.trim or None,
+        **({"outputs": [output_json(slot, built.plan.program.word_bits)
+                        for slot in built.plan.program.outputs]}
+           if built.plan.program.outputs else {}),
     }
+
+
+def output_json(slot: OutputSlot, word_bits: int) -> dict:
+    """One output's plan: its format, its limits as stored and in its unit, its slew step."""
+    scale = 2.0 ** slot.fraction_bits
+    return {"name": slot.name, "unit": slot.unit,
+            "format": f"Q{word_bits - slot.fraction_bits}.{slot.fraction_bits}",
+            "fraction_bits": slot.fraction_bits, "low": slot.low, "high": slot.high,
+            "low_real": slot.low / scale, "high_real": slot.high / scale,
+            "slew_step": slot.slew_step}
 
 
 def design_lines(built: Design) -> list[str]:

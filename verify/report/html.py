@@ -138,6 +138,7 @@ def report_html(data: dict, plots: Sequence[tuple[str, str, str, str]] = (),
     _network(page)
     _timing(page)
     _plan(page)
+    _outputs(page)
     _trim(page)
     _start_path(page)
     _dead_zones(page)
@@ -436,6 +437,46 @@ def _layers(page: Page) -> None:
     page.table(["layers compared", "what", "result"], rows)
     if host:
         _mismatch(page, "first_mismatch")
+
+
+def _outputs(page: Page) -> None:
+    """Each output to an actuator: its declaration, its plan, and what every drift run saw."""
+    declared = page.get("model_definition.outputs") or {}
+    if not declared:
+        return
+    page.add("<h2>Outputs to actuators</h2>")
+    page.para("Each output is offset + scale * value of the state after the step, clamped to its "
+              "limits and moved by at most its slew step per step; the clamps are always in the "
+              "firmware, and reaching a limit is not a saturated step.")
+    planned = {o["name"]: i for i, o in enumerate(page.get("outputs") or [])}
+    rows = []
+    for name in declared:
+        d, i = f"model_definition.outputs.{name}", planned.get(name)
+        p = f"outputs.{i}" if i is not None else "outputs.missing"
+        rows.append([esc(name), f"<code>{esc(declared[name]['value'])}</code>", page.val(d + ".scale"),
+                     page.val(d + ".offset"), esc(declared[name].get("unit", "")),
+                     page.val(d + ".min"), page.val(d + ".max"), page.val(d + ".slew"),
+                     page.val(p + ".format"), page.val(p + ".slew_step")])
+    page.table(["output", "value", "scale", "offset", "unit", "min", "max", "slew (unit/s)",
+                "format", "slew step (unit)"], rows, numeric=(2, 3, 5, 6, 7, 9))
+    if page.has("output_steps_compared"):
+        page.pairs([("random states whose outputs the host C matched",
+                     page.val("output_states_compared")),
+                    ("steps whose outputs the host C matched", page.val("output_steps_compared"))])
+    rows = []
+    for i, run in enumerate(page.get("drift.runs") or []):
+        for j, output in enumerate(run.get("outputs") or []):
+            p = f"drift.runs.{i}.outputs.{j}"
+            unit = f" ({esc(output['unit'])})" if output.get("unit") else ""
+            rows.append([esc(run["start"]), esc(output["name"]) + unit, page.val(p + ".low_real"),
+                         page.val(p + ".high_real"), page.val(p + ".steps"),
+                         page.val(p + ".at_min_steps"), page.val(p + ".at_max_steps"),
+                         page.val(p + ".at_slew_steps")])
+    if rows:
+        page.add("<h3>Over the drift runs</h3>")
+        page.table(["run", "output", "lowest", "highest", "steps", "at min (steps)",
+                    "at max (steps)", "moved by the slew step (steps)"], rows,
+                   numeric=(2, 3, 4, 5, 6, 7))
 
 
 def _drift(page: Page) -> None:
