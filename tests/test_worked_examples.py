@@ -305,3 +305,31 @@ def test_readme_firmware_snippet_leaves_no_floating_point_on_the_cortex_m0(pump_
                              capture_output=True, text=True).stdout
     assert "peristaltic_pump_set_speed" in symbols
     assert not re.search(r"__aeabi_[df]|__(add|mul|div|sub)[sd]f3|__fix", symbols), symbols
+
+
+# -- the walking platform: one report command ---------------------------------------------------------
+
+
+@pytest.mark.slow
+def test_walking_platform_report_runs_as_written(tmp_path, capsys) -> None:
+    # The README's command, with fewer random states and trajectory steps to keep the test short;
+    # the switching itself is tested in tests/test_pattern_switch.py and tests/test_outputs.py.
+    folder = tmp_path / "walking_platform"
+    words = [*readme_command("report", "walking_platform", folder), "--states", "2000",
+             "--steps", "2000"]
+    assert main(words) == 0
+    assert "Traceback" not in capsys.readouterr().err
+    data = json.loads((folder / "report.json").read_text())
+    assert data["ok"] and data["bit_exact"] and data["setters_checked"] == 1
+    assert data["drift"]["verdict"] == "pass"
+    # judged at both gaits: the corners of pattern_mix, each on an exact cycle of 250 steps
+    # (1 Hz at 250 Hz; the Hopf normal form's period 2 pi / omega, common practice)
+    corners = {run["start"]: run for run in data["drift"]["runs"] if run["start"].startswith("pattern_mix")}
+    assert set(corners) == {"pattern_mix = 0", "pattern_mix = 1"}
+    for run in corners.values():
+        assert run["decides_verdict"] and run["verdict"] == "pass"
+        assert run["period_steps"] == pytest.approx(250, rel=1e-6)
+        assert {o["name"] for o in run["outputs"]} == {"hip_left_fore", "hip_right_fore",
+                                                     "hip_left_hind", "hip_right_hind"}
+    page = (folder / "report.html").read_text(encoding="utf-8")
+    assert "Outputs to actuators" in page and 'id="plot-network-waveforms"' in page
