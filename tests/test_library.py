@@ -187,6 +187,10 @@ def test_models_verb_json(capsys) -> None:
         model = load_model(entry["name"])
         assert entry["states"] in (None, list(model.state_names))
         assert (entry["states"] is None) == (entry["network"] is not None)
+        if entry["network"] is not None:  # and the count of oscillators, a gait's four limbs too
+            assert entry["network"]["count"] == model.network.count, entry["name"]
+    platform = next(e for e in entries if e["name"] == "walking_platform")
+    assert platform["network"]["switch_to"] == "trot"
 
 
 # -- sin and cos: analysed exactly, refused by the fixed-point lowering with a clear message --------

@@ -33,6 +33,8 @@ def model_list() -> list[dict]:
     """One plain-data entry per built-in model, from its file: name, description, the declared state
     names (None for a network, whose states are built from its oscillators), parameter values, and
     the network's description (None for a single oscillator)."""
+    from orbitfix.gen.model.networks import GAITS
+
     entries = []
     for path in sorted(library_folder().glob("*.toml")):
         with path.open("rb") as handle:
@@ -40,12 +42,16 @@ def model_list() -> list[dict]:
         params = {name: (value.get("value") if isinstance(value, dict) else value)
                   for name, value in data.get("parameters", {}).items()}
         network = data.get("network")
+        if network is not None:
+            given = network
+            network = {key: given[key] for key in ("oscillator", "pattern", "count", "labels",
+                                                   "switch_to") if key in given}
+            if "count" not in network:  # the oscillators of a gait, or of the lags or matrix given
+                network["count"] = len(GAITS.get(given.get("pattern"), ())
+                                       or given.get("lags", ()) or given.get("coupling", ()))
         entries.append({"name": path.stem, "description": data.get("description", ""),
                         "states": list(data["states"]) if "states" in data else None,
-                        "params": params,
-                        "network": None if network is None else {
-                            key: network[key] for key in ("oscillator", "pattern", "count", "labels")
-                            if key in network}})
+                        "params": params, "network": network})
     return entries
 
 

@@ -10,7 +10,7 @@ def format_models(entries: list[dict]) -> str:
     for entry in entries:
         network = entry.get("network")
         if entry["states"] is None and network is not None:
-            count = network.get("count") or len(network.get("labels", ())) or ""
+            count = network.get("count") or ""
             words = ("network of", count, network["oscillator"], "oscillators")
             states = " ".join(str(w) for w in words if w)
         elif len(entry["states"]) <= 4:
