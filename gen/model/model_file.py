@@ -24,9 +24,8 @@ from orbitfix.gen.model.definition import (
     make_output,
 )
 from orbitfix.gen.model.expressions import ACCEPTED, ExpressionError
+from orbitfix.gen.model.gaits import GAITS, LIMBS
 from orbitfix.gen.model.networks import (
-    GAITS,
-    LIMBS,
     LINKS,
     OSCILLATORS,
     PATTERNS,

@@ -33,7 +33,7 @@ def model_list() -> list[dict]:
     """One plain-data entry per built-in model, from its file: name, description, the declared state
     names (None for a network, whose states are built from its oscillators), parameter values, and
     the network's description (None for a single oscillator)."""
-    from orbitfix.gen.model.networks import GAITS
+    from orbitfix.gen.model.gaits import GAITS
 
     entries = []
     for path in sorted(library_folder().glob("*.toml")):
