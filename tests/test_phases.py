@@ -170,4 +170,4 @@ def test_an_angle_constant_wraps_into_the_word(word: int, turns: float, wanted: 
     angle = const.fill(Op("const", real=turns, wraps=True), word, [], word)
     assert angle.constant == round(wanted * 2**word)
     with pytest.raises(InputError, match="does not fit"):
-        const.fill(Op("const", real=0.5 * max(1.0, abs(turns)) + 0.5, note="plain"), word, [], word)
+        const.fill(Op("const", real=1.0, note="plain"), word, [], word)  # one turn, unwrapped

@@ -221,7 +221,8 @@ def build_network(
                 continue
             c, s = _rotation(wanted, i, b)
             if second is not None:
-                c, s = _blend(c, _rotation(second, i, b)[0]), _blend(s, _rotation(second, i, b)[1])
+                c2, s2 = _rotation(second, i, b)
+                c, s = _blend(c, c2), _blend(s, s2)
             x_terms += [(c, f"x{b + 1}"), (_negated(s), f"y{b + 1}")]
             y_terms += [(s, f"x{b + 1}"), (c, f"y{b + 1}")]
         n = i + 1
