@@ -207,6 +207,11 @@ class Model:
         return len(self.states)
 
     @property
+    def angle_states(self) -> tuple[int, ...]:
+        """The indices of the states that are angles."""
+        return tuple(i for i, s in enumerate(self.states) if s.angle)
+
+    @property
     def angle_mask(self) -> np.ndarray:
         """Boolean array, shape (n,): True for the states that are angles (modulo 2 pi)."""
         return np.array([s.angle for s in self.states], dtype=bool)

@@ -23,7 +23,7 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
     builder = _Builder(model)
     names = model.state_names
     start = [builder.add(Op("state", state=i, note=name)) for i, name in enumerate(names)]
-    angle_states = tuple(i for i, s in enumerate(model.states) if s.angle)
+    angle_states = model.angle_states
     builder.angles.update(start[i] for i in angle_states)
     runtime = model.runtime_parameters
     current, target = [], []

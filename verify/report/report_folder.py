@@ -130,7 +130,7 @@ def _network_plot(data: dict, analysis: Any, left_out: list[str]) -> list[tuple]
                f"{layout.labels[0]} rises; dotted lines mark each oscillator's measured lag after "
                f"{layout.labels[0]}, written on its row to four decimals beside the wanted lag (the "
                "table under Network phase locking gives them in full).")
-    angles = tuple(i for i, s in enumerate(model.states) if s.angle)
+    angles = model.angle_states
     return [("network-waveforms", "Output waveforms of the network", caption,
              network_waveforms(analysis.cycle.samples, layout, model.state_names, angles, network))]
 
@@ -142,7 +142,7 @@ def _drawn_on_request(data: dict, computed: dict, model: Any, left_out: list[str
     plots: list[tuple] = []
     sweep, basin = data.get("sweep"), data.get("basin")
     names = tuple(model.state_names) if model is not None else ()
-    angles = tuple(i for i, s in enumerate(model.states) if s.angle) if model is not None else ()
+    angles = model.angle_states if model is not None else ()
     if sweep is not None:
         name = sweep["parameter"]
         caption = (f"The swept parameter {name} from {sweep['from']:.6g} to {sweep['to']:.6g} "
