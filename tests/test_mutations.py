@@ -1,6 +1,7 @@
 """Mutation test of the host proof: faults seeded into the generated C of 16-bit Van der Pol (each
-constant and each shift one step off, each rounding constant, a dropped saturation, an add swapped
-for a subtract and back, the init literals) must each be caught by ``check_on_host`` with the C
+constant and each shift one step off, each rounding constant, a dropped saturation, the check
+that sends a state outside its range to the hold never firing or missing the edges, an add
+swapped for a subtract and back, the init literals) must each be caught by ``check_on_host`` with the C
 given as ``--sources``, unless the mutant is shown equivalent to the original by comparing both
 steps on every lattice state of the planning box (an exhaustive comparison in C).
 
@@ -95,6 +96,15 @@ def mutants(source: str, names: CNames) -> list[Mutant]:
     found += [Mutant("saturation dropped", "upper", source.replace(upper, "", 1)),
               Mutant("saturation dropped", "lower", source.replace(lower, "", 1)),
               Mutant("saturation dropped", "both", source.replace(upper + lower, "", 1))]
+    # The step's check that sends a state outside its range to the hold (the clamps above).
+    check = re.search(rf"static inline int {names.prefix}_outside\(.*?\n{{\n    return (.*?);\n}}",
+                      source, re.DOTALL)
+    assert check is not None
+    span = "(uint16_t)((uint16_t)high - (uint16_t)low)"
+    assert span in check.group(1)
+    found += [Mutant("range check", "never fires", source.replace(span, f"{span} + UINT16_MAX", 1)),
+              Mutant("range check", "misses the edges",
+                     source.replace(span, f"(uint16_t)({span} + 1u)", 1))]
     init = source.index(f"void {names.init}(")
     init_end = source.index("\n}\n", init)
     for m in re.finditer(r"state->(\w+) = INT16_C\((-?\d+)\);", source[init:init_end]):
@@ -247,7 +257,8 @@ def test_every_kind_of_fault_is_seeded(subject) -> None:
     found = mutants(files[names.source], names)
     kinds = Counter(m.kind for m in found)
     assert set(kinds) == {"constant +/-1 LSB", "shift +/-1", "add/subtract swapped",
-                          "rounding constant", "saturation dropped", "init literal"}
+                          "rounding constant", "saturation dropped", "range check",
+                          "init literal"}
     assert kinds["init literal"] == 2 * len(built.plan.program.state_names)
     assert all(m.source != files[names.source] for m in found)
     assert len({m.source for m in found}) == len(found)

@@ -177,6 +177,7 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         # a result brought into the word by the program's overflow rule, not by wrapping
         "uses_fit": any(kind_of(op.kind).fit_wraps(op) is False for op in all_ops),
         "uses_held": any(op.held for op in ops),
+        "holds": _holds(program, kept, names),
         "held_ranges": [{"field": names.field(program.state_names[op.state]), "low": op.held[0],
                          "high": op.held[1],
                          "low_real": op.held[0] / 2.0 ** program.state_fraction_bits[op.state],
@@ -225,6 +226,22 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "overflow_words": OVERFLOW_WORDS[program.overflow].format(bits=program.word_bits),
         "comment": comment_text,
     }
+
+
+def _holds(program: IntegerProgram, kept: set[int], names: CNames) -> list[dict]:
+    """The held states (``Op.held``), each with its range as C literals: the step checks them all
+    at once and holds them, in place, before it reads any state; the values then read each state
+    as it is (``State.c_call``). Every state is read by the step (its next value starts from it),
+    so each hold counts."""
+    holds = []
+    for index, op in enumerate(program.ops):
+        if op.kind != "state" or not op.held:
+            continue
+        if index not in kept or index not in program.counted_clamps:
+            raise ValueError(f"held state {op.note!r} is not read by the step")
+        low, high = (int_literal(v, program.word_bits) for v in op.held)
+        holds.append({"field": names.field(program.state_names[op.state]), "low": low, "high": high})
+    return holds
 
 
 def _helpers(program: IntegerProgram, ops: list[Op], prefix: str, word_type: str,

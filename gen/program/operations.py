@@ -251,9 +251,9 @@ class State(OperationKind):
         return machine.state(op.state)
 
     def c_call(self, op, site):
-        if op.held:
-            low, high = (int_literal(v, site.word_bits) for v in op.held)
-            return f"{site.prefix}_held(state->{site.field}, {low}, {high}{site.saturated})"
+        # A held state (``op.held``) is read as it is: the step holds every held state in its
+        # range before it reads any (``holds`` of the C back end: one check, and the clamps
+        # out of line), which is golden's ``machine.hold`` above.
         return f"state->{site.field}"
 
 

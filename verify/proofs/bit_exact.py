@@ -4,16 +4,16 @@ First every entry point the firmware calls besides the step: the state ``NAME_in
 the plan's initial state bit for bit, each setter must write its target and nothing else, and each
 ramp, driven through the C setter to the word's extremes and back, must match golden at every step
 and keep to the model's declared range and rate. Then two parts: one step from each of many random
-states inside the word (spread over its whole range, near the cycle, at the edges of saturation,
-the smallest values), and a long trajectory from the initial state in which every single step is
-compared. On the random states, the verification-only traced step (``NAME_trace.c``) is also
-compared with golden value by value, and the firmware's own step with the traced step, so a fault
-in either file is caught. The count of saturated steps the firmware keeps in its state struct is
-compared too, everywhere: the init function must set it to 0, every step must add one exactly
-when golden says the step saturated, and it must stick at its largest value (some random states
-start there). ``compare_sanitized`` repeats the comparison on a build under the
-undefined-behaviour sanitizer. A mismatch names the first failing step, the state before it, what
-was expected and got, and the operation of the integer program where the two part.
+states inside the word (spread over its whole range, near the cycle, at the edges of saturation and
+of the proven ranges, the smallest values), and a long trajectory from the initial state in which
+every single step is compared. On the random states, the verification-only traced step
+(``NAME_trace.c``) is also compared with golden value by value, and the firmware's own step with
+the traced step, so a fault in either file is caught. The count of saturated steps the firmware
+keeps in its state struct is compared too, everywhere: the init function must set it to 0, every
+step must add one exactly when golden says the step saturated, and it must stick at its largest
+value (some random states start there). ``compare_sanitized`` repeats the comparison on a build
+under the undefined-behaviour sanitizer. A mismatch names the first failing step, the state before
+it, what was expected and got, and the operation of the integer program where the two part.
 """
 
 from __future__ import annotations
@@ -131,8 +131,9 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
                   rng: np.random.Generator) -> np.ndarray:
     """States spread over each state's proven range (where the step holds it: see
     ``gen/program/proven_fit.py``) and over the word's whole range, the cycle's neighbourhood, the
-    edges of saturation and the smallest values. typical : ndarray, shape (n_states,), integer
-    magnitudes of the states on the cycle. Returns int64 ndarray, shape (n_states, count)."""
+    edges of saturation and of the proven ranges, and the smallest values. typical : ndarray,
+    shape (n_states,), integer magnitudes of the states on the cycle. Returns int64 ndarray,
+    shape (n_states, count)."""
     n = len(program.state_names)
     low, high = program.word_min, program.word_max
     quarter = count // 4
@@ -149,7 +150,12 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
     near_cycle = rng.integers(np.maximum(-reach, low), reach, size=(n, quarter), endpoint=True)
     edges = np.where(rng.random((n, quarter)) < 0.5, low, high) - np.sign(
         rng.random((n, quarter)) - 0.5).astype(np.int64) * rng.integers(0, 1 << 12, (n, quarter))
-    edges = np.clip(edges, low, high)
+    # half of them at the edges of the proven ranges instead, a few LSB either side: where the
+    # step's range check sends a state to the hold, or not
+    near = rng.random((n, quarter)) < 0.5
+    held_edges = np.where(rng.random((n, quarter)) < 0.5, first, last) + rng.integers(
+        -4, 4, (n, quarter), endpoint=True)
+    edges = np.clip(np.where(near, held_edges, edges), low, high)
     small = rng.integers(-(1 << 10), 1 << 10, size=(n, quarter), endpoint=True)
     return np.hstack([spread, near_cycle, edges, small]).astype(np.int64)
 
