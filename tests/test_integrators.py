@@ -61,6 +61,30 @@ def test_lowered_program_equals_the_tableau_step(method: Integrator) -> None:
     np.testing.assert_allclose(lowered, reference, rtol=1e-13, atol=1e-13)
 
 
+def test_rk4_sums_each_state_increments_once_in_the_wide_type() -> None:
+    # RK4's update x + h/6 (k1 + 2 k2 + 2 k3 + k4) (Hairer, Norsett, Wanner, Solving ODEs I,
+    # sec. II.1): the four slopes of each state enter one weighted sum with weights 1, 2, 2, 1,
+    # (k1 and k4 first, then k2 and k3), which the planned program rounds once (one shift),
+    # then one product by h/6 and one sum into the state; no other sum of slopes is formed.
+    from orbitfix.gen.program.fixed_point import plan_fixed_point
+
+    program = lower_step(VANDERPOL, INTEGRATORS["rk4"], 0.05)
+    sums = [op for op in program.ops if op.kind == "wsum"]
+    assert [op.weights for op in sums] == [(1, 1, 2, 2)] * 2
+    assert all(len(set(op.args)) == 4 for op in sums)
+    assert not any(op.kind == "add" and op.args[0] == op.args[1] for op in program.ops)
+    for state, op in enumerate(sums):
+        update = program.ops[program.next_state[state]]
+        product = program.ops[update.args[1]]
+        assert update.kind == "add" and update.args[0] == state
+        assert product.kind == "scale" and product.real == 0.05 / 6
+        assert program.ops[product.args[0]] is op
+    samples = np.array([[2.0, -2.0, 0.5], [1.0, -1.0, 2.5]])
+    plan = plan_fixed_point(program, samples, np.array([0.5, 0.0]))
+    planned = [op for op in plan.program.ops if op.kind == "wsum"]
+    assert all(op.shift >= 0 and len(op.align) == 4 for op in planned)
+
+
 def one_step_gain(method: Integrator, h: float) -> tuple[float, float]:
     program = lower_step(HARMONIC, method, h)
     values = evaluate_real(program, np.array([[1.0], [0.0]]))

@@ -45,11 +45,18 @@ def into_word(value: int, bits: int, overflow: str) -> int:
     return (value - low) % (1 << bits) + low
 
 
+# The weights a kind of any arity is tested with: RK4's (common practice: k1 + 2 k2 + 2 k3 + k4),
+# on arguments that repeat, and a mixed-sign set.
+WEIGHTS = {4: (1, 2, 2, 1), 3: (3, -1, 2)}
+
+
 def plan_op(name: str, args: tuple[int, ...], f_args: list[int], w: int, natural: int,
             real: Fraction | None = None, wraps: bool = False) -> Op:
     """One operation planned by its kind's own format rule, as the planner would."""
     kind = kind_of(name)
-    op = Op(name, args, real=None if real is None else float(real), wraps=wraps, note=name)
+    weights = WEIGHTS[len(args)] if kind.arity is None else ()
+    op = Op(name, args, real=None if real is None else float(real), wraps=wraps, note=name,
+            weights=weights)
     if kind.constant_role == "added":  # an added constant's format holds its value
         natural = min(natural, w - 1 - integer_bits_for(abs(op.real)))
     forced = w if wraps else kind.forced_bits(op, w, f_args)
@@ -66,6 +73,8 @@ def operand_shapes(name: str, w: int) -> list[tuple[tuple[int, ...], bool]]:
         return [((2,), False)]
     if kind.arity == 0:
         return [((), False)]
+    if kind.arity is None:  # never an angle: integrators' increments
+        return [((0, 1, 1, 0), False), ((1, 0, 0), False)]
     plain = (0, 1)[:kind.arity]
     return [(plain, False), ((2, 2)[:kind.arity], True)]
 
@@ -146,12 +155,14 @@ def test_interval_rule_encloses_every_real_result(name: str) -> None:
     rng = np.random.default_rng(len(name))
     kind = kind_of(name)
     for trial in range(50):
-        arity = max(kind.arity, 1)
+        count = 3 if kind.arity is None else kind.arity
+        arity = max(count, 1)
         lows = rng.uniform(-5, 5, size=3)
         highs = lows + rng.uniform(0, 5, size=3) * (trial % 5 != 0)  # some boxes are points
-        args = (0, 0) if (name == "mul" and trial % 2) else tuple(range(kind.arity))
+        args = (0, 0) if (name == "mul" and trial % 2) else tuple(range(count))
         op = Op(name, args, state=0 if name == "state" else None,
-                real=float(rng.uniform(-3, 3)) if kind.arity < 2 else None)
+                real=float(rng.uniform(-3, 3)) if count < 2 else None,
+                weights=WEIGHTS[count] if kind.arity is None else ())
         if isinstance(kind, TableSine):
             lows, highs = np.full(3, -0.5), np.full(3, 0.5)
         points = rng.uniform(lows[:, None], highs[:, None], size=(3, 400))
@@ -160,7 +171,7 @@ def test_interval_rule_encloses_every_real_result(name: str) -> None:
             points[1] = points[0]
         bounds = [(float(lo), float(hi)) for lo, hi in zip(lows, highs, strict=True)]
         low, high = kind.interval(op, [bounds[i] for i in args], (lows, highs))
-        values = kind.real(op, [points[i] for i in args][:arity] if kind.arity else [], points)
+        values = kind.real(op, [points[i] for i in args][:arity] if count else [], points)
         slack = 1e-12 * (1 + max(abs(low), abs(high)))
         assert np.all(values >= low - slack) and np.all(values <= high + slack), (name, trial)
 
@@ -181,6 +192,25 @@ def test_format_rule_keeps_shifts_and_alignments_inside_the_wide_type(name: str,
             assert all(0 <= k <= w - 2 for k in op.align), (name, op)
             if op.constant is not None:
                 assert abs(op.constant) <= (1 << (w - 1)) - 1
+
+
+def test_a_weighted_sum_keeps_its_aligned_terms_inside_the_wide_type() -> None:
+    # Every aligned operand is below 2**(w - 1) * 2**(w - 2 - headroom); the weighted sum of them
+    # (and the half added to round it) must stay below 2**(2w - 1), the product width's limit
+    # (two's complement, common practice). The headroom must be the least that does it.
+    kind = kind_of("wsum")
+    for weights in [(1, 1), (1, 2, 2, 1), (3, -1, 2), (1, 1, 1, 1, 1), (4, 4), (1, -7, 1, 1)]:
+        op = Op("wsum", tuple(range(len(weights))), weights=weights)
+        total = sum(abs(w) for w in weights)
+        e = kind.alignment_headroom(op)
+        for w in (16, 32):
+            assert total * 2 ** (2 * w - 3 - e) <= 2 ** (2 * w - 2), weights
+            if e:
+                assert total * 2 ** (2 * w - 3 - (e - 1)) > 2 ** (2 * w - 2), weights
+    with pytest.raises(ValueError, match="one nonzero weight each"):
+        Op("wsum", (0, 1), weights=(1,))
+    with pytest.raises(ValueError, match="no weights"):
+        Op("add", (0, 1), weights=(1, 1))
 
 
 def every_kind_design(w: int, rounding: str, overflow: str):

@@ -381,7 +381,7 @@ def _limit_alignment(ops: tuple, kinds: list, bits: list[int], forced: dict[int,
             if not kind.aligns:
                 continue
             coarse = min(bits[i] for i in op.args)
-            ceiling = coarse + w - 2
+            ceiling = coarse + w - 2 - kind.alignment_headroom(op)
             for i in op.args:
                 if bits[i] > ceiling:
                     if ops[i].kind == "state" or i in forced:

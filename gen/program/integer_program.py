@@ -18,8 +18,10 @@ Every value is an integer standing for integer / 2**fraction_bits, each value wi
 3. brings it into the word: clamp (``overflow`` = ``saturate``) or reduce modulo 2**word_bits
    (``wrap``).
 
-What each kind does (``state``, ``const``, ``add``, ``sub``, ``neg``, ``abs``, ``min``, ``max``,
-``mul``, ``scale``, ``sin``, ``cos``) is defined once, in ``gen/program/operations.py``.
+What each kind does (``state``, ``const``, ``add``, ``sub``, ``wsum``, ``neg``, ``abs``, ``min``,
+``max``, ``mul``, ``scale``, ``sin``, ``cos``) is defined once, in ``gen/program/operations.py``.
+``wsum`` takes any number of arguments from two, each with its whole weight (``weights``): an
+integrator's increments summed exactly in the product width and rounded once.
 
 Angles (phases) are held in turns: an angle value has fraction_bits = word_bits, so the word
 covers exactly one turn and wrapping modulo 2**word_bits is wrapping modulo a full turn. An
@@ -108,13 +110,18 @@ class Op:
     offset: int | None = None
     held: tuple[int, ...] = ()
     proven: bool = False
+    weights: tuple[int, ...] = ()
 
     def __post_init__(self) -> None:
         from orbitfix.gen.program.operations import kind_of  # numpy: not needed to read options
 
         arity = kind_of(self.kind).arity
-        if len(self.args) != arity:
-            raise ValueError(f"{self.kind} takes {arity} arguments, got {self.args}")
+        if arity is None:  # any number of arguments from two, each with its whole weight
+            if len(self.args) < 2 or len(self.weights) != len(self.args) or 0 in self.weights:
+                raise ValueError(f"{self.kind} takes two or more arguments with one nonzero weight "
+                                 f"each, got {self.args} and weights {self.weights}")
+        elif len(self.args) != arity or self.weights:
+            raise ValueError(f"{self.kind} takes {arity} arguments and no weights, got {self.args}")
 
     def to_json(self) -> dict:
         data: dict = {"kind": self.kind, "args": list(self.args)}
@@ -130,6 +137,8 @@ class Op:
             data["table"] = list(self.table)
         if self.held:
             data["held"] = list(self.held)
+        if self.weights:
+            data["weights"] = list(self.weights)
         if self.proven:
             data["proven"] = True
         if self.note:

@@ -108,7 +108,7 @@ class _Builder:
         self.angles: set[int] = set()  # values that are angles held in turns
 
     def add(self, op: Op) -> int:
-        key = (op.kind, op.args, op.state, op.real, op.wraps)
+        key = (op.kind, op.args, op.state, op.real, op.wraps, op.weights)
         if key in self.seen:
             return self.seen[key]
         self.ops.append(op)
@@ -137,9 +137,10 @@ class _Builder:
         rates (radians) are turned into turns and the sums wrap at a full turn.
 
         When every weight is a whole multiple of the smallest, with one sign (RK4's h/6 times
-        1, 2, 2, 1), the values are summed first, with whole multiples, and the sum is scaled
-        once: base + unit * (k1 + 2 k2 + 2 k3 + k4). One product and one rounding into the state
-        instead of one per term, so no increment under half an LSB is lost on its own."""
+        1, 2, 2, 1), the values are summed first, with whole multiples, exactly in the product
+        width and rounded once (``wsum``), and the sum is scaled once: base + unit * (k1 + 2 k2 +
+        2 k3 + k4). One product and one rounding into the state instead of one per term, so no
+        increment under half an LSB is lost on its own."""
         live = [(w, v, label) for w, v, label in terms if w != 0]
         for _, value, _ in live:
             if value in self.angles:
@@ -162,20 +163,12 @@ class _Builder:
         return total
 
     def weighted_sum(self, groups: list[tuple[int, list[int]]], note: str) -> int:
-        """sum(multiple * sum(values)) over the groups, with whole multiples: a sum of each
-        group, doubled by adding it to itself for a power of two, scaled otherwise."""
-        total = None
-        for multiple, values in groups:
-            group = values[0]
-            for value in values[1:]:
-                group = self.add(Op("add", (group, value), note=note))
-            if multiple & (multiple - 1) == 0:
-                for _ in range(multiple.bit_length() - 1):
-                    group = self.add(Op("add", (group, group), note=note))
-            else:
-                group = self.scaled(group, Fraction(multiple), note)
-            total = group if total is None else self.add(Op("add", (total, group), note=note))
-        return total
+        """sum(multiple * sum(values)) over the groups, with whole multiples, as one ``wsum``:
+        formed exactly in the product width and rounded once (a chain of sums rounds at every
+        link). Called with two or more values (see ``_factored``)."""
+        values = [value for _, group in groups for value in group]
+        weights = [multiple for multiple, group in groups for _ in group]
+        return self.add(Op("wsum", tuple(values), weights=tuple(weights), note=note))
 
     def turns(self, value: int, note: str) -> int:
         """An angle in turns from a plain value in radians."""

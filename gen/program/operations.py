@@ -140,7 +140,7 @@ class OperationKind:
     """
 
     name = ""
-    arity = 0
+    arity: int | None = 0  # None: two or more arguments, each with its whole weight (Op.weights)
     aligns = False
     provable = True  # whether the planner may prove its result fits (and drop its clamp)
     rounds_itself = False  # its golden rule rounds inside: exact_bounds bound the value itself
@@ -155,6 +155,12 @@ class OperationKind:
 
     def forced_bits(self, op: Op, word_bits: int, state_formats: list[int]) -> int | None:
         return None
+
+    def alignment_headroom(self, op: Op) -> int:
+        """Bits by which an aligned operand stays below the planner's usual limit (word_bits - 2
+        left), so that the exact result of a kind that adds more than two aligned terms still
+        fits the product width."""
+        return 0
 
     def first_bits(self, op: Op, f_args: list[int], natural: int, word_bits: int) -> int:
         raise NotImplementedError(f"{self.name} always has a forced format")
@@ -409,6 +415,58 @@ class Max(Aligned):
 
     def c_combine(self, x, y):
         return f"({x} > {y} ? {x} : {y})"
+
+
+@register
+class WeightedSum(OperationKind):
+    """The sum of the aligned arguments, each times its whole weight ``op.weights[i]``: an
+    integrator's increments (RK4's k1 + 2 k2 + 2 k3 + k4) formed exactly in the product width and
+    rounded once, where a chain of sums would round at every link."""
+
+    name = "wsum"
+    arity = None
+    aligns = True
+
+    def real(self, op, args, states):
+        total = args[0] * op.weights[0]
+        for value, weight in zip(args[1:], op.weights[1:], strict=True):
+            total = total + value * weight
+        return total
+
+    def interval(self, op, args, box):
+        low = sum(w * (lo if w > 0 else hi) for w, (lo, hi) in zip(op.weights, args, strict=True))
+        high = sum(w * (hi if w > 0 else lo) for w, (lo, hi) in zip(op.weights, args, strict=True))
+        return low, high
+
+    def alignment_headroom(self, op):
+        # each aligned operand is below 2**(2w - 3 - e): the weighted sum stays below 2**(2w - 2)
+        # when the weights' magnitudes add up to at most 2**(e + 1)
+        return max(0, (sum(abs(w) for w in op.weights) - 1).bit_length() - 1)
+
+    def first_bits(self, op, f_args, natural, word_bits):
+        return min(natural, max(f_args))
+
+    def fill(self, op, bits, f_args, word_bits):
+        top = max(*f_args, bits)
+        return replace(op, align=tuple(top - g for g in f_args), shift=top - bits)
+
+    def exact(self, op, args, machine):
+        total = None
+        for value, weight, k in zip(args, op.weights, op.align, strict=True):
+            term = value * machine.wide(weight << k)
+            total = term if total is None else np.add(total, term)
+        return total
+
+    def exact_bounds(self, op, args, word_bits):
+        return self.interval(op, [(lo << k, hi << k) for (lo, hi), k in
+                                  zip(args, op.align, strict=True)], None)
+
+    def c_exact(self, op, site):
+        terms = []
+        for value, weight, k in zip(site.args, op.weights, op.align, strict=True):
+            factor = weight << k
+            terms.append(f"({site.wide}){value}" + ("" if factor == 1 else f" * {factor}"))
+        return " + ".join(terms)
 
 
 class Unary(OperationKind):
