@@ -1,0 +1,190 @@
+"""Networks as loops: the repeats of a planned integer program (the same work once per
+oscillator, ``IntegerProgram.repeats``) written as one C loop over the oscillators.
+
+A value some other copy, another part of the step or the next state reads is kept in an array
+indexed by oscillator; a value only its own copy reads is a local of the loop's body. A copy's
+argument from another repeat is that array at the same oscillator or a fixed number of
+oscillators on (modulo the count). A stored constant that differs between the copies (a
+coupling's number) becomes a ``static const`` table indexed by oscillator, in flash on AVR. A
+repeat becomes a loop only when every copy's C line, written with the loop's names, is the same
+text, position by position; else its copies are written out one by one into the same arrays.
+Nothing here decides arithmetic: every line is the operation's own C form
+(``gen/c/emit.py``), only the names of its arguments and constants change.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+from orbitfix.gen.c.naming import comment_text
+from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.program.operations import int_literal, kind_of
+
+LOOP_INDEX = "oscillator"
+
+# render(index, arg_names, symbol or None) -> (C expression, comment) of one value's line
+Render = Callable[[int, tuple[str, ...], str | None], tuple[str, str]]
+
+
+@dataclass
+class LoopedStep:
+    """The firmware step's value lines with its repeats as loops.
+
+    lines -- C lines (unindented) computing the kept values; value_name -- the C name of any
+    value outside a loop's body (for the next state); tables -- per-oscillator constant tables
+    (name, length, entries, comment); loops -- how many repeats became loops, of ``repeats``."""
+
+    lines: list[str]
+    value_name: Callable[[int], str]
+    tables: list[dict] = field(default_factory=list)
+    loops: int = 0
+    repeats: int = 0
+
+
+def looped_step(program: IntegerProgram, kept: set[int], render: Render,
+                symbol_of: dict[int, str], stored: dict[int, tuple[int, int]],
+                word_type: str, table_entry: str) -> LoopedStep | None:
+    """The step's lines with each repeat as a loop where its copies' C agree. ``stored`` maps a
+    value with a stored constant to (stored integer, its fraction bits); ``table_entry`` is the
+    macro that reads a table entry (flash on AVR). None when the program has no repeats, or
+    when a repeat reads a value made after its first operation (the copies cannot go together)."""
+    repeats = program.repeats
+    if not repeats:
+        return None
+    where: dict[int, tuple[int, int, int]] = {}
+    for r, repeat in enumerate(repeats):
+        for c, copy in enumerate(repeat):
+            for p, index in enumerate(copy):
+                where[index] = (r, c, p)
+    starts = [min(min(copy) for copy in repeat) for repeat in repeats]
+    for r, repeat in enumerate(repeats):
+        for copy in repeat:
+            for index in copy:
+                if index in kept and any(a >= starts[r] and where.get(a, (None,))[0] != r
+                                         for a in program.ops[index].args):
+                    return None
+    readers_outside: set[tuple[int, int]] = set()  # (repeat, position) read outside its copy
+    for index in kept:
+        mine = where.get(index)
+        for a in program.ops[index].args:
+            theirs = where.get(a)
+            if theirs is not None and (mine is None or mine[:2] != theirs[:2]):
+                readers_outside.add((theirs[0], theirs[2]))
+    for value in program.next_state:
+        if value in where:
+            readers_outside.add((where[value][0], where[value][2]))
+
+    def first_of(index: int) -> int:
+        r, _, p = where[index]
+        return repeats[r][0][p]
+
+    def value_name(index: int) -> str:
+        """A value's name outside any loop's body."""
+        if index in where and (where[index][0], where[index][2]) in readers_outside:
+            return f"v{first_of(index)}[{where[index][1]}]"
+        return f"v{index}"
+
+    def loop_name(index: int, r: int, c: int) -> str:
+        """Argument ``index`` as copy ``c`` of repeat ``r`` reads it in the loop's body."""
+        theirs = where.get(index)
+        if theirs is None:
+            return f"v{index}"
+        count = len(repeats[r])
+        rr, cc, p = theirs
+        array = (rr, p) in readers_outside
+        if rr == r and cc == c:
+            return f"v{first_of(index)}[{LOOP_INDEX}]" if array else f"v{first_of(index)}"
+        if len(repeats[rr]) != count:
+            return f"v{first_of(index)}[{cc}]"  # never the same text in every copy
+        on = (cc - c) % count
+        at = LOOP_INDEX if on == 0 else f"({LOOP_INDEX} + {on}u) % {count}u"
+        return f"v{first_of(index)}[{at}]"
+
+    result = LoopedStep(lines=[], value_name=value_name, repeats=len(repeats))
+    emitted: set[int] = set()
+    for index in range(len(program.ops)):
+        if index not in kept or index in emitted:
+            continue
+        if index not in where:
+            expression, note = render(index, tuple(value_name(a) for a in program.ops[index].args),
+                                      None)
+            result.lines.append(f"const {word_type} v{index} = {expression}; /* {note} */")
+            continue
+        r = where[index][0]
+        repeat = repeats[r]
+        emitted.update(i for copy in repeat for i in copy)
+        for p in range(len(repeat[0])):
+            if (r, p) in readers_outside and any(copy[p] in kept for copy in repeat):
+                result.lines.append(f"{word_type} v{repeat[0][p]}[{len(repeat)}];")
+        body = _loop_body(program, repeat, r, kept, render, symbol_of, stored, loop_name,
+                          readers_outside, word_type, table_entry, result.tables)
+        if body is not None:
+            result.loops += 1
+            result.lines.append(f"for (unsigned int {LOOP_INDEX} = 0u; {LOOP_INDEX} < "
+                                f"{len(repeat)}u; {LOOP_INDEX}++) {{")
+            result.lines += [f"    {line}" for line in body]
+            result.lines.append("}")
+            continue
+        for c, copy in enumerate(repeat):  # written out, copy by copy, into the same arrays
+            for p, i in enumerate(copy):
+                if i not in kept:
+                    continue
+                expression, note = render(i, tuple(value_name(a) for a in program.ops[i].args),
+                                          None)
+                if (r, p) in readers_outside:
+                    result.lines.append(f"v{repeat[0][p]}[{c}] = {expression}; /* {note} */")
+                else:
+                    result.lines.append(f"const {word_type} v{i} = {expression}; /* {note} */")
+    return result
+
+
+def _loop_body(program: IntegerProgram, repeat: tuple, r: int, kept: set[int], render: Render,
+               symbol_of: dict[int, str], stored: dict[int, tuple[int, int]], loop_name,
+               readers_outside: set, word_type: str, table_entry: str,
+               tables: list[dict]) -> list[str] | None:
+    """The loop's body for one repeat, or None where two copies' C differ at some position."""
+    body = []
+    new_tables = []
+    for p in range(len(repeat[0])):
+        place = [copy[p] for copy in repeat]
+        if len({i in kept for i in place}) != 1:
+            return None
+        if place[0] not in kept:
+            continue
+        symbol = None
+        if kind_of(program.ops[place[0]].kind).constant_role and len(
+                {symbol_of.get(i) for i in place}) > 1:
+            if len({stored[i][1] for i in place}) != 1:
+                return None  # the copies' constants have different formats
+            entries = [int_literal(stored[i][0], program.word_bits) for i in place]
+            same = [t["name"] for t in tables + new_tables if t["entries"] == entries
+                    and t["fraction_bits"] == stored[place[0]][1]]
+            name = same[0] if same else f"kc{len(tables) + len(new_tables)}"
+            if not same:
+                fmt = f"Q{program.word_bits - stored[place[0]][1]}.{stored[place[0]][1]}"
+                new_tables.append({
+                    "name": name, "length": len(place), "entries": entries,
+                    "fraction_bits": stored[place[0]][1],
+                    "comment": comment_text(f"one per oscillator, {fmt} (first use: "
+                                            f"{program.ops[place[0]].note})")})
+            symbol = f"{table_entry}({name}, {LOOP_INDEX})"
+        texts = {render(i, tuple(loop_name(a, r, c) for a in program.ops[i].args), symbol)[0]
+                 for c, i in enumerate(place)}
+        if len(texts) != 1:
+            return None
+        expression = texts.pop()
+        note = _note(program, place)
+        if (r, p) in readers_outside:
+            body.append(f"v{place[0]}[{LOOP_INDEX}] = {expression}; /* {note} */")
+        else:
+            body.append(f"const {word_type} v{place[0]} = {expression}; /* {note} */")
+    tables += new_tables
+    return body
+
+
+def _note(program: IntegerProgram, place: list[int]) -> str:
+    op = program.ops[place[0]]
+    fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"
+    proven = ", proven to fit" if all(program.ops[i].proven for i in place) else ""
+    return comment_text(f"{fmt}{proven}, each oscillator as the first: {op.note}")
