@@ -171,7 +171,8 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
                     spare="outputs_clamped")
         for i in sorted(output_kept)]
     if looped is not None:  # a constant each oscillator has its own of is read from its table
-        text = "\n".join([*looped.lines, *(v["expression"] for v in output_values)])
+        text = "\n".join([*looped.lines, *(line for r in looped.routines for line in r["lines"]),
+                          *(v["expression"] for v in output_values)])
         constants = [c for c in constants if re.search(rf"\b{c.name}\b", text)]
     return {
         "names": names,
@@ -226,6 +227,7 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         # the firmware step with a network's repeated work as loops (gen/c/loops.py), or None
         "step_lines": looped.lines if looped is not None else None,
         "constant_tables": looped.tables if looped is not None else [],
+        "step_routines": looped.routines if looped is not None else [],
         "outputs": _output_fields(model, plan, names),
         "output_values": output_values,
         # an output's table lookup clamps inside its helper (never acting: a table's entries are
@@ -251,7 +253,7 @@ def _looped(program: IntegerProgram, kept: set[int], names: CNames, symbol_of: d
         return line["expression"], line["note"]
 
     return looped_step(program, kept, render, symbol_of, stored, f"int{program.word_bits}_t",
-                       f"{names.macro_prefix}_TABLE_ENTRY")
+                       f"{names.macro_prefix}_TABLE_ENTRY", names.prefix)
 
 
 def _helpers(program: IntegerProgram, ops: list[Op], prefix: str, word_type: str,

@@ -14,6 +14,7 @@ Nothing here decides arithmetic: every line is the operation's own C form
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
@@ -33,18 +34,20 @@ class LoopedStep:
 
     lines -- C lines (unindented) computing the kept values; value_name -- the C name of any
     value outside a loop's body (for the next state); tables -- per-oscillator constant tables
-    (name, length, entries, comment); loops -- how many repeats became loops, of ``repeats``."""
+    (name, length, entries, comment); loops -- how many repeats became loops, of ``repeats``;
+    routines -- static functions (name, parameters, lines) that loops of one routine call."""
 
     lines: list[str]
     value_name: Callable[[int], str]
     tables: list[dict] = field(default_factory=list)
     loops: int = 0
     repeats: int = 0
+    routines: list[dict] = field(default_factory=list)
 
 
 def looped_step(program: IntegerProgram, kept: set[int], render: Render,
                 symbol_of: dict[int, str], stored: dict[int, tuple[int, int]],
-                word_type: str, table_entry: str) -> LoopedStep | None:
+                word_type: str, table_entry: str, prefix: str) -> LoopedStep | None:
     """The step's lines with each repeat as a loop where its copies' C agree. ``stored`` maps a
     value with a stored constant to (stored integer, its fraction bits); ``table_entry`` is the
     macro that reads a table entry (flash on AVR). None when the program has no repeats, or
@@ -102,6 +105,10 @@ def looped_step(program: IntegerProgram, kept: set[int], render: Render,
         return f"v{first_of(index)}[{at}]"
 
     result = LoopedStep(lines=[], value_name=value_name, repeats=len(repeats))
+    bodies = [_loop_body(program, repeat, r, kept, render, symbol_of, stored, loop_name,
+                         readers_outside, word_type, table_entry, result.tables)
+              for r, repeat in enumerate(repeats)]
+    calls = _routine_calls(program, bodies, word_type, prefix, result)
     emitted: set[int] = set()
     for index in range(len(program.ops)):
         if index not in kept or index in emitted:
@@ -117,13 +124,15 @@ def looped_step(program: IntegerProgram, kept: set[int], render: Render,
         for p in range(len(repeat[0])):
             if (r, p) in readers_outside and any(copy[p] in kept for copy in repeat):
                 result.lines.append(f"{word_type} v{repeat[0][p]}[{len(repeat)}];")
-        body = _loop_body(program, repeat, r, kept, render, symbol_of, stored, loop_name,
-                          readers_outside, word_type, table_entry, result.tables)
-        if body is not None:
+        if r in calls:
+            result.loops += 1
+            result.lines.append(calls[r])
+            continue
+        if bodies[r] is not None:
             result.loops += 1
             result.lines.append(f"for (unsigned int {LOOP_INDEX} = 0u; {LOOP_INDEX} < "
                                 f"{len(repeat)}u; {LOOP_INDEX}++) {{")
-            result.lines += [f"    {line}" for line in body]
+            result.lines += [f"    {line}" for line in bodies[r]]
             result.lines.append("}")
             continue
         for c, copy in enumerate(repeat):  # written out, copy by copy, into the same arrays
@@ -137,6 +146,72 @@ def looped_step(program: IntegerProgram, kept: set[int], render: Render,
                 else:
                     result.lines.append(f"const {word_type} v{i} = {expression}; /* {note} */")
     return result
+
+
+_VALUE = re.compile(r"\bv(\d+)\b(\[)?")
+_COMMENT = re.compile(r" /\*.*\*/$")  # a line's comment: the copies' notes name their stage
+_STAGE = re.compile(r"stage \d+:")
+
+
+def _routine_calls(program: IntegerProgram, bodies: list, word_type: str, prefix: str,
+                   result: LoopedStep) -> dict[int, str]:
+    """Each routine (``IntegerProgram.routines``) whose repeats all became loops whose bodies
+    are the same text once their values are named by role (the body's own values t0, t1, ...;
+    the arrays it writes out0, ...; the arrays it reads in0, ...; the single values it reads
+    s0, ...): one static function, added to ``result.routines``. Returns, per repeat that calls
+    one, the call's C line."""
+    members: dict[int, list[int]] = {}
+    for r, number in enumerate(program.routines):
+        members.setdefault(number, []).append(r)
+    calls: dict[int, str] = {}
+    for number, repeats in members.items():
+        if len(repeats) < 2 or any(bodies[r] is None for r in repeats):
+            continue
+        named = [_by_role(bodies[r]) for r in repeats]
+        if len({tuple(_COMMENT.sub("", line) for line in lines) for lines, _ in named}) != 1:
+            continue
+        lines, parameters = named[0]
+        lines = [_STAGE.sub("every stage:", line) for line in lines]
+        name = f"{prefix}_routine{number}"
+        flag = any("saturated" in line for line in lines)
+        signature = [f"{word_type} *{role}" if role.startswith("out") else
+                     f"const {word_type} *{role}" if role.startswith("in") else
+                     f"{word_type} {role}" for role, _ in parameters]
+        if flag:
+            signature.append("unsigned int *saturated")
+        count = len(program.repeats[repeats[0]])
+        result.routines.append({
+            "name": name, "parameters": ", ".join(signature),
+            "lines": [f"for (unsigned int {LOOP_INDEX} = 0u; {LOOP_INDEX} < {count}u; "
+                      f"{LOOP_INDEX}++) {{", *(f"    {line}" for line in lines), "}"]})
+        for r, (_, actual) in zip(repeats, named, strict=True):
+            arguments = [value for _, value in actual] + (["&saturated"] if flag else [])
+            calls[r] = f"{name}({', '.join(arguments)}); /* the same work for every oscillator */"
+    return calls
+
+
+def _by_role(body: list[str]) -> tuple[list[str], list[tuple[str, str]]]:
+    """A loop body with its values named by role, and the parameters (role, value passed) in
+    order of first use."""
+    local = {m.group(1) for line in body for m in [re.match(r"const \S+ v(\d+) =", line)] if m}
+    written = {m.group(1) for line in body for m in [re.match(r"v(\d+)\[", line)] if m}
+    roles: dict[str, str] = {}
+    counts = {"t": 0, "out": 0, "in": 0, "s": 0}
+    parameters: list[tuple[str, str]] = []
+
+    def role(match: re.Match) -> str:
+        number, array = match.group(1), match.group(2) or ""
+        if number not in roles:
+            kind = ("t" if number in local else "out" if number in written else
+                    "in" if array else "s")
+            roles[number] = f"{kind}{counts[kind]}"
+            counts[kind] += 1
+            if kind != "t":
+                parameters.append((roles[number], f"v{number}"))
+        return roles[number] + array
+
+    lines = [_VALUE.sub(role, line).replace("&saturated", "saturated") for line in body]
+    return lines, parameters
 
 
 def _loop_body(program: IntegerProgram, repeat: tuple, r: int, kept: set[int], render: Render,

@@ -67,8 +67,10 @@ Repeated work. A network of identical oscillators does the same work once per os
 ``repeats`` records it, each repeat a tuple of copies (one per oscillator, in order), each copy
 the indices of its operations, position by position alike in the lowering (same kinds, same
 real constants but for the coupling's, arguments that are the same copy's values, a value of
-another repeat's copy a fixed number of oscillators on, or one shared value). The planner gives
-every position one format over the copies. It changes no arithmetic: the golden interpreter runs
+another repeat's copy a fixed number of oscillators on, or one shared value). ``routines`` gives
+each repeat a number: repeats with one number do the same work on different values (each stage's
+rates of an explicit integrator). The planner gives every position one format over all the
+copies of all the repeats of one routine. It changes no arithmetic: the golden interpreter runs
 the operations as they are, and the C emitter may render a repeat as one loop over the
 oscillators, only after checking that every copy's C is the same (``gen/c/loops.py``).
 """
@@ -206,6 +208,7 @@ class IntegerProgram:
     outputs: tuple[OutputSlot, ...] = ()
     output_program: IntegerProgram | None = None
     repeats: tuple[tuple[tuple[int, ...], ...], ...] = ()
+    routines: tuple[int, ...] = ()
 
     def __post_init__(self) -> None:
         if self.word_bits not in WORD_SIZES:
@@ -218,6 +221,11 @@ class IntegerProgram:
             if any(a >= index or a < 0 for a in op.args):
                 raise ValueError(f"operation {index} uses a value not yet computed: {op.args}")
         _check_repeats(self.repeats, len(self.ops))
+        if len(self.routines) != len(self.repeats) or any(
+                len(self.repeats[a][0]) != len(self.repeats[b][0])
+                for a in range(len(self.repeats)) for b in range(a)
+                if self.routines[a] == self.routines[b]):
+            raise ValueError("every repeat needs a routine, and one routine's repeats one length")
         loads = [op.state for op in self.ops if op.kind == "state"]
         if loads != list(range(len(self.state_names))):
             raise ValueError("the program must load every state once, in order, first")
@@ -299,7 +307,8 @@ class IntegerProgram:
             "model_states": self.model_state_count,
             "angle_states": list(self.angle_states),
             "ops": [op.to_json() for op in self.ops],
-            **({"repeats": [[list(c) for c in r] for r in self.repeats]} if self.repeats else {}),
+            **({"repeats": [[list(c) for c in r] for r in self.repeats],
+                "routines": list(self.routines)} if self.repeats else {}),
         }
 
     def fingerprint(self) -> str:

@@ -44,6 +44,7 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
         copies = identical_copies(model)
         if copies is not None:  # each oscillator's states, loaded: the first repeat
             builder.repeats.append(tuple(tuple(start[i] for i in m) for m in copies.members))
+            builder.routines.append(builder.routine(None))
         slopes: list[list[int]] = []
 
         def combined(weights: tuple[Fraction, ...], what: str) -> list[int]:
@@ -61,7 +62,7 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
                 slopes.append(builder.slope(point, stage))
             else:
                 slopes.append(builder.per_copy(len(copies.members), lambda c, p=point, s=stage:
-                                               copies.slope(builder, p, s, c)))
+                                               copies.slope(builder, p, s, c), routine="rates"))
         finish = combined(integrator.b, "next {name}")
     ramps = [builder.ramp(p, cur, tgt, model.rhythm.loop_hz)
              for p, cur, tgt in zip(runtime, current, target, strict=True)]
@@ -70,7 +71,7 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
     return IntegerProgram(name=model.name, state_names=names + extra_names,
                           ops=tuple(builder.ops), next_state=tuple(finish) + extra_next,
                           model_states=len(names), angle_states=angle_states,
-                          repeats=tuple(builder.repeats))
+                          repeats=tuple(builder.repeats), routines=tuple(builder.routines))
 
 
 @dataclass(frozen=True)
@@ -213,9 +214,18 @@ class _Builder:
         self.parameters: dict[sympy.Symbol, int] = {}
         self.angles: set[int] = set()  # values that are angles held in turns
         self.repeats: list[tuple[tuple[int, ...], ...]] = []
+        self.routines: list[int] = []
+        self.routine_names: dict[str, int] = {}
         self.copy: tuple[int, int] | None = None  # (repeat, copy) while a copy is lowered
 
-    def per_copy(self, count: int, work) -> list[int]:
+    def routine(self, name: str | None) -> int:
+        """The number of the routine called ``name`` (a new one for None)."""
+        if name is None:
+            return len(set(self.routines) | set(self.routine_names.values()))
+        return self.routine_names.setdefault(name, len(set(self.routines)
+                                                       | set(self.routine_names.values())))
+
+    def per_copy(self, count: int, work, routine: str | None = None) -> list[int]:
         """The values of ``work(c)`` (a list per copy c) for c in 0 .. count - 1, lowered copy
         after copy, each copy's operations together and recorded as one repeat (see
         ``integer_program``). Constants a copy needs are made first, shared by every copy; a
@@ -239,7 +249,12 @@ class _Builder:
             copies.append(tuple(range(first, len(self.ops))))
         self.copy = None
         if len({len(copy) for copy in copies}) == 1 and copies[0]:
+            number = self.routine(routine)
+            if any(n == number and len(r[0]) != len(copies[0])
+                   for n, r in zip(self.routines, self.repeats, strict=True)):
+                number = self.routine(None)
             self.repeats.append(tuple(copies))
+            self.routines.append(number)
         return values
 
     def add(self, op: Op, fresh: bool = False) -> int:
