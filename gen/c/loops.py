@@ -155,38 +155,42 @@ _STAGE = re.compile(r"stage \d+:")
 
 def _routine_calls(program: IntegerProgram, bodies: list, word_type: str, prefix: str,
                    result: LoopedStep) -> dict[int, str]:
-    """Each routine (``IntegerProgram.routines``) whose repeats all became loops whose bodies
-    are the same text once their values are named by role (the body's own values t0, t1, ...;
-    the arrays it writes out0, ...; the arrays it reads in0, ...; the single values it reads
-    s0, ...): one static function, added to ``result.routines``. Returns, per repeat that calls
-    one, the call's C line."""
+    """Two or more repeats of one routine (``IntegerProgram.routines``) that became loops whose
+    bodies are the same text once their values are named by role (the body's own values t0,
+    t1, ...; the arrays it writes out0, ...; the arrays it reads in0, ...; the single values it
+    reads s0, ...): one static function, added to ``result.routines``. Returns, per repeat
+    that calls one, the call's C line."""
     members: dict[int, list[int]] = {}
     for r, number in enumerate(program.routines):
         members.setdefault(number, []).append(r)
     calls: dict[int, str] = {}
-    for number, repeats in members.items():
-        if len(repeats) < 2 or any(bodies[r] is None for r in repeats):
-            continue
-        named = [_by_role(bodies[r]) for r in repeats]
-        if len({tuple(_COMMENT.sub("", line) for line in lines) for lines, _ in named}) != 1:
-            continue
-        lines, parameters = named[0]
-        lines = [_STAGE.sub("every stage:", line) for line in lines]
-        name = f"{prefix}_routine{number}"
-        flag = any("saturated" in line for line in lines)
-        signature = [f"{word_type} *{role}" if role.startswith("out") else
-                     f"const {word_type} *{role}" if role.startswith("in") else
-                     f"{word_type} {role}" for role, _ in parameters]
-        if flag:
-            signature.append("unsigned int *saturated")
-        count = len(program.repeats[repeats[0]])
-        result.routines.append({
-            "name": name, "parameters": ", ".join(signature),
-            "lines": [f"for (unsigned int {LOOP_INDEX} = 0u; {LOOP_INDEX} < {count}u; "
-                      f"{LOOP_INDEX}++) {{", *(f"    {line}" for line in lines), "}"]})
-        for r, (_, actual) in zip(repeats, named, strict=True):
-            arguments = [value for _, value in actual] + (["&saturated"] if flag else [])
-            calls[r] = f"{name}({', '.join(arguments)}); /* the same work for every oscillator */"
+    for looped in members.values():
+        alike: dict[tuple[str, ...], list[int]] = {}  # repeats whose bodies are the same text
+        for r in looped:
+            if bodies[r] is not None:
+                text = tuple(_COMMENT.sub("", line) for line in _by_role(bodies[r])[0])
+                alike.setdefault(text, []).append(r)
+        for repeats in alike.values():
+            if len(repeats) < 2:
+                continue
+            named = [_by_role(bodies[r]) for r in repeats]
+            lines, parameters = named[0]
+            lines = [_STAGE.sub("every stage:", line) for line in lines]
+            name = f"{prefix}_routine{len(result.routines)}"
+            flag = any("saturated" in line for line in lines)
+            signature = [f"{word_type} *{role}" if role.startswith("out") else
+                         f"const {word_type} *{role}" if role.startswith("in") else
+                         f"{word_type} {role}" for role, _ in parameters]
+            if flag:
+                signature.append("unsigned int *saturated")
+            count = len(program.repeats[repeats[0]])
+            result.routines.append({
+                "name": name, "parameters": ", ".join(signature),
+                "lines": [f"for (unsigned int {LOOP_INDEX} = 0u; {LOOP_INDEX} < {count}u; "
+                          f"{LOOP_INDEX}++) {{", *(f"    {line}" for line in lines), "}"]})
+            for r, (_, actual) in zip(repeats, named, strict=True):
+                arguments = [value for _, value in actual] + (["&saturated"] if flag else [])
+                calls[r] = f"{name}({', '.join(arguments)}); /* the same work for every oscillator */"
     return calls
 
 

@@ -54,7 +54,8 @@ def lower_step(model: Model, integrator: Integrator, step: float) -> IntegerProg
             if copies is None:
                 return [one(i) for i in range(len(names))]
             return builder.per_copy(len(copies.members),
-                                    lambda c: [one(i) for i in copies.members[c]])
+                                    lambda c: [one(i) for i in copies.members[c]],
+                                    routine="points" if what.startswith("stage") else None)
 
         for stage, row in enumerate(integrator.a, start=1):
             point = combined(row, f"stage {stage} point, {{name}}") if any(row) else start
