@@ -109,6 +109,7 @@ def looped_step(program: IntegerProgram, kept: set[int], render: Render,
                          readers_outside, word_type, table_entry, result.tables)
               for r, repeat in enumerate(repeats)]
     calls = _routine_calls(program, bodies, word_type, prefix, result)
+    units: list[tuple[int | None, list[str], list[str]]] = []  # (repeat, declarations, code)
     emitted: set[int] = set()
     for index in range(len(program.ops)):
         if index not in kept or index in emitted:
@@ -116,24 +117,25 @@ def looped_step(program: IntegerProgram, kept: set[int], render: Render,
         if index not in where:
             expression, note = render(index, tuple(value_name(a) for a in program.ops[index].args),
                                       None)
-            result.lines.append(f"const {word_type} v{index} = {expression}; /* {note} */")
+            units.append((None, [], [f"const {word_type} v{index} = {expression}; /* {note} */"]))
             continue
         r = where[index][0]
         repeat = repeats[r]
         emitted.update(i for copy in repeat for i in copy)
-        for p in range(len(repeat[0])):
-            if (r, p) in readers_outside and any(copy[p] in kept for copy in repeat):
-                result.lines.append(f"{word_type} v{repeat[0][p]}[{len(repeat)}];")
+        declared = [f"{word_type} v{repeat[0][p]}[{len(repeat)}];" for p in range(len(repeat[0]))
+                    if (r, p) in readers_outside and any(copy[p] in kept for copy in repeat)]
+        code: list[str] = []
+        units.append((r, declared, code))
         if r in calls:
             result.loops += 1
-            result.lines.append(calls[r])
+            code.append(calls[r])
             continue
         if bodies[r] is not None:
             result.loops += 1
-            result.lines.append(f"for (unsigned int {LOOP_INDEX} = 0u; {LOOP_INDEX} < "
-                                f"{len(repeat)}u; {LOOP_INDEX}++) {{")
-            result.lines += [f"    {line}" for line in bodies[r]]
-            result.lines.append("}")
+            code.append(f"for (unsigned int {LOOP_INDEX} = 0u; {LOOP_INDEX} < "
+                        f"{len(repeat)}u; {LOOP_INDEX}++) {{")
+            code += [f"    {line}" for line in bodies[r]]
+            code.append("}")
             continue
         for c, copy in enumerate(repeat):  # written out, copy by copy, into the same arrays
             for p, i in enumerate(copy):
@@ -142,10 +144,50 @@ def looped_step(program: IntegerProgram, kept: set[int], render: Render,
                 expression, note = render(i, tuple(value_name(a) for a in program.ops[i].args),
                                           None)
                 if (r, p) in readers_outside:
-                    result.lines.append(f"v{repeat[0][p]}[{c}] = {expression}; /* {note} */")
+                    code.append(f"v{repeat[0][p]}[{c}] = {expression}; /* {note} */")
                 else:
-                    result.lines.append(f"const {word_type} v{i} = {expression}; /* {note} */")
+                    code.append(f"const {word_type} v{i} = {expression}; /* {note} */")
+    result.lines = _scoped(units, _array_readers(program, kept, where, readers_outside))
     return result
+
+
+def _array_readers(program: IntegerProgram, kept: set[int], where: dict,
+                   readers_outside: set) -> dict[int, set]:
+    """Per repeat, who reads its arrays: other repeats (by number), a single value (its index as
+    a string) or the next state ("next")."""
+    readers: dict[int, set] = {}
+    for index in kept:
+        for a in program.ops[index].args:
+            if a in where and (where[a][0], where[a][2]) in readers_outside:
+                reader = where[index][0] if index in where else str(index)
+                if reader != where[a][0]:
+                    readers.setdefault(where[a][0], set()).add(reader)
+    for value in program.next_state:
+        if value in where:
+            readers.setdefault(where[value][0], set()).add("next")
+    return readers
+
+
+def _scoped(units: list, readers: dict[int, set]) -> list[str]:
+    """The units' lines in order; a repeat whose arrays only the next repeat reads (a stage's
+    point, read by that stage's rates) goes with that next repeat in a block of its own, so that
+    the compiler can give one stack slot to the arrays of every stage in turn."""
+    lines: list[str] = []
+    k = 0
+    while k < len(units):
+        r, declared, code = units[k]
+        following = units[k + 1] if k + 1 < len(units) else (None, [], [])
+        if r is not None and declared and following[0] is not None and readers.get(r) == {
+                following[0]}:
+            lines += following[1]
+            lines.append("{")
+            lines += [f"    {line}" for line in [*declared, *code, *following[2]]]
+            lines.append("}")
+            k += 2
+            continue
+        lines += declared + code
+        k += 1
+    return lines
 
 
 _VALUE = re.compile(r"\bv(\d+)\b(\[)?")
