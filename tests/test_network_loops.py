@@ -77,8 +77,10 @@ def test_every_copy_of_a_routine_has_one_format_per_position() -> None:
     assert max(len(c) for c in copies.values()) == 16  # the rates: 4 stages x 4 legs
     for same in copies.values():
         for place in zip(*same, strict=True):
-            assert len({(program.ops[i].kind, program.ops[i].fraction_bits, program.ops[i].shift,
-                         program.ops[i].align) for i in place}) == 1
+            assert len({(program.ops[i].kind, program.ops[i].fraction_bits) for i in place}) == 1
+            if len(same) == 16:  # the rates: the same shifts and alignments too (the stage
+                # points differ in their step constant, h/2 or h, so in a shift)
+                assert len({(program.ops[i].shift, program.ops[i].align) for i in place}) == 1
 
 
 @pytest.mark.parametrize("name", GAIT_MODELS)
@@ -91,9 +93,12 @@ def test_gait_networks_render_as_loops_and_routines(name: str) -> None:
     calls = {r: len(re.findall(rf"\b{r}\(v", step)) for r in routines}
     assert 4 in calls.values()  # the rates, once per RK4 stage
     assert "for (unsigned int oscillator = 0u; oscillator < 4u; oscillator++)" in source
-    # the coupling's numbers per oscillator sit in tables read through the flash macro
-    assert re.search(rf"static const int16_t kc\d+\[4\] {name.upper()}_IN_FLASH", source)
-    assert f"{name.upper()}_TABLE_ENTRY(kc" in source
+    # the coupling's numbers, where the oscillators' differ (not in the pace, whose every leg
+    # has the same), sit in per-oscillator tables read through the flash macro
+    differ = len(set(identical_copies(built.model).weights)) > 1
+    assert differ == (name != "quadruped_pace")
+    assert bool(re.search(rf"static const int16_t kc\d+\[4\] {name.upper()}_IN_FLASH", source)) == differ
+    assert (f"{name.upper()}_TABLE_ENTRY(kc" in source) == differ
     # far fewer lines than one per value of the program
     assert len(re.findall(r"^\s+const int16_t v\d+ =", step, re.M)) < len(built.plan.program.ops) / 4
 
