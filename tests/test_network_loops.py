@@ -12,6 +12,7 @@ from __future__ import annotations
 import functools
 import math
 import re
+import subprocess
 from dataclasses import replace
 
 import pytest
@@ -22,6 +23,7 @@ from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import Design, design
 from orbitfix.gen.program.lowering import identical_copies
+from orbitfix.verify.cli.main import main
 from orbitfix.verify.proofs.board_stream import build_for_board
 from orbitfix.verify.proofs.host_check import check_on_host
 
@@ -164,3 +166,28 @@ def test_trot_16_bit_fits_the_small_parts(board: str) -> None:
     image = build_for_board(_design("quadruped_trot"), profile)
     assert image.size["text"] < 8 * 1024
     assert image.stack_bytes is not None and image.stack_bytes < 512
+
+
+def test_the_self_test_passes_on_the_looped_trot_and_fails_on_a_table_entry_off_by_one(
+        tmp_path) -> None:
+    # the generated self-test (the first steps' expected states, from golden) on the looped
+    # firmware: it passes as generated, and a coupling table entry one LSB off makes it fail
+    assert main(["gen", "quadruped_trot", "--word", "16", "-o", str(tmp_path)]) == 0
+    (tmp_path / "run.c").write_text('#include "quadruped_trot_selftest.h"\n'
+                                    "int main(void) { return quadruped_trot_selftest(); }\n")
+    flags = ["-std=c99", "-Wall", "-Wextra", "-Wconversion", "-Wsign-conversion", "-pedantic",
+             "-Werror", "-O2"]
+
+    def selftest(source: str) -> int:
+        (tmp_path / "step.c").write_text(source)
+        subprocess.run(["gcc", *flags, "step.c", "quadruped_trot_selftest.c", "run.c", "-o",
+                        "selftest"], cwd=tmp_path, check=True, capture_output=True)
+        return subprocess.run([str(tmp_path / "selftest")], check=False).returncode
+
+    source = (tmp_path / "quadruped_trot.c").read_text()
+    table = re.search(r"(static const int16_t kc0\[4\] QUADRUPED_TROT_IN_FLASH = \{\s*INT16_C\()"
+                      r"(-?\d+)\)", source)
+    assert table
+    assert selftest(source) == 0
+    assert selftest(source.replace(table.group(0),
+                                   f"{table.group(1)}{int(table.group(2)) + 1})", 1)) != 0

@@ -95,8 +95,10 @@ class NetworkCopies:
 
     def slope(self, builder: _Builder, point: list[int], stage: int, copy: int) -> list[int]:
         """The rates of oscillator ``copy``'s states at the stage point: its own part, walked
-        from the same expression for every copy, plus its coupling sum, term by term in the
-        positions' order, each term the other state times this oscillator's number."""
+        from the same expression for every copy, then each coupling term added in the positions'
+        order, a term the other state times this oscillator's number (added one by one, as the
+        straight-line lowering adds a sum's terms: quadruped_trot at 16 bits keeps its period
+        error, -37 ppm; a separate coupling sum gave -77)."""
         count = len(self.members)
         mine = self.members[copy]
         table = {**builder.parameters, **dict(zip(self.symbols, (point[i] for i in mine),
@@ -106,7 +108,6 @@ class NetworkCopies:
         for m, expr in enumerate(self.own):
             name = builder.model.state_names[mine[m]]
             rate = builder.expression(expr, table, memo, stage, name)
-            coupled = None
             for place, (member, r, other) in enumerate(self.coupling):
                 if member != m:
                     continue
@@ -115,11 +116,9 @@ class NetworkCopies:
                                       real=self.weights[copy][place],
                                       note=f"stage {stage}: coupling of {name} to {source}"),
                                    fresh=True)
-                coupled = term if coupled is None else builder.add(
-                    Op("add", (coupled, term), note=f"stage {stage}: coupling sum of {name}"))
-            if coupled is not None:
-                rate = builder.add(Op("add", (rate, coupled),
-                                      note=f"stage {stage}: rate of {name}, own part plus coupling"))
+                rate = builder.add(Op("add", (rate, term),
+                                      note=f"stage {stage}: rate of {name}, plus its coupling to "
+                                           f"{source}"))
             rates.append(rate)
         return rates
 
