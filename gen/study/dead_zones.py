@@ -192,11 +192,14 @@ def _sampled_box(plan: FixedPointPlan, equilibrium: np.ndarray, rest: np.ndarray
     states = rest.reshape(-1, 1) + np.vstack([offsets, np.zeros((len(rest) - n, SAMPLES),
                                                                 dtype=np.int64)])
     states = np.clip(states, program.word_min, program.word_max)
-    stayed = np.ones(SAMPLES, dtype=bool)
+    staying = np.arange(SAMPLES)  # a sample that once leaves the box is not followed further
     for _ in range(steps):
         states = golden.step(program, states)
-        stayed &= np.all(np.abs(states[:n] - rest[:n].reshape(-1, 1)) <= half, axis=0)
-    return _result(plan, equilibrium, rest, offsets[:, stayed], half, "sampled", False)
+        inside = np.all(np.abs(states[:n] - rest[:n].reshape(-1, 1)) <= half, axis=0)
+        states, staying = states[:, inside], staying[inside]
+        if not staying.size:
+            break
+    return _result(plan, equilibrium, rest, offsets[:, staying], half, "sampled", False)
 
 
 def _result(plan: FixedPointPlan, equilibrium: np.ndarray, rest: np.ndarray, dead: np.ndarray,
