@@ -10,12 +10,14 @@ intermediate value), which host builds add and firmware never ships.
 from __future__ import annotations
 
 import importlib
+import re
 from dataclasses import dataclass, replace
 from pathlib import Path
 
 import jinja2
 
 from orbitfix.gen import __version__
+from orbitfix.gen.c.loops import LoopedStep, looped_step
 from orbitfix.gen.c.naming import CNames, comment_text
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program.fixed_point import FixedPointPlan
@@ -161,6 +163,17 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     output_ops = [section.ops[i] for i in sorted(output_kept)] if section is not None else []
     section_bounds = output_bounds(program) if section is not None else []
     all_ops = ops + output_ops
+    looped = None if traced else _looped(program, kept, names, {**constant_of, **table_of},
+                                         plan.constants, bounds)
+    output_values = [] if section is None else [
+        _value_line(i, section.ops[i], names, section, output_symbols,
+                    section_bounds, prefix="o", counted=frozenset(),
+                    spare="outputs_clamped")
+        for i in sorted(output_kept)]
+    if looped is not None:  # a constant each oscillator has its own of is read from its table
+        text = "\n".join([*looped.lines, *(line for r in looped.routines for line in r["lines"]),
+                          *(v["expression"] for v in output_values)])
+        constants = [c for c in constants if re.search(rf"\b{c.name}\b", text)]
     return {
         "names": names,
         "version": __version__,
@@ -209,14 +222,15 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "values": [_value_line(i, op, names, program, {**constant_of, **table_of}, bounds)
                    for i, op in enumerate(program.ops) if i in kept],
         "value_count": len(program.ops),
-        "next_state": [{"field": names.field(n), "value": f"v{i}"}
+        "next_state": [{"field": names.field(n),
+                        "value": looped.value_name(i) if looped is not None else f"v{i}"}
                        for n, i in zip(program.state_names, program.next_state, strict=True)],
+        # the firmware step with a network's repeated work as loops (gen/c/loops.py), or None
+        "step_lines": looped.lines if looped is not None else None,
+        "constant_tables": looped.tables if looped is not None else [],
+        "step_routines": looped.routines if looped is not None else [],
         "outputs": _output_fields(model, plan, names),
-        "output_values": [] if section is None else [
-            _value_line(i, section.ops[i], names, section, output_symbols,
-                        section_bounds, prefix="o", counted=frozenset(),
-                        spare="outputs_clamped")
-            for i in sorted(output_kept)],
+        "output_values": output_values,
         # an output's table lookup clamps inside its helper (never acting: a table's entries are
         # words); the flag it sets is not counted
         "outputs_clamp_flag": section is not None and any(section.clamps(section.ops[i])
@@ -242,6 +256,21 @@ def _holds(program: IntegerProgram, kept: set[int], names: CNames) -> list[dict]
         low, high = (int_literal(v, program.word_bits) for v in op.held)
         holds.append({"field": names.field(program.state_names[op.state]), "low": low, "high": high})
     return holds
+
+
+def _looped(program: IntegerProgram, kept: set[int], names: CNames, symbol_of: dict[int, str],
+            reports: tuple, bounds: list[tuple[int, int]]) -> LoopedStep | None:
+    """The firmware step's lines with each repeat of the program as a loop over the
+    oscillators where its copies' C agree (``gen/c/loops.py``); None without repeats."""
+    stored = {r.index: (r.stored, r.format.fraction_bits) for r in reports}
+
+    def render(index: int, arg_names: tuple[str, ...], symbol: str | None) -> tuple[str, str]:
+        line = _value_line(index, program.ops[index], names, program, symbol_of, bounds,
+                           arg_names=arg_names, symbol=symbol)
+        return line["expression"], line["note"]
+
+    return looped_step(program, kept, render, symbol_of, stored, f"int{program.word_bits}_t",
+                       f"{names.macro_prefix}_TABLE_ENTRY", names.prefix)
 
 
 def _helpers(program: IntegerProgram, ops: list[Op], prefix: str, word_type: str,
@@ -379,17 +408,20 @@ def _constants(reports: tuple, kept: set[int], bits: int, constants: list[CConst
 
 def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
                 symbol_of: dict[int, str], bounds: list[tuple[int, int]], prefix: str = "v",
-                counted: frozenset[int] | None = None, spare: str = "unkept") -> dict:
+                counted: frozenset[int] | None = None, spare: str = "unkept",
+                arg_names: tuple[str, ...] | None = None, symbol: str | None = None) -> dict:
     """One value's C line: ``prefix`` names the values (v for the step's, o for the outputs');
     a clamp of a value in ``counted`` (default: the program's counted clamps) sets the step's
-    flag, any other clamp the flag called ``spare``."""
+    flag, any other clamp the flag called ``spare``. ``arg_names`` and ``symbol``, when given,
+    name the arguments and the stored constant (a loop's body, ``gen/c/loops.py``)."""
     counted = program.counted_clamps if counted is None else counted
     saturated = (", &saturated" if index in counted else
                  f", &{spare}" if program.clamps(op) else "")
-    site = CSite(args=tuple(f"{prefix}{i}" for i in op.args), word_bits=program.word_bits,
+    site = CSite(args=arg_names if arg_names is not None else tuple(f"{prefix}{i}" for i in op.args),
+                 word_bits=program.word_bits,
                  wide=f"int{program.product_bits}_t", word=f"int{program.word_bits}_t",
                  prefix=names.prefix,
-                 symbol=symbol_of.get(index, ""),
+                 symbol=symbol if symbol is not None else symbol_of.get(index, ""),
                  field=names.field(program.state_names[op.state]) if op.kind == "state" else "",
                  saturated=saturated)
     fmt = f"Q{program.word_bits - op.fraction_bits}.{op.fraction_bits}"

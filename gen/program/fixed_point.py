@@ -339,7 +339,8 @@ def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float]
         else:
             natural = w - integer_bits_for(bounds[index])
             bits.append(kind.first_bits(op, [bits[i] for i in op.args], natural, w))
-    while _limit_alignment(ops, kinds, bits, forced, w) | _settle(ops, kinds, bits, w):
+    while (_limit_alignment(ops, kinds, bits, forced, w) | _settle(ops, kinds, bits, w)
+           | _same_over_copies(program, bits, forced)):
         pass
     filled: list = []
     constants: list[ConstantReport] = []
@@ -352,6 +353,28 @@ def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float]
                                             kind.constant_role, wraps=op.wraps))
         filled.append(op)
     return filled, constants
+
+
+def _same_over_copies(program: IntegerProgram, bits: list[int], forced: dict[int, int]) -> bool:
+    """One format for each position of a routine (``IntegerProgram.repeats`` and ``routines``):
+    the fewest fraction bits any copy of any of its repeats needs there, so every copy holds the
+    widest copy's bound (a coarser format is never an overflow, only a coarser step). A position
+    with a format forced on one of its values is left alone (the C emitter then finds the copies
+    differ and writes them out one by one). Returns True if anything changed."""
+    copies: dict[int, list[tuple[int, ...]]] = {}
+    for number, repeat in zip(program.routines, program.repeats, strict=True):
+        copies.setdefault(number, []).extend(repeat)
+    changed = False
+    for same in copies.values():
+        for place in zip(*same, strict=True):
+            fewest = min(bits[i] for i in place)
+            if any(i in forced and forced[i] != fewest for i in place):
+                continue
+            for i in place:
+                if bits[i] != fewest:
+                    bits[i] = fewest
+                    changed = True
+    return changed
 
 
 def _settle(ops: tuple, kinds: list, bits: list[int], w: int) -> bool:

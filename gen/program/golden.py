@@ -1,5 +1,7 @@
 """The golden interpreter (layer L2): runs the integer program in numpy, vectorised over a batch
-of states, and gives the bits that the C must reproduce exactly.
+of states, and gives the bits that the C must reproduce exactly. A batch of one state is run on
+Python integers by the same rules (a numpy call on one value costs microseconds, an integer
+operation tens of nanoseconds), which is what a run along one trajectory needs.
 
 Rounding and overflow live here once for the Python side (``round_shift``, ``fit_word``, which
 also marks the states whose step a clamp changed: a saturated step); the C side renders the same
@@ -25,9 +27,9 @@ def wide_type(product_bits: int) -> type[np.signedinteger]:
         raise ValueError(f"no numpy integer type for {product_bits}-bit products") from None
 
 
-def round_shift(product: np.ndarray, shift: int, rounding: str) -> np.ndarray:
-    """Divide by 2**shift with the program's rounding rule, in place (the array's own integer
-    type in and out).
+def round_shift(product: np.ndarray | int, shift: int, rounding: str) -> np.ndarray | int:
+    """Divide by 2**shift with the program's rounding rule (an array in place, keeping its integer
+    type; a Python integer stays one).
 
     truncate: floor(product / 2**shift);
     half-up: floor(product / 2**shift + 1/2), ties toward plus infinity;
@@ -35,74 +37,122 @@ def round_shift(product: np.ndarray, shift: int, rounding: str) -> np.ndarray:
     """
     if shift == 0:
         return product
-    number = product.dtype.type
     if rounding == "truncate":
-        product >>= number(shift)
+        product >>= shift
         return product
     if rounding == "half-up":
-        product += number(1 << (shift - 1))
-        product >>= number(shift)
+        product += 1 << (shift - 1)
+        product >>= shift
         return product
     if rounding == "half-even":
-        remainder = product & number((1 << shift) - 1)
-        product >>= number(shift)
-        half = number(1 << (shift - 1))
+        remainder = product & ((1 << shift) - 1)
+        product >>= shift
+        half = 1 << (shift - 1)
         product += (remainder > half) | ((remainder == half) & ((product & 1) == 1))
         return product
     raise ValueError(f"unknown rounding {rounding!r}")
 
 
-def fit_word(values: np.ndarray, word_bits: int, overflow: str,
-             saturated: np.ndarray | None = None) -> np.ndarray:
-    """Bring exact results into the word, in place: clamp (saturate) or reduce modulo 2**word_bits
-    (wrap). With ``saturated`` (bool, the values' shape), a clamp that changes a value marks its
-    place there; wrapping never does."""
+def fit_word(values: np.ndarray | int, word_bits: int, overflow: str,
+             saturated: np.ndarray | None = None) -> np.ndarray | int:
+    """Bring exact results into the word (an array in place): clamp (saturate) or reduce modulo
+    2**word_bits (wrap). With ``saturated`` (bool, the values' shape), a clamp that changes a
+    value marks its place there; wrapping never does."""
     low, high = -(1 << (word_bits - 1)), (1 << (word_bits - 1)) - 1
-    if values.size == 1 and low <= values.item() <= high and overflow in OVERFLOWS:
+    single = not isinstance(values, np.ndarray)
+    if (single or values.size == 1) and overflow in OVERFLOWS and low <= values <= high:
         return values  # in the word: neither rule changes or marks it (one state: a short cut)
     if overflow == "saturate":
-        number = values.dtype.type
         if saturated is not None:
-            saturated |= (values < number(low)) | (values > number(high))
-        np.maximum(values, number(low), out=values)  # np.clip checks its limits on every call
-        return np.minimum(values, number(high), out=values)
+            saturated |= (values < low) | (values > high)
+        if single:
+            return min(max(values, low), high)
+        np.maximum(values, low, out=values)  # np.clip checks its limits on every call
+        return np.minimum(values, high, out=values)
     if overflow == "wrap":
-        number = values.dtype.type
-        values -= number(low)
-        values &= number((1 << word_bits) - 1)
-        values += number(low)
+        if single:
+            return ((values - low) & ((1 << word_bits) - 1)) + low
+        values -= low
+        values &= (1 << word_bits) - 1
+        values += low
         return values
     raise ValueError(f"unknown overflow mode {overflow!r}")
 
 
-class _Machine:
-    """The program's integer semantics, offered to each kind's golden rule."""
+_TABLE_ARRAYS: dict[tuple[int, type], tuple[tuple[int, ...], np.ndarray]] = {}
 
-    def __init__(self, program: IntegerProgram, states: np.ndarray) -> None:
+
+def _table_array(table: tuple[int, ...], wide: type) -> np.ndarray:
+    """The table as a read-only numpy array of ``wide``, made once per table: a golden run reads
+    it at every step, and converting up to 4097 entries each time was a large part of a
+    network's run time."""
+    key = (id(table), wide)  # the entry holds its table, so the id stays its own
+    held = _TABLE_ARRAYS.get(key)
+    if held is None:
+        if len(_TABLE_ARRAYS) >= 256:
+            _TABLE_ARRAYS.clear()
+        array = np.asarray(table, dtype=wide)
+        array.flags.writeable = False
+        held = _TABLE_ARRAYS[key] = (table, array)
+    return held[1]
+
+
+class _Machine:
+    """The program's integer semantics over a batch of states (numpy arrays of the product
+    width), offered to each kind's golden rule."""
+
+    def __init__(self, program: IntegerProgram, states) -> None:
         self.wide = wide_type(program.product_bits)
         self.word_bits = program.word_bits
         self.rounding = program.rounding
         self.program = program
-        self.batch = states.shape[1:]
         self.states = states
         self.saturated: np.ndarray | None = None  # where a clamp of this value marks its step
 
-    def state(self, index: int) -> np.ndarray:
+    def number(self, value: int):
+        return self.wide(value)
+
+    def full(self, value: int):
+        return np.full(self.states.shape[1:], value, dtype=self.wide)
+
+    def table(self, entries: tuple[int, ...]):
+        return _table_array(entries, self.wide)
+
+    minimum = staticmethod(np.minimum)
+    maximum = staticmethod(np.maximum)
+
+    def state(self, index: int):
         return self.states[index]
 
-    def round_shift(self, exact: np.ndarray, shift: int) -> np.ndarray:
+    def round_shift(self, exact, shift: int):
         return round_shift(exact, shift, self.rounding)
 
-    def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray:
+    def fit(self, exact, wraps: bool):
         return fit_word(exact, self.word_bits, self.program.fit_rule(wraps), self.saturated)
 
-    def hold(self, values: np.ndarray, low: int, high: int) -> np.ndarray:
-        """A copy of ``values`` held in [low, high]; a clamp that changes a value marks its step
-        saturated (like ``fit``'s)."""
-        number = values.dtype.type
+    def hold(self, values, low: int, high: int):
+        """``values`` held in [low, high] (a new value); a clamp that changes a value marks its
+        step saturated (like ``fit``'s)."""
         if self.saturated is not None:
-            self.saturated |= (values < number(low)) | (values > number(high))
-        return np.minimum(np.maximum(values, number(low)), number(high))
+            self.saturated |= (values < low) | (values > high)
+        return self.minimum(self.maximum(values, low), high)
+
+
+class _OneState(_Machine):
+    """The same semantics on Python integers, for a batch of one state: ``states`` is a list of
+    integers and ``saturated`` a bool array of shape ()."""
+
+    def number(self, value: int):
+        return value
+
+    def full(self, value: int):
+        return value
+
+    def table(self, entries: tuple[int, ...]):
+        return entries
+
+    minimum = staticmethod(min)
+    maximum = staticmethod(max)
 
 
 def evaluate(program: IntegerProgram, states: np.ndarray,
@@ -118,13 +168,23 @@ def evaluate(program: IntegerProgram, states: np.ndarray,
     states = np.asarray(states)
     if states.size and (states.min() < program.word_min or states.max() > program.word_max):
         raise ValueError(f"a state is outside the {program.word_bits}-bit word")
-    machine = _Machine(program, states.astype(wide_type(program.product_bits), copy=False))
+    wide = wide_type(program.product_bits)
+    one = states.shape[1:] == (1,)
+    if one:
+        machine: _Machine = _OneState(program, [int(v) for v in states[:, 0]])
+        flag = np.zeros((), dtype=bool) if saturated is not None else None
+    else:
+        machine, flag = _Machine(program, states.astype(wide, copy=False)), saturated
     counted = program.counted_clamps if saturated is not None else frozenset()
-    values: list[np.ndarray] = []
+    values: list = []
     for index, op in enumerate(program.ops):
-        machine.saturated = saturated if index in counted else None
+        machine.saturated = flag if index in counted else None
         values.append(kind_of(op.kind).golden(op, [values[i] for i in op.args], machine))
-    return values
+    if not one:
+        return values
+    if flag:
+        saturated[...] = True
+    return list(np.array(values, dtype=wide).reshape(-1, 1))  # raises if one left the width
 
 
 def step(program: IntegerProgram, states: np.ndarray) -> np.ndarray:

@@ -64,6 +64,17 @@ does not ramp from zero. Every other result of the outputs is proven to fit the 
 range the step's next state can take (the planner refuses outputs it cannot prove), so no
 output's arithmetic clamps at the word, and a limit that acts is the intended behaviour, never a
 saturated step: the outputs leave the next state and the count of saturated steps alone.
+
+Repeated work. A network of identical oscillators does the same work once per oscillator:
+``repeats`` records it, each repeat a tuple of copies (one per oscillator, in order), each copy
+the indices of its operations, position by position alike in the lowering (same kinds, same
+real constants but for the coupling's, arguments that are the same copy's values, a value of
+another repeat's copy a fixed number of oscillators on, or one shared value). ``routines`` gives
+each repeat a number: repeats with one number do the same work on different values (each stage's
+rates of an explicit integrator). The planner gives every position one format over all the
+copies of all the repeats of one routine. It changes no arithmetic: the golden interpreter runs
+the operations as they are, and the C emitter may render a repeat as one loop over the
+oscillators, only after checking that every copy's C is the same (``gen/c/loops.py``).
 """
 
 from __future__ import annotations
@@ -90,6 +101,19 @@ def next_saturation_count(count, saturated):
         wide = np.asarray(count, dtype=np.int64) + np.asarray(saturated, dtype=np.int64)
         return np.minimum(wide, SATURATION_COUNT_MAX)
     return min(int(count) + int(bool(saturated)), SATURATION_COUNT_MAX)
+
+
+def _check_repeats(repeats: tuple, count: int) -> None:
+    """Each repeat has two or more copies of one length; no operation is in two copies."""
+    seen: set[int] = set()
+    for repeat in repeats:
+        if len(repeat) < 2 or len({len(c) for c in repeat}) != 1:
+            raise ValueError(f"a repeat needs two or more copies of one length: {repeat}")
+        for copy in repeat:
+            if any(i < 0 or i >= count or i in seen for i in copy):
+                raise ValueError(f"a repeat's operation is outside the program or in two copies: "
+                                 f"{copy}")
+            seen.update(copy)
 
 
 @dataclass(frozen=True)
@@ -192,6 +216,8 @@ class IntegerProgram:
     angle_states: tuple[int, ...] = ()
     outputs: tuple[OutputSlot, ...] = ()
     output_program: IntegerProgram | None = None
+    repeats: tuple[tuple[tuple[int, ...], ...], ...] = ()
+    routines: tuple[int, ...] = ()
 
     def __post_init__(self) -> None:
         if self.word_bits not in WORD_SIZES:
@@ -203,6 +229,12 @@ class IntegerProgram:
         for index, op in enumerate(self.ops):
             if any(a >= index or a < 0 for a in op.args):
                 raise ValueError(f"operation {index} uses a value not yet computed: {op.args}")
+        _check_repeats(self.repeats, len(self.ops))
+        if len(self.routines) != len(self.repeats) or any(
+                len(self.repeats[a][0]) != len(self.repeats[b][0])
+                for a in range(len(self.repeats)) for b in range(a)
+                if self.routines[a] == self.routines[b]):
+            raise ValueError("every repeat needs a routine, and one routine's repeats one length")
         loads = [op.state for op in self.ops if op.kind == "state"]
         if loads != list(range(len(self.state_names))):
             raise ValueError("the program must load every state once, in order, first")
@@ -284,6 +316,8 @@ class IntegerProgram:
             "model_states": self.model_state_count,
             "angle_states": list(self.angle_states),
             "ops": [op.to_json() for op in self.ops],
+            **({"repeats": [[list(c) for c in r] for r in self.repeats],
+                "routines": list(self.routines)} if self.repeats else {}),
         }
 
     def fingerprint(self) -> str:

@@ -35,11 +35,24 @@ Bounds = tuple[float, float]
 
 
 class Machine(Protocol):
-    """What the golden interpreter offers a kind's golden rule (see ``golden.evaluate``)."""
+    """What the golden interpreter offers a kind's golden rule (see ``golden.evaluate``).
 
-    wide: type[np.signedinteger]  # the numpy type of the program's product width
+    Values are numpy arrays over a batch of states, or Python integers when the interpreter
+    follows one state (much faster there); a rule uses the operators both understand (+, -, *,
+    >>, &, comparisons, ``abs``) and the machine's methods for the rest, so it is written once.
+    """
+
     word_bits: int
-    batch: tuple[int, ...]
+
+    def number(self, value: int) -> int | np.signedinteger: ...  # of the product width
+
+    def full(self, value: int) -> np.ndarray | int: ...  # the same value for every state
+
+    def table(self, entries: tuple[int, ...]) -> np.ndarray | tuple[int, ...]: ...  # indexable
+
+    def minimum(self, x: np.ndarray, y: np.ndarray) -> np.ndarray: ...
+
+    def maximum(self, x: np.ndarray, y: np.ndarray) -> np.ndarray: ...
 
     def state(self, index: int) -> np.ndarray: ...
 
@@ -296,7 +309,7 @@ class Const(OperationKind):
         return None
 
     def golden(self, op, args, machine):
-        return np.full(machine.batch, op.constant, dtype=machine.wide)
+        return machine.full(op.constant)
 
     def exact_bounds(self, op, args, word_bits):
         return op.constant, op.constant
@@ -314,7 +327,7 @@ class Aligned(OperationKind):
     arity = 2
     aligns = True
 
-    def combine(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    def combine(self, x: np.ndarray, y: np.ndarray, machine: Machine) -> np.ndarray:
         raise NotImplementedError
 
     def first_bits(self, op, f_args, natural, word_bits):
@@ -325,9 +338,9 @@ class Aligned(OperationKind):
         return replace(op, align=tuple(top - g for g in f_args), shift=top - bits)
 
     def exact(self, op, args, machine):
-        x, y = (v * machine.wide(1 << k) if k else v
+        x, y = (v * machine.number(1 << k) if k else v
                 for v, k in zip(args, op.align, strict=True))
-        return self.combine(x, y)
+        return self.combine(x, y, machine)
 
     def c_combine(self, x: str, y: str) -> str:
         raise NotImplementedError
@@ -353,8 +366,8 @@ class Add(Aligned):
     def interval(self, op, args, box):
         return args[0][0] + args[1][0], args[0][1] + args[1][1]
 
-    def combine(self, x, y):
-        return np.add(x, y)
+    def combine(self, x, y, machine):
+        return x + y
 
     def c_combine(self, x, y):
         return f"{x} + {y}"
@@ -372,8 +385,8 @@ class Sub(Aligned):
     def interval(self, op, args, box):
         return args[0][0] - args[1][1], args[0][1] - args[1][0]
 
-    def combine(self, x, y):
-        return np.subtract(x, y)
+    def combine(self, x, y, machine):
+        return x - y
 
     def c_combine(self, x, y):
         return f"{x} - {y}"
@@ -391,8 +404,8 @@ class Min(Aligned):
     def interval(self, op, args, box):
         return min(args[0][0], args[1][0]), min(args[0][1], args[1][1])
 
-    def combine(self, x, y):
-        return np.minimum(x, y)
+    def combine(self, x, y, machine):
+        return machine.minimum(x, y)
 
     def c_combine(self, x, y):
         return f"({x} < {y} ? {x} : {y})"
@@ -410,8 +423,8 @@ class Max(Aligned):
     def interval(self, op, args, box):
         return max(args[0][0], args[1][0]), max(args[0][1], args[1][1])
 
-    def combine(self, x, y):
-        return np.maximum(x, y)
+    def combine(self, x, y, machine):
+        return machine.maximum(x, y)
 
     def c_combine(self, x, y):
         return f"({x} > {y} ? {x} : {y})"
@@ -497,7 +510,7 @@ class Neg(Unary):
         return -args[0][1], -args[0][0]
 
     def exact(self, op, args, machine):
-        return np.negative(args[0])
+        return -args[0]
 
     def c_exact(self, op, site):
         return f"-{c_widened(site.args[0], site)}"
@@ -517,7 +530,7 @@ class Abs(Unary):
         return (0.0 if lo <= 0 <= hi else min(abs(lo), abs(hi))), max(abs(lo), abs(hi))
 
     def exact(self, op, args, machine):
-        return np.abs(args[0])
+        return abs(args[0])
 
     def c_exact(self, op, site):
         a = site.args[0]
@@ -554,7 +567,7 @@ class Mul(OperationKind):
         return replace(op, shift=f_args[0] + f_args[1] - bits)
 
     def exact(self, op, args, machine):
-        return np.multiply(args[0], args[1])
+        return args[0] * args[1]
 
     def c_exact(self, op, site):
         a, b = site.args
@@ -590,7 +603,7 @@ class Scale(OperationKind):
         return replace(op, constant=quantise(op.real, own), shift=f_args[0] + own - bits)
 
     def exact(self, op, args, machine):
-        return args[0] * machine.wide(op.constant)
+        return args[0] * machine.number(op.constant)
 
     def exact_bounds(self, op, args, word_bits):
         corners = [args[0][0] * op.constant, args[0][1] * op.constant]
@@ -646,11 +659,11 @@ class TableSine(OperationKind):
                        offset=quantise(self.turn_offset, word_bits) % (1 << word_bits))
 
     def golden(self, op, args, machine):
-        wide, bits = machine.wide, machine.word_bits
-        phase = (args[0] + wide(op.offset)) & wide((1 << bits) - 1)  # an unsigned word
-        table = _table_array(op.table, wide)
-        index = phase >> wide(op.shift)
-        within = phase & wide((1 << op.shift) - 1)
+        number, bits = machine.number, machine.word_bits
+        phase = (args[0] + number(op.offset)) & number((1 << bits) - 1)  # an unsigned word
+        table = machine.table(op.table)
+        index = phase >> number(op.shift)
+        within = phase & number((1 << op.shift) - 1)
         low = table[index]
         return machine.fit(low + machine.round_shift((table[index + 1] - low) * within, op.shift),
                            self.fit_wraps(op))
@@ -678,24 +691,6 @@ class Cos(TableSine):
     name = "cos"
     turn_offset = Fraction(1, 4)
     function = staticmethod(np.cos)
-
-
-_TABLE_ARRAYS: dict[tuple[int, type], tuple[tuple[int, ...], np.ndarray]] = {}
-
-
-def _table_array(table: tuple[int, ...], wide: type) -> np.ndarray:
-    """The table as a read-only numpy array of ``wide``, made once per table: a golden run reads
-    it at every step, and converting up to 4097 entries each time was a large part of a
-    network's run time."""
-    key = (id(table), wide)  # the entry holds its table, so the id stays its own
-    held = _TABLE_ARRAYS.get(key)
-    if held is None:
-        if len(_TABLE_ARRAYS) >= 256:
-            _TABLE_ARRAYS.clear()
-        array = np.asarray(table, dtype=wide)
-        array.flags.writeable = False
-        held = _TABLE_ARRAYS[key] = (table, array)
-    return held[1]
 
 
 # --- format rules shared by several kinds ----------------------------------------------------
