@@ -466,8 +466,8 @@ class WeightedSum(OperationKind):
     def exact(self, op, args, machine):
         total = None
         for value, weight, k in zip(args, op.weights, op.align, strict=True):
-            term = value * machine.wide(weight << k)
-            total = term if total is None else np.add(total, term)
+            term = value * machine.number(weight << k)
+            total = term if total is None else total + term
         return total
 
     def exact_bounds(self, op, args, word_bits):
