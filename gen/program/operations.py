@@ -431,14 +431,13 @@ class Max(Aligned):
 
 
 @register
-class WeightedSum(OperationKind):
+class WeightedSum(Aligned):
     """The sum of the aligned arguments, each times its whole weight ``op.weights[i]``: an
     integrator's increments (RK4's k1 + 2 k2 + 2 k3 + k4) formed exactly in the product width and
     rounded once, where a chain of sums would round at every link."""
 
     name = "wsum"
-    arity = None
-    aligns = True
+    arity = None  # any number of arguments; the formats and alignments are Aligned's
 
     def real(self, op, args, states):
         total = args[0] * op.weights[0]
@@ -456,23 +455,12 @@ class WeightedSum(OperationKind):
         # when the weights' magnitudes add up to at most 2**(e + 1)
         return max(0, (sum(abs(w) for w in op.weights) - 1).bit_length() - 1)
 
-    def first_bits(self, op, f_args, natural, word_bits):
-        return min(natural, max(f_args))
-
-    def fill(self, op, bits, f_args, word_bits):
-        top = max(*f_args, bits)
-        return replace(op, align=tuple(top - g for g in f_args), shift=top - bits)
-
     def exact(self, op, args, machine):
         total = None
         for value, weight, k in zip(args, op.weights, op.align, strict=True):
             term = value * machine.number(weight << k)
             total = term if total is None else total + term
         return total
-
-    def exact_bounds(self, op, args, word_bits):
-        return self.interval(op, [(lo << k, hi << k) for (lo, hi), k in
-                                  zip(args, op.align, strict=True)], None)
 
     def c_exact(self, op, site):
         terms = []
