@@ -169,7 +169,7 @@ def evaluate(program: IntegerProgram, states: np.ndarray,
     if states.size and (states.min() < program.word_min or states.max() > program.word_max):
         raise ValueError(f"a state is outside the {program.word_bits}-bit word")
     wide = wide_type(program.product_bits)
-    one = states.shape[1:] == (1,)
+    one = states.shape[1:] == (1,) and program.one_constant_each
     if one:
         machine: _Machine = _OneState(program, [int(v) for v in states[:, 0]])
         flag = np.zeros((), dtype=bool) if saturated is not None else None

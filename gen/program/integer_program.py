@@ -284,6 +284,12 @@ class IntegerProgram:
         next state depends on and that are clamped into the word."""
         return frozenset(i for i in self.kept_values if self.clamps(self.ops[i]))
 
+    @functools.cached_property
+    def one_constant_each(self) -> bool:
+        """Whether every stored constant is one integer (a period trim's search stores an array
+        of candidates, one per state of its batch; golden's one-state path needs integers)."""
+        return all(op.constant is None or type(op.constant) is int for op in self.ops)
+
     @property
     def counts_saturation(self) -> bool:
         """Whether any step can be saturated. False for a ``wrap`` program, whose count of
