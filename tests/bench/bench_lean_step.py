@@ -92,12 +92,18 @@ def main() -> None:
     print()
     print("accuracy of the integer map's cycle against the continuous one (from the initial state):")
     for word, built in designs.items():
-        cycle = built.analysis.cycle
-        stepped = integer_cycle(built.plan.program, program_states(built.model, cycle.samples),
-                                built.timing.steps_per_cycle, cycle.state_min, cycle.state_max,
-                                turns=cycle.turns)
-        print(f"  {word}-bit: period error {stepped.period_error_ppm:+.3f} ppm, amplitude error "
-              f"{100 * stepped.amplitude_error:.4f} %")
+        print(f"  {word}-bit: {integer_map_accuracy(built)}")
+
+
+def integer_map_accuracy(built) -> str:
+    """The integer map's period and amplitude errors against the continuous cycle, from the
+    initial state (also printed by bench_network_loops)."""
+    cycle = built.analysis.cycle
+    stepped = integer_cycle(built.plan.program, program_states(built.model, cycle.samples),
+                            built.timing.steps_per_cycle, cycle.state_min, cycle.state_max,
+                            turns=cycle.turns)
+    return (f"period error {stepped.period_error_ppm:+.3f} ppm, amplitude error "
+            f"{100 * stepped.amplitude_error:.4f} %")
 
 
 if __name__ == "__main__":

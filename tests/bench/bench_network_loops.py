@@ -14,11 +14,11 @@ Run: python tests/bench/bench_network_loops.py [--quick]
 from __future__ import annotations
 
 from bench_boards import function_sizes
+from bench_lean_step import integer_map_accuracy
 from quick_mode import pick
 
 from orbitfix.gen.model.model_file import load_model
-from orbitfix.gen.pipeline import design, program_states
-from orbitfix.gen.study.discrete_cycle import integer_cycle
+from orbitfix.gen.pipeline import design
 from orbitfix.verify.proofs.board_stream import build_for_board
 from orbitfix.verify.targets.board_profiles import load_profile
 from orbitfix.verify.targets.cross_build import reachable_functions
@@ -58,12 +58,7 @@ def main() -> None:
     print()
     print("accuracy of the integer map's cycle against the continuous one (from the initial state):")
     for (name, word), built in designs.items():
-        cycle = built.analysis.cycle
-        stepped = integer_cycle(built.plan.program, program_states(built.model, cycle.samples),
-                                built.timing.steps_per_cycle, cycle.state_min, cycle.state_max,
-                                turns=cycle.turns)
-        print(f"  {name} {word}-bit: period error {stepped.period_error_ppm:+.3f} ppm, amplitude "
-              f"error {100 * stepped.amplitude_error:.4f} %")
+        print(f"  {name} {word}-bit: {integer_map_accuracy(built)}")
 
 
 if __name__ == "__main__":
