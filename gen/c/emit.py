@@ -72,6 +72,39 @@ class CConstant:
     fraction_bits: int = 0
 
 
+@dataclass(frozen=True)
+class ShippedConstant:
+    """One stored number of NAME.c as written there (a constant ``kN`` or one entry of a
+    per-oscillator table, ``kcN[i]``) and the values whose constant it is: a one-LSB edit of it
+    in the C changes all of them at once."""
+
+    name: str
+    stored: int
+    fraction_bits: int
+    step_values: tuple[int, ...]
+    output_values: tuple[int, ...] = ()
+
+
+def _shipped_constants(constants: list[CConstant], step_symbols: dict[int, str],
+                       output_symbols: dict[int, str], looped: LoopedStep | None
+                       ) -> list[ShippedConstant]:
+    shipped = []
+    from_tables: set[int] = set()
+    for table in looped.tables if looped is not None else []:
+        for c, uses in enumerate(table["uses"]):
+            shipped.append(ShippedConstant(f"{table['name']}[{c}]", table["stored"][c],
+                                           table["fraction_bits"], tuple(uses)))
+            from_tables.update(uses)
+    for constant in constants:
+        steps = tuple(i for i, n in step_symbols.items() if n == constant.name
+                      and i not in from_tables)
+        outputs = tuple(i for i, n in output_symbols.items() if n == constant.name)
+        if steps or outputs:
+            shipped.append(ShippedConstant(constant.name, constant.stored,
+                                           constant.fraction_bits, steps, outputs))
+    return shipped
+
+
 def environment() -> jinja2.Environment:
     env = jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(templates_folder())),
@@ -219,6 +252,9 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
                             program.state_fraction_bits[program.model_state_count::2], strict=True)
         ],
         "constants": constants,
+        # every stored number the step and the outputs read, with the values it feeds (the
+        # self-test's probes change each by one LSB, gen/c/selftest.py)
+        "shipped_constants": _shipped_constants(constants, constant_of, output_symbols, looped),
         "values": [_value_line(i, op, names, program, {**constant_of, **table_of}, bounds)
                    for i, op in enumerate(program.ops) if i in kept],
         "value_count": len(program.ops),

@@ -34,7 +34,8 @@ class LoopedStep:
 
     lines -- C lines (unindented) computing the kept values; value_name -- the C name of any
     value outside a loop's body (for the next state); tables -- per-oscillator constant tables
-    (name, length, entries, comment); loops -- how many repeats became loops, of ``repeats``;
+    (name, length, entries, stored integers, comment, and uses: per entry, the values whose
+    constant it is); loops -- how many repeats became loops, of ``repeats``;
     routines -- static functions (name, parameters, lines) that loops of one routine call."""
 
     lines: list[str]
@@ -267,6 +268,7 @@ def _loop_body(program: IntegerProgram, repeat: tuple, r: int, kept: set[int], r
     """The loop's body for one repeat, or None where two copies' C differ at some position."""
     body = []
     new_tables = []
+    new_uses: list[tuple[str, list[int]]] = []
     for p in range(len(repeat[0])):
         place = [copy[p] for copy in repeat]
         if len({i in kept for i in place}) != 1:
@@ -286,9 +288,11 @@ def _loop_body(program: IntegerProgram, repeat: tuple, r: int, kept: set[int], r
                 fmt = f"Q{program.word_bits - stored[place[0]][1]}.{stored[place[0]][1]}"
                 new_tables.append({
                     "name": name, "length": len(place), "entries": entries,
-                    "fraction_bits": stored[place[0]][1],
+                    "fraction_bits": stored[place[0]][1], "uses": [[] for _ in place],
+                    "stored": [stored[i][0] for i in place],
                     "comment": comment_text(f"one per oscillator, {fmt} (first use: "
                                             f"{program.ops[place[0]].note})")})
+            new_uses.append((name, place))
             symbol = f"{table_entry}({name}, {LOOP_INDEX})"
         texts = {render(i, tuple(loop_name(a, r, c) for a in program.ops[i].args), symbol)[0]
                  for c, i in enumerate(place)}
@@ -301,6 +305,10 @@ def _loop_body(program: IntegerProgram, repeat: tuple, r: int, kept: set[int], r
         else:
             body.append(f"const {word_type} v{place[0]} = {expression}; /* {note} */")
     tables += new_tables
+    by_name = {t["name"]: t for t in tables}
+    for name, place in new_uses:  # which values each entry feeds, once the loop is sure
+        for c, i in enumerate(place):
+            by_name[name]["uses"][c].append(i)
     return body
 
 

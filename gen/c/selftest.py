@@ -12,22 +12,26 @@ them cover the span. A change that moves the orbit only after the span is left t
 from __future__ import annotations
 
 import math
+import textwrap
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
 
-from orbitfix.gen.c.emit import environment, firmware_context, int_literal
+from orbitfix.gen.c.emit import ShippedConstant, environment, firmware_context, int_literal
 from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import FixedPointPlan
+from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.timing.integrators import Integrator
 from orbitfix.gen.timing.step_size import Timing
 
 CHECKPOINTS = 16
-PROBES = 16            # at most this many one-step probes
-MOST_SAMPLES = 65536   # random states of the planning box the probes are chosen from ...
-PROBE_WORK = 2e8       # ... fewer when operations x samples x changed programs would pass this
+PROBES = 48            # at most this many one-step probes
+SAMPLES = 65536        # random states of the planning box the probes are chosen from
+CHUNK = 8192           # states golden runs at once (its values of every operation are kept)
+CHANGED_RUNS = 4096    # states a changed program is run on, at most, of those it changes a value
 SEED = 1
 
 
@@ -37,10 +41,12 @@ class Probes:
 
     states, nexts : shape (k, n_states) -- each probe's state and golden's next state.
     saturated : shape (k,) -- whether that step is saturated (the count goes from 0 to 1).
-    changes : one-LSB changes (of each distinct constant of NAME.c, up and down) tried.
+    changes : one-LSB changes (of each stored number of NAME.c, up and down) tried.
     samples : the random states of the planning box they were tried on.
-    shown : of those, the changes that alter the next state of some sampled state; the probes
-        catch every one of them (greedy set cover).
+    shown : of those, the changes that alter the next state (or an output) of some sampled
+        state; the probes catch every one of them (greedy set cover).
+    hidden : the changes that alter no sampled step, by name (e.g. ``kc0[2]+1``).
+    memories : shape (k, n_outputs) -- each output's memory (its last value) at each probe.
     """
 
     states: np.ndarray
@@ -49,51 +55,100 @@ class Probes:
     changes: int
     shown: int
     samples: int
+    hidden: tuple[str, ...] = ()
+    memories: np.ndarray | None = None
 
 
-def choose_probes(plan: FixedPointPlan, seed: int = SEED) -> Probes:
-    """Probe states that catch every one-LSB change of a constant that shows on any of a sample
-    of random states of the planning box (each distinct stored constant and format, as NAME.c
-    holds it, moved up and down by one; golden runs each changed program once over the whole
-    sample, of MOST_SAMPLES states or fewer within PROBE_WORK). States outside the box are not
+def choose_probes(plan: FixedPointPlan, shipped: Sequence[ShippedConstant],
+                  seed: int = SEED) -> Probes:
+    """Probe states that catch every one-LSB change of a stored number of NAME.c (``shipped``:
+    each constant, and each entry of a per-oscillator table, with the values it feeds, moved up
+    and down by one) that shows on any of SAMPLES random states of the planning box. A change
+    shows when the next state, or an output from the init function's memories, differs. Most
+    changes alter the values they feed on few states, so the changed program is run only where
+    one of them differs (at most CHANGED_RUNS states a change). States outside the box are not
     sampled: the firmware never steps from there. One more probe starts just beyond a state's
     proven range, so a step that does not hold it, or does not count, fails the test."""
     program = plan.program
-    groups: dict[tuple[int, int], list[int]] = {}
-    for report in plan.constants:
-        groups.setdefault((report.stored, report.format.fraction_bits), []).append(report.index)
-    runs = 1 + 2 * len(groups)
-    samples = int(max(256, min(MOST_SAMPLES, PROBE_WORK / (len(program.ops) * runs))))
-    batch = _box_samples(plan, samples, np.random.default_rng(seed))
-    plain = _next_states(program, batch)
-    shows: list[np.ndarray] = []
-    changes = 0
-    for (stored, _), indices in groups.items():
-        for change in (1, -1):
-            if not program.word_min <= stored + change <= program.word_max:
+    generator = np.random.default_rng(seed)
+    batch = _box_samples(plan, SAMPLES, generator)
+    memory = _memories(plan, batch)
+    moves = [(constant, constant.stored + change) for constant in shipped for change in (1, -1)
+             if program.word_min <= constant.stored + change <= program.word_max]
+    shows = np.zeros((len(moves), SAMPLES), dtype=bool)
+    ran = np.zeros(len(moves), dtype=int)  # states each changed program has been run on
+    for start in range(0, SAMPLES, CHUNK):
+        part = slice(start, start + CHUNK)
+        states = batch[:, part]
+        values = golden.evaluate(program, states)
+        plain = _seen(program, states, memory[:, part])
+        for m, (constant, value) in enumerate(moves):
+            fed = np.zeros(states.shape[1], dtype=bool) | bool(constant.output_values)
+            for i in constant.step_values:
+                op = replace(program.ops[i], constant=value)
+                fed |= golden.value_with(program, states, values, i, op) != values[i]
+            where = np.flatnonzero(fed)[:CHANGED_RUNS - ran[m]]
+            if not where.size:
                 continue
-            changes += 1
-            ops = list(program.ops)
-            for i in indices:
-                ops[i] = replace(ops[i], constant=stored + change)
-            differs = np.any(_next_states(replace(program, ops=tuple(ops)), batch) != plain, axis=0)
-            if differs.any():
-                shows.append(differs)
+            ran[m] += where.size
+            changed = _changed(program, constant, value)
+            seen = _seen(changed, states[:, where], memory[:, part][:, where])
+            shows[m, start + where] = np.any(seen != plain[:, where], axis=0)
+    hidden = tuple(f"{c.name}{'+1' if v > c.stored else '-1'}"
+                   for (c, v), row in zip(moves, shows, strict=True) if not row.any())
+    shown = [row for row in shows if row.any()]
     chosen: list[int] = []
-    left = list(range(len(shows)))
+    left = list(range(len(shown)))
     while left and len(chosen) < PROBES:
-        counts = np.sum([shows[m] for m in left], axis=0)
+        counts = np.sum([shown[m] for m in left], axis=0)
         best = int(np.argmax(counts))
         chosen.append(best)
-        left = [m for m in left if not shows[m][best]]
-    states, nexts = batch[:, chosen], plain[:, chosen]
+        left = [m for m in left if not shown[m][best]]
+    states, memories = batch[:, chosen], memory[:, chosen]
     outside = _outside_probe(program, batch[:, 0])
     if outside is not None:  # one step that must count: a state just beyond its proven range
         states = np.hstack([states, outside])
-        nexts = np.hstack([nexts, _next_states(program, outside)])
+        memories = np.hstack([memories, _memories(plan, outside)])
+    nexts = _next_states(program, states)
     _, saturated = golden.step_saturated(program, states)
-    return Probes(states=states.T, nexts=nexts.T, saturated=saturated,
-                  changes=changes, shown=len(shows) - len(left), samples=samples)
+    return Probes(states=states.T, nexts=nexts.T, saturated=saturated, changes=len(moves),
+                  shown=len(shown) - len(left), samples=SAMPLES, hidden=hidden,
+                  memories=memories.T)
+
+
+def _changed(program: IntegerProgram, constant: ShippedConstant, value: int) -> IntegerProgram:
+    """``program`` with ``constant`` stored as ``value`` wherever NAME.c reads it."""
+    ops = list(program.ops)
+    for i in constant.step_values:
+        ops[i] = replace(ops[i], constant=value)
+    changed = replace(program, ops=tuple(ops))
+    if constant.output_values:
+        section = program.output_program
+        outputs = list(section.ops)
+        for i in constant.output_values:
+            outputs[i] = replace(outputs[i], constant=value)
+        changed = replace(changed, output_program=replace(section, ops=tuple(outputs)))
+    return changed
+
+
+def _memories(plan: FixedPointPlan, states: np.ndarray) -> np.ndarray:
+    """Each output's memory (its last value) for a probe from each state: the output the state
+    itself gives, as if the step before had ended there, so a slew limit binds only where the
+    output moves that fast; shape (n_outputs, batch)."""
+    program = plan.program
+    initial = np.array(plan.initial_outputs, dtype=np.int64).reshape(-1, 1)
+    if not program.outputs:
+        return np.zeros((0, states.shape[1]), dtype=np.int64)
+    return golden.output_values(program, states, np.repeat(initial, states.shape[1], axis=1))[1]
+
+
+def _seen(program: IntegerProgram, states: np.ndarray, memory: np.ndarray) -> np.ndarray:
+    """What the self-test compares after one step from each state: the next state and, with
+    outputs, their values from ``memory``; shape (n_states + n_outputs, batch)."""
+    nexts = _next_states(program, states)
+    if not program.outputs:
+        return nexts
+    return np.vstack([nexts, golden.output_values(program, nexts, memory)[0]])
 
 
 def _outside_probe(program, inside: np.ndarray) -> np.ndarray | None:
@@ -114,14 +169,13 @@ def _next_states(program, states: np.ndarray) -> np.ndarray:
 
 
 def _box_samples(plan: FixedPointPlan, count: int, generator: np.random.Generator) -> np.ndarray:
-    """``count`` random states: each model state uniform over its planning box (an angle over the
-    whole turn), the runtime parameters' fields at their initial values; shape (n_states, count)."""
+    """``count`` random states: each state uniform over its planning box (an angle over the whole
+    turn; a runtime parameter's value and target each over its range, so some steps ramp);
+    shape (n_states, count)."""
     program = plan.program
     rows = []
     for i, bits in enumerate(program.state_fraction_bits):
-        if i >= program.model_state_count:
-            rows.append(np.full(count, plan.initial_state[i], dtype=np.int64))
-        elif i in program.angle_states:
+        if i in program.angle_states:
             rows.append(generator.integers(program.word_min, program.word_max + 1, count))
         else:
             low, high = plan.box[i]
@@ -164,17 +218,17 @@ def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: 
     names = CNames(model.name)
     program = plan.program
     table = checkpoints(np.asarray(trajectory))
-    probes = choose_probes(plan)
+    firmware = firmware_context(model, timing, integrator, plan)
+    probes = choose_probes(plan, firmware["shipped_constants"])
     literal = lambda row: [int_literal(int(v), program.word_bits) for v in row]  # noqa: E731
     # The outputs' fields are checked beside the states: golden's outputs along the run from the
     # initial state, and after each probe's step from the memories the init function sets.
     outputs = _outputs_along(program, np.asarray(trajectory), plan.initial_outputs, table[-1][0])
-    memory = np.array(plan.initial_outputs, dtype=np.int64).reshape(-1, 1)
-    probe_memory = np.repeat(memory, len(probes.states), axis=1)
+    probe_memory = probes.memories.T
     probe_outputs = (golden.output_values(program, probes.nexts.T, probe_memory)[0]
                      if program.outputs else probe_memory)
     context = {
-        **firmware_context(model, timing, integrator, plan),
+        **firmware,
         "fields": [names.field(n) for n in (*program.state_names, *(o.name for o in program.outputs))],
         "last_step": table[-1][0],
         "checkpoints": [{"step": step, "state": literal([*values, *outputs[step]]),
@@ -183,8 +237,11 @@ def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: 
                     "next": literal([*b, *probe_outputs[:, k]]), "count": int(s)}
                    for k, (a, b, s) in enumerate(zip(probes.states, probes.nexts, probes.saturated,
                                                      strict=True))],
-        "probe_changes": probes.changes, "probe_shown": probes.shown,
-        "probe_samples": probes.samples,
+        "probe_changes": probes.changes, "probe_caught": probes.shown,
+        "probe_samples": probes.samples, "probe_hidden": probes.hidden,
+        "probe_hidden_lines": textwrap.wrap(", ".join(probes.hidden), 90),
+        "probe_uncaught": probes.changes - probes.shown - len(probes.hidden),
+        "probe_limit": PROBES,
     }
     env = environment()
     return {

@@ -187,6 +187,15 @@ def evaluate(program: IntegerProgram, states: np.ndarray,
     return list(np.array(values, dtype=wide).reshape(-1, 1))  # raises if one left the width
 
 
+def value_with(program: IntegerProgram, states: np.ndarray, values: list[np.ndarray],
+               index: int, op) -> np.ndarray:
+    """Operation ``index`` computed as ``op`` (say, with another constant) from the batch's other
+    values (``values``, from :func:`evaluate` on ``states``): what that one value would be."""
+    machine = _Machine(program, np.asarray(states).astype(wide_type(program.product_bits),
+                                                          copy=False))
+    return kind_of(op.kind).golden(op, [values[i] for i in op.args], machine)
+
+
 def step(program: IntegerProgram, states: np.ndarray) -> np.ndarray:
     """One step from each state of the batch. Returns int64 ndarray, shape (n_states, batch)."""
     values = evaluate(program, states)
