@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 import textwrap
+import zlib
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
@@ -23,7 +24,7 @@ from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.model.definition import Model
 from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import FixedPointPlan
-from orbitfix.gen.program.integer_program import IntegerProgram
+from orbitfix.gen.program.integer_program import SATURATION_COUNT_BITS, IntegerProgram
 from orbitfix.gen.timing.integrators import Integrator
 from orbitfix.gen.timing.step_size import Timing
 
@@ -195,6 +196,20 @@ def checkpoints(trajectory: np.ndarray) -> list[tuple[int, list[int]]]:
     return [(step, [int(v) for v in trajectory[step]]) for step in wanted]
 
 
+def probe_check(fields: list[list[int]], saturated: np.ndarray, word_bits: int) -> int:
+    """The CRC-32 (zlib's: reflected polynomial 0xEDB88320) the self-test forms over every
+    probe's state after its step, field by field, and its count of saturated steps (0, or 1 when
+    the step saturates), each as little-endian two's-complement bytes. One number stands for
+    all the probes' next states; a change of a single field spans at most 32 bits of the
+    stream, and CRC-32 detects every error burst that short."""
+    stream = bytearray()
+    for row, count in zip(fields, saturated, strict=True):
+        for value in row:
+            stream += int(value).to_bytes(word_bits // 8, "little", signed=True)
+        stream += int(count).to_bytes(SATURATION_COUNT_BITS // 8, "little")
+    return zlib.crc32(bytes(stream))
+
+
 def _outputs_along(program, trajectory: np.ndarray, initial: tuple[int, ...],
                    last: int) -> np.ndarray:
     """Golden's outputs after each of the first ``last`` steps of ``trajectory`` (row k after k
@@ -227,16 +242,17 @@ def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: 
     probe_memory = probes.memories.T
     probe_outputs = (golden.output_values(program, probes.nexts.T, probe_memory)[0]
                      if program.outputs else probe_memory)
+    after = [[*b, *probe_outputs[:, k]] for k, b in enumerate(probes.nexts)]
     context = {
         **firmware,
         "fields": [names.field(n) for n in (*program.state_names, *(o.name for o in program.outputs))],
         "last_step": table[-1][0],
         "checkpoints": [{"step": step, "state": literal([*values, *outputs[step]]),
                          "count": int(counts[step])} for step, values in table],
-        "probes": [{"state": literal([*a, *probe_memory[:, k]]),
-                    "next": literal([*b, *probe_outputs[:, k]]), "count": int(s)}
-                   for k, (a, b, s) in enumerate(zip(probes.states, probes.nexts, probes.saturated,
-                                                     strict=True))],
+        "probes": [{"state": literal([*a, *probe_memory[:, k]])}
+                   for k, a in enumerate(probes.states)],
+        "probe_check": f"UINT32_C(0x{probe_check(after, probes.saturated, program.word_bits):08X})",
+        "count_bytes": SATURATION_COUNT_BITS // 8,
         "probe_changes": probes.changes, "probe_caught": probes.shown,
         "probe_samples": probes.samples, "probe_hidden": probes.hidden,
         "probe_hidden_lines": textwrap.wrap(", ".join(probes.hidden), 90),
