@@ -33,6 +33,7 @@ PROBES = 48            # at most this many one-step probes
 SAMPLES = 65536        # random states of the planning box the probes are chosen from
 CHUNK = 8192           # states golden runs at once (its values of every operation are kept)
 CHANGED_RUNS = 4096    # states a changed program is run on, at most, of those it changes a value
+EDGE_ODDS = 16         # a state is at each edge of its box in 1 of this many samples
 SEED = 1
 
 
@@ -171,8 +172,8 @@ def _next_states(program, states: np.ndarray) -> np.ndarray:
 
 def _box_samples(plan: FixedPointPlan, count: int, generator: np.random.Generator) -> np.ndarray:
     """``count`` random states: each state uniform over its planning box (an angle over the whole
-    turn; a runtime parameter's value and target each over its range, so some steps ramp);
-    shape (n_states, count)."""
+    turn; a runtime parameter's value and target each over its range, so some steps ramp), and
+    each, one time in EDGE_ODDS, at either edge of its box; shape (n_states, count)."""
     program = plan.program
     rows = []
     for i, bits in enumerate(program.state_fraction_bits):
@@ -181,8 +182,11 @@ def _box_samples(plan: FixedPointPlan, count: int, generator: np.random.Generato
         else:
             low, high = plan.box[i]
             lo = max(program.word_min, math.ceil(low * 2.0 ** bits))
-            hi = min(program.word_max, math.floor(high * 2.0 ** bits))
-            rows.append(generator.integers(lo, max(lo, hi) + 1, count))
+            hi = max(lo, min(program.word_max, math.floor(high * 2.0 ** bits)))
+            row = generator.integers(lo, hi + 1, count)
+            edge = generator.integers(0, EDGE_ODDS, count)  # the box's edges, where limits bind
+            row[edge == 0], row[edge == 1] = lo, hi
+            rows.append(row)
     return np.stack(rows).astype(np.int64)
 
 
