@@ -339,8 +339,12 @@ def _fill(program: IntegerProgram, state_formats: list[int], bounds: list[float]
         else:
             natural = w - integer_bits_for(bounds[index])
             bits.append(kind.first_bits(op, [bits[i] for i in op.args], natural, w))
+    readers: list[list[tuple[int, int]]] = [[] for _ in ops]
+    for r, op in enumerate(ops):
+        for position, a in enumerate(op.args):
+            readers[a].append((r, position))
     while (_limit_alignment(ops, kinds, bits, forced, w) | _settle(ops, kinds, bits, w)
-           | _same_over_copies(program, bits, forced)):
+           | _same_over_copies(program, bits, forced) | _coarsen(ops, kinds, bits, forced, readers)):
         pass
     filled: list = []
     constants: list[ConstantReport] = []
@@ -374,6 +378,26 @@ def _same_over_copies(program: IntegerProgram, bits: list[int], forced: dict[int
                 if bits[i] != fewest:
                     bits[i] = fewest
                     changed = True
+    return changed
+
+
+def _coarsen(ops: tuple, kinds: list, bits: list[int], forced: dict[int, int],
+             readers: list[list[tuple[int, int]]]) -> bool:
+    """Fewer fraction bits for a value whose readers round its extra bits away on their own
+    (each kind's ``bits_kept`` and ``coarsens``): a constant is then stored as finely as its
+    readers use it, so each of its bits counts (and no shift undoes them), and a min or max is
+    rounded once where its reader rounded it. Returns True if anything changed."""
+    changed = False
+    for index, kind in enumerate(kinds):
+        if kind.coarsens is None or index in forced or not readers[index]:
+            continue
+        kept = {kinds[r].bits_kept(ops[r], position, bits[r], [bits[a] for a in ops[r].args])
+                for r, position in readers[index]}
+        if None in kept or (kind.coarsens == "monotone" and len(kept) != 1):
+            continue
+        if max(kept) < bits[index]:
+            bits[index] = max(kept)
+            changed = True
     return changed
 
 

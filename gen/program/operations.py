@@ -134,7 +134,12 @@ class OperationKind:
        value), ``aligns`` (the arguments are brought to one scale before they meet), and
        ``fill`` (the integer fields of the planned operation: shift, alignments, constant,
        table, offset). A kind that stores a constant names its ``constant_role`` and the
-       constant's format in ``constant_bits``, and quantises it with ``quantise``.
+       constant's format in ``constant_bits``, and quantises it with ``quantise``. Backwards:
+       ``bits_kept`` says how many of an argument's fraction bits the result depends on, where
+       the rest are rounded away on their own; a kind whose value may then drop them names how
+       in ``coarsens`` ("constant": stored once, it keeps the most any reader keeps;
+       "monotone": a min or max, whose rounded result is the same operation on rounded
+       arguments, drops to the bits every reader keeps alike).
     5. The golden rule: ``exact(op, args, machine)``, the exact result in the program's product
        width as a fresh array (the interpreter rounds it in place), to which the interpreter
        applies the one rounding by ``op.shift`` and the one overflow rule; a kind that rounds
@@ -158,6 +163,7 @@ class OperationKind:
     provable = True  # whether the planner may prove its result fits (and drop its clamp)
     rounds_itself = False  # its golden rule rounds inside: exact_bounds bound the value itself
     constant_role: str | None = None  # "added" or "multiplier" for a kind with a stored constant
+    coarsens: str | None = None  # "constant" or "monotone": see point 4
     c_helper: CHelper | None = None
 
     def real(self, op: Op, args: list[np.ndarray], states: np.ndarray) -> np.ndarray:
@@ -180,6 +186,12 @@ class OperationKind:
 
     def settle_bits(self, op: Op, bits: int, f_args: list[int], word_bits: int) -> int:
         return bits
+
+    def bits_kept(self, op: Op, position: int, bits: int, f_args: list[int]) -> int | None:
+        """The fraction bits of the argument at ``position`` that the result (of ``bits``
+        fraction bits) depends on, when fewer than the argument's own: its extra bits are
+        rounded away on their own. None: every bit counts."""
+        return None
 
     def constant_bits(self, op: Op, bits: int, word_bits: int) -> int:
         raise NotImplementedError(f"{self.name} stores no constant")
@@ -282,6 +294,7 @@ class Const(OperationKind):
 
     name = "const"
     constant_role = "added"
+    coarsens = "constant"
 
     def real(self, op, args, states):
         return np.full(np.shape(states[0]), op.real)
@@ -336,6 +349,12 @@ class Aligned(OperationKind):
     def fill(self, op, bits, f_args, word_bits):
         top = max(*f_args, bits)
         return replace(op, align=tuple(top - g for g in f_args), shift=top - bits)
+
+    def bits_kept(self, op, position, bits, f_args):
+        # the other arguments on the result's grid: the sum's rounding rounds this one alone
+        # (but for a tie under half-even, whose way the others' parity decides)
+        others = [f for k, f in enumerate(f_args) if k != position]
+        return bits if f_args[position] > bits and all(f <= bits for f in others) else None
 
     def exact(self, op, args, machine):
         x, y = (v * machine.number(1 << k) if k else v
@@ -397,6 +416,11 @@ class Min(Aligned):
     """The smaller aligned argument."""
 
     name = "min"
+    coarsens = "monotone"
+
+    def bits_kept(self, op, position, bits, f_args):
+        # every rounding rule is monotone: the rounded min is the min of rounded arguments
+        return bits if f_args[position] > bits else None
 
     def real(self, op, args, states):
         return np.minimum(args[0], args[1])
@@ -416,6 +440,11 @@ class Max(Aligned):
     """The larger aligned argument."""
 
     name = "max"
+    coarsens = "monotone"
+
+    def bits_kept(self, op, position, bits, f_args):
+        # every rounding rule is monotone: the rounded max is the max of rounded arguments
+        return bits if f_args[position] > bits else None
 
     def real(self, op, args, states):
         return np.maximum(args[0], args[1])
@@ -438,6 +467,9 @@ class WeightedSum(Aligned):
 
     name = "wsum"
     arity = None  # any number of arguments; the formats and alignments are Aligned's
+
+    def bits_kept(self, op, position, bits, f_args):
+        return None  # whole weights: an argument's extra bits add up with the others'
 
     def real(self, op, args, states):
         total = args[0] * op.weights[0]
