@@ -90,7 +90,7 @@ int main(void)
 }
 """
 
-SEMANTICS = [(w, r, o) for w in (16, 32) for r in ("truncate", "half-up", "half-even")
+SEMANTICS = [(w, r, o) for w in (16, 32) for r in ("truncate", "half-up", "half-even", "mixed")
              for o in ("saturate", "wrap")]
 
 

@@ -206,7 +206,7 @@ def test_notes_say_when_sources_came_from_another_program(vanderpol_design, tmp_
     assert any("0123456789abcdef" in note for note in outcome.notes)
 
 
-SEMANTICS = [(w, r, o) for w in (16, 32) for r in ("truncate", "half-up", "half-even")
+SEMANTICS = [(w, r, o) for w in (16, 32) for r in ("truncate", "half-up", "half-even", "mixed")
              for o in ("saturate", "wrap")]
 
 
@@ -245,7 +245,7 @@ def test_c_products_round_like_exact_rationals_at_ties(word: int, rounding: str,
     cases = [(1, k * half) for k in (1, 3, 5, -1, -3, -5)] + [(3, half), (-3, half), (1, high),
                                                                (low, low), (high, high), (low, -1)]
     exact = {"truncate": math.floor, "half-up": lambda v: math.floor(v + Fraction(1, 2)),
-             "half-even": round}[rounding]
+             "half-even": round}[plan.program.rounding_of(plan.program.ops[mul])]
     for a, b in cases:
         trace = np.zeros(len(plan.program.ops), dtype=np.int32)
         out = np.zeros(2, dtype=np.int32)

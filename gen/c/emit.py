@@ -470,7 +470,7 @@ def _value_line(index: int, op: Op, names: CNames, program: IntegerProgram,
         expression = kind.c_call(op, site)
     else:
         if op.shift:
-            exact = f"{names.macro_prefix}_ROUND_SHIFT({exact}, {op.shift}, {site.wide})"
+            exact = f"{_shift_macro(program, op, names)}({exact}, {op.shift}, {site.wide})"
         if kind.fit_wraps(op):  # an angle, or a result proven to fit
             expression = f"{names.prefix}_wrap_word({exact})"
         else:
@@ -489,8 +489,10 @@ def _sum_in_the_word(op: Op, site: CSite, program: IntegerProgram,
     rounding macro (a subtracted one is negated first: rounding -b is not minus the rounding of
     b). Ties to even read the whole quotient's parity, so that rule keeps the wide form. None
     where the wide form must stay."""
-    if op.kind not in ("add", "sub") or program.rounding == "half-even":
+    rule = program.rounding_of(op)
+    if op.kind not in ("add", "sub") or rule == "half-even":
         return None
+    macro = _shift_macro(program, op, names)
     word = (program.word_min, program.word_max)
     fits = lambda low, high: word[0] <= low and high <= word[1]  # noqa: E731
     terms = []
@@ -509,20 +511,19 @@ def _sum_in_the_word(op: Op, site: CSite, program: IntegerProgram,
             low, high, value, subtract = -high, -low, f"-{value}", False
         rounded += 1
         shift = op.shift - k
-        if not fits(low, high + (1 << (shift - 1) if program.rounding == "half-up" else 0)):
+        if not fits(low, high + (1 << (shift - 1) if rule == "half-up" else 0)):
             return None
-        terms.append(f"{names.macro_prefix}_ROUND_SHIFT({value}, {shift}, {site.word})")
+        terms.append(f"{macro}({value}, {shift}, {site.word})")
     if rounded > 1:  # both rounded: the whole exact sum in the word, when it fits with the half
         low, high = kind_of(op.kind).exact_bounds(op, [bounds[a] for a in op.args],
                                                   program.word_bits)
-        half = 1 << (op.shift - 1) if program.rounding == "half-up" else 0
+        half = 1 << (op.shift - 1) if rule == "half-up" else 0
         aligned = [bounds[a][i] << k for a, k in zip(op.args, op.align, strict=True)
                    for i in (0, 1)]
         if not (fits(low, high + half) and fits(min(aligned), max(aligned))):
             return None
         exact = kind_of(op.kind).c_exact(op, replace(site, wide=site.word))
-        return (f"({site.word}){names.macro_prefix}_ROUND_SHIFT({exact}, {op.shift}, "
-                f"{site.word})")
+        return f"({site.word}){macro}({exact}, {op.shift}, {site.word})"
     return f"({site.word})({terms[0]}{' - ' if subtract else ' + '}{terms[1]})"
 
 
@@ -530,7 +531,18 @@ ROUNDING_WORDS = {
     "truncate": "toward minus infinity (an arithmetic shift right)",
     "half-up": "to nearest, ties toward plus infinity (add half an LSB, then shift right)",
     "half-even": "to nearest, ties to the even neighbour",
+    "mixed": "to nearest, ties toward plus infinity, except where the plan found the error "
+             "carried into the next state far below a state's LSB: there toward minus infinity "
+             "(an arithmetic shift right)",
 }
+
+
+def _shift_macro(program: IntegerProgram, op: Op, names: CNames) -> str:
+    """The C macro of one operation's rounding shift (a mixed program's truncated operations
+    have their own)."""
+    if program.rounding == "mixed" and program.rounding_of(op) == "truncate":
+        return f"{names.macro_prefix}_TRUNCATE_SHIFT"
+    return f"{names.macro_prefix}_ROUND_SHIFT"
 OVERFLOW_WORDS = {
     "saturate": "saturates to",
     "wrap": "wraps around (modulo 2^{bits}) into",

@@ -513,7 +513,8 @@ class _Reader:
         if word_bits not in (16, 32) or isinstance(word_bits, bool):
             raise self.error(self.line_of("fixed_point", "word_bits"),
                              f"word_bits must be 16 or 32, got {word_bits!r}", "word_bits = 16")
-        choices = {"rounding": ("truncate", "half-up", "half-even"), "overflow": ("saturate", "wrap")}
+        choices = {"rounding": ("truncate", "half-up", "half-even", "mixed"),
+                   "overflow": ("saturate", "wrap")}
         chosen = {}
         for key, allowed in choices.items():
             chosen[key] = fixed.get(key, allowed[1] if key == "rounding" else allowed[0])

@@ -25,6 +25,9 @@ from orbitfix.gen.program.proven_fit import prove_fits
 from orbitfix.gen.program.quantisation import quantise
 from orbitfix.gen.program.ranges import interval_ranges, planning_box
 
+SENSITIVITY_POINTS = 32   # points of the cycle where a mixed plan measures each rounding's reach
+TRUNCATION_BUDGET = 1 / 4   # what all truncations together may move a next state, in its LSBs
+
 
 @dataclass(frozen=True)
 class QFormat:
@@ -266,6 +269,8 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
                                                               program.state_names, strict=True)))
     planned = replace(program, ops=tuple(ops), word_bits=word_bits, product_bits=2 * word_bits,
                       rounding=rounding, overflow=overflow, state_fraction_bits=tuple(formats))
+    if rounding == "mixed":
+        planned = replace(planned, ops=_truncations(planned, points))
     box = tuple(zip(low.tolist(), high.tolist(), strict=True))
     planned = prove_fits(planned, box)
     state_met = [max(abs(met[i][0]), abs(met[i][1])) for i in states]
@@ -275,6 +280,48 @@ def plan_fixed_point(program: IntegerProgram, samples: np.ndarray, initial: np.n
                           program=planned, constants=tuple(constants),
                           initial_state=initial_ints, warnings=tuple(warnings),
                           signal_ranges=met, sure_bounds=tuple(sure), box=box)
+
+
+def _truncations(program: IntegerProgram, points: np.ndarray) -> tuple:
+    """A mixed program's operations, those that may truncate marked so: truncating instead of
+    rounding half up costs at most one more LSB of the value, with a bias, and what matters is
+    how far that moves the next state. The float step map measures it: each operation's value
+    moved by one of its LSBs, at up to SENSITIVITY_POINTS of ``points`` (states on the cycle,
+    the initial one), gives the most it moves each next state, in that state's LSBs. The
+    operations that move the states least truncate, while the sum of what they move each state
+    stays within TRUNCATION_BUDGET of its LSB. An angle's or a table's rounding stays."""
+    ops = program.ops
+    candidates = [i for i, op in enumerate(ops)
+                  if op.shift and not op.wraps and not kind_of(op.kind).rounds_itself]
+    if not candidates:
+        return ops
+    picks = points[:, np.unique(np.linspace(0, points.shape[1] - 1,
+                                            SENSITIVITY_POINTS).astype(int))]
+    count = picks.shape[1]
+    batch = np.tile(picks, (1, len(candidates) + 1))  # block 0 as it is, block b + 1 moved
+    added = {}
+    for b, i in enumerate(candidates):
+        bump = np.zeros(batch.shape[1])
+        bump[(b + 1) * count:(b + 2) * count] = 2.0 ** -ops[i].fraction_bits
+        added[i] = bump
+    with np.errstate(over="ignore", invalid="ignore"):
+        values = evaluate_real(program, batch, added)
+    nexts = np.stack([np.asarray(values[j], dtype=float) * np.ones(batch.shape[1])
+                      for j in program.next_state])
+    moved = nexts - np.tile(nexts[:, :count], (1, len(candidates) + 1))
+    for j in program.angle_states:  # in turns: the shorter way round
+        moved[j] = (moved[j] + 0.5) % 1.0 - 0.5
+    moved = np.abs(moved) * (2.0 ** np.array(program.state_fraction_bits, dtype=float))[:, None]
+    carried = {i: np.nan_to_num(moved[:, (b + 1) * count:(b + 2) * count], nan=np.inf).max(axis=1)
+               for b, i in enumerate(candidates)}
+    budget = np.full(len(program.state_names), TRUNCATION_BUDGET)
+    chosen = set()
+    for i in sorted(candidates, key=lambda i: float(carried[i].max())):
+        if np.all(carried[i] <= budget):
+            budget -= carried[i]
+            chosen.add(i)
+    return tuple(replace(op, rounding="truncate" if i in chosen else "")
+                 for i, op in enumerate(ops))
 
 
 def start_points(initial: np.ndarray, runtime: tuple[Parameter, ...],

@@ -124,8 +124,9 @@ class _Machine:
     def state(self, index: int):
         return self.states[index]
 
-    def round_shift(self, exact, shift: int):
-        return round_shift(exact, shift, self.rounding)
+    def round_shift(self, exact, shift: int, op=None):
+        rule = self.program.rounding_of(op) if op is not None else self.rounding
+        return round_shift(exact, shift, rule)
 
     def fit(self, exact, wraps: bool):
         return fit_word(exact, self.word_bits, self.program.fit_rule(wraps), self.saturated)

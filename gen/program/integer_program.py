@@ -15,6 +15,9 @@ Every value is an integer standing for integer / 2**fraction_bits, each value wi
    wide type, since no alignment exceeds word_bits - 2);
 2. divides it by 2**shift with the program's ``rounding``: ``truncate`` (toward minus infinity),
    ``half-up`` (nearest, ties toward plus infinity) or ``half-even`` (nearest, ties to even);
+   or, for a ``mixed`` program, with each operation's own ``rounding``: ``truncate`` where the
+   planner found its error carried into the next state far below a state's LSB, else
+   ``half-up`` (``IntegerProgram.rounding_of``);
 3. brings it into the word: clamp (``overflow`` = ``saturate``) or reduce modulo 2**word_bits
    (``wrap``).
 
@@ -85,7 +88,7 @@ import json
 from dataclasses import dataclass, field
 
 WORD_SIZES = (16, 32)
-ROUNDINGS = ("truncate", "half-up", "half-even")
+ROUNDINGS = ("truncate", "half-up", "half-even", "mixed")
 OVERFLOWS = ("saturate", "wrap")
 SATURATION_COUNT_BITS = 32
 SATURATION_COUNT_MAX = (1 << SATURATION_COUNT_BITS) - 1
@@ -135,6 +138,7 @@ class Op:
     held: tuple[int, ...] = ()
     proven: bool = False
     weights: tuple[int, ...] = ()
+    rounding: str = ""  # a mixed program's rule for this operation ("": half-up)
 
     def __post_init__(self) -> None:
         from orbitfix.gen.program.operations import kind_of  # numpy: not needed to read options
@@ -165,6 +169,8 @@ class Op:
             data["weights"] = list(self.weights)
         if self.proven:
             data["proven"] = True
+        if self.rounding:
+            data["rounding"] = self.rounding
         if self.note:
             data["note"] = self.note
         return data
@@ -224,6 +230,11 @@ class IntegerProgram:
             raise ValueError(f"unsupported word size {self.word_bits}")
         if self.rounding not in ROUNDINGS:
             raise ValueError(f"unknown rounding {self.rounding!r}")
+        if any(op.rounding and (self.rounding != "mixed" or op.rounding not in ("truncate",
+                                                                                "half-up"))
+               for op in self.ops):
+            raise ValueError("only a mixed program gives an operation a rounding of its own "
+                             "(truncate or half-up)")
         if self.overflow not in OVERFLOWS:
             raise ValueError(f"unknown overflow mode {self.overflow!r}")
         for index, op in enumerate(self.ops):
@@ -325,6 +336,13 @@ class IntegerProgram:
             **({"repeats": [[list(c) for c in r] for r in self.repeats],
                 "routines": list(self.routines)} if self.repeats else {}),
         }
+
+    def rounding_of(self, op: Op) -> str:
+        """The rounding rule of one operation's shift: the program's, or in a mixed program the
+        operation's own (half-up unless the planner chose truncate)."""
+        if self.rounding != "mixed":
+            return self.rounding
+        return op.rounding or "half-up"
 
     def fingerprint(self) -> str:
         """A short hash of the whole program: same arithmetic, same fingerprint."""

@@ -477,12 +477,17 @@ def _exact(number: sympy.Expr) -> Fraction:
     return Fraction(float(number))
 
 
-def evaluate_real(program: IntegerProgram, states: np.ndarray) -> list[np.ndarray]:
+def evaluate_real(program: IntegerProgram, states: np.ndarray,
+                  added: dict[int, np.ndarray] | None = None) -> list[np.ndarray]:
     """Every value of the program in float64 with its real constants and no rounding: the
-    integrator's step map at layer L1. ``states`` : ndarray, shape (n_states, batch)."""
+    integrator's step map at layer L1. ``states`` : ndarray, shape (n_states, batch).
+    ``added`` : per value index, an amount added to that value where it is made (shape (batch,)),
+    to see how an error made there moves what follows."""
     values: list[np.ndarray] = []
-    for op in program.ops:
+    for index, op in enumerate(program.ops):
         value = kind_of(op.kind).real(op, [values[i] for i in op.args], states)
+        if added is not None and index in added:
+            value = value + added[index]
         values.append(angles.wrap_turns(value) if op.wraps else value)
     return values
 

@@ -58,7 +58,7 @@ class Machine(Protocol):
 
     def hold(self, values: np.ndarray, low: int, high: int) -> np.ndarray: ...  # marks a clamp
 
-    def round_shift(self, exact: np.ndarray, shift: int) -> np.ndarray: ...
+    def round_shift(self, exact: np.ndarray, shift: int, op: Op | None = None) -> np.ndarray: ...
 
     def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray: ...  # marks a clamp, see golden
 
@@ -206,7 +206,7 @@ class OperationKind:
         return op.wraps or op.proven  # a proven result never leaves the word from a held state
 
     def golden(self, op: Op, args: list[np.ndarray], machine: Machine) -> np.ndarray:
-        return machine.fit(machine.round_shift(self.exact(op, args, machine), op.shift),
+        return machine.fit(machine.round_shift(self.exact(op, args, machine), op.shift, op),
                            self.fit_wraps(op))
 
     def exact_bounds(self, op: Op, args: list[tuple[int, int]],
@@ -685,7 +685,8 @@ class TableSine(OperationKind):
         index = phase >> number(op.shift)
         within = phase & number((1 << op.shift) - 1)
         low = table[index]
-        return machine.fit(low + machine.round_shift((table[index + 1] - low) * within, op.shift),
+        return machine.fit(low + machine.round_shift((table[index + 1] - low) * within, op.shift,
+                                                     op),
                            self.fit_wraps(op))
 
     def exact_bounds(self, op, args, word_bits):

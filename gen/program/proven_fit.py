@@ -83,7 +83,7 @@ def value_bounds(program: IntegerProgram,
             continue
         low, high = (int(v) for v in kind.exact_bounds(op, args, program.word_bits))  # 0.0 -> 0
         if op.shift and not kind.rounds_itself:
-            low, high = _rounded((low, high), op.shift, program.rounding)
+            low, high = _rounded((low, high), op.shift, program.rounding_of(op))
         wraps = kind.fit_wraps(op)
         if wraps is None:
             bounds.append((low, high))

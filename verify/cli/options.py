@@ -80,7 +80,9 @@ def add_fixed_point_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("--word", dest="word_bits", type=int, choices=WORD_SIZES,
                        help="word size in bits; products use twice as many (default 32)")
     group.add_argument("--rounding", choices=ROUNDINGS,
-                       help="rounding after every shift (default half-up)")
+                       help="rounding after every shift (default half-up; mixed: half-up where "
+                            "the error reaches the next state, truncate where it stays far "
+                            "below a state's LSB, which is cheaper)")
     group.add_argument("--overflow", choices=OVERFLOWS,
                        help="what a result outside the word does (default saturate)")
 
