@@ -233,8 +233,22 @@ def test_the_proof_drives_every_setter_and_ramp_through_the_c(hip) -> None:
     assert report.bit_exact and report.init_checked
     assert report.setters_checked == 1
     # four targets, each followed across the whole range at 2 per second and 500 Hz: (9 - 3) /
-    # (2 / 500) = 1500 steps and two more (common practice: a rate limiter's travel time).
-    assert report.ramp_steps == 4 * 1502
+    # (2 / 500) = 1500 steps and two more (common practice: a rate limiter's travel time); omega
+    # moves in whole LSBs of 2^-26, and 2 / 500 is 268,435.456 of them, so a step may move
+    # 268,435: 1501 steps and two more.
+    assert hip.plan.program.state_fraction_bits[2] == 26
+    assert report.ramp_steps == 4 * 1503
+
+
+def test_a_rate_the_word_cannot_hold_exactly_still_passes_the_ramp_proof() -> None:
+    # The pump at 16 bits (speed in LSBs of 2^-12): 0.5 per second at 1 kHz is 2.048 LSBs a step,
+    # which the step keeps by moving 2; the ramp over 0.25 .. 2 takes 1.75 / (2 * 2^-12) = 3584
+    # steps, not 3500, and the proof must wait for them (it failed the 16-bit pump before).
+    built = design(load_model("peristaltic_pump").with_fixed_point(word_bits=16))
+    assert built.plan.program.state_fraction_bits[2] == 12
+    report = check_on_host(built, states=2000, steps=2000, sanitized_states=0).report
+    assert report.bit_exact, report.first_mismatch
+    assert report.setters_checked == 1 and report.ramp_steps == 4 * (3584 + 2)
 
 
 @pytest.mark.parametrize(("old", "new", "words"), [
@@ -260,6 +274,8 @@ def test_a_wrong_setter_is_caught(hip, tmp_path, old: str, new: str, words: str)
 @pytest.mark.parametrize(("change", "words"), [
     ({"per_step": 1.0 / 500}, "more than its rate allows"),
     ({"high": 8.0}, "leaves its range"),
+    # a ramp slower than declared (2 per second where 3 are declared) does not arrive in time
+    ({"per_step": 3.0 / 500}, "not at its target"),
 ])
 def test_a_ramp_that_breaks_the_declared_rate_or_range_is_caught(hip, change: dict,
                                                                  words: str) -> None:

@@ -143,8 +143,9 @@ def test_pump_verify_runs_as_written_and_drives_the_setter_through_the_c(capsys)
     data = json.loads(capsys.readouterr().out)
     assert data["ok"] and data["bit_exact"] and data["setters_checked"] == 1
     # four ramps across the whole range at 0.5 per second and 1 kHz, each (2 - 0.25) / 0.5 * 1000
-    # steps and two more (common practice: a rate limiter's travel time)
-    assert data["ramp_steps_compared"] == 4 * (3500 + 2)
+    # = 3500 steps and two more (common practice: a rate limiter's travel time); speed moves in
+    # whole LSBs of 2^-28, 0.5 / 1000 is 134,217.728 of them, so a step may move 134,217: 3501
+    assert data["ramp_steps_compared"] == 4 * (3501 + 2)
     assert data["drift"]["verdict"] == "pass"
     # judged at both ends of the speed's range too: Hopf normal form, period 2 pi / omega exactly,
     # so 1000 / speed steps (common practice)

@@ -435,12 +435,21 @@ def _c_set(host: HostModule, state: np.ndarray, which: int, target: int) -> np.n
     return out.astype(np.int64)
 
 
+def slowest_move(per_step: float, unit: float) -> float:
+    """The least a rate-limited parameter may move in one step and still keep its declared rate:
+    the parameter moves in whole LSBs (``unit``), so a rate of 2.048 LSBs a step may be kept by
+    moving 2 of them; and at least one LSB, or the parameter never arrives. The ramp's travel time
+    is judged against this, not against the declared rate, which the word cannot hold exactly."""
+    return max(math.floor(per_step / unit), 1) * unit
+
+
 def _check_ramps(program: IntegerProgram, host: HostModule, ramps: tuple[Ramp, ...],
                  locator: _Locator) -> tuple[int, int, Mismatch | None]:
     """Each setter, called through the C on the state the C itself reached, with targets at the
     word's extremes, inside the range and back: it must write its target and nothing else; every
     step after it must match golden; and the parameter must keep to its declared range, move by
-    at most its declared rate and arrive at its target held in the range. Returns (setters
+    at most its declared rate and arrive at its target held in the range in the time its rate,
+    kept in whole LSBs (``slowest_move``), takes. Returns (setters
     checked, steps compared, first mismatch or None)."""
     count = int(host.lib.orbitfix_harness_setter_count())
     if count != len(ramps):
@@ -460,7 +469,7 @@ def _check_ramps(program: IntegerProgram, host: HostModule, ramps: tuple[Ramp, .
         host.lib.orbitfix_harness_init(host.ffi.from_buffer("int32_t[]", out))
         state = out.astype(np.int64)
         span = ramp.high - ramp.low
-        follow = 2 if ramp.per_step is None else math.ceil(span / ramp.per_step) + 2
+        follow = 2 if ramp.per_step is None else math.ceil(span / slowest_move(ramp.per_step, unit)) + 2
         follow = min(follow, RAMP_STEP_CAP)
         for wanted in (program.word_max, program.word_min, middle, program.word_max):
             expected = state.copy()
