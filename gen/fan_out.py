@@ -15,6 +15,8 @@ from typing import Any
 from orbitfix.gen.errors import InputError, ToolchainError
 from orbitfix.gen.progress import tell
 
+SCHEDULER_SECONDS = 10  # how long a named Dask scheduler is tried before it counts as unreachable
+
 
 def fan_out(function: Callable[..., Any], jobs: Sequence[tuple], workers: int | None = None,
             scheduler: str | None = None) -> list[Any]:
@@ -50,7 +52,7 @@ def _on_cluster(function: Callable[..., Any], jobs: Sequence[tuple], scheduler: 
     if isinstance(scheduler, distributed.Client):
         return _gather(scheduler, function, jobs)
     try:
-        client = distributed.Client(scheduler, timeout=10)
+        client = distributed.Client(scheduler, timeout=SCHEDULER_SECONDS)
     except (OSError, TimeoutError, ValueError) as exc:
         raise InputError(f"cannot reach the Dask scheduler at {scheduler!r} ({exc}); check the "
                          "address (e.g. tcp://host:8786) and that the scheduler is running") from None

@@ -114,3 +114,49 @@ def test_the_rest_search_of_a_large_network_is_a_bounded_sample() -> None:
     assert offsets.shape == (16, 1 + 16 * 2 * REST_SEARCH + MOST_REST_CANDIDATES)
     assert not offsets[:, 0].any() and np.abs(offsets).max() == REST_SEARCH
     assert _rest_offsets(2).shape == (2, (2 * REST_SEARCH + 1) ** 2)  # small models: every state
+
+
+def _followed_every_step(plan, rest: np.ndarray, half: int, steps: int, step) -> np.ndarray:
+    """The sampled method written plainly: every seeded sample stepped every step until it
+    leaves the box; the offsets of those still inside after ``steps``."""
+    from orbitfix.gen.study import dead_zones as zones
+
+    n = plan.program.model_state_count
+    offsets = np.random.default_rng(zones.SEED).integers(-half, half + 1, size=(n, zones.SAMPLES))
+    states, stayed = rest.reshape(-1, 1) + offsets, np.ones(zones.SAMPLES, dtype=bool)
+    for _ in range(steps):
+        states = step(plan.program, states)
+        stayed &= np.all(np.abs(states - rest.reshape(-1, 1)) <= half, axis=0)
+    return offsets[:, stayed]
+
+
+def test_the_sampled_zone_equals_every_sample_followed_every_step(focus_plan, monkeypatch) -> None:
+    # The sampled method stops stepping a sample the step leaves in place inside the box (it stays
+    # there for ever: the map is a function of the state alone). Against the plain method on the
+    # focus, whose box of half width 16 LSB holds rest states and states that leave: the same
+    # samples. Seeded fault: a map with memory (it holds every state for its first step only)
+    # breaks that premise, and the comparison sees the difference.
+    from orbitfix.gen.study import dead_zones as zones
+
+    found = {}
+    keep = zones._result
+    monkeypatch.setattr(zones, "_result", lambda plan, eq, rest, dead, *rest_of: (
+        found.__setitem__("dead", dead), keep(plan, eq, rest, dead, *rest_of))[1])
+    rest = np.zeros(2, dtype=np.int64)
+    for half in (8, 16, 32):
+        zone = zones._sampled_box(focus_plan, np.zeros(2), rest, half, 300)
+        plain = _followed_every_step(focus_plan, rest, half, 300, golden.step)
+        assert np.array_equal(found["dead"], plain) and zone.states == plain.shape[1]
+    assert 0 < zone.states < zones.SAMPLES  # some samples rest, some leave
+
+    calls, step = [], golden.step
+
+    def with_memory(program, states):
+        calls.append(1)
+        return states.copy() if len(calls) == 1 else step(program, states)
+
+    monkeypatch.setattr(zones.golden, "step", with_memory)
+    zones._sampled_box(focus_plan, np.zeros(2), rest, 32, 300)
+    calls.clear()
+    assert not np.array_equal(found["dead"], _followed_every_step(focus_plan, rest, 32, 300,
+                                                                  with_memory))

@@ -300,3 +300,35 @@ def test_bad_run_lengths_are_refused_with_a_clear_message(vanderpol_design, hour
 def test_bad_tolerances_are_refused() -> None:
     with pytest.raises(InputError, match="period_ppm"):
         DriftTolerances(period_ppm=-5)
+
+
+def test_the_batched_step_map_references_have_the_bits_of_one_run_each(tmp_path) -> None:
+    # The drift proof runs the float step map of the nominal design and of every corner of the
+    # runtime ranges side by side (one program, states as columns). Every real rule is
+    # elementwise, so each view must come out bit for bit as its own run (IEEE 754 arithmetic is
+    # deterministic per element: common practice); the hip model's omega gives two corners.
+    from conftest import HIP
+
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.verify.proofs.drift.harness import drift_section
+    from orbitfix.verify.proofs.drift.proof import _at_corner
+    from orbitfix.verify.proofs.drift.references import (
+        choose_starts,
+        step_map_reference,
+        step_map_references,
+    )
+
+    path = tmp_path / "hip.toml"
+    path.write_text(HIP.replace("loop_hz = 500", "loop_hz = 100"))
+    built = design(load_model(str(path)))
+    views = [built, *(_at_corner(built, corner, cycle) for corner, cycle in built.corners)]
+    assert len(views) == 3 and len({v.timing.steps_per_cycle for v in views}) == 3
+    runs = [(view, drift_section(view), choose_starts(view)[0]) for view in views]
+    batched = step_map_references(runs, 0.02)
+    alone = [step_map_reference(*run, 0.02) for run in runs]
+    assert batched == alone  # floats compared with ==: the same bits
+    assert all(ref.period_steps is not None for ref in alone)
+    # a seeded fault: a view recorded over another view's window (its steps per cycle) differs
+    shifted = replace(views[1], timing=views[2].timing)
+    runs[1] = (shifted, runs[1][1], runs[1][2])
+    assert step_map_references(runs, 0.02)[1] != alone[1]

@@ -7,6 +7,7 @@ import math
 
 import pytest
 
+from orbitfix.gen import fan_out as fan_out_module
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
 from orbitfix.gen.study.plan_study import search
@@ -42,7 +43,9 @@ def test_search_on_a_dask_cluster_matches_the_local_search(vanderpol_design) -> 
     assert remote.binding == local.binding
 
 
-def test_unreachable_scheduler_is_an_input_error() -> None:
+def test_unreachable_scheduler_is_an_input_error(monkeypatch) -> None:
     pytest.importorskip("distributed")
+    # nothing listens on port 1: the same error after 1 s of trying as after the default 10 s
+    monkeypatch.setattr(fan_out_module, "SCHEDULER_SECONDS", 1)
     with pytest.raises(InputError, match="cannot reach the Dask scheduler"):
         fan_out(hypotenuse, JOBS, scheduler="tcp://127.0.0.1:1")

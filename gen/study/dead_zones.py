@@ -193,12 +193,20 @@ def _sampled_box(plan: FixedPointPlan, equilibrium: np.ndarray, rest: np.ndarray
                                                                 dtype=np.int64)])
     states = np.clip(states, program.word_min, program.word_max)
     staying = np.arange(SAMPLES)  # a sample that once leaves the box is not followed further
+    # A sample the step leaves in place inside the box stays there at every later step (the map
+    # is a function of the state alone), so it is kept without being stepped again: in a dead
+    # zone nearly every sample is such a rest state, and following them cost every step.
+    resting = [np.zeros(0, dtype=staying.dtype)]
     for _ in range(steps):
-        states = golden.step(program, states)
-        inside = np.all(np.abs(states[:n] - rest[:n].reshape(-1, 1)) <= half, axis=0)
-        states, staying = states[:, inside], staying[inside]
+        moved = golden.step(program, states)
+        inside = np.all(np.abs(moved[:n] - rest[:n].reshape(-1, 1)) <= half, axis=0)
+        still = inside & np.all(moved == states, axis=0)
+        resting.append(staying[still])
+        follow = inside & ~still
+        states, staying = moved[:, follow], staying[follow]
         if not staying.size:
             break
+    staying = np.sort(np.concatenate([*resting, staying]))
     return _result(plan, equilibrium, rest, offsets[:, staying], half, "sampled", False)
 
 

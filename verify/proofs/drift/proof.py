@@ -86,7 +86,7 @@ from orbitfix.verify.proofs.drift.references import (
     Start,
     StepMapReference,
     choose_starts,
-    step_map_reference,
+    step_map_references,
 )
 from orbitfix.verify.targets.host_build import HostModule
 
@@ -256,14 +256,29 @@ def run_drift(design: Design, hours: float = 24.0, tolerances: DriftTolerances |
         built_in = time.perf_counter() - started
     else:
         built_in = 0.0
-    report = _drift_report(design, hours, tolerances, settle_fraction, equilibrium_offset, host,
-                           seed=seed, extra_starts=extra_starts, cycle_budget=cycle_budget)
+    tolerances = tolerances if tolerances is not None else DriftTolerances()
+    views = [design, *(_at_corner(design, corner, cycle) for corner, cycle in design.corners)]
+    for view in views:  # every input checked before any work
+        _run_length(view, hours, settle_fraction)
+    chosen = [choose_starts(design, equilibrium_offset, seed=seed, extra=extra_starts)]
+    chosen += [(choose_starts(view, equilibrium_offset)[0][:1], []) for view in views[1:]]
+    sections = [drift_section(view) for view in views]
+    # The float step map's references of every view (the same program) in one run.
+    started = time.perf_counter()
+    references = step_map_references(
+        [(view, section, starts) for view, section, (starts, _) in zip(views, sections, chosen,
+                                                                        strict=True)],
+        tolerances.amplitude)
+    reference_seconds = time.perf_counter() - started
+    report = _drift_report(design, hours, tolerances, settle_fraction, host, sections[0],
+                           *chosen[0], references[0], seed=seed, cycle_budget=cycle_budget)
     report.seconds["host_build"] = built_in
-    for corner, cycle in design.corners:
+    report.seconds["step_map_reference"] = reference_seconds
+    for (corner, _), view, section, (starts, notes), reference in zip(
+            design.corners, views[1:], sections[1:], chosen[1:], references[1:], strict=True):
         where = ", ".join(f"{name} = {value:g}" for name, value in corner.items())
-        at_corner = _drift_report(_at_corner(design, corner, cycle), hours, tolerances,
-                                  settle_fraction, equilibrium_offset, host, only_nominal=True,
-                                  cycle_budget=cycle_budget)
+        at_corner = _drift_report(view, hours, tolerances, settle_fraction, host, section, starts,
+                                  notes, reference, seed=None, cycle_budget=cycle_budget)
         for run in at_corner.runs:
             run.start = replace(run.start, name=where,
                                 why=f"the initial state with {where} (a corner of the runtime "
@@ -307,15 +322,9 @@ def _at_corner(design: Design, corner: dict[str, float], cycle: object) -> Desig
                    plan=replace(plan, initial_state=tuple(plan.initial_state[:n]) + tuple(held)))
 
 
-def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | None,
-                  settle_fraction: float, equilibrium_offset: float, host: HostModule,
-                  only_nominal: bool = False, seed: int = 1,
-                  extra_starts: tuple[dict[str, float], ...] = (),
-                  cycle_budget: int = CYCLE_BUDGET) -> DriftReport:
-    """The runs of one design (at one setting of the runtime parameters)."""
-    tolerances = tolerances if tolerances is not None else DriftTolerances()
-    timing, plan = design.timing, design.plan
-    program = plan.program
+def _run_length(design: Design, hours: float, settle_fraction: float) -> tuple[int, int]:
+    """The steps of a run over ``hours`` and of its settling part; bad settings are input errors."""
+    timing = design.timing
     if not (isinstance(hours, int | float) and math.isfinite(hours) and hours > 0):
         raise InputError(f"--hours must be a positive number, got {hours!r}")
     if not 0 < settle_fraction < 0.9:
@@ -329,23 +338,27 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
                          f"period; give at least {fewest:.3g} hours")
     if steps > LONGEST_RUN:
         raise InputError(f"{hours:g} h is more steps than the harness counts; give fewer hours")
-    settle = round(settle_fraction * steps)
+    return steps, round(settle_fraction * steps)
+
+
+def _drift_report(design: Design, hours: float, tolerances: DriftTolerances,
+                  settle_fraction: float, host: HostModule, section: Section, starts: list[Start],
+                  notes: list[str], reference: StepMapReference, seed: int | None,
+                  cycle_budget: int = CYCLE_BUDGET) -> DriftReport:
+    """The runs of one design (at one setting of the runtime parameters) from ``starts``, held
+    against ``reference`` (its float step map, from ``step_map_references``)."""
+    timing, plan = design.timing, design.plan
+    program = plan.program
+    steps, settle = _run_length(design, hours, settle_fraction)
+    spc = timing.steps_per_cycle
     window = max(1, round(WINDOW_CYCLES * spc))
     fraction = plan.signal_format.fraction_bits
     cycle = design.analysis.cycle
     low, high = np.asarray(cycle.state_min), np.asarray(cycle.state_max)
-    section = drift_section(design)
     n = program.model_state_count
     bits = tuple(program.state_fraction_bits[:n])
     level = section.integer_level(bits[section.state])
-    starts, notes = choose_starts(design, equilibrium_offset, seed=seed, extra=extra_starts)
-    if only_nominal:
-        starts, notes = starts[:1], []
     seconds: dict[str, float] = {}
-
-    started = time.perf_counter()
-    reference = step_map_reference(design, section, starts, tolerances.amplitude)
-    seconds["step_map_reference"] = time.perf_counter() - started
 
     continuous_amplitude = [None if i in program.angle_states else float((high[i] - low[i]) / 2)
                             for i in range(n)]
@@ -356,7 +369,7 @@ def _drift_report(design: Design, hours: float, tolerances: DriftTolerances | No
         state_names=program.state_names[:program.model_state_count],
         tolerances=tolerances, continuous_period_steps=spc,
         continuous_amplitude=continuous_amplitude, step_map=reference, runs=[], notes=notes,
-        seconds=seconds, seed=None if only_nominal else seed, cycle_budget=cycle_budget,
+        seconds=seconds, seed=seed, cycle_budget=cycle_budget,
         section=section, state_fraction_bits=bits, word_bits=program.word_bits,
         turns_together=turns_together(program),
         continuous_low=[float(v) for v in low], continuous_high=[float(v) for v in high],

@@ -149,26 +149,60 @@ def step_map_reference(design: Design, section: Section, starts: list[Start],
                        amplitude_tolerance: float) -> StepMapReference:
     """Run the float step map (L1) from the cycle's point and from every start, vectorised, and
     time it by ``section`` (the drift proof's crossing rule)."""
-    program = design.plan.program
+    return step_map_references([(design, section, starts)], amplitude_tolerance)[0]
+
+
+def step_map_references(runs: list[tuple[Design, Section, list[Start]]],
+                        amplitude_tolerance: float) -> list[StepMapReference]:
+    """The references of :func:`step_map_reference` for several views of one integer program (the
+    nominal design and the corners of its runtime ranges: same program, other parameters, cycle
+    and period), in one vectorised run: every view's columns side by side, each view recorded
+    over its own last STEP_MAP_MEASURED cycles. A column's float values never depend on the other
+    columns (every real rule is elementwise), so each reference has the same bits as its own run
+    (``tests/test_drift.py`` checks); one run pays the per-operation overhead once for them all."""
+    if not runs:
+        return []
+    program = runs[0][0].plan.program
+    if any(design.plan.program is not program for design, _, _ in runs):
+        raise ValueError("step_map_references: the views must share one integer program")
     n = program.model_state_count
     angles = np.isin(np.arange(n), program.angle_states)
     scale = 2.0 ** -np.array(program.state_fraction_bits, dtype=float)
-    spc = design.timing.steps_per_cycle
-    total = round(STEP_MAP_CYCLES * spc)
-    measured = round(STEP_MAP_MEASURED * spc)
-    nominal = [v for p in design.model.runtime_parameters for v in (p.value, p.value)]
-    point = _in_turns(design.analysis.cycle.point, angles)
-    columns = [np.concatenate([point, nominal])]
-    columns += [np.array(s.state, dtype=float) * scale for s in starts]
+    columns, spans = [], []
+    for design, _, starts in runs:
+        spc = design.timing.steps_per_cycle
+        total = round(STEP_MAP_CYCLES * spc)
+        measured = round(STEP_MAP_MEASURED * spc)
+        nominal = [v for p in design.model.runtime_parameters for v in (p.value, p.value)]
+        point = _in_turns(design.analysis.cycle.point, angles)
+        first = len(columns)
+        columns.append(np.concatenate([point, nominal]))
+        columns += [np.array(s.state, dtype=float) * scale for s in starts]
+        spans.append((first, len(columns), total - measured - 1, total))
     x = np.stack(columns, axis=1)
-    record = np.empty((measured + 1, x.shape[0], x.shape[1]))
+    # Each view's record, as its own run has always kept it: the states after steps first to
+    # total - 2, then after step total (that after total - 1 is not kept).
+    records = [np.empty((total - first, x.shape[0], stop - begin))
+               for begin, stop, first, total in spans]
+    longest = max(total for _, _, _, total in spans)
     with np.errstate(all="ignore"):
-        for k in range(total):
-            if k >= total - measured - 1:
-                record[k - (total - measured - 1)] = x
-            values = evaluate_real(program, x)
-            x = np.stack([values[i] for i in program.next_state])
-        record[-1] = x
+        for k in range(longest + 1):
+            for record, (begin, stop, first, total) in zip(records, spans, strict=True):
+                if k == total:
+                    record[-1] = x[:, begin:stop]
+                elif first <= k < total - 1:
+                    record[k - first] = x[:, begin:stop]
+            if k < longest:
+                values = evaluate_real(program, x)
+                x = np.stack([values[i] for i in program.next_state])
+    return [_judged(record, section, starts, n, amplitude_tolerance)
+            for record, (_, section, starts) in zip(records, runs, strict=True)]
+
+
+def _judged(record: np.ndarray, section: Section, starts: list[Start], n: int,
+            amplitude_tolerance: float) -> StepMapReference:
+    """One view's reference from its record (steps, states, columns: the cycle's point first,
+    then each start)."""
     swinging = list(section.swinging)
     low, high = np.min(record, axis=0)[swinging], np.max(record, axis=0)[swinging]
     times = section.crossing_times(record[:, section.state, :1])[0]
