@@ -332,3 +332,33 @@ def test_the_batched_step_map_references_have_the_bits_of_one_run_each(tmp_path)
     shifted = replace(views[1], timing=views[2].timing)
     runs[1] = (shifted, runs[1][1], runs[1][2])
     assert step_map_references(runs, 0.02)[1] != alone[1]
+
+
+def test_the_step_map_reference_records_every_step_of_its_window(vanderpol_design,
+                                                                 monkeypatch) -> None:
+    # The reference's period and amplitudes are read off the states after each step of its
+    # measured window; a crossing is placed between the two steps it falls between, so no step
+    # may be missing (the state after the second-to-last step once was). Checked against the
+    # float step map stepped one step at a time by hand.
+    from orbitfix.gen.program.lowering import evaluate_real
+    from orbitfix.verify.proofs.drift import references
+    from orbitfix.verify.proofs.drift.harness import drift_section
+
+    records = []
+    judged = references._judged
+    monkeypatch.setattr(references, "_judged",
+                        lambda record, *rest: records.append(record) or judged(record, *rest))
+    built = vanderpol_design
+    references.step_map_reference(built, drift_section(built), [], 0.02)
+    spc = built.timing.steps_per_cycle
+    total = round(references.STEP_MAP_CYCLES * spc)
+    first = total - round(references.STEP_MAP_MEASURED * spc) - 1
+    program = built.plan.program
+    x = np.array(built.analysis.cycle.point, dtype=float).reshape(-1, 1)
+    expected = []
+    for k in range(total + 1):
+        if k >= first:
+            expected.append(x[:, 0].copy())
+        values = evaluate_real(program, x)
+        x = np.stack([values[i] for i in program.next_state])
+    assert np.array_equal(records[0][:, :, 0], np.array(expected))

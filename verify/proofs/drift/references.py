@@ -180,17 +180,15 @@ def step_map_references(runs: list[tuple[Design, Section, list[Start]]],
         columns += [np.array(s.state, dtype=float) * scale for s in starts]
         spans.append((first, len(columns), total - measured - 1, total))
     x = np.stack(columns, axis=1)
-    # Each view's record, as its own run has always kept it: the states after steps first to
-    # total - 2, then after step total (that after total - 1 is not kept).
-    records = [np.empty((total - first, x.shape[0], stop - begin))
+    # Each view's record: the states after every step from first to total, consecutive, so
+    # a crossing is placed between the two steps it falls between
+    records = [np.empty((total - first + 1, x.shape[0], stop - begin))
                for begin, stop, first, total in spans]
     longest = max(total for _, _, _, total in spans)
     with np.errstate(all="ignore"):
         for k in range(longest + 1):
             for record, (begin, stop, first, total) in zip(records, spans, strict=True):
-                if k == total:
-                    record[-1] = x[:, begin:stop]
-                elif first <= k < total - 1:
+                if first <= k <= total:
                     record[k - first] = x[:, begin:stop]
             if k < longest:
                 values = evaluate_real(program, x)
