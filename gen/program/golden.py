@@ -104,7 +104,6 @@ class _Machine:
     def __init__(self, program: IntegerProgram, states) -> None:
         self.wide = wide_type(program.product_bits)
         self.word_bits = program.word_bits
-        self.rounding = program.rounding
         self.program = program
         self.states = states
         self.saturated: np.ndarray | None = None  # where a clamp of this value marks its step
@@ -124,9 +123,8 @@ class _Machine:
     def state(self, index: int):
         return self.states[index]
 
-    def round_shift(self, exact, shift: int, op=None):
-        rule = self.program.rounding_of(op) if op is not None else self.rounding
-        return round_shift(exact, shift, rule)
+    def round_shift(self, exact, shift: int, op):
+        return round_shift(exact, shift, self.program.rounding_of(op))
 
     def fit(self, exact, wraps: bool):
         return fit_word(exact, self.word_bits, self.program.fit_rule(wraps), self.saturated)
