@@ -58,7 +58,7 @@ class Machine(Protocol):
 
     def hold(self, values: np.ndarray, low: int, high: int) -> np.ndarray: ...  # marks a clamp
 
-    def round_shift(self, exact: np.ndarray, shift: int, op: Op | None = None) -> np.ndarray: ...
+    def round_shift(self, exact: np.ndarray, shift: int, op: Op) -> np.ndarray: ...  # op's rule
 
     def fit(self, exact: np.ndarray, wraps: bool) -> np.ndarray: ...  # marks a clamp, see golden
 
@@ -411,16 +411,22 @@ class Sub(Aligned):
         return f"{x} - {y}"
 
 
-@register
-class Min(Aligned):
-    """The smaller aligned argument."""
+class Extreme(Aligned):
+    """The smaller or larger aligned argument. Every rounding rule is monotone, so the rounded
+    extreme is the extreme of the rounded arguments: an argument's extra bits are rounded away on
+    their own, and the value itself may drop to the bits its readers keep."""
 
-    name = "min"
     coarsens = "monotone"
 
     def bits_kept(self, op, position, bits, f_args):
-        # every rounding rule is monotone: the rounded min is the min of rounded arguments
         return bits if f_args[position] > bits else None
+
+
+@register
+class Min(Extreme):
+    """The smaller aligned argument."""
+
+    name = "min"
 
     def real(self, op, args, states):
         return np.minimum(args[0], args[1])
@@ -436,15 +442,10 @@ class Min(Aligned):
 
 
 @register
-class Max(Aligned):
+class Max(Extreme):
     """The larger aligned argument."""
 
     name = "max"
-    coarsens = "monotone"
-
-    def bits_kept(self, op, position, bits, f_args):
-        # every rounding rule is monotone: the rounded max is the max of rounded arguments
-        return bits if f_args[position] > bits else None
 
     def real(self, op, args, states):
         return np.maximum(args[0], args[1])
