@@ -535,6 +535,10 @@ ROUNDING_WORDS = {
              "carried into the next state far below a state's LSB: there toward minus infinity "
              "(an arithmetic shift right)",
 }
+OVERFLOW_WORDS = {
+    "saturate": "saturates to",
+    "wrap": "wraps around (modulo 2^{bits}) into",
+}
 
 
 def _shift_macro(program: IntegerProgram, op: Op, names: CNames) -> str:
@@ -543,10 +547,6 @@ def _shift_macro(program: IntegerProgram, op: Op, names: CNames) -> str:
     if program.rounding == "mixed" and program.rounding_of(op) == "truncate":
         return f"{names.macro_prefix}_TRUNCATE_SHIFT"
     return f"{names.macro_prefix}_ROUND_SHIFT"
-OVERFLOW_WORDS = {
-    "saturate": "saturates to",
-    "wrap": "wraps around (modulo 2^{bits}) into",
-}
 
 
 def program_summary(program: IntegerProgram) -> dict[str, int]:
