@@ -57,8 +57,8 @@ class Probes:
     changes: int
     shown: int
     samples: int
+    memories: np.ndarray
     hidden: tuple[str, ...] = ()
-    memories: np.ndarray | None = None
 
 
 def choose_probes(plan: FixedPointPlan, shipped: Sequence[ShippedConstant],
@@ -66,7 +66,7 @@ def choose_probes(plan: FixedPointPlan, shipped: Sequence[ShippedConstant],
     """Probe states that catch every one-LSB change of a stored number of NAME.c (``shipped``:
     each constant, and each entry of a per-oscillator table, with the values it feeds, moved up
     and down by one) that shows on any of SAMPLES random states of the planning box. A change
-    shows when the next state, or an output from the init function's memories, differs. Most
+    shows when the next state, or an output (from the memories the probe starts with), differs. Most
     changes alter the values they feed on few states, so the changed program is run only where
     one of them differs (at most CHANGED_RUNS states a change). States outside the box are not
     sampled: the firmware never steps from there. One more probe starts just beyond a state's
@@ -83,9 +83,10 @@ def choose_probes(plan: FixedPointPlan, shipped: Sequence[ShippedConstant],
         part = slice(start, start + CHUNK)
         states = batch[:, part]
         values = golden.evaluate(program, states)
-        plain = _seen(program, states, memory[:, part])
+        plain = _seen(program, np.stack([values[i] for i in program.next_state]).astype(np.int64),
+                      memory[:, part])
         for m, (constant, value) in enumerate(moves):
-            fed = np.zeros(states.shape[1], dtype=bool) | bool(constant.output_values)
+            fed = np.full(states.shape[1], bool(constant.output_values))  # outputs: every state
             for i in constant.step_values:
                 op = replace(program.ops[i], constant=value)
                 fed |= golden.value_with(program, states, values, i, op) != values[i]
@@ -94,7 +95,8 @@ def choose_probes(plan: FixedPointPlan, shipped: Sequence[ShippedConstant],
                 continue
             ran[m] += where.size
             changed = _changed(program, constant, value)
-            seen = _seen(changed, states[:, where], memory[:, part][:, where])
+            seen = _seen(changed, _next_states(changed, states[:, where]),
+                         memory[:, part][:, where])
             shows[m, start + where] = np.any(seen != plain[:, where], axis=0)
     hidden = tuple(f"{c.name}{'+1' if v > c.stored else '-1'}"
                    for (c, v), row in zip(moves, shows, strict=True) if not row.any())
@@ -144,10 +146,9 @@ def _memories(plan: FixedPointPlan, states: np.ndarray) -> np.ndarray:
     return golden.output_values(program, states, np.repeat(initial, states.shape[1], axis=1))[1]
 
 
-def _seen(program: IntegerProgram, states: np.ndarray, memory: np.ndarray) -> np.ndarray:
-    """What the self-test compares after one step from each state: the next state and, with
-    outputs, their values from ``memory``; shape (n_states + n_outputs, batch)."""
-    nexts = _next_states(program, states)
+def _seen(program: IntegerProgram, nexts: np.ndarray, memory: np.ndarray) -> np.ndarray:
+    """What the self-test compares after one step: the next states ``nexts`` and, with outputs,
+    their values from ``memory``; shape (n_states + n_outputs, batch)."""
     if not program.outputs:
         return nexts
     return np.vstack([nexts, golden.output_values(program, nexts, memory)[0]])
@@ -241,7 +242,7 @@ def render_selftest(model: Model, timing: Timing, integrator: Integrator, plan: 
     probes = choose_probes(plan, firmware["shipped_constants"])
     literal = lambda row: [int_literal(int(v), program.word_bits) for v in row]  # noqa: E731
     # The outputs' fields are checked beside the states: golden's outputs along the run from the
-    # initial state, and after each probe's step from the memories the init function sets.
+    # initial state, and after each probe's step from the memories the probe starts with.
     outputs = _outputs_along(program, np.asarray(trajectory), plan.initial_outputs, table[-1][0])
     probe_memory = probes.memories.T
     probe_outputs = (golden.output_values(program, probes.nexts.T, probe_memory)[0]
