@@ -306,8 +306,8 @@ def _truncations(program: IntegerProgram, points: np.ndarray) -> tuple:
         added[i] = bump
     with np.errstate(over="ignore", invalid="ignore"):
         values = evaluate_real(program, batch, added)
-    nexts = np.stack([np.asarray(values[j], dtype=float) * np.ones(batch.shape[1])
-                      for j in program.next_state])
+    nexts = np.stack([np.broadcast_to(np.asarray(values[j], dtype=float), batch.shape[1:])
+                      for j in program.next_state])  # a next state may be a constant
     moved = nexts - np.tile(nexts[:, :count], (1, len(candidates) + 1))
     for j in program.angle_states:  # in turns: the shorter way round
         moved[j] = (moved[j] + 0.5) % 1.0 - 0.5
