@@ -174,8 +174,9 @@ def test_plan_json_has_signals_constants_and_integrators(capsys) -> None:
     assert code == 0
     data = json.loads(out)
     signals = data["plan"]["signals"]
-    # 37 values, 9 constants (each RK4 update sums its four slopes in one wsum: 43 values before)
-    assert len(signals) == len(data["plan"]["formats"]["constants"]) + 28
+    # 35 values, 9 constants (each RK4 update sums and scales its four slopes in one scaled_sum:
+    # 43 values with a chain of sums, 37 with a sum and then a product)
+    assert len(signals) == len(data["plan"]["formats"]["constants"]) + 26
     for row in signals:
         assert row["sure_min"] <= row["min"] <= row["max"] <= row["sure_max"]
         assert row["headroom_bits"] >= 1  # margin 2 = one bit over the sure bound

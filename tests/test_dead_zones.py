@@ -101,8 +101,9 @@ def test_verify_fails_a_model_that_starts_in_its_dead_zone(tmp_path, capsys) -> 
     assert code == 1 and data["ok"] is False
     assert data["initial_state_in_dead_zone"] is True
     zone = data["dead_zones"][0]
-    # one rounding per state update (issue 10) shrank the zone from 219 x 85 LSB
-    assert zone["method"] == "exhaustive" and zone["radius_lsb"] == {"x": 99, "y": 53}
+    # one rounding per state update (issue 10) shrank the zone from 219 x 85 LSB to 99 x 53; the
+    # increment scaled and rounded once, straight into the state's format, leaves 100 x 50 (measured)
+    assert zone["method"] == "exhaustive" and zone["radius_lsb"] == {"x": 100, "y": 50}
 
 
 def test_the_rest_search_of_a_large_network_is_a_bounded_sample() -> None:

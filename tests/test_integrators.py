@@ -63,26 +63,29 @@ def test_lowered_program_equals_the_tableau_step(method: Integrator) -> None:
 
 def test_rk4_sums_each_state_increments_once_in_the_wide_type() -> None:
     # RK4's update x + h/6 (k1 + 2 k2 + 2 k3 + k4) (Hairer, Norsett, Wanner, Solving ODEs I,
-    # sec. II.1): the four slopes of each state enter one weighted sum with weights 1, 2, 2, 1,
-    # (k1 and k4 first, then k2 and k3), which the planned program rounds once (one shift),
-    # then one product by h/6 and one sum into the state; no other sum of slopes is formed.
+    # sec. II.1): the four slopes of each state enter one scaled sum with weights 1, 2, 2, 1
+    # (k1 and k4 first, then k2 and k3) and the constant h/6, which the planned program rounds
+    # once (one shift), then one sum into the state; no other sum of slopes is formed.
     from orbitfix.gen.program.fixed_point import plan_fixed_point
 
     program = lower_step(VANDERPOL, INTEGRATORS["rk4"], 0.05)
-    sums = [op for op in program.ops if op.kind == "wsum"]
+    sums = [op for op in program.ops if op.kind == "scaled_sum"]
     assert [op.weights for op in sums] == [(1, 1, 2, 2)] * 2
-    assert all(len(set(op.args)) == 4 for op in sums)
+    assert all(len(set(op.args)) == 4 and op.real == 0.05 / 6 for op in sums)
     assert not any(op.kind == "add" and op.args[0] == op.args[1] for op in program.ops)
     for state, op in enumerate(sums):
         update = program.ops[program.next_state[state]]
-        product = program.ops[update.args[1]]
         assert update.kind == "add" and update.args[0] == state
-        assert product.kind == "scale" and product.real == 0.05 / 6
-        assert program.ops[product.args[0]] is op
+        assert program.ops[update.args[1]] is op
     samples = np.array([[2.0, -2.0, 0.5], [1.0, -1.0, 2.5]])
     plan = plan_fixed_point(program, samples, np.array([0.5, 0.0]))
-    planned = [op for op in plan.program.ops if op.kind == "wsum"]
+    planned = [op for op in plan.program.ops if op.kind == "scaled_sum"]
     assert all(op.shift >= 0 and len(op.align) == 4 for op in planned)
+    # each increment is planned in its state's format: it enters the state with no second
+    # rounding (the update's own shift is zero)
+    for state in range(2):
+        update = plan.program.ops[plan.program.next_state[state]]
+        assert update.shift == 0 and update.align == (0, 0)
 
 
 def one_step_gain(method: Integrator, h: float) -> tuple[float, float]:

@@ -95,8 +95,11 @@ def one_kind_program(name: str, w: int, rounding: str, overflow: str, rng: np.ra
         tested = 0
     else:
         natural = int(rng.integers(8, w - 2))
-        ops.append(plan_op(name, args, [formats[i] for i in args], w, natural,
-                           real=small_dyadic(rng), wraps=wraps))
+        # a scaled sum's product holds the sum of any words times its constant: fewer bits
+        real = small_dyadic(rng) if name != "scaled_sum" else Fraction(int(rng.integers(-40, 40))
+                                                                       or 1, 8)
+        ops.append(plan_op(name, args, [formats[i] for i in args], w, natural, real=real,
+                           wraps=wraps))
         tested = 3
     return IntegerProgram(name="k", state_names=("a", "b", "t"), ops=tuple(ops),
                           next_state=(tested, 1, 2), word_bits=w, product_bits=2 * w,
@@ -169,7 +172,7 @@ def test_interval_rule_encloses_every_real_result(name: str) -> None:
         highs = lows + rng.uniform(0, 5, size=3) * (trial % 5 != 0)  # some boxes are points
         args = (0, 0) if (name == "mul" and trial % 2) else tuple(range(count))
         op = Op(name, args, state=0 if name == "state" else None,
-                real=float(rng.uniform(-3, 3)) if count < 2 else None,
+                real=float(rng.uniform(-3, 3)) if count < 2 or kind.constant_role else None,
                 weights=WEIGHTS[count] if kind.arity is None else ())
         if isinstance(kind, TableSine):
             lows, highs = np.full(3, -0.5), np.full(3, 0.5)
@@ -206,9 +209,9 @@ def test_a_weighted_sum_keeps_its_aligned_terms_inside_the_wide_type() -> None:
     # Every aligned operand is below 2**(w - 1) * 2**(w - 2 - headroom); the weighted sum of them
     # (and the half added to round it) must stay below 2**(2w - 1), the product width's limit
     # (two's complement, common practice). The headroom must be the least that does it.
-    kind = kind_of("wsum")
+    kind = kind_of("scaled_sum")
     for weights in [(1, 1), (1, 2, 2, 1), (3, -1, 2), (1, 1, 1, 1, 1), (4, 4), (1, -7, 1, 1)]:
-        op = Op("wsum", tuple(range(len(weights))), weights=weights)
+        op = Op("scaled_sum", tuple(range(len(weights))), weights=weights, real=0.5)
         total = sum(abs(w) for w in weights)
         e = kind.alignment_headroom(op)
         for w in (16, 32):
@@ -216,7 +219,7 @@ def test_a_weighted_sum_keeps_its_aligned_terms_inside_the_wide_type() -> None:
             if e:
                 assert total * 2 ** (2 * w - 3 - (e - 1)) > 2 ** (2 * w - 2), weights
     with pytest.raises(ValueError, match="one nonzero weight each"):
-        Op("wsum", (0, 1), weights=(1,))
+        Op("scaled_sum", (0, 1), weights=(1,))
     with pytest.raises(ValueError, match="no weights"):
         Op("add", (0, 1), weights=(1, 1))
 

@@ -432,15 +432,16 @@ def _coarsen(ops: tuple, kinds: list, bits: list[int], forced: dict[int, int],
              readers: list[list[tuple[int, int]]]) -> bool:
     """Fewer fraction bits for a value whose readers round its extra bits away on their own
     (each kind's ``bits_kept`` and ``coarsens``): a constant is then stored as finely as its
-    readers use it, so each of its bits counts (and no shift undoes them), and a min or max is
-    rounded once where its reader rounded it. Returns True if anything changed."""
+    readers use it, so each of its bits counts (and no shift undoes them), and a min, max or
+    product is rounded once where its readers rounded it (a product's increment goes into its
+    sum with no second rounding and no alignment shift). Returns True if anything changed."""
     changed = False
     for index, kind in enumerate(kinds):
         if kind.coarsens is None or index in forced or not readers[index]:
             continue
         kept = {kinds[r].bits_kept(ops[r], position, bits[r], [bits[a] for a in ops[r].args])
                 for r, position in readers[index]}
-        if None in kept or (kind.coarsens == "monotone" and len(kept) != 1):
+        if None in kept or (kind.coarsens != "constant" and len(kept) != 1):
             continue
         if max(kept) < bits[index]:
             bits[index] = max(kept)

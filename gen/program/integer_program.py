@@ -21,10 +21,11 @@ Every value is an integer standing for integer / 2**fraction_bits, each value wi
 3. brings it into the word: clamp (``overflow`` = ``saturate``) or reduce modulo 2**word_bits
    (``wrap``).
 
-What each kind does (``state``, ``const``, ``add``, ``sub``, ``wsum``, ``neg``, ``abs``, ``min``,
-``max``, ``mul``, ``scale``, ``sin``, ``cos``) is defined once, in ``gen/program/operations.py``.
-``wsum`` takes any number of arguments from two, each with its whole weight (``weights``): an
-integrator's increments summed exactly in the product width and rounded once.
+What each kind does (``state``, ``const``, ``add``, ``sub``, ``scaled_sum``, ``neg``, ``abs``,
+``min``, ``max``, ``mul``, ``scale``, ``sin``, ``cos``) is defined once, in
+``gen/program/operations.py``. ``scaled_sum`` takes any number of arguments from two, each with
+its whole weight (``weights``), and a stored constant: an integrator's increment, its slopes
+summed and scaled exactly in the product width and rounded once.
 
 Angles (phases) are held in turns: an angle value has fraction_bits = word_bits, so the word
 covers exactly one turn and wrapping modulo 2**word_bits is wrapping modulo a full turn. An

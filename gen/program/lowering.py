@@ -294,10 +294,11 @@ class _Builder:
         rates (radians) are turned into turns and the sums wrap at a full turn.
 
         When every weight is a whole multiple of the smallest, with one sign (RK4's h/6 times
-        1, 2, 2, 1), the values are summed first, with whole multiples, exactly in the product
-        width and rounded once (``wsum``), and the sum is scaled once: base + unit * (k1 + 2 k2 +
-        2 k3 + k4). One product and one rounding into the state instead of one per term, so no
-        increment under half an LSB is lost on its own."""
+        1, 2, 2, 1), the values are summed first, with whole multiples, and the sum is scaled
+        once, the sum and the product exact in the product width and rounded once
+        (``scaled_sum``): base + unit * (k1 + 2 k2 + 2 k3 + k4). One product and one rounding
+        into the state instead of one per term, so no increment under half an LSB is lost on its
+        own."""
         live = [(w, v, label) for w, v, label in terms if w != 0]
         for _, value, _ in live:
             if value in self.angles:
@@ -306,8 +307,15 @@ class _Builder:
         factored = _factored(live)
         if factored is not None:
             unit, groups, coefficient, label = factored
-            live = [(unit, self.weighted_sum(groups, f"{note}: {label}"),
-                     f"{coefficient} times {label}")]
+            values = [value for _, group in groups for value in group]
+            weights = [multiple for multiple, group in groups for _ in group]
+            factor = abs(unit) / TURN if angle else abs(unit)
+            term = self.add(Op("scaled_sum", tuple(values), weights=tuple(weights),
+                               real=float(factor), note=f"{coefficient} times {label}"
+                               + (", in turns" if angle else "")))
+            kind = "sub" if unit < 0 else "add"
+            return (self.angle_op(Op(kind, (base, term), note=note)) if angle else
+                    self.add(Op(kind, (base, term), note=note)))
         total = base
         for weight, value, label in live:
             kind = "sub" if weight < 0 else "add"
@@ -318,14 +326,6 @@ class _Builder:
                 total = self.add(Op(kind, (total, self.scaled(value, abs(weight), label)),
                                     note=note))
         return total
-
-    def weighted_sum(self, groups: list[tuple[int, list[int]]], note: str) -> int:
-        """sum(multiple * sum(values)) over the groups, with whole multiples, as one ``wsum``:
-        formed exactly in the product width and rounded once (a chain of sums rounds at every
-        link). Called with two or more values (see ``_factored``)."""
-        values = [value for _, group in groups for value in group]
-        weights = [multiple for multiple, group in groups for _ in group]
-        return self.add(Op("wsum", tuple(values), weights=tuple(weights), note=note))
 
     def turns(self, value: int, note: str) -> int:
         """An angle in turns from a plain value in radians."""

@@ -139,7 +139,10 @@ class OperationKind:
        the rest are rounded away on their own; a kind whose value may then drop them names how
        in ``coarsens`` ("constant": stored once, it keeps the most any reader keeps;
        "monotone": a min or max, whose rounded result is the same operation on rounded
-       arguments, drops to the bits every reader keeps alike).
+       arguments, drops to the bits every reader keeps alike; "product": a product, rounded
+       once to the bits every reader keeps alike instead of twice, first to its own format and
+       then by its reader: the same bits where both truncate, the nearer value where they round
+       to nearest).
     5. The golden rule: ``exact(op, args, machine)``, the exact result in the program's product
        width as a fresh array (the interpreter rounds it in place), to which the interpreter
        applies the one rounding by ``op.shift`` and the one overflow rule; a kind that rounds
@@ -163,7 +166,7 @@ class OperationKind:
     provable = True  # whether the planner may prove its result fits (and drop its clamp)
     rounds_itself = False  # its golden rule rounds inside: exact_bounds bound the value itself
     constant_role: str | None = None  # "added" or "multiplier" for a kind with a stored constant
-    coarsens: str | None = None  # "constant" or "monotone": see point 4
+    coarsens: str | None = None  # "constant", "monotone" or "product": see point 4
     c_helper: CHelper | None = None
 
     def real(self, op: Op, args: list[np.ndarray], states: np.ndarray) -> np.ndarray:
@@ -461,46 +464,98 @@ class Max(Extreme):
 
 
 @register
-class WeightedSum(Aligned):
-    """The sum of the aligned arguments, each times its whole weight ``op.weights[i]``: an
-    integrator's increments (RK4's k1 + 2 k2 + 2 k3 + k4) formed exactly in the product width and
-    rounded once, where a chain of sums would round at every link."""
+class ScaledSum(Aligned):
+    """The sum of the aligned arguments, each times its whole weight ``op.weights[i]``, times the
+    stored integer ``op.constant``: an integrator's increment h/6 (k1 + 2 k2 + 2 k3 + k4), the
+    sum and the product both formed exactly in the product width and rounded once, where a chain
+    of sums would round at every link and a sum rounded to a word and then scaled rounds twice.
+    The constant has as many bits as let the product of any words (the arguments' whole range,
+    aligned and weighted) and it fit the product width."""
 
-    name = "wsum"
-    arity = None  # any number of arguments; the formats and alignments are Aligned's
+    name = "scaled_sum"
+    arity = None  # any number of arguments; the alignments are Aligned's
+    constant_role = "multiplier"
+    coarsens = "product"
 
     def bits_kept(self, op, position, bits, f_args):
         return None  # whole weights: an argument's extra bits add up with the others'
 
-    def real(self, op, args, states):
+    def _sum(self, op, args):
         total = args[0] * op.weights[0]
         for value, weight in zip(args[1:], op.weights[1:], strict=True):
             total = total + value * weight
         return total
 
-    def interval(self, op, args, box):
+    def _sum_interval(self, op, args):
         low = sum(w * (lo if w > 0 else hi) for w, (lo, hi) in zip(op.weights, args, strict=True))
         high = sum(w * (hi if w > 0 else lo) for w, (lo, hi) in zip(op.weights, args, strict=True))
         return low, high
+
+    def real(self, op, args, states):
+        return self._sum(op, args) * op.real
+
+    def interval(self, op, args, box):
+        low, high = self._sum_interval(op, args)
+        corners = [low * op.real, high * op.real]
+        return min(corners), max(corners)
 
     def alignment_headroom(self, op):
         # each aligned operand is below 2**(2w - 3 - e): the weighted sum stays below 2**(2w - 2)
         # when the weights' magnitudes add up to at most 2**(e + 1)
         return max(0, (sum(abs(w) for w in op.weights) - 1).bit_length() - 1)
 
+    def first_bits(self, op, f_args, natural, word_bits):
+        return min(natural, max(f_args) + self._own_bits(op, f_args, word_bits))
+
+    def settle_bits(self, op, bits, f_args, word_bits):
+        return min(bits, max(f_args) + self._own_bits(op, f_args, word_bits))
+
+    def constant_bits(self, op, bits, word_bits):
+        top = max(op.align)
+        return self._own_bits(op, [top - k for k in op.align], word_bits)
+
+    def fill(self, op, bits, f_args, word_bits):
+        top = max(f_args)
+        own = self._own_bits(op, f_args, word_bits)
+        return replace(op, align=tuple(top - g for g in f_args), constant=quantise(op.real, own),
+                       shift=top + own - bits)
+
     def exact(self, op, args, machine):
         total = None
         for value, weight, k in zip(args, op.weights, op.align, strict=True):
             term = value * machine.number(weight << k)
             total = term if total is None else total + term
-        return total
+        return total * machine.number(op.constant)
+
+    def exact_bounds(self, op, args, word_bits):
+        low, high = self._sum_interval(op, [(lo << k, hi << k) for (lo, hi), k in
+                                            zip(args, op.align, strict=True)])
+        corners = [low * op.constant, high * op.constant]
+        return min(corners), max(corners)
 
     def c_exact(self, op, site):
         terms = []
         for value, weight, k in zip(site.args, op.weights, op.align, strict=True):
             factor = weight << k
             terms.append(f"({site.wide}){value}" + ("" if factor == 1 else f" * {factor}"))
-        return " + ".join(terms)
+        return f"({' + '.join(terms)}) * {site.symbol}"
+
+    @staticmethod
+    def _own_bits(op: Op, f_args: list[int], word_bits: int) -> int:
+        """The constant's fraction bits: the most with which it fits a word and the product of
+        the largest possible sum (every argument at the word's edge) and it stays below the
+        product width's limit by 1/64, so that a trim of the constant by a few ppm still fits."""
+        top = max(f_args)
+        largest_sum = sum(abs(w) << (top - f) for w, f in zip(op.weights, f_args, strict=True)) \
+            << (word_bits - 1)
+        limit = ((1 << (2 * word_bits - 1)) - 1) // largest_sum * 63 // 64
+        bits = constant_fraction_bits(op.real, word_bits, op.note)
+        while bits >= 0 and abs(quantise(op.real, bits)) > limit:
+            bits -= 1
+        if bits < 0:
+            raise InputError(f"the multiplier {op.real:.6g} ({op.note}) times its sum does not fit "
+                             f"a {2 * word_bits}-bit product; rescale the model")
+        return bits
 
 
 class Unary(OperationKind):
@@ -567,6 +622,7 @@ class Mul(OperationKind):
 
     name = "mul"
     arity = 2
+    coarsens = "product"
 
     def real(self, op, args, states):
         return args[0] * args[1]
@@ -602,6 +658,7 @@ class Scale(OperationKind):
     name = "scale"
     arity = 1
     constant_role = "multiplier"
+    coarsens = "product"
 
     def real(self, op, args, states):
         return args[0] * op.real

@@ -12,6 +12,7 @@ from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
 from orbitfix.gen.pipeline import Design, design, program_states
 from orbitfix.gen.program.integer_program import WORD_SIZES
+from orbitfix.gen.program.operations import kind_of
 from orbitfix.gen.progress import tell
 from orbitfix.gen.study.discrete_cycle import (
     START_POINTS,
@@ -137,7 +138,7 @@ def coefficient_effect(built: Design, tolerance: CycleTolerance | None = None) -
 
 def _counts(built: Design) -> tuple[int, int]:
     ops = built.plan.program.ops
-    return len(ops), sum(op.kind in ("mul", "scale") for op in ops)
+    return len(ops), sum(op.kind == "mul" or kind_of(op.kind).constant_role == "multiplier" for op in ops)
 
 
 def _cycle_of(built: Design, tolerance: CycleTolerance, integer: bool) -> SteppedCycle:

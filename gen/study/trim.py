@@ -50,6 +50,7 @@ from orbitfix.gen.program import golden
 from orbitfix.gen.program.fixed_point import FixedPointPlan
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import lower_step
+from orbitfix.gen.program.operations import kind_of
 from orbitfix.gen.program.outputs import plan_outputs
 from orbitfix.gen.program.proven_fit import prove_fits
 from orbitfix.gen.program.quantisation import quantise
@@ -174,7 +175,7 @@ def step_constants(built: Design) -> tuple[int, ...]:
         if op.kind != other.kind or op.args != other.args:
             raise UnsupportedError("cannot tell which constants carry the step size (the step "
                                    "lowered at twice the step has another shape); leave out --trim")
-        if op.kind == "scale" and op.real != other.real:
+        if kind_of(op.kind).constant_role == "multiplier" and op.real != other.real:
             if other.real != 2 * op.real:
                 raise UnsupportedError(f"the constant of value {index} ({op.note}) is not "
                                        "proportional to the step size; leave out --trim")
