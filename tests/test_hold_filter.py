@@ -209,3 +209,109 @@ def test_a_filter_bound_past_the_range_is_caught(subjects, which: str) -> None:
     wrong = held_unlike_golden(built, {**firmware, names.source: source.replace(
         check + literal, check + past, 1)})
     assert any(f"state {first.state} = {low - 1}: count 0, golden 1" in w for w in wrong), wrong
+
+
+def one_step_counted(built, firmware: dict[str, str], states: np.ndarray,
+                     counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """One firmware step from each state with its count of saturated steps: (next states, shape
+    (n_states, count); counts after the step)."""
+    names = CNames(built.model.name)
+    files = {**firmware, **render_trace(built.model, built.timing, built.integrator, built.plan)}
+    host = build_host_module(files, render_host_harness(built.model, built.plan.program),
+                             names.header)
+    flat = np.ascontiguousarray(states.T, dtype=np.int32)
+    out = np.empty_like(flat)
+    counts_in = np.ascontiguousarray(counts, dtype=np.uint32)
+    after = np.empty_like(counts_in)
+    ffi = host.ffi
+    host.lib.orbitfix_harness_step_each_counted(
+        ffi.from_buffer("int32_t[]", flat), ffi.from_buffer("uint32_t[]", counts_in),
+        ffi.from_buffer("int32_t[]", out), ffi.from_buffer("uint32_t[]", after), flat.shape[0])
+    return out.T.astype(np.int64), after.astype(np.int64)
+
+
+def counted_unlike_golden(built, firmware: dict[str, str]) -> list[str]:
+    """Where one firmware step counts saturated steps unlike golden and unlike the rule written
+    here (one more, sticking at 2^32 - 1, exactly when some held state is outside its range; the
+    subjects have no other clamp that acts from these states): from the edge states, every held
+    state outside at once (above, below), and counts of 0, 2^32 - 2 and 2^32 - 1."""
+    program = built.plan.program
+    states, _ = edge_states(built)
+    held = [op for op in program.ops if op.kind == "state" and op.held]
+    for edge in (program.word_max, program.word_min):
+        every = np.array(built.plan.initial_state, dtype=np.int64)
+        for op in held:
+            every[op.state] = edge
+        states = np.hstack([states, every.reshape(-1, 1)])
+    outside = np.zeros(states.shape[1], dtype=bool)
+    for op in held:
+        outside |= (states[op.state] < op.held[0]) | (states[op.state] > op.held[1])
+    top = 2**32 - 1
+    wrong = []
+    for start in (0, top - 1, top):
+        counts = np.full(states.shape[1], start, dtype=np.int64)
+        after, c_counts = one_step_counted(built, firmware, states, counts)
+        want, golden_counts = golden.step_counted(program, states, counts)
+        rule = np.minimum(counts + outside, top)
+        for k in np.flatnonzero((c_counts != golden_counts) | (c_counts != rule)):
+            wrong.append(f"from count {start}, state {states[:, k].tolist()}: C counts "
+                         f"{int(c_counts[k])}, golden {int(golden_counts[k])}, rule {int(rule[k])}")
+        assert np.array_equal(after, want)
+    return wrong
+
+
+COUNT_IN_HOLD = ("    if (saturated != 0u && state->saturated_steps != UINT32_MAX) {\n"
+                 "        state->saturated_steps += 1u; /* sticks at its largest value, never wraps */\n"
+                 "    }\n")
+
+
+@pytest.mark.parametrize("which", ["vanderpol 32", "vanderpol 16", "trot 16",
+                                   "vanderpol 16 lopsided"])
+def test_a_step_from_outside_the_range_counts_one_saturated_step_in_the_hold(subjects,
+                                                                            which: str) -> None:
+    built = subjects[which]
+    names = CNames(built.model.name)
+    firmware = render_model(built.model, built.timing, built.integrator, built.plan)
+    source = firmware[names.source]
+    step = source[source.index(f"void {names.step}("):]
+    step = step[:step.index("\n}\n")]
+    hold = source[source.index(f"void {names.prefix}_hold("):]
+    hold = hold[:hold.index("\n}\n")]
+    # no clamp but the holds: the count is in the rare path, the step keeps no flag
+    assert "saturated" not in step.replace("saturated_steps", "")
+    assert COUNT_IN_HOLD.replace("saturated_steps", names.saturation_field) in hold + "\n"
+    assert counted_unlike_golden(built, firmware) == []
+
+
+@pytest.mark.parametrize(("old", "new", "what"), [
+    (COUNT_IN_HOLD, COUNT_IN_HOLD * 2, "counts twice"),
+    ("saturated != 0u && state->saturated_steps", "state->saturated_steps", "counts every call"),
+    (" && state->saturated_steps != UINT32_MAX", "", "wraps to 0"),
+])
+def test_a_wrong_count_in_the_hold_is_caught(subjects, old: str, new: str, what: str) -> None:
+    built = subjects["vanderpol 16"]
+    names = CNames(built.model.name)
+    firmware = render_model(built.model, built.timing, built.integrator, built.plan)
+    assert firmware[names.source].count(old) == 1
+    wrong = counted_unlike_golden(built, {**firmware, names.source: firmware[names.source].replace(
+        old, new)})
+    assert wrong, what
+
+
+def test_a_step_with_other_clamps_keeps_its_flag_and_counts_the_same(subjects) -> None:
+    # One product of Van der Pol taken back from the proofs: its result is clamped, so the step
+    # keeps its flag and counts at its end; the hold only says whether it acted.
+    built = subjects["vanderpol 16"]
+    program = built.plan.program
+    names = CNames(built.model.name)
+    taken = next(i for i in sorted(program.kept_values) if program.ops[i].proven
+                 and program.ops[i].kind == "mul")
+    ops = tuple(replace(op, proven=False) if i == taken else op
+                for i, op in enumerate(program.ops))
+    clamped = replace(built, plan=replace(built.plan, program=replace(program, ops=ops)))
+    assert set(clamped.plan.program.counted_clamps) - set(program.counted_clamps) == {taken}
+    firmware = render_model(clamped.model, clamped.timing, clamped.integrator, clamped.plan)
+    source = firmware[names.source]
+    assert f"saturated |= {names.prefix}_hold(state);" in source
+    assert "unsigned int saturated = 0u; /* set by any clamp" in source
+    assert counted_unlike_golden(clamped, firmware) == []

@@ -239,6 +239,9 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "word_bits": program.word_bits,
         "states": _state_fields(model, plan, names),
         "counts_saturation": program.counts_saturation,
+        # the holds are the step's only counted clamps: the rare path counts the saturated step
+        # itself, and the step keeps no flag
+        "hold_counts": hold_counts(program),
         # the traced step also computes values the next state does not use: their clamps go
         # to a flag of their own, never counted
         "unkept_clamps": any(i in kept and i not in program.kept_values and program.clamps(op)
@@ -300,6 +303,16 @@ def _holds(program: IntegerProgram, kept: set[int], names: CNames) -> list[dict]
                       "bound": None if bound is None else
                       f"UINT{program.word_bits}_C({bound})"})
     return holds
+
+
+def hold_counts(program: IntegerProgram) -> bool:
+    """Whether the step's rare path (``NAME_hold``) counts the saturated step itself: when every
+    clamp the count reads (``IntegerProgram.counted_clamps``) is a held state's, nothing else in
+    the step can saturate it, so the step needs no flag of its own; the hold adds one to the
+    count when it changed a state, once per step, as the step would have."""
+    counted = program.counted_clamps
+    return bool(counted) and all(program.ops[i].kind == "state" and program.ops[i].held
+                                 for i in counted)
 
 
 # How far (a fraction of the range's half width) the step's cheap check may fall inside the range:
