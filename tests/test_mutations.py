@@ -96,15 +96,21 @@ def mutants(source: str, names: CNames) -> list[Mutant]:
     found += [Mutant("saturation dropped", "upper", source.replace(upper, "", 1)),
               Mutant("saturation dropped", "lower", source.replace(lower, "", 1)),
               Mutant("saturation dropped", "both", source.replace(upper + lower, "", 1))]
-    # The step's check that sends a state outside its range to the hold (the clamps above).
-    check = re.search(rf"static inline int {names.prefix}_outside\(.*?\n{{\n    return (.*?);\n}}",
+    # The step's check that sends a state outside its range to the hold (the clamps above): its
+    # bound on each state's magnitude, never reached, or one past the range's inner half width
+    # (the state just below the range then passes unheld).
+    check = re.search(rf"static inline int {names.prefix}_beyond\(.*?\n{{\n    return (.*?);\n}}",
                       source, re.DOTALL)
-    assert check is not None
-    span = "(uint16_t)((uint16_t)high - (uint16_t)low)"
-    assert span in check.group(1)
-    found += [Mutant("range check", "never fires", source.replace(span, f"{span} + UINT16_MAX", 1)),
-              Mutant("range check", "misses the edges",
-                     source.replace(span, f"(uint16_t)({span} + 1u)", 1))]
+    assert check is not None and check.group(1).endswith(" > bound")
+    for m in re.finditer(rf"{names.prefix}_beyond\(state->(\w+), UINT16_C\((\d+)\)\)", source):
+        held = re.search(rf"state->{m.group(1)} = {names.prefix}_held\(state->{m.group(1)}, "
+                         r"INT16_C\((-?\d+)\), INT16_C\((-?\d+)\)", source)
+        assert held is not None
+        low, high = int(held.group(1)), int(held.group(2))
+        for where, new in (("never fires", "UINT16_MAX"),
+                           ("misses the edges", str(min(high, -low - 1) + 1))):
+            found.append(Mutant("range check", f"{m.group(1)} {where}", _replace_span(
+                source, m.start(2), m.end(2), new)))
     init = source.index(f"void {names.init}(")
     init_end = source.index("\n}\n", init)
     for m in re.finditer(r"state->(\w+) = INT16_C\((-?\d+)\);", source[init:init_end]):

@@ -196,6 +196,7 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
     output_ops = [section.ops[i] for i in sorted(output_kept)] if section is not None else []
     section_bounds = output_bounds(program) if section is not None else []
     all_ops = ops + output_ops
+    holds = _holds(program, kept, names)
     looped = None if traced else _looped(program, kept, names, {**constant_of, **table_of},
                                          plan.constants, bounds)
     output_values = [] if section is None else [
@@ -223,7 +224,10 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         # a result brought into the word by the program's overflow rule, not by wrapping
         "uses_fit": any(kind_of(op.kind).fit_wraps(op) is False for op in all_ops),
         "uses_held": any(op.held for op in ops),
-        "holds": _holds(program, kept, names),
+        "holds": holds,
+        # the step's check before the rare path: a magnitude bound, or the range itself
+        "uses_beyond": any(h["bound"] is not None for h in holds),
+        "uses_outside": any(h["bound"] is None for h in holds),
         "held_ranges": [{"field": names.field(program.state_names[op.state]), "low": op.held[0],
                          "high": op.held[1],
                          "low_real": op.held[0] / 2.0 ** program.state_fraction_bits[op.state],
@@ -235,6 +239,9 @@ def _context(model: Model, timing: Timing, integrator: Integrator, plan: FixedPo
         "word_bits": program.word_bits,
         "states": _state_fields(model, plan, names),
         "counts_saturation": program.counts_saturation,
+        # the holds are the step's only counted clamps: the rare path counts the saturated step
+        # itself, and the step keeps no flag
+        "hold_counts": hold_counts(program),
         # the traced step also computes values the next state does not use: their clamps go
         # to a flag of their own, never counted
         "unkept_clamps": any(i in kept and i not in program.kept_values and program.clamps(op)
@@ -282,7 +289,8 @@ def _holds(program: IntegerProgram, kept: set[int], names: CNames) -> list[dict]
     """The held states (``Op.held``), each with its range as C literals: the step checks them all
     at once and holds them, in place, before it reads any state; the values then read each state
     as it is (``State.c_call``). Every state is read by the step (its next value starts from it),
-    so each hold counts."""
+    so each hold counts. ``bound`` is the C literal of the check's magnitude bound
+    (``filter_bound``), or None where the check compares with the range itself."""
     holds = []
     for index, op in enumerate(program.ops):
         if op.kind != "state" or not op.held:
@@ -290,8 +298,51 @@ def _holds(program: IntegerProgram, kept: set[int], names: CNames) -> list[dict]
         if index not in kept or index not in program.counted_clamps:
             raise ValueError(f"held state {op.note!r} is not read by the step")
         low, high = (int_literal(v, program.word_bits) for v in op.held)
-        holds.append({"field": names.field(program.state_names[op.state]), "low": low, "high": high})
+        bound = filter_bound(*op.held)
+        holds.append({"field": names.field(program.state_names[op.state]), "low": low, "high": high,
+                      "bound": None if bound is None else
+                      f"UINT{program.word_bits}_C({bound})"})
     return holds
+
+
+def hold_counts(program: IntegerProgram) -> bool:
+    """Whether the step's rare path (``NAME_hold``) counts the saturated step itself: when every
+    clamp the count reads (``IntegerProgram.counted_clamps``) is a held state's, nothing else in
+    the step can saturate it, so the step needs no flag of its own; the hold adds one to the
+    count when it changed a state, once per step, as the step would have."""
+    counted = program.counted_clamps
+    return bool(counted) and all(program.ops[i].kind == "state" and program.ops[i].held
+                                 for i in counted)
+
+
+# How far (a fraction of the range's half width) the step's cheap check may fall inside the range:
+# a state in that margin takes the rare path, which then changes and counts nothing.
+FILTER_SLACK = 64
+# The significant bits of a constant an Arm Thumb-2 compare takes as an immediate (a "modified
+# immediate": 8 bits shifted into place, Arm v7-M Architecture Reference Manual, A5.3.2), so the
+# compiler loads no constant from the literal pool.
+IMMEDIATE_BITS = 8
+
+
+def filter_bound(low: int, high: int) -> int | None:
+    """The bound B of the step's cheap check that a state is inside its range [low, high]:
+    ``(unsigned)(v ^ (v >> (bits - 1))) <= B``. ``v ^ (v >> (bits - 1))`` is v for v >= 0 and
+    -v - 1 (its ones' complement) below 0, so the check passes exactly the states in
+    [-B - 1, B]; B <= high and -B - 1 >= low keep that inside [low, high], so the check never
+    passes a state the hold would change. The check is only a filter: a state in the range that
+    fails it takes the rare path, which holds nothing and counts nothing.
+
+    B is the largest number of at most IMMEDIATE_BITS significant bits not above the range's
+    inner half width min(high, -low - 1) (a compare with no constant load on Arm), or that half
+    width itself where the rounding would lose more than 1/FILTER_SLACK of it. None (compare with
+    the range itself) for a range that is not near-symmetric about -1/2: its two half widths
+    differ by more than 1/FILTER_SLACK."""
+    inner, outer = min(high, -low - 1), max(high, -low - 1)
+    if inner <= 0 or FILTER_SLACK * (outer - inner) > inner:
+        return None
+    shift = max(0, inner.bit_length() - IMMEDIATE_BITS)
+    bound = inner >> shift << shift
+    return inner if FILTER_SLACK * (inner - bound) > inner else bound
 
 
 def _looped(program: IntegerProgram, kept: set[int], names: CNames, symbol_of: dict[int, str],

@@ -131,9 +131,9 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
                   rng: np.random.Generator) -> np.ndarray:
     """States spread over each state's proven range (where the step holds it: see
     ``gen/program/proven_fit.py``) and over the word's whole range, the cycle's neighbourhood, the
-    edges of saturation and of the proven ranges, and the smallest values. typical : ndarray,
-    shape (n_states,), integer magnitudes of the states on the cycle. Returns int64 ndarray,
-    shape (n_states, count)."""
+    edges of saturation and of the proven ranges (some with one state alone there), and the
+    smallest values. typical : ndarray, shape (n_states,), integer magnitudes of the states on
+    the cycle. Returns int64 ndarray, shape (n_states, count)."""
     n = len(program.state_names)
     low, high = program.word_min, program.word_max
     quarter = count // 4
@@ -157,6 +157,13 @@ def random_states(program: IntegerProgram, count: int, typical: np.ndarray,
         -4, 4, (n, quarter), endpoint=True)
     edges = np.clip(np.where(near, held_edges, edges), low, high)
     small = rng.integers(-(1 << 10), 1 << 10, size=(n, quarter), endpoint=True)
+    # a third of those with one state alone at an edge, every other state in the middle half of
+    # its range: the step's check must send that one state to the hold by itself
+    alone = (rng.random(quarter) < 1 / 3) & (np.arange(n).reshape(-1, 1) != rng.integers(
+        0, n, quarter))
+    middle = (first + last) // 2 + np.floor((last - first) / 4 * rng.uniform(
+        -1, 1, (n, quarter))).astype(np.int64)
+    edges = np.where(alone, middle, edges)
     return np.hstack([spread, near_cycle, edges, small]).astype(np.int64)
 
 
