@@ -224,6 +224,40 @@ def test_a_weighted_sum_keeps_its_aligned_terms_inside_the_wide_type() -> None:
         Op("add", (0, 1), weights=(1, 1))
 
 
+def test_a_scaled_sum_of_any_words_times_its_constant_fits_the_product_width() -> None:
+    # Two's complement (common practice): the exact sum times the constant must stay within
+    # 2**(2w - 1) - 1 in magnitude for every word the arguments can hold (each at -2**(w - 1),
+    # the largest magnitude), or the C product overflows (undefined) and golden's int64 wraps.
+    # Computed on Python's integers, which do not overflow.
+    kind = kind_of("scaled_sum")
+    rng = np.random.default_rng(7)
+
+    def worst(op, f_args, w, constant):
+        top = max(f_args)
+        return sum(abs(k) << (top - f) for k, f in zip(op.weights, f_args, strict=True)) \
+            * (1 << (w - 1)) * abs(constant)
+
+    h = 0.0099949302885  # the built-in Van der Pol's step at 1 kHz
+    for w in (16, 32):
+        cases = [((1, 2, 2, 1), [w - 5] * 4, h / 6), ((1, 1), [w - 4, w - 6], h / 2)]
+        for _ in range(40):
+            count = int(rng.integers(2, 6))
+            weights = tuple(int(v) or 1 for v in rng.integers(-4, 5, size=count))
+            cases.append((weights, [int(f) for f in rng.integers(w // 2, w - 2, size=count)],
+                          float(rng.uniform(-3, 3))))
+        for weights, f_args, real in cases:
+            op = Op("scaled_sum", tuple(range(len(weights))), weights=weights, real=real)
+            filled = kind.fill(op, max(f_args), f_args, w)
+            own = kind.constant_bits(filled, max(f_args), w)
+            assert filled.constant == quantise(real, own)
+            assert abs(filled.constant) <= (1 << (w - 1)) - 1
+            assert worst(op, f_args, w, filled.constant) <= (1 << (2 * w - 1)) - 1, (w, weights)
+    # seeded fault: RK4's h/6 at 32 bits one fraction bit finer than chosen overflows
+    op = Op("scaled_sum", (0, 1, 2, 3), weights=(1, 2, 2, 1), real=h / 6)
+    own = kind.constant_bits(kind.fill(op, 27, [27] * 4, 32), 27, 32)
+    assert worst(op, [27] * 4, 32, quantise(h / 6, own + 1)) > (1 << 63) - 1
+
+
 def every_kind_design(w: int, rounding: str, overflow: str):
     """One program holding every registered kind (and its wrapping form where it has one), with
     a model, timing and plan around it so that the real emitter renders it."""

@@ -549,9 +549,8 @@ class ScaledSum(Aligned):
         largest_sum = sum(abs(w) << (top - f) for w, f in zip(op.weights, f_args, strict=True)) \
             << (word_bits - 1)
         limit = ((1 << (2 * word_bits - 1)) - 1) // largest_sum * 63 // 64
-        bits = constant_fraction_bits(op.real, word_bits, op.note)
-        while bits >= 0 and abs(quantise(op.real, bits)) > limit:
-            bits -= 1
+        bits = _constant_fraction_bits(op.real, word_bits,
+                                       min(limit, (1 << (word_bits - 1)) - 1))
         if bits < 0:
             raise InputError(f"the multiplier {op.real:.6g} ({op.note}) times its sum does not fit "
                              f"a {2 * word_bits}-bit product; rescale the model")
@@ -789,8 +788,10 @@ def constant_fraction_bits(real: float, word_bits: int, note: str = "") -> int:
 
 
 @functools.lru_cache(maxsize=4096)
-def _constant_fraction_bits(real: float, word_bits: int) -> int:
-    limit = (1 << (word_bits - 1)) - 1
+def _constant_fraction_bits(real: float, word_bits: int, limit: int | None = None) -> int:
+    """The most fraction bits (at most 2 * word_bits - 2) with which the stored constant's
+    magnitude is at most ``limit`` (default: the word's largest); -1 where none does."""
+    limit = (1 << (word_bits - 1)) - 1 if limit is None else limit
     if real == 0:
         return word_bits - 1
     bits = min(2 * word_bits - 2, word_bits - 1 - math.floor(math.log2(abs(real))))
