@@ -4,6 +4,7 @@ and never moving faster than their slew limit; bad declarations are refused with
 
 from __future__ import annotations
 
+import math
 import re
 import subprocess
 from dataclasses import replace
@@ -191,10 +192,57 @@ def test_golden_outputs_follow_the_exact_rule_from_fractions(limited) -> None:
 
 def test_limits_are_exact_to_the_output_format(limited) -> None:
     for slot, spec in zip(limited.plan.program.outputs, limited.model.outputs, strict=True):
-        # Python's fractions: the stored limits are min and max rounded once to the format.
+        # Python's fractions: the stored limits are min and max rounded once to the format,
+        # inward (min up, max down).
         scale = 1 << slot.fraction_bits
-        assert slot.low == round(Fraction(spec.low) * scale)
-        assert slot.high == round(Fraction(spec.high) * scale)
+        assert slot.low == math.ceil(Fraction(spec.low) * scale)
+        assert slot.high == math.floor(Fraction(spec.high) * scale)
+
+
+def stored_limits_inward(built) -> bool:
+    """Whether every stored limit of the output section is on the safe side of the declared one
+    and within one LSB of it (Python's fractions): min and max, and the largest rise and fall per
+    step (slew / loop rate)."""
+    section = built.plan.program.output_program
+    loop_hz = Fraction(built.model.rhythm.loop_hz)
+    ok = True
+    for spec in built.model.outputs:
+        declared = {"min": (Fraction(spec.low), "low"), "max": (Fraction(spec.high), "high")}
+        if spec.slew is not None:
+            declared["largest rise per step"] = (Fraction(spec.slew) / loop_hz, "high")
+            declared["largest fall per step"] = (-Fraction(spec.slew) / loop_hz, "low")
+        for what, (limit, side) in declared.items():
+            op = next(op for op in section.ops if op.note == f"{spec.name}: {what}")
+            stored = Fraction(op.constant, 1 << op.fraction_bits)
+            lsb = Fraction(1, 1 << op.fraction_bits)
+            ok &= (limit <= stored < limit + lsb) if side == "low" else (limit - lsb < stored <= limit)
+    return ok
+
+
+def test_limits_and_rates_round_inward_so_no_output_passes_them(monkeypatch) -> None:
+    # A limit that rounded to nearest could let an output half an LSB past its declared min or
+    # max, or move half an LSB a step faster than its slew (common practice for a hard limit:
+    # round it toward the safe side). Neither 70.3, 109.7 nor 61.7 / 200 is a binary fraction.
+    model = define_model("inward", **HOPF, outputs={
+        "hip": {"value": "x", "scale": 30.0, "offset": 90.0, "unit": "deg", "min": 70.3,
+                "max": 109.7, "slew": 61.7}})
+    built = design(model)
+    assert stored_limits_inward(built)
+    # golden over two cycles from the initial state: every move within the declared rate, exactly
+    program = built.plan.program
+    slot = program.outputs[0]
+    _, outputs = golden.run_with_outputs(program, list(built.plan.initial_state),
+                                         built.plan.initial_outputs, 400)
+    moves = {abs(int(a) - int(b)) for a, b in zip(outputs[1:, 0], outputs[:-1, 0], strict=True)}
+    assert Fraction(max(moves), 1 << slot.fraction_bits) <= Fraction(61.7) / 200
+    assert max(moves) > 0 and Fraction(70.3) <= Fraction(int(outputs[:, 0].min()),
+                                                           1 << slot.fraction_bits)
+    # seeded fault: limits rounded to nearest, as every other constant
+    from orbitfix.gen.program import operations
+    from orbitfix.gen.program.quantisation import quantise
+
+    monkeypatch.setattr(operations, "quantise_limit", lambda real, bits, side: quantise(real, bits))
+    assert not stored_limits_inward(design(model))
 
 
 def test_reaching_a_limit_is_not_a_saturated_step(limited) -> None:
@@ -336,8 +384,8 @@ def test_outputs_stay_in_their_limits_over_drift_runs_at_every_runtime_corner(hi
 
 def test_golden_outputs_keep_limits_and_slew_at_every_runtime_corner(hip) -> None:
     # Golden from the initial state at each corner of omega's range (held there): the output never
-    # leaves its stored limits and never moves by more than slew / loop_hz plus one LSB of its
-    # format (common practice: a slew limiter's bound, one rounding step of slack).
+    # leaves its stored limits and never moves by more than slew / loop_hz (common practice: a
+    # slew limiter's bound; the stored step rounds down, so no slack is needed).
     plan, program = hip.plan, hip.plan.program
     slot = program.outputs[0]
     n = program.model_state_count
@@ -349,7 +397,7 @@ def test_golden_outputs_keep_limits_and_slew_at_every_runtime_corner(hip) -> Non
         _, outputs = golden.run_with_outputs(program, start, memory, 1500)
         assert outputs.min() >= slot.low and outputs.max() <= slot.high
         moves = np.abs(np.diff(outputs[:, 0])) * lsb
-        assert moves.max() <= slot.slew_step + lsb
+        assert moves.max() <= slot.slew_step
         assert np.sum(outputs[:, 0] == slot.high) > 0
 
 
@@ -452,7 +500,7 @@ def test_switching_the_gait_keeps_every_output_within_its_limits_and_slew(tmp_pa
     for j, slot in enumerate(program.outputs):
         lsb = 2.0 ** -slot.fraction_bits
         assert outputs[:, j].min() >= slot.low and outputs[:, j].max() <= slot.high
-        assert np.abs(np.diff(outputs[:, j])).max() * lsb <= slot.slew_step + lsb
+        assert np.abs(np.diff(outputs[:, j])).max() * lsb <= slot.slew_step
         # and the switch never needed it: no step as large as the slew step (nor on the gaits)
         assert np.abs(np.diff(outputs[:, j])).max() * lsb < slot.slew_step - lsb
     # the C through the same switch: every state and output at every step, bit for bit

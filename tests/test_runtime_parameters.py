@@ -44,7 +44,8 @@ def set_target(hip, state: np.ndarray, value: float) -> np.ndarray:
 
 
 def test_ramp_moves_at_the_rate_limit_and_never_leaves_the_range(hip) -> None:
-    # A rate limiter (common practice): |change per step| <= rate / loop_hz, stopping at the target.
+    # A rate limiter (common practice): |change per step| <= rate / loop_hz, stopping at the target;
+    # the stored largest change rounds down, so with no slack.
     program = hip.plan.program
     bits = program.state_fraction_bits[2]
     per_step = 2.0 / 500 * 2**bits
@@ -57,11 +58,28 @@ def test_ramp_moves_at_the_rate_limit_and_never_leaves_the_range(hip) -> None:
         state = golden.step(program, state.reshape(-1, 1))[:, 0]
         omegas.append(state[2])
     steps = np.diff(np.array(omegas, dtype=float))
-    assert np.all(np.abs(steps) <= per_step + 1)
+    assert np.all(np.abs(steps) <= per_step)
     assert omegas[-1] == round(9.0 * 2**bits)  # held at its high limit, not at the target
     assert np.all(np.array(omegas) <= round(9.0 * 2**bits))
     rising = steps[steps > 0]
     assert rising.size == pytest.approx((9.0 - 2 * math.pi) / 2.0 * 500, abs=2)
+
+
+def test_the_ramp_limits_round_inward(hip) -> None:
+    # Python's fractions: the stored low and high limits and the largest rise and fall per step
+    # are on the safe side of the declared ones (low up, high down, rates toward zero) and within
+    # one LSB of them, so no parameter leaves its range or moves faster than its rate.
+    from fractions import Fraction
+
+    parameter = hip.model.runtime_parameters[0]
+    step = Fraction(parameter.rate) / Fraction(hip.model.rhythm.loop_hz)
+    declared = {"low": (Fraction(parameter.low), "low"), "high": (Fraction(parameter.high), "high"),
+                "largest rise per step": (step, "high"), "largest fall per step": (-step, "low")}
+    for what, (limit, side) in declared.items():
+        op = next(op for op in hip.plan.program.ops if op.note == f"{parameter.name} {what}")
+        stored = Fraction(op.constant, 1 << op.fraction_bits)
+        lsb = Fraction(1, 1 << op.fraction_bits)
+        assert (limit <= stored < limit + lsb) if side == "low" else (limit - lsb < stored <= limit)
 
 
 def integer_period(program, state: np.ndarray, steps: int) -> float:

@@ -140,6 +140,7 @@ class Op:
     proven: bool = False
     weights: tuple[int, ...] = ()
     rounding: str = ""  # a mixed program's rule for this operation ("": half-up)
+    limit: str = ""  # a stored constant that bounds a value: "low" or "high" (it rounds inward)
 
     def __post_init__(self) -> None:
         from orbitfix.gen.program.operations import kind_of  # numpy: not needed to read options
@@ -172,6 +173,8 @@ class Op:
             data["proven"] = True
         if self.rounding:
             data["rounding"] = self.rounding
+        if self.limit:
+            data["limit"] = self.limit
         if self.note:
             data["note"] = self.note
         return data

@@ -263,7 +263,7 @@ class _Builder:
         if fresh:
             self.ops.append(op)
             return len(self.ops) - 1
-        key = (op.kind, op.args, op.state, op.real, op.wraps, op.weights)
+        key = (op.kind, op.args, op.state, op.real, op.wraps, op.weights, op.limit)
         if self.copy is not None and op.args:  # a copy's work is its own, never another copy's
             key = (*key, self.copy)
         if key in self.seen:
@@ -272,8 +272,11 @@ class _Builder:
         self.seen[key] = len(self.ops) - 1
         return len(self.ops) - 1
 
-    def constant(self, value: Fraction, note: str) -> int:
-        return self.add(Op("const", real=float(value), note=note))
+    def constant(self, value: Fraction, note: str, limit: str = "") -> int:
+        """A stored constant; a ``limit`` ("low" or "high") is rounded inward when planned, so
+        the firmware never lets a value past the declared limit or move faster than a declared
+        rate."""
+        return self.add(Op("const", real=float(value), note=note, limit=limit))
 
     def scaled(self, value: int, factor: Fraction, note: str) -> int:
         if factor == 1:
@@ -337,17 +340,21 @@ class _Builder:
         """The parameter's value after one step: toward its target (held in [low, high]) by at
         most rate / loop_hz, or all the way when it has no rate."""
         name = parameter.name
-        held = self.add(Op("max", (target, self.constant(Fraction(parameter.low), f"{name} low")),
+        held = self.add(Op("max", (target, self.constant(Fraction(parameter.low), f"{name} low",
+                                                          "low")),
                            note=f"{name} target, at least its low limit"))
-        held = self.add(Op("min", (held, self.constant(Fraction(parameter.high), f"{name} high")),
+        held = self.add(Op("min", (held, self.constant(Fraction(parameter.high), f"{name} high",
+                                                       "high")),
                            note=f"{name} target, held in its range"))
         if parameter.rate is None:
             return held
         step = Fraction(parameter.rate) / Fraction(loop_hz)
         change = self.add(Op("sub", (held, current), note=f"{name}: distance to its target"))
-        change = self.add(Op("max", (change, self.constant(-step, f"{name} largest fall per step")),
+        change = self.add(Op("max", (change, self.constant(-step, f"{name} largest fall per step",
+                                                           "low")),
                              note=f"{name}: change, limited"))
-        change = self.add(Op("min", (change, self.constant(step, f"{name} largest rise per step")),
+        change = self.add(Op("min", (change, self.constant(step, f"{name} largest rise per step",
+                                                           "high")),
                              note=f"{name}: change, limited"))
         return self.add(Op("add", (current, change), note=f"next {name}"))
 
@@ -530,8 +537,8 @@ def lower_outputs(model: Model, program: IntegerProgram,
             offset = builder.constant(Fraction(output.offset), f"{name}: offset")
             scaled = builder.add(Op("add", (scaled, offset),
                                     note=f"{name}: u = offset + scale * value, in{unit}"))
-        low = builder.constant(Fraction(output.low), f"{name}: min")
-        high = builder.constant(Fraction(output.high), f"{name}: max")
+        low = builder.constant(Fraction(output.low), f"{name}: min", "low")
+        high = builder.constant(Fraction(output.high), f"{name}: max", "high")
 
         def clamp(x: int, what: str, limits: tuple[int, int] = (low, high), name: str = name) -> int:
             held = builder.add(Op("max", (x, limits[0]), note=f"{name}: {what}, at least min"))
@@ -545,10 +552,10 @@ def lower_outputs(model: Model, program: IntegerProgram,
         last = clamp(memory, "last value")
         change = builder.add(Op("sub", (scaled, last), note=f"{name}: u less its last value"))
         change = builder.add(Op("max", (change, builder.constant(-step, f"{name}: largest fall per "
-                                                                         "step")),
+                                                                         "step", "low")),
                                 note=f"{name}: change, at least the largest fall"))
         change = builder.add(Op("min", (change, builder.constant(step, f"{name}: largest rise per "
-                                                                        "step")),
+                                                                        "step", "high")),
                                 note=f"{name}: change, at most the largest rise"))
         moved = builder.add(Op("add", (last, change), note=f"{name}: last value plus the change"))
         found.append((limited, clamp(moved, "new value")))

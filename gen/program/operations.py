@@ -26,7 +26,7 @@ from typing import TYPE_CHECKING, Protocol
 import numpy as np
 
 from orbitfix.gen.errors import InputError
-from orbitfix.gen.program.quantisation import quantise
+from orbitfix.gen.program.quantisation import quantise, quantise_limit
 
 if TYPE_CHECKING:
     from orbitfix.gen.program.integer_program import Op
@@ -293,7 +293,8 @@ class State(OperationKind):
 
 @register
 class Const(OperationKind):
-    """The stored integer ``op.constant``, in the value's own format."""
+    """The stored integer ``op.constant``, in the value's own format (a limit, ``op.limit``,
+    rounded inward: see ``gen/program/quantisation.py``)."""
 
     name = "const"
     constant_role = "added"
@@ -312,7 +313,7 @@ class Const(OperationKind):
         return bits
 
     def fill(self, op, bits, f_args, word_bits):
-        stored = quantise(op.real, bits)
+        stored = quantise_limit(op.real, bits, op.limit) if op.limit else quantise(op.real, bits)
         if op.wraps:  # an angle: it enters the word by wrapping, a whole turn is the same angle
             half = 1 << (word_bits - 1)
             return replace(op, constant=(stored + half) % (2 * half) - half)
