@@ -28,6 +28,7 @@ from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.model.model_file import load_model
 from orbitfix.gen.pipeline import design
 from orbitfix.gen.program import golden
+from orbitfix.verify.proofs.bit_exact import _c_step_each
 from orbitfix.verify.targets.host_build import build_host_module
 
 
@@ -219,15 +220,8 @@ def one_step_counted(built, firmware: dict[str, str], states: np.ndarray,
     files = {**firmware, **render_trace(built.model, built.timing, built.integrator, built.plan)}
     host = build_host_module(files, render_host_harness(built.model, built.plan.program),
                              names.header)
-    flat = np.ascontiguousarray(states.T, dtype=np.int32)
-    out = np.empty_like(flat)
-    counts_in = np.ascontiguousarray(counts, dtype=np.uint32)
-    after = np.empty_like(counts_in)
-    ffi = host.ffi
-    host.lib.orbitfix_harness_step_each_counted(
-        ffi.from_buffer("int32_t[]", flat), ffi.from_buffer("uint32_t[]", counts_in),
-        ffi.from_buffer("int32_t[]", out), ffi.from_buffer("uint32_t[]", after), flat.shape[0])
-    return out.T.astype(np.int64), after.astype(np.int64)
+    out, after = _c_step_each(host, states, counts)
+    return out.astype(np.int64), after.astype(np.int64)
 
 
 def counted_unlike_golden(built, firmware: dict[str, str]) -> list[str]:
