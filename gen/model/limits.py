@@ -118,3 +118,9 @@ def _shown(value: object) -> str:
     if isinstance(value, float):
         return f"{value:g}"
     return repr(value)
+
+# The integer semantics a model may ask for (the model file's [fixed_point], the options, the
+# integer program): the first of each is the default, but for the rounding (half-up).
+WORD_SIZES = (16, 32)
+ROUNDINGS = ("truncate", "half-up", "half-even", "mixed")
+OVERFLOWS = ("saturate", "wrap")

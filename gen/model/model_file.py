@@ -510,11 +510,10 @@ class _Reader:
             raise self.error(self.line_of("fixed_point", "integrator"),
                              "integrator must be a quoted name", "integrator = \"rk4\"")
         word_bits = fixed.get("word_bits", 32)
-        if word_bits not in (16, 32) or isinstance(word_bits, bool):
+        if word_bits not in limits.WORD_SIZES or isinstance(word_bits, bool):
             raise self.error(self.line_of("fixed_point", "word_bits"),
                              f"word_bits must be 16 or 32, got {word_bits!r}", "word_bits = 16")
-        choices = {"rounding": ("truncate", "half-up", "half-even", "mixed"),
-                   "overflow": ("saturate", "wrap")}
+        choices = {"rounding": limits.ROUNDINGS, "overflow": limits.OVERFLOWS}
         chosen = {}
         for key, allowed in choices.items():
             chosen[key] = fixed.get(key, allowed[1] if key == "rounding" else allowed[0])

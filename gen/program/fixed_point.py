@@ -18,7 +18,8 @@ import numpy as np
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model.angles import radians_to_turns
 from orbitfix.gen.model.definition import Parameter
-from orbitfix.gen.program.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES, IntegerProgram
+from orbitfix.gen.model.limits import OVERFLOWS, ROUNDINGS, WORD_SIZES
+from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.lowering import evaluate_real
 from orbitfix.gen.program.operations import constant_fraction_bits, kind_of
 from orbitfix.gen.program.proven_fit import prove_fits

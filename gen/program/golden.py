@@ -15,7 +15,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from orbitfix.gen.program.integer_program import OVERFLOWS, IntegerProgram, next_saturation_count
+from orbitfix.gen.model.limits import OVERFLOWS
+from orbitfix.gen.program.integer_program import IntegerProgram, next_saturation_count
 from orbitfix.gen.program.operations import kind_of
 
 

@@ -88,9 +88,8 @@ import hashlib
 import json
 from dataclasses import dataclass, field
 
-WORD_SIZES = (16, 32)
-ROUNDINGS = ("truncate", "half-up", "half-even", "mixed")
-OVERFLOWS = ("saturate", "wrap")
+from orbitfix.gen.model.limits import OVERFLOWS, ROUNDINGS, WORD_SIZES
+
 SATURATION_COUNT_BITS = 32
 SATURATION_COUNT_MAX = (1 << SATURATION_COUNT_BITS) - 1
 

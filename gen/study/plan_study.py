@@ -10,8 +10,8 @@ import numpy as np
 from orbitfix.gen import work_size
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.fan_out import fan_out
+from orbitfix.gen.model.limits import WORD_SIZES
 from orbitfix.gen.pipeline import Design, design, program_states
-from orbitfix.gen.program.integer_program import WORD_SIZES
 from orbitfix.gen.program.operations import kind_of
 from orbitfix.gen.progress import tell
 from orbitfix.gen.study.discrete_cycle import (

@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from orbitfix.gen.errors import InputError
-from orbitfix.gen.program.integer_program import OVERFLOWS, ROUNDINGS, WORD_SIZES
+from orbitfix.gen.model.limits import OVERFLOWS, ROUNDINGS, WORD_SIZES
 from orbitfix.gen.timing.integrators import INTEGRATORS
 
 if TYPE_CHECKING:
