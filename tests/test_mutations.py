@@ -93,9 +93,12 @@ def mutants(source: str, names: CNames) -> list[Mutant]:
     upper = "    if (value > high) {\n        *saturated = 1u;\n        return high;\n    }\n"
     lower = "    if (value < low) {\n        *saturated = 1u;\n        return low;\n    }\n"
     assert upper in source and lower in source
-    found += [Mutant("saturation dropped", "upper", source.replace(upper, "", 1)),
-              Mutant("saturation dropped", "lower", source.replace(lower, "", 1)),
-              Mutant("saturation dropped", "both", source.replace(upper + lower, "", 1))]
+    # each parameter a dropped clamp no longer reads stays read, so the mutant compiles under
+    # -Werror and the proof itself must catch it (not the compiler)
+    found += [Mutant("saturation dropped", "upper", source.replace(upper, "    (void)high;\n", 1)),
+              Mutant("saturation dropped", "lower", source.replace(lower, "    (void)low;\n", 1)),
+              Mutant("saturation dropped", "both", source.replace(
+                  upper + lower, "    (void)low;\n    (void)high;\n    (void)saturated;\n", 1))]
     # The step's check that sends a state outside its range to the hold (the clamps above): its
     # bound on each state's magnitude, never reached, or one past the range's inner half width
     # (the state just below the range then passes unheld).
@@ -282,6 +285,18 @@ def test_a_sample_of_each_kind_is_caught_or_equivalent(subject, tmp_path) -> Non
     print(KILL_RATE_TITLE + " (a sample of each kind)")  # shown with -s (tests/bench/bench_mutations.py)
     print("\n".join(kill_rate_lines(tally)))
     assert sum(c["killed"] for c in tally.values()) >= len(sample) - 2
+
+
+def test_a_dropped_saturation_is_caught_by_the_proof_not_the_compiler(subject, tmp_path) -> None:
+    # The hold's clamps removed, every parameter still read: the strict flags compile the mutant,
+    # so only the proof's states outside the held range can show the missing clamp.
+    built, files = subject
+    names = CNames(built.model.name)
+    dropped = [m for m in mutants(files[names.source], names) if m.kind == "saturation dropped"]
+    assert len(dropped) == 3
+    for number, mutant in enumerate(dropped):
+        how = caught(built, files, mutant.source, tmp_path / f"d{number}")
+        assert how is not None and how.startswith("mismatch"), (mutant.where, how)
 
 
 @pytest.mark.slow
