@@ -37,6 +37,26 @@ def test_the_generated_header_names_its_integer_program(tmp_path: Path) -> None:
     assert f'#define VANDERPOL_PROGRAM_FINGERPRINT "{built.plan.program.fingerprint()}"' in header
 
 
+def test_a_design_built_twice_renders_its_firmware_once(tmp_path: Path, monkeypatch) -> None:
+    # Two boards, one design: the self-test's start-up path runs once; another design object,
+    # even an equal one, renders afresh; and a caller that edits its copy changes no one else's.
+    from orbitfix.verify.link import firmware
+
+    runs = []
+    real = firmware.check_start_path
+    monkeypatch.setattr(firmware, "check_start_path", lambda built: runs.append(built) or real(built))
+    built = design(load_model("vanderpol"))
+    first = write_firmware_sources(built, tmp_path / "a")
+    second = write_firmware_sources(built, tmp_path / "b")
+    assert len(runs) == 1
+    assert [p.read_text() for p in first] == [p.read_text() for p in second]
+    firmware.firmware_files(built)["vanderpol.c"] = "edited"
+    assert firmware.firmware_files(built)["vanderpol.c"] == (tmp_path / "a" / "vanderpol.c").read_text()
+    again = design(load_model("vanderpol"))
+    write_firmware_sources(again, tmp_path / "c")
+    assert len(runs) == 2
+
+
 def test_every_kth_state_is_compared_across_the_gaps(host) -> None:
     built = design(load_model("vanderpol"))
     report = stream_on_board(built, host, steps=10_007, every=10)

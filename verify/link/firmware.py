@@ -46,11 +46,29 @@ def render_harness(built: Design) -> str:
 def write_firmware_sources(built: Design, folder: Path) -> list[Path]:
     """Write the step and the harness into ``folder``; returns the C files to compile."""
     folder.mkdir(parents=True, exist_ok=True)
+    files = firmware_files(built)
+    for name, text in files.items():
+        (folder / name).write_text(text)
+    return [folder / name for name in files if name.endswith(".c")]
+
+
+_RENDERED: list[tuple[Design, dict[str, str]]] = []  # the last few designs' files, newest last
+RENDERED_KEPT = 4
+
+
+def firmware_files(built: Design) -> dict[str, str]:
+    """The firmware's files by name for one design. The self-test costs a golden run of the
+    start-up path and the probes' choice (seconds for a network), so the files of the last few
+    designs are kept: a design built for several boards renders once. Kept by the design object
+    itself (the same object, not an equal one), so nothing stale is ever returned."""
+    for kept, files in _RENDERED:
+        if kept is built:
+            return dict(files)
     files = render_model(built.model, built.timing, built.integrator, built.plan)
     path = check_start_path(built)
     files.update(render_selftest(built.model, built.timing, built.integrator, built.plan,
                                  path.trajectory, path.counts))
     files[HARNESS_FILE] = render_harness(built)
-    for name, text in files.items():
-        (folder / name).write_text(text)
-    return [folder / name for name in files if name.endswith(".c")]
+    _RENDERED.append((built, files))
+    del _RENDERED[:-RENDERED_KEPT]
+    return dict(files)
