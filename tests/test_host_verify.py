@@ -317,3 +317,38 @@ def test_little_headroom_is_no_false_alarm(vanderpol_design) -> None:
     assert built.plan.headroom_bits < 2
     outcome = check_on_host(built, states=100_000, steps=10_000, sanitized_states=1000)
     assert outcome.report.bit_exact, outcome.report.first_mismatch
+
+
+def test_a_short_proof_catches_every_one_lsb_change_of_a_constant(tmp_path, monkeypatch) -> None:
+    # The proof compares the self-test's probe states first (gen/c/selftest.choose_probes), so even
+    # 2,000 states and steps catch each stored constant of NAME.c moved up or down by one LSB.
+    from orbitfix.gen.model.model_file import load_model
+    from orbitfix.verify.proofs import host_check
+
+    built = design(load_model("vanderpol"))
+    files = render_model(built.model, built.timing, built.integrator, built.plan)
+    source = files["vanderpol.c"]
+    constants = re.findall(r"static const int32_t (k\d+) = INT32_C\((-?\d+)\);", source)
+    assert len(constants) >= 4
+
+    def missed(tag: str) -> list[str]:
+        passed = []
+        for name, value in constants:
+            for change in (1, -1):
+                folder = tmp_path / f"{tag}-{name}{change:+d}"
+                folder.mkdir()
+                old = f"static const int32_t {name} = INT32_C({value});"
+                (folder / "vanderpol.c").write_text(source.replace(
+                    old, f"static const int32_t {name} = INT32_C({int(value) + change});"))
+                (folder / "vanderpol.h").write_text(files["vanderpol.h"])
+                report = check_on_host(built, folder, states=2000, steps=2000,
+                                       sanitized_states=0).report
+                if report.bit_exact:
+                    passed.append(f"{name}{change:+d}")
+        return passed
+
+    assert missed("probed") == []
+    # seeded fault: without the probes the same short proof lets a one-LSB change through
+    # (h one LSB up: measured)
+    monkeypatch.setattr(host_check, "probe_states", lambda _: None)
+    assert missed("random only") != []

@@ -215,11 +215,14 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
                     typical: np.ndarray, states: int = 1_000_000, steps: int = 1_000_000,
                     segment: int = 64, block: int = 1 << 18, seed: int = SEED,
                     shipped_trace: Callable[[], HostModule | None] | None = None,
-                    ramps: tuple[Ramp, ...] = ()) -> BitExactReport:
+                    ramps: tuple[Ramp, ...] = (),
+                    first_states: np.ndarray | None = None) -> BitExactReport:
     """Check the init function, the setters and ramps, then compare C and golden on ``states``
     random states and a ``steps``-step trajectory.
 
     ramps : the model's runtime parameters in order (one setter each), for the ramp checks.
+    first_states : shape (n_states, k) -- states compared before the random ones, in their place
+        (the self-test's probes, each of which shows a one-LSB change of a stored constant).
 
     shipped_trace : builds, when a mismatch must be located, a module whose traced step is the
         firmware's own step code with a trace added (see ``host_check``), so the operation named
@@ -244,6 +247,9 @@ def prove_bit_exact(program: IntegerProgram, host: HostModule, initial: np.ndarr
     started = time.perf_counter()
     rng = np.random.default_rng(seed)
     batch = random_states(program, states, typical, rng)
+    if first_states is not None:
+        first = np.asarray(first_states, dtype=np.int64)[:, :states]
+        batch[:, :first.shape[1]] = first
     _require_inside_word(program, batch, "a random state")
     counts = random_counts(states, rng)
     got, got_counts = _c_step_each(host, batch, counts)

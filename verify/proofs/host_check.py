@@ -10,8 +10,9 @@ from pathlib import Path
 
 import numpy as np
 
-from orbitfix.gen.c.emit import render_host_harness, render_model, render_trace
+from orbitfix.gen.c.emit import firmware_context, render_host_harness, render_model, render_trace
 from orbitfix.gen.c.naming import CNames
+from orbitfix.gen.c.selftest import choose_probes
 from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.integer_program import IntegerProgram
@@ -112,12 +113,33 @@ def check_on_host(design: Design, sources_folder: Path | None = None, states: in
     report = prove_bit_exact(plan.program, host, initial, np.array(typical), states=states,
                              steps=steps,
                              shipped_trace=lambda: _shipped_trace(design, sources, traced, harness),
-                             ramps=ramps)
+                             ramps=ramps, first_states=probe_states(design))
     if report.bit_exact and sanitized_states > 0:
         _check_sanitized(report, plan.program, {**sources, **traced}, harness, initial,
                          np.array(typical), min(sanitized_states, states), min(sanitized_states, steps))
     return HostCheck(sources=origin, report=report, build_seconds=build_seconds,
                      build_reused=host.reused, notes=notes)
+
+
+_PROBED: list[tuple[Design, np.ndarray]] = []  # the last few designs' probe states, newest last
+PROBED_KEPT = 4
+
+
+def probe_states(design: Design) -> np.ndarray:
+    """The self-test's probe states (``gen/c/selftest.choose_probes``), shape (n_states, k): for
+    every one-LSB change of a stored number of NAME.c that shows on a sampled step, a state whose
+    next state shows it. The proof compares them first, so even a short proof catches such a
+    change. Kept for the last few designs (by the design object itself), since every check of
+    one design asks again."""
+    for kept, states in _PROBED:
+        if kept is design:
+            return states
+    shipped = firmware_context(design.model, design.timing, design.integrator,
+                               design.plan)["shipped_constants"]
+    states = np.ascontiguousarray(choose_probes(design.plan, shipped).states.T, dtype=np.int64)
+    _PROBED.append((design, states))
+    del _PROBED[:-PROBED_KEPT]
+    return states
 
 
 def _check_sanitized(report: BitExactReport, program: IntegerProgram, sources: dict[str, str],
