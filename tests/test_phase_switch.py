@@ -10,13 +10,17 @@ practice)."""
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
 
+import orbitfix.gen.model as model_package
 from orbitfix.gen.errors import InputError
 from orbitfix.gen.model import networks
-from orbitfix.gen.model.networks import MIX, build_network, chain_lags
+from orbitfix.gen.model.model_file import load_model
+from orbitfix.gen.model.networks import GAITS, MIX, build_network, chain_lags
+from orbitfix.verify.cli.main import main
 
 COUNT = 4
 
@@ -112,3 +116,69 @@ def test_a_bad_switch_is_refused(change: dict, said: str) -> None:
     with pytest.raises(InputError, match=said):
         build_network("chain4", lags=chain_lags(COUNT, 1.0), cycle_hz=1.0, loop_hz=100,
                       oscillator="phase_amplitude", links="neighbours", **change)
+
+
+# -- the model file: a chain switches its wave count (switch_waves), a gait network its gait ---------
+
+EEL = """name = "eel"
+[network]
+oscillator = "phase_amplitude"
+pattern = "chain"
+count = 4
+waves = 1.0
+switch_waves = -1.0
+switch_rate = 0.5
+[rhythm]
+cycle_hz = 1.0
+loop_hz = 100
+"""
+
+
+def test_a_chain_file_switches_its_wave_count(tmp_path: Path) -> None:
+    path = tmp_path / "eel.toml"
+    path.write_text(EEL)
+    model = load_model(str(path))
+    # the lags of -1 wave along 4: 0, 3/4, 1/2, 1/4 of a cycle (the wave running the other way)
+    assert model.network.wanted_lags == (0.0, 0.25, 0.5, 0.75)
+    assert model.network.switch_lags == (0.0, 0.75, 0.5, 0.25)
+    assert model.network.switch_pattern == "chain of -1 waves"
+    (mix,) = model.runtime_parameters
+    assert (mix.name, mix.value, mix.low, mix.high, mix.rate) == (MIX, 0.0, 0.0, 1.0, 0.5)
+    # a hopf chain switches alike
+    path.write_text(EEL.replace('"phase_amplitude"', '"hopf"'))
+    assert load_model(str(path)).network.switch_lags == (0.0, 0.75, 0.5, 0.25)
+
+
+def test_a_phase_gait_network_switches_gait(tmp_path: Path) -> None:
+    base = (Path(model_package.__file__).parent / "library" / "walking_platform.toml").read_text()
+    path = tmp_path / "platform.toml"
+    path.write_text(base.replace('oscillator = "hopf"', 'oscillator = "phase_amplitude"')
+                    .split("[parameters]")[0] + "[rhythm]\ncycle_hz = 1.0\nloop_hz = 250\n")
+    model = load_model(str(path))
+    assert model.network.switch_lags == GAITS["trot"] and model.network.switch_pattern == "trot"
+    assert [p.name for p in model.runtime_parameters] == [MIX]
+
+
+@pytest.mark.parametrize("old, new, line, said", [
+    ("switch_waves = -1.0\n", "", 7, "needs switch_waves"),
+    ("switch_waves = -1.0", 'switch_waves = "back"', 7, "switch_waves must be a number"),
+    ("switch_waves = -1.0", 'switch_to = "trot"', 7, "with switch_waves, not switch_to"),
+    ("switch_waves = -1.0", "switch_waves = 5.0", 7, "gives the same lags as waves"),
+    ("switch_rate = 0.5\n", "", 2, "needs switch_rate"),
+    ("switch_rate = 0.5", "switch_rate = -1.0", 8, "switch_rate: -1 is not accepted"),
+    ('pattern = "chain"\ncount = 4\nwaves = 1.0', "lags = [0, 0.25, 0.5, 0.75]", 5,
+     "only a network with a gait or a chain"),
+    ('pattern = "chain"\ncount = 4\nwaves = 1.0', 'pattern = "walk"', 5, "switch_waves is for a chain"),
+    ('oscillator = "phase_amplitude"\npattern = "chain"\ncount = 4\nwaves = 1.0',
+     'oscillator = "vanderpol"\ncoupling = [[0, 1], [1, 0]]\ncoupled_state = "y"', 6,
+     "'switch_waves' is for hopf and phase_amplitude networks"),
+])
+def test_a_bad_switch_in_a_file_is_refused_with_its_line(tmp_path: Path, capsys, old: str,
+                                                         new: str, line: int, said: str) -> None:
+    path = tmp_path / "eel.toml"
+    assert old in EEL
+    path.write_text(EEL.replace(old, new))
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert f"eel.toml:{line}:" in err and said in err and "accepted:" in err
+    assert "Traceback" not in err
