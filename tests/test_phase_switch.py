@@ -44,7 +44,7 @@ def _random_states(seed: int = 1, columns: int = 16) -> np.ndarray:
     return states
 
 
-@pytest.mark.parametrize("second", [-1.0, 0.5])
+@pytest.mark.parametrize("second", [-0.5, 0.5])
 def test_the_blend_is_each_pattern_at_its_end_and_the_identity_between(second: float) -> None:
     # The angle-difference identity: at pattern_mix 0 the switching chain's right-hand side is the
     # one-pattern chain's of the first wave count, at 1 that of the second, at any states (the
@@ -79,7 +79,7 @@ def test_the_blend_the_wrong_way_round_is_caught(monkeypatch) -> None:
     real = networks._blend
     monkeypatch.setattr(networks, "_blend", lambda first, second: real(second, first))
     states = _random_states()
-    got = _field(_chain(1.0, -1.0).with_parameters({MIX: 0.0}), states)
+    got = _field(_chain(1.0, 0.5).with_parameters({MIX: 0.0}), states)
     assert not np.allclose(got, _field(_chain(1.0), states), rtol=1e-12, atol=1e-12)
 
 
@@ -95,27 +95,39 @@ def test_a_network_that_does_not_switch_keeps_its_one_pattern_form() -> None:
 
 
 def test_terms_whose_biases_agree_keep_the_one_pattern_form() -> None:
-    # Only the last oscillator's lag changes (0.75 to 0.25), so only the links to it are blended.
-    model = build_network("four", lags=[0, 0.25, 0.5, 0.75], switch_to=[0, 0.25, 0.5, 0.25],
+    # Only the last oscillator's lag changes (0.75 to 0.5), so only the links to it are blended.
+    model = build_network("four", lags=[0, 0.25, 0.5, 0.75], switch_to=[0, 0.25, 0.5, 0.5],
                           switch_rate=1.0, cycle_hz=1.0, loop_hz=100, oscillator="phase_amplitude",
                           links="neighbours")
     assert MIX not in model.equation_text[0] and MIX not in model.equation_text[3]
     assert "sin(theta1 - theta2 - 1.5707963267948966)" in model.equation_text[3]
     assert MIX in model.equation_text[6] and MIX in model.equation_text[9]
-    assert model.network.switch_lags == (0.0, 0.25, 0.5, 0.25)
+    assert model.network.switch_lags == (0.0, 0.25, 0.5, 0.5)
     (mix,) = model.runtime_parameters
     assert (mix.name, mix.low, mix.high, mix.rate) == (MIX, 0.0, 1.0, 1.0)
 
 
 @pytest.mark.parametrize("change, said", [
     ({"switch_to": [0.0, 0.5]}, "has 2 lags for 4 oscillators"),
-    ({"switch_to": chain_lags(COUNT, -1.0)}, "needs a positive switch_rate"),
-    ({"switch_to": chain_lags(COUNT, -1.0), "switch_rate": 0.0}, "needs a positive switch_rate"),
+    ({"switch_to": chain_lags(COUNT, 0.5)}, "needs a positive switch_rate"),
+    ({"switch_to": chain_lags(COUNT, 0.5), "switch_rate": 0.0}, "needs a positive switch_rate"),
+    ({"switch_to": chain_lags(COUNT, 5.0), "switch_rate": 0.5}, "same lags as the chain"),
+    # 1 wave along 4 is a quarter turn per link, -1 wave minus a quarter: half a turn apart on
+    # every link, the first pattern an unstable solution of the second's coupling
+    ({"switch_to": chain_lags(COUNT, -1.0), "switch_rate": 0.5}, "moves by 0 or half a turn"),
 ])
 def test_a_bad_switch_is_refused(change: dict, said: str) -> None:
     with pytest.raises(InputError, match=said):
         build_network("chain4", lags=chain_lags(COUNT, 1.0), cycle_hz=1.0, loop_hz=100,
-                      oscillator="phase_amplitude", links="neighbours", **change)
+                      oscillator="phase_amplitude", links="neighbours", pattern="chain", **change)
+
+
+def test_a_hopf_switch_between_opposed_gaits_is_refused_too() -> None:
+    # trot (0, 1/2, 1/2, 0) and pace (0, 1/2, 0, 1/2) (gait tables, common practice): each pair of
+    # legs is together in one and half a cycle apart in the other, or the same in both
+    with pytest.raises(InputError, match="moves by 0 or half a turn"):
+        build_network("legs", lags=GAITS["trot"], switch_to=GAITS["pace"], switch_rate=0.5,
+                      pattern="trot", switch_pattern="pace", cycle_hz=1.0, loop_hz=100)
 
 
 # -- the model file: a chain switches its wave count (switch_waves), a gait network its gait ---------
@@ -124,7 +136,7 @@ EEL = """name = "eel"
 [network]
 oscillator = "phase_amplitude"
 pattern = "chain"
-count = 4
+count = 8
 waves = 1.0
 switch_waves = -1.0
 switch_rate = 0.5
@@ -138,15 +150,24 @@ def test_a_chain_file_switches_its_wave_count(tmp_path: Path) -> None:
     path = tmp_path / "eel.toml"
     path.write_text(EEL)
     model = load_model(str(path))
-    # the lags of -1 wave along 4: 0, 3/4, 1/2, 1/4 of a cycle (the wave running the other way)
-    assert model.network.wanted_lags == (0.0, 0.25, 0.5, 0.75)
-    assert model.network.switch_lags == (0.0, 0.75, 0.5, 0.25)
+    # the lags of -1 wave along 8: i * 7/8 of a cycle (the wave running the other way)
+    assert model.network.wanted_lags == tuple(i / 8 for i in range(8))
+    assert model.network.switch_lags == tuple((-i / 8) % 1.0 for i in range(8))
     assert model.network.switch_pattern == "chain of -1 waves"
     (mix,) = model.runtime_parameters
     assert (mix.name, mix.value, mix.low, mix.high, mix.rate) == (MIX, 0.0, 0.0, 1.0, 0.5)
     # a hopf chain switches alike
     path.write_text(EEL.replace('"phase_amplitude"', '"hopf"'))
-    assert load_model(str(path)).network.switch_lags == (0.0, 0.75, 0.5, 0.25)
+    assert load_model(str(path)).network.switch_lags == tuple((-i / 8) % 1.0 for i in range(8))
+
+
+def test_a_chain_file_whose_wave_only_turns_over_is_refused(tmp_path: Path, capsys) -> None:
+    # 1 wave along 4 is a quarter turn per link, -1 wave minus a quarter: half a turn apart
+    path = tmp_path / "eel.toml"
+    path.write_text(EEL.replace("count = 8", "count = 4"))
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "moves by 0 or half a turn" in err and "Traceback" not in err
 
 
 def test_a_phase_gait_network_switches_gait(tmp_path: Path) -> None:
@@ -163,13 +184,13 @@ def test_a_phase_gait_network_switches_gait(tmp_path: Path) -> None:
     ("switch_waves = -1.0\n", "", 7, "needs switch_waves"),
     ("switch_waves = -1.0", 'switch_waves = "back"', 7, "switch_waves must be a number"),
     ("switch_waves = -1.0", 'switch_to = "trot"', 7, "with switch_waves, not switch_to"),
-    ("switch_waves = -1.0", "switch_waves = 5.0", 7, "gives the same lags as waves"),
+    ("switch_waves = -1.0", "switch_waves = 9.0", 7, "gives the same lags as waves"),
     ("switch_rate = 0.5\n", "", 2, "needs switch_rate"),
     ("switch_rate = 0.5", "switch_rate = -1.0", 8, "switch_rate: -1 is not accepted"),
-    ('pattern = "chain"\ncount = 4\nwaves = 1.0', "lags = [0, 0.25, 0.5, 0.75]", 5,
+    ('pattern = "chain"\ncount = 8\nwaves = 1.0', "lags = [0, 0.25, 0.5, 0.75]", 5,
      "only a network with a gait or a chain"),
-    ('pattern = "chain"\ncount = 4\nwaves = 1.0', 'pattern = "walk"', 5, "switch_waves is for a chain"),
-    ('oscillator = "phase_amplitude"\npattern = "chain"\ncount = 4\nwaves = 1.0',
+    ('pattern = "chain"\ncount = 8\nwaves = 1.0', 'pattern = "walk"', 5, "switch_waves is for a chain"),
+    ('oscillator = "phase_amplitude"\npattern = "chain"\ncount = 8\nwaves = 1.0',
      'oscillator = "vanderpol"\ncoupling = [[0, 1], [1, 0]]\ncoupled_state = "y"', 6,
      "'switch_waves' is for hopf and phase_amplitude networks"),
 ])
