@@ -104,6 +104,9 @@ def test_a_gait_networks_switch_is_checked(tmp_path, capsys) -> None:
         ('switch_to = "trot"', 'switch_to = "walk"', "switch_to must name another gait"),
         ("switch_rate = 0.5\n", "", "needs switch_rate"),
         ('switch_to = "trot"', "switch_waves = -1.0", "switch_waves is for a chain"),
+        # pace to trot: each pair of legs together in one, half a cycle apart in the other, or
+        # the same in both (gait tables, common practice): refused, see tests/test_phase_switch.py
+        ('pattern = "walk"', 'pattern = "pace"', "moves by 0 or half a turn"),
         ('pattern = "walk"', "lags = [0, 0.5, 0.75, 0.25]", "only a network with a gait or a chain"),
     ):
         path = tmp_path / "platform.toml"

@@ -169,7 +169,7 @@ def test_a_chain_file_whose_wave_only_turns_over_is_refused(tmp_path: Path, caps
     path.write_text(EEL.replace("count = 8", "count = 4"))
     assert main(["check", str(path)]) == 2
     err = capsys.readouterr().err
-    assert "moves by 0 or half a turn" in err and "Traceback" not in err
+    assert "eel.toml:7:" in err and "moves by 0 or half a turn" in err and "Traceback" not in err
 
 
 def test_a_phase_gait_network_switches_gait(tmp_path: Path) -> None:

@@ -34,6 +34,8 @@ from orbitfix.gen.model.networks import (
     build_network,
     chain_lags,
     gait_lags,
+    link_pairs,
+    switch_problem,
 )
 
 MODELS_FOLDER = Path(__file__).parent / "library"
@@ -398,7 +400,7 @@ class _Reader:
         else:
             raise self.error(self.line_of("network", "pattern"), f"unknown pattern {pattern!r}",
                              ", ".join(PATTERNS))
-        switch = self.pattern_switch(spec, pattern, lags)
+        switch = self.pattern_switch(spec, pattern, lags, links)
         parameters, request, rhythm = self.network_common(data, labels, len(lags),
                                                           "labels = [\"head\", \"tail\"]")
         runtime = {n: self.parameter(data, n, v, m) for n, v, m in
@@ -413,7 +415,7 @@ class _Reader:
         except InputError as exc:
             raise self.error(None, str(exc), NETWORK_HINT) from None
 
-    def pattern_switch(self, spec: dict, pattern: str, lags: Sequence[float]) -> dict:
+    def pattern_switch(self, spec: dict, pattern: str, lags: Sequence[float], links: str) -> dict:
         """switch_to (another gait, for a gait network) or switch_waves (another wave count, for a
         chain), and switch_rate (per second): a network that switches pattern at run time, as
         build_network's keywords; {} when it has none."""
@@ -441,6 +443,9 @@ class _Reader:
                                  f"{len(lags)} (they differ by a multiple of count): nothing to "
                                  "switch to", chain_example)
             name = f"chain of {waves:g} waves"
+            problem = switch_problem(lags, target, link_pairs(len(lags), links), pattern, name)
+            if problem:
+                raise self.error(self.line_of("network", "switch_waves"), problem, chain_example)
         elif pattern in GAITS:
             if "switch_waves" in spec:
                 raise self.error(self.line_of("network", "switch_waves"), "switch_waves is for a "
@@ -452,6 +457,10 @@ class _Reader:
                                  f"switch_to must name another gait than {pattern!r}, got {name!r}",
                                  f"{gait_example} (gaits: {', '.join(GAITS)})")
             target = gait_lags(name)
+            problem = switch_problem(lags, target, link_pairs(len(lags), links), pattern, name)
+            if problem:
+                raise self.error(self.line_of("network", "switch_to"), problem,
+                                 f"{gait_example} (gaits: {', '.join(GAITS)})")
         else:
             key = next(k for k in ("switch_to", "switch_waves", "switch_rate") if k in spec)
             raise self.error(self.line_of("network", key) or where, "only a network with a gait "

@@ -179,10 +179,7 @@ def build_network(
             raise InputError(f"network '{name}': a {oscillator} network has no parameter '{key}' "
                              f"(its parameters are: {', '.join(table)})")
         values[key] = float(value)
-    if links == "all":
-        pairs = tuple((i, j) for i in range(count) for j in range(count) if i != j)
-    else:
-        pairs = tuple((i, j) for i in range(count) for j in (i - 1, i + 1) if 0 <= j < count)
+    pairs = link_pairs(count, links)
     runtime = dict(runtime or {})
     for key, parameter in runtime.items():
         if key not in values or not parameter.runtime:
@@ -197,7 +194,9 @@ def build_network(
             raise InputError(f"network '{name}': switching pattern needs a positive switch_rate "
                              "(the fraction of the change made per second)")
         second = tuple((float(v) - float(switch_to[0])) % 1.0 for v in switch_to)
-        _refuse_a_switch_without_a_path(name, wanted, second, pairs, pattern, switch_pattern)
+        problem = switch_problem(wanted, second, pairs, pattern, switch_pattern)
+        if problem:
+            raise InputError(f"network '{name}': {problem}")
         kind = "gait" if pattern in GAITS and switch_pattern in GAITS else "pattern"
         runtime[MIX] = Parameter(MIX, 0.0, f"{kind} mix, 0 the {pattern} and 1 the "
                                  f"{switch_pattern}; set it to switch, the step ramps it at "
@@ -243,30 +242,37 @@ def build_network(
                           loop_hz, fixed_point, source, layout, runtime)
 
 
-def _refuse_a_switch_without_a_path(name: str, first: tuple[float, ...],
-                                    second: tuple[float, ...], pairs: tuple[tuple[int, int], ...],
-                                    pattern: str, switch_pattern: str) -> None:
-    """Refuse a switch whose patterns agree on every link, or differ on each by 0 or half a turn.
+def link_pairs(count: int, links: str) -> tuple[tuple[int, int], ...]:
+    """(i, j) for each oscillator i pulled by j (0-based): every pair both ways ('all'), or each
+    oscillator's neighbours along a chain ('neighbours')."""
+    if links == "all":
+        return tuple((i, j) for i in range(count) for j in range(count) if i != j)
+    return tuple((i, j) for i in range(count) for j in (i - 1, i + 1) if 0 <= j < count)
 
-    In the latter case each blended coupling is the first pattern's times (1 - 2 m): at
-    pattern_mix 1 it is the first pattern's coupling negated, for which the first pattern is still
-    an exact solution, an unstable one. Leaving it then rests on the residue of settling and on
-    rounding alone, at no time one can state: measured in golden, a phase chain of 4 switched from
-    1 wave to -1 after 10 cycles of settling turned over within 2 s, after 100 cycles not within
-    40 s; four Hopf legs switched from trot to pace after 40 cycles left the trot about 4 s after
-    the ramp."""
+
+def switch_problem(first: Sequence[float], second: Sequence[float],
+                   pairs: tuple[tuple[int, int], ...], pattern: str, switch_pattern: str
+                   ) -> str | None:
+    """Why a switch between two patterns' lags is refused, or None: the patterns agree on every
+    link, or differ on each by 0 or half a turn.
+
+    In the latter case each link that changes has its coupling times (1 - 2 m): at pattern_mix 1
+    it is the first pattern's negated, for which the first pattern is still an exact solution, an
+    unstable one. Leaving it then rests on the residue of settling and on rounding alone, at no
+    time one can state: measured in golden, a phase chain of 4 switched from 1 wave to -1 after
+    10 cycles of settling turned over within 2 s, after 100 cycles not within 40 s; four Hopf
+    legs switched from trot to pace after 40 cycles left the trot about 4 s after the ramp."""
     moves = [((first[i] - first[j]) - (second[i] - second[j])) % 1.0 for i, j in pairs]
     nothing = [min(v, 1.0 - v) < 1e-9 for v in moves]
     if all(nothing):
-        raise InputError(f"network '{name}': the pattern to switch to has the same lags as the "
-                         f"{pattern}: nothing to switch to")
+        return f"the pattern to switch to has the same lags as the {pattern}: nothing to switch to"
     if all(n or abs(v - 0.5) < 1e-9 for n, v in zip(nothing, moves, strict=True)):
-        raise InputError(f"network '{name}': from the {pattern} to the {switch_pattern} every "
-                         "link's wanted phase difference moves by 0 or half a turn, so the first "
-                         "pattern stays an (unstable) solution of the second's coupling and the "
-                         "network may leave it late or never; pick patterns apart by less than "
-                         "half a turn on some link (a chain of 4 from 1 wave to 0.5, or of 8 "
-                         "from 1 to -1; the walk from or to any other gait)")
+        return (f"from the {pattern} to the {switch_pattern} every link's wanted phase difference "
+                "moves by 0 or half a turn, so the first pattern stays an (unstable) solution of "
+                "the second's coupling and the network may leave it late or never; pick patterns "
+                "apart by less than half a turn on some link (a chain of 4 from 1 wave to 0.5, or "
+                "of 8 from 1 to -1; the walk from or to any other gait)")
+    return None
 
 
 def _network_model(name: str, description: str, states: list[State], equations: list[str],
