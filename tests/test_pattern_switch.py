@@ -97,13 +97,17 @@ def test_the_switching_c_is_bit_exact_through_the_setter(platform) -> None:
     assert report.setters_checked == 1 and report.ramp_steps > 0
 
 
-def test_only_a_hopf_gait_network_switches(tmp_path, capsys) -> None:
+def test_a_gait_networks_switch_is_checked(tmp_path, capsys) -> None:
     base = (Path(model_package.__file__).parent / "library" / f"{MODEL}.toml").read_text()
     for old, new, said in (
         ('switch_to = "trot"', 'switch_to = "gallop"', "switch_to must name another gait"),
         ('switch_to = "trot"', 'switch_to = "walk"', "switch_to must name another gait"),
         ("switch_rate = 0.5\n", "", "needs switch_rate"),
-        ('oscillator = "hopf"', 'oscillator = "phase_amplitude"', "only a hopf network"),
+        ('switch_to = "trot"', "switch_waves = -1.0", "switch_waves is for a chain"),
+        # pace to trot: each pair of legs together in one, half a cycle apart in the other, or
+        # the same in both (gait tables, common practice): refused, see tests/test_phase_switch.py
+        ('pattern = "walk"', 'pattern = "pace"', "moves by 0 or half a turn"),
+        ('pattern = "walk"', "lags = [0, 0.5, 0.75, 0.25]", "only a network with a gait or a chain"),
     ):
         path = tmp_path / "platform.toml"
         path.write_text(base.replace(old, new))

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import re
 import tomllib
+from collections.abc import Sequence
 from dataclasses import replace
 from pathlib import Path
 from typing import Any
@@ -33,6 +34,8 @@ from orbitfix.gen.model.networks import (
     build_network,
     chain_lags,
     gait_lags,
+    link_pairs,
+    switch_problem,
 )
 
 MODELS_FOLDER = Path(__file__).parent / "library"
@@ -47,7 +50,7 @@ FIXED_POINT_KEYS = {"fraction_bits", "margin", "integrator", "word_bits", "round
 NETWORK_TOP_KEYS = {"name", "description", "network", "parameters", "rhythm", "fixed_point",
                     "outputs"}
 NETWORK_KEYS = {"oscillator", "pattern", "count", "waves", "lags", "links", "labels", "coupling",
-                "coupled_state", "switch_to", "switch_rate"}
+                "coupled_state", "switch_to", "switch_waves", "switch_rate"}
 
 RUNTIME_HINT = ("{name} = {{ value = 1.0, runtime = true, min = 0.5, max = 2.0, rate = 0.25 }} "
                 "(rate: the fastest change per second; leave it out to change in one step)")
@@ -55,7 +58,9 @@ RUNTIME_HINT = ("{name} = {{ value = 1.0, runtime = true, min = 0.5, max = 2.0, 
 NETWORK_HINT = (
     "a network file has: name, description, [network] oscillator = \"hopf\" or \"phase_amplitude\" "
     f"and either pattern = one of {', '.join(PATTERNS)} (chain also takes count and waves) or lags = "
-    "[0, 0.5, ...] in cycles (with links = \"all\" or \"neighbours\" and optional labels), then "
+    "[0, 0.5, ...] in cycles (with links = \"all\" or \"neighbours\" and optional labels; to "
+    "switch pattern at run time, switch_to = another gait or, for a chain, switch_waves = another "
+    "wave count, with switch_rate per second), then "
     "optional [parameters] (hopf: mu, omega, gamma, k; phase_amplitude: nu, R, a, w); or "
     "oscillator = the name of a single built-in model (e.g. \"vanderpol\") with coupling = [[0, k], "
     "[k, 0]] (diffusive, s_i' += sum_j k_ij (s_j - s_i)) and coupled_state = \"y\", optional lags "
@@ -395,7 +400,7 @@ class _Reader:
         else:
             raise self.error(self.line_of("network", "pattern"), f"unknown pattern {pattern!r}",
                              ", ".join(PATTERNS))
-        switch = self.pattern_switch(spec, pattern, oscillator)
+        switch = self.pattern_switch(spec, pattern, lags, links)
         parameters, request, rhythm = self.network_common(data, labels, len(lags),
                                                           "labels = [\"head\", \"tail\"]")
         runtime = {n: self.parameter(data, n, v, m) for n, v, m in
@@ -410,31 +415,68 @@ class _Reader:
         except InputError as exc:
             raise self.error(None, str(exc), NETWORK_HINT) from None
 
-    def pattern_switch(self, spec: dict, pattern: str, oscillator: str) -> dict:
-        """switch_to (a gait) and switch_rate (per second) of a Hopf gait network that switches
-        pattern at run time, as build_network's keywords; {} when it has none."""
-        if "switch_to" not in spec and "switch_rate" not in spec:
+    def pattern_switch(self, spec: dict, pattern: str, lags: Sequence[float], links: str) -> dict:
+        """switch_to (another gait, for a gait network) or switch_waves (another wave count, for a
+        chain), and switch_rate (per second): a network that switches pattern at run time, as
+        build_network's keywords; {} when it has none."""
+        if not any(key in spec for key in ("switch_to", "switch_waves", "switch_rate")):
             return {}
-        example = "pattern = \"walk\", switch_to = \"trot\", switch_rate = 0.5"
-        if oscillator != "hopf" or pattern not in GAITS:
-            raise self.error(self.line_of("network", "switch_to") or self.line_of("network"),
-                             "only a hopf network with a gait pattern switches pattern at run "
-                             "time", example)
-        target = spec.get("switch_to")
-        if target not in GAITS or target == pattern:
-            raise self.error(self.line_of("network", "switch_to") or self.line_of("network"),
-                             f"switch_to must name another gait than {pattern!r}, got {target!r}",
-                             f"{example} (gaits: {', '.join(GAITS)})")
+        gait_example = "pattern = \"walk\", switch_to = \"trot\", switch_rate = 0.5"
+        chain_example = ("pattern = \"chain\", count = 8, waves = 1.0, switch_waves = -1.0, "
+                         "switch_rate = 0.5 (-1.0: the wave running the other way)")
+        where = self.line_of("network")
+        if pattern == "chain":
+            if "switch_to" in spec:
+                raise self.error(self.line_of("network", "switch_to") or where, "a chain switches "
+                                 "to another wave count with switch_waves, not switch_to",
+                                 chain_example)
+            if "switch_waves" not in spec:
+                raise self.error(self.line_of("network", "switch_rate") or where, "switching a "
+                                 "chain needs switch_waves, the wave count to switch to",
+                                 chain_example)
+            waves = self.number(spec["switch_waves"], "network", "switch_waves", "switch_waves",
+                                limits.LAG)
+            target = chain_lags(len(lags), waves)
+            if all(abs((a - b + 0.5) % 1.0 - 0.5) < 1e-12 for a, b in zip(lags, target, strict=True)):
+                raise self.error(self.line_of("network", "switch_waves"), f"switch_waves = "
+                                 f"{waves:g} gives the same lags as waves on a chain of "
+                                 f"{len(lags)} (they differ by a multiple of count): nothing to "
+                                 "switch to", chain_example)
+            name = f"chain of {waves:g} waves"
+            problem = switch_problem(lags, target, link_pairs(len(lags), links), pattern, name)
+            if problem:
+                raise self.error(self.line_of("network", "switch_waves"), problem, chain_example)
+        elif pattern in GAITS:
+            if "switch_waves" in spec:
+                raise self.error(self.line_of("network", "switch_waves"), "switch_waves is for a "
+                                 "chain (pattern = \"chain\"); a gait network switches to another "
+                                 "gait with switch_to", gait_example)
+            name = spec.get("switch_to")
+            if name not in GAITS or name == pattern:
+                raise self.error(self.line_of("network", "switch_to") or where,
+                                 f"switch_to must name another gait than {pattern!r}, got {name!r}",
+                                 f"{gait_example} (gaits: {', '.join(GAITS)})")
+            target = gait_lags(name)
+            problem = switch_problem(lags, target, link_pairs(len(lags), links), pattern, name)
+            if problem:
+                raise self.error(self.line_of("network", "switch_to"), problem,
+                                 f"{gait_example} (gaits: {', '.join(GAITS)})")
+        else:
+            key = next(k for k in ("switch_to", "switch_waves", "switch_rate") if k in spec)
+            raise self.error(self.line_of("network", key) or where, "only a network with a gait "
+                             "or a chain pattern switches pattern at run time",
+                             f"{gait_example}; or {chain_example}")
         if "switch_rate" not in spec:
-            raise self.error(self.line_of("network"), "switching pattern needs switch_rate, the "
-                             "fraction of the change made per second", example)
+            raise self.error(where, "switching pattern needs switch_rate, the fraction of the "
+                             "change made per second",
+                             gait_example if pattern in GAITS else chain_example)
         rate = self.number(spec["switch_rate"], "network", "switch_rate", "switch_rate",
                            limits.RATE)
-        return {"switch_to": gait_lags(target), "switch_pattern": target, "switch_rate": rate}
+        return {"switch_to": target, "switch_pattern": name, "switch_rate": rate}
 
     def build_diffusive(self, data: dict, name: str, spec: dict, oscillator: str) -> Model:
         """N copies of a single built-in model with a diffusive coupling matrix on one state."""
-        for key in ("pattern", "count", "waves", "links"):
+        for key in ("pattern", "count", "waves", "links", "switch_to", "switch_waves", "switch_rate"):
             if key in spec:
                 raise self.error(self.line_of("network", key), f"'{key}' is for hopf and "
                                  "phase_amplitude networks; a network of "

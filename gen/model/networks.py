@@ -33,6 +33,10 @@ Science 315, 2007): states theta_i (an angle), r_i, r_dot_i, with sine coupling 
 and phi_ij = 2 pi (lag_i - lag_j), so that theta_j - theta_i = phi_ij on the wanted pattern: every
 sine vanishes there, every phase turns at 2 pi nu, and the wanted lags are an exact solution.
 
+Switching pattern at run time: Hopf rotations and phase biases alike are blended by a runtime
+parameter; a bias through sin(d - phi) = cos(phi) sin(d) - sin(phi) cos(d), so that only the
+numbers cos(phi) and sin(phi) are blended (exact at either end, the lags moving between).
+
 Diffusive networks (:func:`build_diffusive_network`): N copies of any single oscillator, with a
 user-given coupling matrix k acting on one chosen state s, s_i' += sum_j k_ij (s_j - s_i): the
 common linear diffusive coupling of identical oscillators (Pikovsky, Rosenblum and Kurths,
@@ -147,10 +151,11 @@ def build_network(
 
     runtime : parameters the firmware may change between steps (each a runtime
         :class:`Parameter` of the oscillator's own, e.g. omega to change the frequency).
-    switch_to, switch_rate : a second pattern's lags (Hopf networks): each rotation of the
-        coupling becomes (1 - m) R(theta_ij) + m R(theta'_ij), m the runtime parameter
-        ``pattern_mix`` in [0, 1] that ramps toward its setting at ``switch_rate`` per second, so
-        the firmware switches pattern with a setter, never resetting the state."""
+    switch_to, switch_rate : a second pattern's lags: each rotation of a Hopf coupling becomes
+        (1 - m) R(theta_ij) + m R(theta'_ij), and each phase bias's cosine and sine are blended
+        alike (see :func:`_phase_amplitude`), m the runtime parameter ``pattern_mix`` in [0, 1]
+        that ramps toward its setting at ``switch_rate`` per second, so the firmware switches
+        pattern with a setter, never resetting the state."""
     count = len(lags)
     if oscillator not in OSCILLATORS:
         raise InputError(f"network '{name}': unknown oscillator '{oscillator}' "
@@ -174,10 +179,7 @@ def build_network(
             raise InputError(f"network '{name}': a {oscillator} network has no parameter '{key}' "
                              f"(its parameters are: {', '.join(table)})")
         values[key] = float(value)
-    if links == "all":
-        pairs = tuple((i, j) for i in range(count) for j in range(count) if i != j)
-    else:
-        pairs = tuple((i, j) for i in range(count) for j in (i - 1, i + 1) if 0 <= j < count)
+    pairs = link_pairs(count, links)
     runtime = dict(runtime or {})
     for key, parameter in runtime.items():
         if key not in values or not parameter.runtime:
@@ -185,10 +187,6 @@ def build_network(
                              f"{oscillator} network (its parameters are: {', '.join(table)})")
     second = None
     if switch_to is not None:
-        if oscillator != "hopf":
-            raise InputError(f"network '{name}': only hopf networks switch pattern at run time "
-                             "(a phase oscillator's bias enters a sine, which has no fixed-point "
-                             "form with a runtime weight)")
         if len(switch_to) != count:
             raise InputError(f"network '{name}': the pattern to switch to has {len(switch_to)} "
                              f"lags for {count} oscillators")
@@ -196,12 +194,17 @@ def build_network(
             raise InputError(f"network '{name}': switching pattern needs a positive switch_rate "
                              "(the fraction of the change made per second)")
         second = tuple((float(v) - float(switch_to[0])) % 1.0 for v in switch_to)
-        runtime[MIX] = Parameter(MIX, 0.0, f"gait mix, 0 the {pattern} and 1 the "
+        problem = switch_problem(wanted, second, pairs, pattern, switch_pattern)
+        if problem:
+            raise InputError(f"network '{name}': {problem}")
+        kind = "gait" if pattern in GAITS and switch_pattern in GAITS else "pattern"
+        runtime[MIX] = Parameter(MIX, 0.0, f"{kind} mix, 0 the {pattern} and 1 the "
                                  f"{switch_pattern}; set it to switch, the step ramps it at "
                                  f"{switch_rate:g} per second", runtime=True, low=0.0, high=1.0,
                                  rate=float(switch_rate))
     if oscillator == "phase_amplitude":
-        states, equations, layout = _phase_amplitude(wanted, pairs, values, names, pattern)
+        states, equations, layout = _phase_amplitude(wanted, pairs, values, names, pattern,
+                                                     second, switch_pattern)
         return _network_model(name, description or f"{count} coupled phase oscillators "
                               f"({pattern})", states, equations, values, table, cycle_hz,
                               loop_hz, fixed_point, source, layout, runtime)
@@ -239,6 +242,39 @@ def build_network(
                           loop_hz, fixed_point, source, layout, runtime)
 
 
+def link_pairs(count: int, links: str) -> tuple[tuple[int, int], ...]:
+    """(i, j) for each oscillator i pulled by j (0-based): every pair both ways ('all'), or each
+    oscillator's neighbours along a chain ('neighbours')."""
+    if links == "all":
+        return tuple((i, j) for i in range(count) for j in range(count) if i != j)
+    return tuple((i, j) for i in range(count) for j in (i - 1, i + 1) if 0 <= j < count)
+
+
+def switch_problem(first: Sequence[float], second: Sequence[float],
+                   pairs: tuple[tuple[int, int], ...], pattern: str, switch_pattern: str
+                   ) -> str | None:
+    """Why a switch between two patterns' lags is refused, or None: the patterns agree on every
+    link, or differ on each by 0 or half a turn.
+
+    In the latter case each link that changes has its coupling times (1 - 2 m): at pattern_mix 1
+    it is the first pattern's negated, for which the first pattern is still an exact solution, an
+    unstable one. Leaving it then rests on the residue of settling and on rounding alone, at no
+    time one can state: measured in golden, a phase chain of 4 switched from 1 wave to -1 after
+    10 cycles of settling turned over within 2 s, after 100 cycles not within 40 s; four Hopf
+    legs switched from trot to pace after 40 cycles left the trot about 4 s after the ramp."""
+    moves = [((first[i] - first[j]) - (second[i] - second[j])) % 1.0 for i, j in pairs]
+    nothing = [min(v, 1.0 - v) < 1e-9 for v in moves]
+    if all(nothing):
+        return f"the pattern to switch to has the same lags as the {pattern}: nothing to switch to"
+    if all(n or abs(v - 0.5) < 1e-9 for n, v in zip(nothing, moves, strict=True)):
+        return (f"from the {pattern} to the {switch_pattern} every link's wanted phase difference "
+                "moves by 0 or half a turn, so the first pattern stays an (unstable) solution of "
+                "the second's coupling and the network may leave it late or never; pick patterns "
+                "apart by less than half a turn on some link (a chain of 4 from 1 wave to 0.5, or "
+                "of 8 from 1 to -1; the walk from or to any other gait)")
+    return None
+
+
 def _network_model(name: str, description: str, states: list[State], equations: list[str],
                    values: Mapping[str, float], table: Mapping[str, tuple[float, str]],
                    cycle_hz: float, loop_hz: float, fixed_point: FixedPointRequest | None,
@@ -265,10 +301,18 @@ def _network_model(name: str, description: str, states: list[State], equations: 
 
 
 def _phase_amplitude(wanted: tuple[float, ...], pairs: tuple[tuple[int, int], ...],
-                     values: dict[str, float], names: tuple[str, ...], pattern: str
+                     values: dict[str, float], names: tuple[str, ...], pattern: str,
+                     second: tuple[float, ...] | None = None, switch_pattern: str = "custom"
                      ) -> tuple[list[State], list[str], NetworkLayout]:
     """States, equations and layout of a chain or web of phase oscillators with amplitude
-    dynamics, the phase biases phi_ij = 2 pi (lag_i - lag_j) making the wanted lags exact."""
+    dynamics, the phase biases phi_ij = 2 pi (lag_i - lag_j) making the wanted lags exact.
+
+    With a second pattern's lags (``second``), a coupling term whose two biases differ is written
+    by the angle-difference identity sin(d - phi) = cos(phi) sin(d) - sin(phi) cos(d), d =
+    theta_j - theta_i, as r_j (C sin(d) - S cos(d)) with C and S the cosines and sines of the two
+    biases blended by ``pattern_mix`` (exact at 0 and 1, where the term is the first or the second
+    pattern's; a number times a runtime parameter, so it keeps a fixed-point form). A term whose
+    two biases agree keeps the one-pattern form, so a network that does not switch is unchanged."""
     states, equations = [], []
     for i in range(len(wanted)):
         n = i + 1
@@ -284,6 +328,12 @@ def _phase_amplitude(wanted: tuple[float, ...], pairs: tuple[tuple[int, int], ..
             if a != i:
                 continue
             bias = _tidy(2 * math.pi * (wanted[i] - wanted[b]))
+            if second is not None:
+                c, s = _bias_terms(wanted, i, b)
+                c2, s2 = _bias_terms(second, i, b)
+                if (c, s) != (c2, s2):
+                    terms.append(_blended_sine(_blend(c, c2), _blend(s, s2), b + 1, n))
+                    continue
             shift = "" if bias == 0.0 else (f" - {bias!r}" if bias > 0 else f" + {-bias!r}")
             terms.append(f"r{b + 1} * sin(theta{b + 1} - theta{n}{shift})")
         coupling = f" + w * ({' + '.join(terms)})" if terms else ""
@@ -291,8 +341,33 @@ def _phase_amplitude(wanted: tuple[float, ...], pairs: tuple[tuple[int, int], ..
                       f"a * (a / 4 * (R - r{n}) - r_dot{n})"]
     layout = NetworkLayout(pattern=pattern, oscillator="phase_amplitude", labels=names,
                            members=tuple((3 * i + 1, 3 * i, 3 * i + 2) for i in range(len(wanted))),
-                           wanted_lags=wanted, links=pairs, phases=tuple(3 * i for i in range(len(wanted))))
+                           wanted_lags=wanted, links=pairs, phases=tuple(3 * i for i in range(len(wanted))),
+                           switch_lags=second,
+                           switch_pattern=switch_pattern if second is not None else None)
     return states, equations, layout
+
+
+def _bias_terms(lags: tuple[float, ...], i: int, j: int) -> tuple[float, float]:
+    """cos and sin of the phase bias phi_ij = 2 pi (lag_i - lag_j) (rounding noise snapped)."""
+    bias = 2 * math.pi * (lags[i] - lags[j])
+    return _tidy(math.cos(bias)), _tidy(math.sin(bias))
+
+
+def _blended_sine(c: float | str, s: float | str, j: int, i: int) -> str:
+    """r_j * sin(theta_j - theta_i - phi) written as r_j * (C sin(d) - S cos(d)), d = theta_j -
+    theta_i, with C = cos(phi) and S = sin(phi) numbers or pattern_mix blends; zero terms left
+    out (the rotation's coefficients at mix 0 and 1 may each be 0)."""
+    difference = f"theta{j} - theta{i}"
+    parts = []
+    for coefficient, function, sign in ((c, "sin", 1.0), (s, "cos", -1.0)):
+        if isinstance(coefficient, float):
+            if coefficient == 0.0:
+                continue
+            coefficient = repr(sign * coefficient)
+        elif sign < 0:
+            coefficient = f"(-{coefficient})"
+        parts.append(f"{coefficient} * {function}({difference})")
+    return f"r{j} * ({' + '.join(parts) or '0.0'})"
 
 
 def build_diffusive_network(
