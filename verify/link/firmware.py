@@ -12,6 +12,7 @@ from orbitfix.gen.c.naming import CNames
 from orbitfix.gen.c.selftest import render_selftest
 from orbitfix.gen.errors import UnsupportedError
 from orbitfix.gen.pipeline import Design
+from orbitfix.gen.recent import Recent
 from orbitfix.gen.study.start_path import check_start_path
 from orbitfix.verify.link.frames import MAX_BODY
 
@@ -52,23 +53,20 @@ def write_firmware_sources(built: Design, folder: Path) -> list[Path]:
     return [folder / name for name in files if name.endswith(".c")]
 
 
-_RENDERED: list[tuple[Design, dict[str, str]]] = []  # the last few designs' files, newest last
-RENDERED_KEPT = 4
-
-
 def firmware_files(built: Design) -> dict[str, str]:
-    """The firmware's files by name for one design. The self-test costs a golden run of the
-    start-up path and the probes' choice (seconds for a network), so the files of the last few
-    designs are kept: a design built for several boards renders once. Kept by the design object
-    itself (the same object, not an equal one), so nothing stale is ever returned."""
-    for kept, files in _RENDERED:
-        if kept is built:
-            return dict(files)
+    """The firmware's files by name for one design (a copy the caller may change). The self-test
+    costs a golden run of the start-up path and the probes' choice (seconds for a network), so a
+    design built for several boards renders once (``gen/recent.py``)."""
+    return dict(_rendered(built))
+
+
+def _render(built: Design) -> dict[str, str]:
     files = render_model(built.model, built.timing, built.integrator, built.plan)
     path = check_start_path(built)
     files.update(render_selftest(built.model, built.timing, built.integrator, built.plan,
                                  path.trajectory, path.counts))
     files[HARNESS_FILE] = render_harness(built)
-    _RENDERED.append((built, files))
-    del _RENDERED[:-RENDERED_KEPT]
-    return dict(files)
+    return files
+
+
+_rendered: Recent[Design, dict[str, str]] = Recent(_render)

@@ -17,6 +17,7 @@ from orbitfix.gen.errors import InputError, OrbitfixError
 from orbitfix.gen.pipeline import Design
 from orbitfix.gen.program.integer_program import IntegerProgram
 from orbitfix.gen.program.quantisation import quantise
+from orbitfix.gen.recent import Recent
 from orbitfix.gen.work_size import bit_exact_work, refuse_beyond_machine
 from orbitfix.verify.proofs.bit_exact import (
     BitExactReport,
@@ -121,25 +122,24 @@ def check_on_host(design: Design, sources_folder: Path | None = None, states: in
                      build_reused=host.reused, notes=notes)
 
 
-_PROBED: list[tuple[Design, np.ndarray]] = []  # the last few designs' probe states, newest last
-PROBED_KEPT = 4
-
-
 def probe_states(design: Design) -> np.ndarray:
     """The self-test's probe states (``gen/c/selftest.choose_probes``), shape (n_states, k): for
     every one-LSB change of a stored number of NAME.c that shows on a sampled step, a state whose
     next state shows it. The proof compares them first, so even a short proof catches such a
-    change. Kept for the last few designs (by the design object itself), since every check of
-    one design asks again."""
-    for kept, states in _PROBED:
-        if kept is design:
-            return states
+    change. Chosen once for each of the last few designs (``gen/recent.py``), since every check
+    of one design asks again."""
+    return _probed(design)
+
+
+def _probe(design: Design) -> np.ndarray:
     shipped = firmware_context(design.model, design.timing, design.integrator,
                                design.plan)["shipped_constants"]
     states = np.ascontiguousarray(choose_probes(design.plan, shipped).states.T, dtype=np.int64)
-    _PROBED.append((design, states))
-    del _PROBED[:-PROBED_KEPT]
+    states.setflags(write=False)  # shared by every check of the design
     return states
+
+
+_probed: Recent[Design, np.ndarray] = Recent(_probe)
 
 
 def _check_sanitized(report: BitExactReport, program: IntegerProgram, sources: dict[str, str],
