@@ -442,10 +442,7 @@ class _Reader:
                                  f"{waves:g} gives the same lags as waves on a chain of "
                                  f"{len(lags)} (they differ by a multiple of count): nothing to "
                                  "switch to", chain_example)
-            name = f"chain of {waves:g} waves"
-            problem = switch_problem(lags, target, link_pairs(len(lags), links), pattern, name)
-            if problem:
-                raise self.error(self.line_of("network", "switch_waves"), problem, chain_example)
+            name, key, example = f"chain of {waves:g} waves", "switch_waves", chain_example
         elif pattern in GAITS:
             if "switch_waves" in spec:
                 raise self.error(self.line_of("network", "switch_waves"), "switch_waves is for a "
@@ -457,15 +454,16 @@ class _Reader:
                                  f"switch_to must name another gait than {pattern!r}, got {name!r}",
                                  f"{gait_example} (gaits: {', '.join(GAITS)})")
             target = gait_lags(name)
-            problem = switch_problem(lags, target, link_pairs(len(lags), links), pattern, name)
-            if problem:
-                raise self.error(self.line_of("network", "switch_to"), problem,
-                                 f"{gait_example} (gaits: {', '.join(GAITS)})")
+            key, example = "switch_to", f"{gait_example} (gaits: {', '.join(GAITS)})"
         else:
             key = next(k for k in ("switch_to", "switch_waves", "switch_rate") if k in spec)
             raise self.error(self.line_of("network", key) or where, "only a network with a gait "
                              "or a chain pattern switches pattern at run time",
                              f"{gait_example}; or {chain_example}")
+        # build_network refuses it too, but here the message can name the line
+        problem = switch_problem(lags, target, link_pairs(len(lags), links), pattern, name)
+        if problem:
+            raise self.error(self.line_of("network", key), problem, example)
         if "switch_rate" not in spec:
             raise self.error(where, "switching pattern needs switch_rate, the fraction of the "
                              "change made per second",
